@@ -1,0 +1,12 @@
+/*
+ * gloam/gloam.h -- the whole public interface of libgloam: from a
+ * coronagraphic image sequence to detections and detection limits.
+ */
+#ifndef GLOAM_GLOAM_H
+#define GLOAM_GLOAM_H
+
+#include "gloam/core.h"
+#include "gloam/io.h"
+
+
+#endif

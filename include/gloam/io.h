@@ -1,0 +1,130 @@
+/*
+ * gloam/io.h -- FITS input and output (cfitsio), observation metadata and WCS
+ * (wcslib), parallactic-angle lists, CSV tables, and safe product writing.
+ *
+ * Inputs are opened read-only. Products are written to a temporary name in the
+ * destination folder and renamed into place only when every product of a
+ * command is complete (gl_outset), so a failure leaves nothing behind and an
+ * existing file is replaced only when overwriting was asked for.
+ */
+#ifndef GLOAM_IO_H
+#define GLOAM_IO_H
+
+#include "gloam/core.h"
+
+#include <stdio.h>
+
+#ifdef __cplusplus
+extern "C" {
+#endif
+
+/* ---- reading ----------------------------------------------------------- */
+
+/* Reads the first HDU of `path` that holds an image (primary or extension).
+ * 2-D, 3-D (x, y, frame) and 4-D (x, y, channel, frame) data of any BITPIX;
+ * BSCALE/BZERO applied, BLANK and NaN pixels become NaN. The header's
+ * non-structural cards are kept in (*out)->header.
+ * min_naxis: 2 accepts single images, 3 requires a cube.
+ * Errors: GL_ERR_IO (missing, unreadable), GL_ERR_INPUT (not FITS, no image
+ * HDU, fewer than min_naxis axes, more than 4 axes, an empty axis). */
+GL_API gl_status gl_fits_read_cube(const char *path, int min_naxis, gl_cube **out);
+
+/* Observation metadata found in a header. Fields absent from the header are
+ * NaN (numbers) or "" (strings); `found` lists the keywords seen. */
+typedef struct gl_obsinfo {
+    char date_obs[72];   /* DATE-OBS as written */
+    double mjd_obs;      /* MJD-OBS, or from DATE-OBS (UTC) through ERFA */
+    double exptime;      /* EXPTIME (or EXPOSURE, ITIME), seconds */
+    double ra_deg;       /* RA, degrees (sexagesimal hours accepted) */
+    double dec_deg;      /* DEC, degrees (sexagesimal accepted) */
+    double site_lat_deg; /* LATITUDE / OBSGEO-B / SITELAT */
+    double site_lon_deg; /* LONGITUD / OBSGEO-L / SITELONG, east positive */
+    double site_height_m;
+    char telescope[72];
+    char instrument[72];
+    char object[72];
+    char filter[72];
+    int has_wcs;         /* a celestial WCS was parsed by wcslib */
+    double pixscale_mas; /* from the WCS (geometric mean of axis scales), or NaN */
+    double saturate;     /* SATURATE keyword, or NaN */
+    char found[512];     /* space-separated keywords found */
+} gl_obsinfo;
+
+/* Fills info from a header; never fails (missing items stay NaN/""). */
+GL_API void gl_obsinfo_from_header(const gl_header *h, gl_obsinfo *info);
+
+/* ---- parallactic angles ------------------------------------------------ */
+
+/* Reads angles in degrees from a text file (one number a line, '#' starts a
+ * comment, blank lines skipped) or from a 1-D FITS image. When expected > 0
+ * the count must equal it. *angles is allocated with gl_malloc.
+ * Errors: GL_ERR_IO, GL_ERR_INPUT (bad number, with its line; wrong count;
+ * not finite; empty). */
+GL_API gl_status gl_angles_read(const char *path, long expected, double **angles,
+                                long *n);
+
+/* ---- provenance -------------------------------------------------------- */
+
+/* What made a product: recorded in every FITS product's header (HISTORY and
+ * GLxxx keywords). CSV tables stay plain (one header line of column names);
+ * their FITS-table twin carries the provenance. */
+typedef struct gl_provenance {
+    const char *program;   /* "gloam 0.1.0" */
+    const char *command;   /* the full command line */
+    int ninputs;
+    const char *inputs[16];
+    unsigned long crc32[16]; /* CRC-32 (zlib) of each input file's bytes */
+} gl_provenance;
+
+/* Adds an input file and its CRC-32 (silently ignores more than 16). */
+GL_API gl_status gl_provenance_add_input(gl_provenance *p, const char *path);
+
+/* ---- writing ----------------------------------------------------------- */
+
+/* A set of products written together: each file goes to a temporary name in
+ * its destination folder; gl_outset_commit renames all into place, or
+ * gl_outset_free (without commit) deletes them. */
+typedef struct gl_outset gl_outset;
+
+/* New set. With overwrite == 0 an existing destination is an error. */
+GL_API gl_status gl_outset_new(int overwrite, gl_outset **out);
+/* Registers `path` as a product. Checks at once that it does not exist (unless
+ * overwriting), that its folder is writable, and that it is not one of the
+ * inputs named in prov (when prov is given). Returns the temporary path to
+ * write to (owned by the set) in *tmp_path.
+ * Errors: GL_ERR_EXISTS, GL_ERR_IO, GL_ERR_USAGE (output equals an input). */
+GL_API gl_status gl_outset_add(gl_outset *s, const char *path, const gl_provenance *prov,
+                               const char **tmp_path);
+/* Renames every temporary file into place. */
+GL_API gl_status gl_outset_commit(gl_outset *s);
+/* Deletes uncommitted temporary files and frees the set; NULL is a no-op. */
+GL_API void gl_outset_free(gl_outset *s);
+
+/* Writes a cube as a float32 FITS image to `path` (normally a temporary name
+ * from gl_outset_add): NAXIS 2, 3 or 4 from c->naxis, the cube's header cards
+ * and keywords, provenance, and CHECKSUM/DATASUM. NaN stays NaN (IEEE). */
+GL_API gl_status gl_fits_write_cube(const char *path, const gl_cube *c,
+                                    const gl_provenance *prov);
+
+/* A table of double columns, written as CSV (one header line of column
+ * names; NaN as an empty field) or as a FITS file with an empty primary HDU
+ * and one binary-table extension named extname (columns "1D"). */
+typedef struct gl_table {
+    int ncols;
+    long nrows;
+    const char **names;   /* column names */
+    const char **units;   /* may be NULL or hold NULL entries */
+    const double **cols;  /* ncols arrays of nrows doubles */
+} gl_table;
+
+GL_API gl_status gl_table_write_csv(const char *path, const gl_table *t);
+GL_API gl_status gl_table_write_fits(const char *path, const gl_table *t,
+                                     const char *extname, const gl_provenance *prov);
+
+/* CRC-32 of a file's bytes (zlib). */
+GL_API gl_status gl_file_crc32(const char *path, unsigned long *crc);
+
+#ifdef __cplusplus
+}
+#endif
+#endif

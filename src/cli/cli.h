@@ -1,0 +1,71 @@
+/*
+ * cli.h -- what the command-line front end shares between commands: the run
+ * context (provenance, common options), option-value parsing with messages
+ * that name the option, and the mapping from library statuses to one-line
+ * messages and exit codes.
+ */
+#ifndef GLOAM_CLI_H
+#define GLOAM_CLI_H
+
+#include "gloam/gloam.h"
+
+#include <getopt.h>
+
+typedef struct gl_cli {
+    const char *command;   /* "simulate", ... */
+    int overwrite;
+    int quiet;
+    int verbose;
+    int threads;           /* 0: the OpenMP default */
+    char cmdline[4096];
+    char program[64];
+    gl_provenance prov;
+} gl_cli;
+
+/* Option codes shared by every command (above the range of short options). */
+enum {
+    CLI_OPT_OVERWRITE = 1000,
+    CLI_OPT_QUIET,
+    CLI_OPT_VERBOSE,
+    CLI_OPT_THREADS,
+    CLI_OPT_HELP,
+    CLI_OPT_FIRST_COMMAND_OPTION = 1100
+};
+
+#define CLI_COMMON_OPTIONS                                                                         \
+    {"overwrite", no_argument, 0, CLI_OPT_OVERWRITE}, {"quiet", no_argument, 0, CLI_OPT_QUIET},    \
+        {"verbose", no_argument, 0, CLI_OPT_VERBOSE},                                              \
+        {"threads", required_argument, 0, CLI_OPT_THREADS}, {"help", no_argument, 0, CLI_OPT_HELP}
+
+#define CLI_COMMON_HELP                                                                            \
+    "common options:\n"                                                                            \
+    "  --overwrite        replace existing products\n"                                           \
+    "  --threads N        worker threads (results do not depend on N)\n"                          \
+    "  --quiet            only errors on stderr\n"                                                \
+    "  --verbose          debugging detail on stderr\n"                                           \
+    "  --help             this text\n"
+
+/* Handles a common option; returns 1 when handled, 0 when not common,
+ * -1 on a bad value (message printed). help_text is printed for --help, after
+ * which the caller returns with *exit_now set. */
+int cli_common_option(gl_cli *cli, int code, const char *arg, const char *help_text,
+                      int *exit_now);
+
+/* Prints "gloam CMD: <library message>" and returns the exit code. */
+int cli_fail(const gl_cli *cli, gl_status st);
+/* Prints "gloam CMD: <message>" plus a hint to --help; returns 1. */
+int cli_usage(const gl_cli *cli, const char *fmt, ...) __attribute__((format(printf, 2, 3)));
+
+/* Parse option values; on failure print a message naming the option and
+ * return -1. */
+int cli_parse_long(const gl_cli *cli, const char *opt, const char *arg, long min, long max,
+                   long *out);
+int cli_parse_double(const gl_cli *cli, const char *opt, const char *arg, double min,
+                     double max, double *out);
+
+/* Applies --threads and installs the log and progress printers. */
+void cli_start(gl_cli *cli);
+
+/* Every command (one file each: cmd_NAME.c). */
+
+#endif

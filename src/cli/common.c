@@ -1,0 +1,159 @@
+/*
+ * common.c -- option parsing helpers, error printing and the terminal
+ * progress bar shared by every command.
+ */
+#include "cli/cli.h"
+
+#include <cblas.h>
+#include <errno.h>
+#include <math.h>
+#include <omp.h>
+#include <stdarg.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <time.h>
+#include <unistd.h>
+
+int cli_fail(const gl_cli *cli, gl_status st)
+{
+    fprintf(stderr, "gloam %s: %s\n", cli->command, gl_error_message());
+    return gl_status_exit_code(st);
+}
+
+int cli_usage(const gl_cli *cli, const char *fmt, ...)
+{
+    char buf[1024];
+    va_list ap;
+    va_start(ap, fmt);
+    vsnprintf(buf, sizeof buf, fmt, ap);
+    va_end(ap);
+    fprintf(stderr, "gloam %s: %s (see gloam %s --help)\n", cli->command, buf, cli->command);
+    return 1;
+}
+
+int cli_parse_long(const gl_cli *cli, const char *opt, const char *arg, long min, long max,
+                   long *out)
+{
+    char *end;
+    errno = 0;
+    long v = strtol(arg, &end, 10);
+    if (end == arg || *end || errno) {
+        cli_usage(cli, "%s: '%s' is not a whole number", opt, arg);
+        return -1;
+    }
+    if (v < min || v > max) {
+        cli_usage(cli, "%s: %ld is outside [%ld, %ld]", opt, v, min, max);
+        return -1;
+    }
+    *out = v;
+    return 0;
+}
+
+int cli_parse_double(const gl_cli *cli, const char *opt, const char *arg, double min, double max,
+                     double *out)
+{
+    char *end;
+    errno = 0;
+    double v = strtod(arg, &end);
+    if (end == arg || *end || errno || !isfinite(v)) {
+        cli_usage(cli, "%s: '%s' is not a number", opt, arg);
+        return -1;
+    }
+    if (v < min || v > max) {
+        cli_usage(cli, "%s: %g is outside [%g, %g]", opt, v, min, max);
+        return -1;
+    }
+    *out = v;
+    return 0;
+}
+
+int cli_common_option(gl_cli *cli, int code, const char *arg, const char *help_text,
+                      int *exit_now)
+{
+    long n;
+    switch (code) {
+    case CLI_OPT_OVERWRITE: cli->overwrite = 1; return 1;
+    case CLI_OPT_QUIET: cli->quiet = 1; return 1;
+    case CLI_OPT_VERBOSE: cli->verbose = 1; return 1;
+    case CLI_OPT_THREADS:
+        if (cli_parse_long(cli, "--threads", arg, 1, 1024, &n))
+            return -1;
+        cli->threads = (int)n;
+        return 1;
+    case CLI_OPT_HELP:
+        fputs(help_text, stdout);
+        fputs(CLI_COMMON_HELP, stdout);
+        *exit_now = 1;
+        return 1;
+    default: return 0;
+    }
+}
+
+/* ---- log and progress printers ---------------------------------------- */
+
+static void print_log(gl_log_level level, const char *msg, void *user)
+{
+    const gl_cli *cli = user;
+    const char *tag = level == GL_LOG_ERROR ? "error: " : level == GL_LOG_WARN ? "warning: " : "";
+    fprintf(stderr, "gloam %s: %s%s\n", cli->command, tag, msg);
+}
+
+typedef struct bar_state {
+    double last;
+    double start;
+    char task[32];
+} bar_state;
+
+static double now_s(void)
+{
+    struct timespec ts;
+    clock_gettime(CLOCK_MONOTONIC, &ts);
+    return (double)ts.tv_sec + 1e-9 * (double)ts.tv_nsec;
+}
+
+/* A one-line bar on stderr, redrawn at most ten times a second; only
+ * installed when stderr is a terminal, so piped runs stay quiet. */
+static void print_progress(const char *task, long done, long total, void *user)
+{
+    bar_state *b = user;
+    double t = now_s();
+    if (strncmp(b->task, task, sizeof b->task - 1) != 0) {
+        snprintf(b->task, sizeof b->task, "%s", task);
+        b->start = t;
+        b->last = 0;
+    }
+    int end = done >= total;
+    if (!end && t - b->last < 0.1)
+        return;
+    b->last = t;
+    double frac = total > 0 ? (double)done / (double)total : 1;
+    int width = 30, fill = (int)(frac * width + 0.5);
+    char bar[64];
+    for (int i = 0; i < width; i++)
+        bar[i] = i < fill ? '#' : '.';
+    bar[width] = '\0';
+    double el = t - b->start, eta = frac > 0 ? el * (1 - frac) / frac : 0;
+    fprintf(stderr, "\r  %-12s [%s] %3.0f%%  %ld/%ld  %.0fs left ", task, bar, 100 * frac, done,
+            total, eta);
+    if (end) {
+        fprintf(stderr, "\r%*s\r", 80, "");
+        b->task[0] = '\0';
+    }
+    fflush(stderr);
+}
+
+void cli_start(gl_cli *cli)
+{
+    static bar_state bar;
+    if (cli->threads > 0) {
+        omp_set_num_threads(cli->threads);
+    }
+    /* BLAS runs single-threaded inside our own parallel loops; this also
+     * keeps results independent of the thread count */
+    openblas_set_num_threads(1);
+    gl_log_set_handler(print_log, cli,
+                       cli->quiet ? GL_LOG_WARN : (cli->verbose ? GL_LOG_DEBUG : GL_LOG_INFO));
+    if (!cli->quiet && isatty(2))
+        gl_progress_set_handler(print_progress, &bar);
+}

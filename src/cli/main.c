@@ -1,0 +1,64 @@
+/*
+ * main.c -- the `gloam` executable: dispatches `gloam COMMAND [options]` to
+ * the command's function through one table, and handles --help/--version.
+ */
+#include "cli/cli.h"
+
+#include <stdio.h>
+#include <string.h>
+
+typedef struct command {
+    const char *name;
+    int (*run)(gl_cli *cli, int argc, char **argv);
+    const char *summary;
+} command;
+
+static const command commands[] = {
+    /* one line per command, in pipeline order */
+    {NULL, NULL, NULL},
+};
+
+static void print_help(FILE *out)
+{
+    fprintf(out,
+            "gloam %s -- from a coronagraphic image sequence to detections and limits\n\n"
+            "usage: gloam COMMAND [options]\n\ncommands:\n",
+            gl_version());
+    for (size_t i = 0; commands[i].name; i++)
+        fprintf(out, "  %-10s %s\n", commands[i].name, commands[i].summary);
+    fprintf(out, "\n'gloam COMMAND --help' describes a command's options.\n"
+                 "Exit status: 0 success, 1 bad input or usage, 2 internal failure.\n");
+}
+
+int main(int argc, char **argv)
+{
+    if (argc < 2) {
+        print_help(stderr);
+        return 1;
+    }
+    if (strcmp(argv[1], "--help") == 0 || strcmp(argv[1], "-h") == 0 ||
+        strcmp(argv[1], "help") == 0) {
+        print_help(stdout);
+        return 0;
+    }
+    if (strcmp(argv[1], "--version") == 0) {
+        printf("gloam %s\n", gl_version());
+        return 0;
+    }
+    for (size_t i = 0; commands[i].name; i++) {
+        if (strcmp(argv[1], commands[i].name) != 0)
+            continue;
+        gl_cli cli = {0};
+        cli.command = commands[i].name;
+        snprintf(cli.program, sizeof cli.program, "gloam %s", gl_version());
+        cli.prov.program = cli.program;
+        size_t pos = 0;
+        for (int a = 0; a < argc && pos < sizeof cli.cmdline - 1; a++)
+            pos += (size_t)snprintf(cli.cmdline + pos, sizeof cli.cmdline - pos, "%s%s",
+                                    a ? " " : "", a ? argv[a] : "gloam");
+        cli.prov.command = cli.cmdline;
+        return commands[i].run(&cli, argc - 1, argv + 1);
+    }
+    fprintf(stderr, "gloam: unknown command '%s' (see gloam --help)\n", argv[1]);
+    return 1;
+}

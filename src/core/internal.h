@@ -1,0 +1,36 @@
+/*
+ * core/internal.h -- declarations shared inside the library, not exported.
+ */
+#ifndef GLOAM_CORE_INTERNAL_H
+#define GLOAM_CORE_INTERNAL_H
+
+#include "gloam/core.h"
+
+typedef enum gl_key_type { GL_KEY_STR, GL_KEY_DBL, GL_KEY_INT, GL_KEY_BOOL } gl_key_type;
+
+/* A keyword set by a product (written after the carried cards). */
+typedef struct gl_key {
+    char name[72];
+    gl_key_type type;
+    char sval[72];
+    double dval;
+    long ival;
+    char comment[72];
+} gl_key;
+
+struct gl_header {
+    char (*cards)[81];
+    int ncards, capcards;
+    gl_key *keys;
+    int nkeys, capkeys;
+    char (*history)[73];
+    int nhistory, caphistory;
+};
+
+/* 1 for keywords that describe the data layout and are never carried. */
+int gl_header_is_structural(const char *key);
+
+#define GL_MIN(a, b) ((a) < (b) ? (a) : (b))
+#define GL_MAX(a, b) ((a) > (b) ? (a) : (b))
+
+#endif

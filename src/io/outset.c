@@ -1,0 +1,188 @@
+/*
+ * outset.c -- all-or-nothing writing of a command's products.
+ *
+ * Every product is written under a temporary name (".NAME.tmp-PID-N") in its
+ * destination folder and renamed into place by gl_outset_commit, so an error
+ * midway leaves no partial product and never replaces an existing file. A
+ * destination that exists is refused at registration unless overwriting was
+ * asked for; a destination that is one of the inputs is always refused.
+ */
+#include "core/internal.h"
+#include "io/internal.h"
+
+#include <errno.h>
+#include <libgen.h>
+#include <stdio.h>
+#include <string.h>
+#include <sys/stat.h>
+#include <unistd.h>
+#include <zlib.h>
+
+typedef struct outfile {
+    char *path;
+    char *tmp;
+} outfile;
+
+struct gl_outset {
+    int overwrite;
+    int committed;
+    int n, cap;
+    outfile *files;
+};
+
+gl_status gl_outset_new(int overwrite, gl_outset **out)
+{
+    *out = gl_calloc(1, sizeof **out);
+    if (!*out)
+        return gl_error_nomem("output set");
+    (*out)->overwrite = overwrite;
+    return GL_OK;
+}
+
+static char *dup_str(const char *s)
+{
+    size_t n = strlen(s) + 1;
+    char *d = gl_malloc(n);
+    if (d)
+        memcpy(d, s, n);
+    return d;
+}
+
+static int same_file(const char *a, const char *b)
+{
+    struct stat sa, sb;
+    if (stat(a, &sa) != 0 || stat(b, &sb) != 0)
+        return 0;
+    return sa.st_dev == sb.st_dev && sa.st_ino == sb.st_ino;
+}
+
+gl_status gl_outset_add(gl_outset *s, const char *path, const gl_provenance *prov,
+                        const char **tmp_path)
+{
+    struct stat sb;
+    if (!path || !*path)
+        return gl_error_set(GL_ERR_USAGE, "an output file name is empty");
+    if (prov)
+        for (int i = 0; i < prov->ninputs; i++)
+            if (same_file(path, prov->inputs[i]))
+                return gl_error_set(GL_ERR_USAGE, "%s: output would replace an input file", path);
+    for (int i = 0; i < s->n; i++)
+        if (strcmp(s->files[i].path, path) == 0)
+            return gl_error_set(GL_ERR_USAGE, "%s: named twice as an output", path);
+    if (lstat(path, &sb) == 0) {
+        if (S_ISDIR(sb.st_mode))
+            return gl_error_set(GL_ERR_IO, "%s: is a folder, not a file name", path);
+        if (!s->overwrite)
+            return gl_error_set(GL_ERR_EXISTS, "%s: exists (use --overwrite to replace it)", path);
+    }
+    char *copy = dup_str(path);
+    if (!copy)
+        return gl_error_nomem("output path");
+    char *dir = dirname(copy);
+    if (stat(dir, &sb) != 0 || !S_ISDIR(sb.st_mode)) {
+        gl_status st = gl_error_set(GL_ERR_IO, "%s: folder %s does not exist", path, dir);
+        gl_free(copy);
+        return st;
+    }
+    if (access(dir, W_OK | X_OK) != 0) {
+        gl_status st = gl_error_set(GL_ERR_IO, "%s: folder %s is not writable", path, dir);
+        gl_free(copy);
+        return st;
+    }
+    gl_free(copy);
+
+    if (s->n == s->cap) {
+        int ncap = s->cap ? 2 * s->cap : 8;
+        outfile *nf = gl_calloc((size_t)ncap, sizeof *nf);
+        if (!nf)
+            return gl_error_nomem("output set");
+        if (s->files)
+            memcpy(nf, s->files, (size_t)s->n * sizeof *nf);
+        gl_free(s->files);
+        s->files = nf;
+        s->cap = ncap;
+    }
+    size_t len = strlen(path) + 64;
+    char *tmp = gl_malloc(len);
+    char *p2 = dup_str(path);
+    if (!tmp || !p2) {
+        gl_free(tmp);
+        gl_free(p2);
+        return gl_error_nomem("output path");
+    }
+    /* temporary name beside the destination: DIR/.BASE.tmp-PID-N */
+    const char *slash = strrchr(path, '/');
+    int dirlen = slash ? (int)(slash - path + 1) : 0;
+    snprintf(tmp, len, "%.*s.%s.tmp-%ld-%d", dirlen, path, slash ? slash + 1 : path,
+             (long)getpid(), s->n);
+    s->files[s->n].path = p2;
+    s->files[s->n].tmp = tmp;
+    s->n++;
+    *tmp_path = tmp;
+    return GL_OK;
+}
+
+gl_status gl_outset_commit(gl_outset *s)
+{
+    for (int i = 0; i < s->n; i++) {
+        struct stat sb;
+        if (stat(s->files[i].tmp, &sb) != 0)
+            return gl_error_set(GL_ERR_INTERNAL, "%s: product was not written", s->files[i].path);
+    }
+    for (int i = 0; i < s->n; i++) {
+        if (rename(s->files[i].tmp, s->files[i].path) != 0)
+            return gl_error_set(GL_ERR_IO, "%s: cannot rename into place (%s)", s->files[i].path,
+                                strerror(errno));
+        gl_free(s->files[i].tmp);
+        s->files[i].tmp = NULL;
+    }
+    s->committed = 1;
+    return GL_OK;
+}
+
+void gl_outset_free(gl_outset *s)
+{
+    if (!s)
+        return;
+    for (int i = 0; i < s->n; i++) {
+        if (s->files[i].tmp) {
+            unlink(s->files[i].tmp);
+            gl_free(s->files[i].tmp);
+        }
+        gl_free(s->files[i].path);
+    }
+    gl_free(s->files);
+    gl_free(s);
+}
+
+gl_status gl_file_crc32(const char *path, unsigned long *crc)
+{
+    FILE *fp = fopen(path, "rb");
+    if (!fp)
+        return gl_error_set(GL_ERR_IO, "%s: cannot open (%s)", path, strerror(errno));
+    unsigned char buf[1 << 16];
+    uLong c = crc32(0L, Z_NULL, 0);
+    size_t n;
+    while ((n = fread(buf, 1, sizeof buf, fp)) > 0)
+        c = crc32(c, buf, (uInt)n);
+    int err = ferror(fp);
+    fclose(fp);
+    if (err)
+        return gl_error_set(GL_ERR_IO, "%s: read error", path);
+    *crc = c;
+    return GL_OK;
+}
+
+gl_status gl_provenance_add_input(gl_provenance *p, const char *path)
+{
+    if (p->ninputs >= 16)
+        return GL_OK;
+    unsigned long crc = 0;
+    gl_status st = gl_file_crc32(path, &crc);
+    if (st)
+        return st;
+    p->inputs[p->ninputs] = path;
+    p->crc32[p->ninputs] = crc;
+    p->ninputs++;
+    return GL_OK;
+}

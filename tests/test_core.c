@@ -1,0 +1,69 @@
+/*
+ * test_core.c -- status messages, header keywords, cube allocation and the
+ * allocator's fault injection. Invariants only; no outside data needed.
+ */
+#include "gloam/gloam.h"
+#include "check.h"
+
+#include <string.h>
+
+static void test_errors(void)
+{
+    gl_status st = gl_error_set(GL_ERR_INPUT, "%s: bad %d", "x.fits", 3);
+    CHECK(st == GL_ERR_INPUT, "status returned unchanged");
+    CHECK(strcmp(gl_error_message(), "x.fits: bad 3") == 0, "message: %s", gl_error_message());
+    CHECK(gl_status_exit_code(GL_ERR_INPUT) == 1, "bad input exits 1");
+    CHECK(gl_status_exit_code(GL_ERR_EXISTS) == 1, "existing output exits 1");
+    CHECK(gl_status_exit_code(GL_ERR_INTERNAL) == 2, "internal failure exits 2");
+    CHECK(gl_status_exit_code(GL_OK) == 0, "success exits 0");
+}
+
+static void test_header(void)
+{
+    gl_header *h = gl_header_new();
+    CHECK(h != NULL, "header allocated");
+    gl_header_add_card(h, "EXPTIME =                  1.5 / seconds");
+    gl_header_add_card(h, "OBJECT  = 'Star O''Neil'");
+    gl_header_add_card(h, "GAIN    =               2.0D+0");
+    double v = 0;
+    char s[72];
+    CHECK(gl_header_get_dbl(h, "EXPTIME", &v) && v == 1.5, "carried number: %g", v);
+    CHECK(gl_header_get_dbl(h, "GAIN", &v) && v == 2.0, "D exponent: %g", v);
+    CHECK(gl_header_get_str(h, "OBJECT", s, sizeof s) && strcmp(s, "Star O'Neil") == 0,
+          "quoted string with doubled quote: %s", s);
+    CHECK(!gl_header_get_dbl(h, "OBJECT", &v), "string is not a number");
+    CHECK(!gl_header_get_dbl(h, "MISSING", &v), "absent key");
+    gl_header_set_dbl(h, "EXPTIME", 3.0, "replaced");
+    CHECK(gl_header_get_dbl(h, "EXPTIME", &v) && v == 3.0, "typed key replaces card: %g", v);
+    CHECK(gl_header_ncards(h) == 2, "replaced card removed: %d", gl_header_ncards(h));
+    gl_header *c = gl_header_copy(h);
+    gl_header_remove(h, "EXPTIME");
+    CHECK(!gl_header_get_dbl(h, "EXPTIME", &v), "removed");
+    CHECK(gl_header_get_dbl(c, "EXPTIME", &v) && v == 3.0, "copy independent");
+    gl_header_free(c);
+    gl_header_free(h);
+    gl_header_free(NULL);
+}
+
+static void test_cube(void)
+{
+    gl_cube *c = NULL;
+    CHECK(gl_cube_new(5, 4, 1, 3, &c) == GL_OK, "cube allocated");
+    CHECK(c->naxis == 3 && gl_cube_size(c) == 60, "3-D cube shape");
+    CHECK(gl_cube_plane(c, 0, 2) == c->data + 40, "plane offset");
+    gl_cube_free(c);
+    CHECK(gl_cube_new(0, 4, 1, 1, &c) != GL_OK && c == NULL, "empty cube refused");
+    gl_cube_free(NULL);
+    /* fault injection: the second allocation (the data) fails */
+    gl_malloc_fail_after(2);
+    CHECK(gl_cube_new(5, 4, 1, 1, &c) == GL_ERR_NOMEM && c == NULL, "allocation failure reported");
+    gl_malloc_fail_after(0);
+}
+
+int main(void)
+{
+    test_errors();
+    test_header();
+    test_cube();
+    CHECK_DONE();
+}
