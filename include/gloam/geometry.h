@@ -1,0 +1,59 @@
+/*
+ * gloam/geometry.h -- sub-pixel shifts and rotations of images about the star
+ * (the convention centre (nx/2, ny/2), integer division).
+ *
+ * Two interpolators stand behind one interface:
+ *  - GL_INTERP_FFT: shifts by a Fourier phase ramp; rotations by three
+ *    shears, each a row-wise Fourier shift (Larkin, Oldfield & Klemm 1997,
+ *    Opt. Commun. 139, 99), on a zero-padded copy so nothing wraps. Exact for
+ *    band-limited images, conserves flux.
+ *  - GL_INTERP_CUBIC: separable cubic convolution (Keys 1981, IEEE ASSP 29,
+ *    1153, a = -0.5); local, so NaN spread only to the 4x4 neighbourhood.
+ * NaN (no data) in the input is treated as 0 by the FFT interpolator; an
+ * output pixel is NaN when the nearest input pixel of its source position is
+ * NaN or lies outside the image.
+ *
+ * Plan, then execute: a gl_geom_plan holds FFTW plans for one image size and
+ * is built once (not thread-safe to build); gl_geom_* execute functions take a
+ * caller-owned gl_geom_work (one per thread) and never allocate.
+ */
+#ifndef GLOAM_GEOMETRY_H
+#define GLOAM_GEOMETRY_H
+
+#include "gloam/core.h"
+
+#ifdef __cplusplus
+extern "C" {
+#endif
+
+typedef enum gl_interp { GL_INTERP_FFT = 0, GL_INTERP_CUBIC = 1 } gl_interp;
+
+typedef struct gl_geom_plan gl_geom_plan;
+typedef struct gl_geom_work gl_geom_work;
+
+/* Plans shifts and rotations of nx x ny images with the given interpolator. */
+GL_API gl_status gl_geom_plan_new(long nx, long ny, gl_interp interp, gl_geom_plan **out);
+GL_API void gl_geom_plan_free(gl_geom_plan *p);
+/* Scratch space for one thread. */
+GL_API gl_status gl_geom_work_new(const gl_geom_plan *p, gl_geom_work **out);
+GL_API void gl_geom_work_free(gl_geom_work *w);
+
+/* Shifts img (nx x ny, in place) so that content at (x, y) moves to
+ * (x + dx, y + dy). */
+GL_API gl_status gl_geom_shift(const gl_geom_plan *p, gl_geom_work *w, float *img, double dx,
+                               double dy);
+
+/* Rotates img in place counter-clockwise (x right, y up) by angle_deg about
+ * the star centre (nx/2, ny/2). Pixels whose source lies outside the input
+ * become NaN. */
+GL_API gl_status gl_geom_rotate(const gl_geom_plan *p, gl_geom_work *w, float *img,
+                                double angle_deg);
+
+/* Parses "fft" or "cubic"; returns -1 for anything else. */
+GL_API int gl_interp_from_name(const char *name);
+GL_API const char *gl_interp_name(gl_interp interp);
+
+#ifdef __cplusplus
+}
+#endif
+#endif
