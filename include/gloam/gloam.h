@@ -8,6 +8,7 @@
 #include "gloam/core.h"
 #include "gloam/io.h"
 #include "gloam/geometry.h"
+#include "gloam/align.h"
 
 
 #endif

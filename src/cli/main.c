@@ -15,6 +15,7 @@ typedef struct command {
 
 static const command commands[] = {
     /* one line per command, in pipeline order */
+    {"align", cmd_align, "find the star in every frame and centre it"},
     {NULL, NULL, NULL},
 };
 

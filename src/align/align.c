@@ -1,0 +1,441 @@
+/*
+ * align.c -- the align step from a raw cube to a centred one: bad pixels,
+ * centring (through the method table of methods.c), sub-pixel shifts of
+ * every channel by the geometry module so that the star lands on
+ * (nx/2, ny/2), frame selection on the aligned frames, crop and temporal
+ * binning, and the star-position table.
+ * 4-D cubes: the star is measured on the mean over channels and every
+ * channel of a frame gets the same shift.
+ */
+#include "align/internal.h"
+#include "core/internal.h"
+
+#include <errno.h>
+#include <math.h>
+#include <stdio.h>
+#include <string.h>
+#include <unistd.h>
+
+void gl_align_params_init(gl_align_params *p)
+{
+    memset(p, 0, sizeof *p);
+    p->method = GL_CENTRE_AUTO;
+    p->interp = GL_INTERP_FFT;
+    p->upsample = 100;
+    p->spot_search = 5;
+    p->bin = 1;
+}
+
+void gl_align_result_free(gl_align_result *r)
+{
+    if (!r)
+        return;
+    gl_cube_free(r->aligned);
+    gl_free(r->x);
+    gl_free(r->y);
+    gl_free(r->err_x);
+    gl_free(r->err_y);
+    gl_free(r->quality);
+    gl_free(r->flux);
+    gl_free(r->correlation);
+    gl_free(r->status);
+    gl_free(r->angles_out);
+    gl_free(r->badpix_map);
+    gl_free(r);
+}
+
+/* Channel means (NaN-aware) of every frame; aliases the cube for one channel. */
+static gl_status measurement_images(const gl_cube *c, float **out, int *owned)
+{
+    size_t npix = gl_cube_plane_size(c);
+    if (c->nchan == 1) {
+        *out = c->data;
+        *owned = 0;
+        return GL_OK;
+    }
+    float *m = gl_malloc(npix * (size_t)c->nframe * sizeof *m);
+    if (!m)
+        return gl_error_nomem("measurement images");
+#pragma omp parallel for schedule(static)
+    for (long f = 0; f < c->nframe; f++)
+        for (size_t i = 0; i < npix; i++) {
+            double s = 0;
+            int k = 0;
+            for (long ch = 0; ch < c->nchan; ch++) {
+                float v = gl_cube_plane(c, ch, f)[i];
+                if (!isnan(v)) {
+                    s += v;
+                    k++;
+                }
+            }
+            m[(size_t)f * npix + i] = k ? (float)(s / k) : NAN;
+        }
+    *out = m;
+    *owned = 1;
+    return GL_OK;
+}
+
+static gl_status check_params(const gl_cube *c, const gl_align_params *p)
+{
+    if (p->method < GL_CENTRE_AUTO || p->method >= GL_CENTRE_NMETHODS)
+        return gl_error_set(GL_ERR_USAGE, "unknown centring method %d", (int)p->method);
+    if (p->upsample < 1 || p->upsample > 1000)
+        return gl_error_set(GL_ERR_USAGE, "upsampling %d is outside [1, 1000]", p->upsample);
+    if (p->crop < 0 || p->crop > GL_MIN(c->nx, c->ny))
+        return gl_error_set(GL_ERR_USAGE, "crop size %ld does not fit the %ldx%ld frame", p->crop,
+                            c->nx, c->ny);
+    if (p->crop > 0 && p->crop < 3)
+        return gl_error_set(GL_ERR_USAGE, "crop size %ld is too small", p->crop);
+    if (p->bin < 1)
+        return gl_error_set(GL_ERR_USAGE, "bin size %ld must be at least 1", p->bin);
+    if (c->nx < 8 || c->ny < 8)
+        return gl_error_set(GL_ERR_INPUT, "frames of %ldx%ld pixels are too small to align", c->nx,
+                            c->ny);
+    return GL_OK;
+}
+
+/* Refuses a median frame without a star: its brightest 3x3 mean must stand
+ * 10 sigma (of a 3x3 mean) above the median level. */
+static gl_status check_signal(const float *med, long nx, long ny, const char *name)
+{
+    long px, py;
+    double peak;
+    if (!gl_image_peak(med, nx, ny, 1, &px, &py, &peak))
+        return gl_error_set(GL_ERR_INPUT, "%s: the frames hold no data (all NaN)", name);
+    double bg = gl_image_median(med, nx, ny), noise = gl_image_noise(med, nx, ny) / 3.0;
+    if (!(peak - bg > 10 * noise) || !(noise > 0 || peak > bg))
+        return gl_error_set(GL_ERR_INPUT,
+                            "%s: no star signal: the brightest feature of the "
+                            "median frame is only %.1f sigma above the background",
+                            name, noise > 0 ? (peak - bg) / noise : 0.0);
+    return GL_OK;
+}
+
+static gl_status shift_frames(gl_cube *c, const gl_align_params *p, const double *x,
+                              const double *y, const int *status)
+{
+    gl_geom_plan *plan = NULL;
+    gl_status st = gl_geom_plan_new(c->nx, c->ny, p->interp, &plan);
+    if (st)
+        return st;
+    double cx = (double)(c->nx / 2), cy = (double)(c->ny / 2);
+    int failed = 0;
+    long done = 0;
+#pragma omp parallel
+    {
+        gl_geom_work *w = NULL;
+        if (gl_geom_work_new(plan, &w)) {
+#pragma omp atomic write
+            failed = 1;
+        }
+#pragma omp for schedule(static)
+        for (long f = 0; f < c->nframe; f++) {
+            if (status[f] == GL_FRAME_KEPT && w)
+                for (long ch = 0; ch < c->nchan; ch++)
+                    if (gl_geom_shift(plan, w, gl_cube_plane(c, ch, f), cx - x[f], cy - y[f])) {
+#pragma omp atomic write
+                        failed = 1;
+                    }
+            long d;
+#pragma omp atomic capture
+            d = ++done;
+            gl_progress("shifting", d, c->nframe);
+        }
+        gl_geom_work_free(w);
+    }
+    gl_geom_plan_free(plan);
+    return failed ? gl_error_set(GL_ERR_NOMEM, "out of memory (shift work)") : GL_OK;
+}
+
+/* Kept frames, binned and cropped, into a new cube; angles averaged. */
+static gl_status assemble(const gl_cube *c, const gl_align_params *p, const char *name,
+                          const double *angles, gl_align_result *r)
+{
+    long cs_x = p->crop > 0 ? p->crop : c->nx, cs_y = p->crop > 0 ? p->crop : c->ny;
+    long x0 = c->nx / 2 - cs_x / 2, y0 = c->ny / 2 - cs_y / 2;
+    long nout = (r->nkept + p->bin - 1) / p->bin;
+    long *kept = gl_malloc((size_t)r->nkept * sizeof *kept);
+    gl_status st = GL_OK;
+    if (!kept)
+        return gl_error_nomem("kept frames");
+    for (long f = 0, j = 0; f < c->nframe; f++)
+        if (r->status[f] == GL_FRAME_KEPT)
+            kept[j++] = f;
+    if ((st = gl_cube_new(cs_x, cs_y, c->nchan, nout, &r->aligned)))
+        goto cleanup;
+    r->aligned->naxis = c->naxis > 2 ? c->naxis : (nout > 1 ? 3 : 2);
+    if (angles && !(r->angles_out = gl_malloc((size_t)nout * sizeof *r->angles_out))) {
+        st = gl_error_nomem("output angles");
+        goto cleanup;
+    }
+    r->nout = nout;
+    long bad_frame = -1;
+#pragma omp parallel for schedule(static)
+    for (long o = 0; o < nout; o++) {
+        long a = o * p->bin, b = GL_MIN(a + p->bin, r->nkept);
+        for (long ch = 0; ch < c->nchan; ch++) {
+            float *dst = gl_cube_plane(r->aligned, ch, o);
+            long nvalid = 0;
+            for (long y = 0; y < cs_y; y++)
+                for (long x = 0; x < cs_x; x++) {
+                    double s = 0;
+                    int k = 0;
+                    for (long j = a; j < b; j++) {
+                        float v = gl_cube_plane(c, ch, kept[j])[(y + y0) * c->nx + x + x0];
+                        if (!isnan(v)) {
+                            s += v;
+                            k++;
+                        }
+                    }
+                    dst[y * cs_x + x] = k ? (float)(s / k) : NAN;
+                    nvalid += k > 0;
+                }
+            if (nvalid == 0) {
+#pragma omp critical(align_bad_frame)
+                if (bad_frame < 0 || kept[a] < bad_frame)
+                    bad_frame = kept[a];
+            }
+        }
+        if (angles) {
+            /* mean of angles unwrapped about the first of the bin */
+            double s = 0, first = angles[kept[a]];
+            for (long j = a; j < b; j++) {
+                double d = angles[kept[j]] - first;
+                d -= 360.0 * round(d / 360.0);
+                s += first + d;
+            }
+            r->angles_out[o] = s / (double)(b - a);
+        }
+    }
+    if (bad_frame >= 0) {
+        st = gl_error_set(GL_ERR_INPUT,
+                          "%s: the %ldx%ld region around the star holds no data "
+                          "(all NaN) in frame %ld",
+                          name, cs_x, cs_y, bad_frame);
+        goto cleanup;
+    }
+    gl_header_free(r->aligned->header);
+    r->aligned->header = gl_header_copy(c->header);
+    if (!r->aligned->header) {
+        st = gl_error_nomem("header");
+        goto cleanup;
+    }
+    gl_header *h = r->aligned->header;
+    double crpix, mx = 0, my = 0;
+    {
+        double *v = gl_malloc((size_t)r->nkept * sizeof *v);
+        if (!v) {
+            st = gl_error_nomem("median position");
+            goto cleanup;
+        }
+        for (long j = 0; j < r->nkept; j++)
+            v[j] = r->x[kept[j]];
+        mx = gl_median_d(v, r->nkept);
+        for (long j = 0; j < r->nkept; j++)
+            v[j] = r->y[kept[j]];
+        my = gl_median_d(v, r->nkept);
+        gl_free(v);
+    }
+    /* the crop moves the pixel grid; per-frame shifts cannot be expressed
+     * in one WCS, which then describes the star's median position */
+    if (gl_header_get_dbl(h, "CRPIX1", &crpix))
+        gl_header_set_dbl(h, "CRPIX1", crpix - (double)x0 + (double)(c->nx / 2) - mx,
+                          "reference pixel, star-centred frame");
+    if (gl_header_get_dbl(h, "CRPIX2", &crpix))
+        gl_header_set_dbl(h, "CRPIX2", crpix - (double)y0 + (double)(c->ny / 2) - my,
+                          "reference pixel, star-centred frame");
+    gl_header_set_str(h, "GLALMETH", gl_centre_method_name(r->method), "star centring method");
+    gl_header_set_str(h, "GLALINTP", gl_interp_name(p->interp), "sub-pixel shift interpolator");
+    gl_header_set_int(h, "GLALNIN", c->nframe, "frames in the input");
+    gl_header_set_int(h, "GLALNKEP", r->nkept, "frames kept");
+    gl_header_set_int(h, "GLALBIN", p->bin, "frames averaged per output frame");
+    gl_header_set_int(h, "GLALCROP", p->crop, "crop size (0: none)");
+    gl_header_set_dbl(h, "GLALREJ", p->reject_sigma, "frame rejection threshold, sigma (0: off)");
+    gl_header_set_dbl(h, "GLALBPIX", p->badpix_sigma, "bad-pixel threshold, sigma (0: off)");
+    char hist[160];
+    snprintf(hist, sizeof hist, "gloam align: star moved to (%ld, %ld) by %s centring", cs_x / 2,
+             cs_y / 2, gl_centre_method_name(r->method));
+    st = gl_header_add_history(h, hist);
+
+cleanup:
+    gl_free(kept);
+    if (st) {
+        gl_cube_free(r->aligned);
+        r->aligned = NULL;
+    }
+    return st;
+}
+
+static const char *status_word(int s)
+{
+    switch (s) {
+    case GL_FRAME_KEPT: return "";
+    case GL_FRAME_NO_CENTRE: return "no-centre";
+    case GL_FRAME_FLUX: return "flux";
+    case GL_FRAME_CORRELATION: return "correlation";
+    default: return "?";
+    }
+}
+
+gl_status gl_align_run(gl_cube *cube, const double *angles, const char *name,
+                       const gl_align_params *p, gl_align_result **out)
+{
+    gl_status st;
+    gl_align_result *r = NULL;
+    float *meas = NULL, *median = NULL;
+    int owned = 0;
+    size_t npix = gl_cube_plane_size(cube);
+    long nf = cube->nframe;
+    *out = NULL;
+    if ((st = check_params(cube, p))) {
+        if (st == GL_ERR_INPUT)
+            st = gl_error_set(st, "%s: %s", name, gl_error_message());
+        return st;
+    }
+    r = gl_calloc(1, sizeof *r);
+    if (!r)
+        return gl_error_nomem("align result");
+    r->nframe = nf;
+    r->x = gl_malloc((size_t)nf * sizeof(double));
+    r->y = gl_malloc((size_t)nf * sizeof(double));
+    r->err_x = gl_malloc((size_t)nf * sizeof(double));
+    r->err_y = gl_malloc((size_t)nf * sizeof(double));
+    r->quality = gl_malloc((size_t)nf * sizeof(double));
+    r->flux = gl_malloc((size_t)nf * sizeof(double));
+    r->correlation = gl_malloc((size_t)nf * sizeof(double));
+    r->status = gl_calloc((size_t)nf, sizeof(int));
+    median = gl_malloc(npix * sizeof *median);
+    if (!r->x || !r->y || !r->err_x || !r->err_y || !r->quality || !r->flux || !r->correlation ||
+        !r->status || !median) {
+        st = gl_error_nomem("align result");
+        goto cleanup;
+    }
+
+    if (p->badpix_sigma > 0) {
+        if (!(r->badpix_map = gl_malloc(npix * sizeof *r->badpix_map))) {
+            st = gl_error_nomem("bad-pixel map");
+            goto cleanup;
+        }
+        if ((st = gl_badpix_fix(cube, p->badpix_sigma, r->badpix_map, &r->nbad_static,
+                                &r->nbad_transient)))
+            goto cleanup;
+        gl_log(GL_LOG_INFO,
+               "bad pixels: %ld static (hot or cold), %ld transient (pixel-frames) "
+               "above %.1f sigma, replaced from their neighbours",
+               r->nbad_static, r->nbad_transient, p->badpix_sigma);
+    }
+
+    if ((st = measurement_images(cube, &meas, &owned)))
+        goto cleanup;
+    if ((st = gl_median_frame(meas, cube->nx, cube->ny, nf, median)))
+        goto cleanup;
+    if ((st = check_signal(median, cube->nx, cube->ny, name)))
+        goto cleanup;
+
+    gl_align_stack stack = {meas, median, cube->nx, cube->ny, nf, name};
+    gl_centre_method m = p->method;
+    char reason[256];
+    if (m == GL_CENTRE_AUTO) {
+        m = gl_centre_auto(&stack, p, reason, sizeof reason);
+        gl_log(GL_LOG_INFO, "centring method: %s, chosen because the data show %s",
+               gl_centre_method_name(m), reason);
+    } else {
+        gl_log(GL_LOG_INFO, "centring method: %s (as asked)", gl_centre_method_name(m));
+    }
+    r->method = m;
+    const gl_centre_ops *ops = gl_centre_ops_get(m);
+    int *ok = gl_malloc((size_t)nf * sizeof *ok);
+    if (!ok) {
+        st = gl_error_nomem("centring");
+        goto cleanup;
+    }
+    gl_centres cen = {r->x, r->y, r->err_x, r->err_y, r->quality, ok};
+    st = ops->measure(&stack, p, &cen);
+    long nok = 0;
+    for (long f = 0; f < nf && !st; f++) {
+        r->status[f] = ok[f] ? GL_FRAME_KEPT : GL_FRAME_NO_CENTRE;
+        if (ok[f])
+            nok++;
+        else
+            gl_log(GL_LOG_WARN, "%s: frame %ld rejected: the %s centring found no star", name, f,
+                   ops->name);
+    }
+    gl_free(ok);
+    if (st)
+        goto cleanup;
+    if (nok == 0) {
+        st = gl_error_set(GL_ERR_INPUT,
+                          "%s: the %s centring found the star in none of the %ld "
+                          "frames",
+                          name, ops->name, nf);
+        goto cleanup;
+    }
+
+    if ((st = shift_frames(cube, p, r->x, r->y, r->status)))
+        goto cleanup;
+    if (owned) {
+        gl_free(meas);
+        meas = NULL;
+        owned = 0;
+        if ((st = measurement_images(cube, &meas, &owned)))
+            goto cleanup;
+    }
+    if ((st = gl_select_frames(owned ? meas : cube->data, cube->nx, cube->ny, nf, p->reject_sigma,
+                               name, r->status, r->flux, r->correlation)))
+        goto cleanup;
+    for (long f = 0; f < nf; f++)
+        r->nkept += r->status[f] == GL_FRAME_KEPT;
+    if (r->nkept == 0) {
+        st = gl_error_set(GL_ERR_INPUT,
+                          "%s: every frame was rejected (%ld frames; see the "
+                          "log for the reasons)",
+                          name, nf);
+        goto cleanup;
+    }
+    if (r->nkept < nf)
+        gl_log(GL_LOG_INFO, "%ld of %ld frames kept", r->nkept, nf);
+    st = assemble(cube, p, name, angles, r);
+
+cleanup:
+    if (owned)
+        gl_free(meas);
+    gl_free(median);
+    if (st) {
+        gl_align_result_free(r);
+        return st;
+    }
+    *out = r;
+    return GL_OK;
+}
+
+gl_status gl_align_table_write_csv(const char *path, const gl_align_result *r, const double *angles)
+{
+    FILE *fp = fopen(path, "w");
+    if (!fp)
+        return gl_error_set(GL_ERR_IO, "%s: cannot create (%s)", path, strerror(errno));
+    fprintf(fp, "frame,x,y,x_err,y_err,method,quality,flux,correlation,kept,reason%s\n",
+            angles ? ",angle" : "");
+    const char *mname = gl_centre_method_name(r->method);
+    for (long f = 0; f < r->nframe; f++) {
+        double v[7] = {r->x[f],       r->y[f],    r->err_x[f],      r->err_y[f],
+                       r->quality[f], r->flux[f], r->correlation[f]};
+        fprintf(fp, "%ld", f);
+        for (int k = 0; k < 7; k++) {
+            if (k == 4)
+                fprintf(fp, ",%s", mname);
+            fputc(',', fp);
+            if (isfinite(v[k])) /* no value: an empty field */
+                fprintf(fp, "%.10g", v[k]);
+        }
+        fprintf(fp, ",%d,%s", r->status[f] == GL_FRAME_KEPT, status_word(r->status[f]));
+        if (angles)
+            fprintf(fp, ",%.10g", angles[f]);
+        fputc('\n', fp);
+    }
+    int err = ferror(fp);
+    if (fclose(fp) != 0 || err) {
+        unlink(path);
+        return gl_error_set(GL_ERR_IO, "%s: write error", path);
+    }
+    return GL_OK;
+}

@@ -1,0 +1,98 @@
+/*
+ * align/internal.h -- declarations shared by the files of the align stage:
+ * the centring-method table, the per-frame result arrays, and small robust
+ * statistics helpers.
+ */
+#ifndef GLOAM_ALIGN_INTERNAL_H
+#define GLOAM_ALIGN_INTERNAL_H
+
+#include "gloam/align.h"
+
+#include <fftw3.h>
+
+/* Measurement images handed to a centring method: nframe planes of nx x ny
+ * (channel means of the cube), and their median frame. */
+typedef struct gl_align_stack {
+    const float *img;
+    const float *median;
+    long nx, ny, nframe;
+    const char *name; /* input file, for messages */
+} gl_align_stack;
+
+/* Per-frame output of a method; ok[f] = 0 marks a frame it could not measure
+ * (x, y NaN). */
+typedef struct gl_centres {
+    double *x, *y, *err_x, *err_y, *quality;
+    int *ok;
+} gl_centres;
+
+/* One centring method. measure() fills every frame of c; it returns an error
+ * only when the method cannot work on this sequence at all (the message names
+ * the file); a failure on single frames is reported through c->ok. */
+typedef struct gl_centre_ops {
+    const char *name;
+    const char *summary;
+    gl_status (*measure)(const gl_align_stack *s, const gl_align_params *p, gl_centres *c);
+} gl_centre_ops;
+
+extern const gl_centre_ops gl_centre_gaussian_ops, gl_centre_moffat_ops, gl_centre_register_ops,
+    gl_centre_spots_ops, gl_centre_symmetry_ops;
+const gl_centre_ops *gl_centre_ops_get(gl_centre_method m);
+
+/* Chooses a method for the stack (logged by the caller with the reason). */
+gl_centre_method gl_centre_auto(const gl_align_stack *s, const gl_align_params *p, char *reason,
+                                size_t size);
+
+/* ---- helpers (stats.c) -------------------------------------------------- */
+
+/* Median of n doubles (reorders v); NaN when n == 0. */
+double gl_median_d(double *v, long n);
+/* Median and 1.4826 x median absolute deviation of the finite values of v
+ * (scratch: n doubles). Returns the number of finite values. */
+long gl_robust_stats(const double *v, long n, double *scratch, double *median, double *sigma);
+/* NaN-aware per-pixel median of nframe planes (NaN where every frame is). */
+gl_status gl_median_frame(const float *planes, long nx, long ny, long nframe, float *out);
+/* Robust pixel noise of an image: MAD of differences of horizontal
+ * neighbours / sqrt(2) (insensitive to smooth structure). */
+double gl_image_noise(const float *img, long nx, long ny);
+/* Brightest pixel of the 3x3 box mean (NaN skipped), away from the edge by
+ * `margin` pixels. Returns 0 when nothing finite. *value is the box mean. */
+int gl_image_peak(const float *img, long nx, long ny, long margin, long *px, long *py,
+                  double *value);
+/* Median of the finite pixels of img. */
+double gl_image_median(const float *img, long nx, long ny);
+/* FWHM estimate at (px, py): 2 sqrt(area / pi) of the pixels above half the
+ * peak over the background within radius r. */
+double gl_image_fwhm_estimate(const float *img, long nx, long ny, long px, long py, double bg,
+                              long r);
+
+/* Measures every frame with a per-frame function (OpenMP, static schedule).
+ * fn returns 0 on success. */
+typedef int (*gl_frame_measure_fn)(const float *img, long nx, long ny, const void *ctx, double *x,
+                                   double *y, double *ex, double *ey, double *q);
+void gl_centres_each_frame(const gl_align_stack *s, gl_frame_measure_fn fn, const void *ctx,
+                           gl_centres *c);
+
+/* Profile centre of the star in an image: peak search, FWHM estimate, fit.
+ * Returns 0 on success. */
+int gl_profile_centre(const float *img, long nx, long ny, gl_profile_kind kind,
+                      const gl_align_params *p, gl_profile_fit *fit);
+
+/* Symmetry centre with a caller-owned plan (no reference), work and
+ * spectrum buffer (nx*ny complex), for use inside frame loops (xcorr.c). */
+gl_status gl_symmetry_plan_new(long nx, long ny, int upsample, gl_xcorr_plan **out);
+gl_status gl_symmetry_centre_with(const gl_xcorr_plan *p, gl_xcorr_work *w, fftw_complex *spec,
+                                  const float *img, double *x, double *y);
+
+/* ---- preparation (badpix.c, select.c) ----------------------------------- */
+
+/* Finds and replaces bad pixels in every plane of cube (in place); map gets
+ * the GL_BADPIX_* bits per pixel. */
+gl_status gl_badpix_fix(gl_cube *cube, double sigma, float *map, long *nstatic, long *ntransient);
+
+/* Flags frames (status GL_FRAME_KEPT on entry) whose flux or correlation
+ * with the median of kept frames is an outlier; logs each rejection. */
+gl_status gl_select_frames(const float *planes, long nx, long ny, long nframe, double sigma,
+                           const char *name, int *status, double *flux, double *corr);
+
+#endif

@@ -1,0 +1,332 @@
+/*
+ * methods.c -- the centring methods behind one interface (a table of
+ * gl_centre_ops), and the automatic choice between them.
+ *
+ *  gaussian, moffat  per-frame profile fit (profile.c)
+ *  register          per-frame cross-correlation with the median frame
+ *                    (xcorr.c; Guizar-Sicairos et al. 2008) plus one absolute
+ *                    centre of the median frame: a Gaussian fit when the star
+ *                    is an unsaturated compact peak, else halo symmetry
+ *  spots             satellite spots found on the median frame, refitted in
+ *                    every frame (spots.c)
+ *  symmetry          per-frame centre of point symmetry (xcorr.c)
+ *
+ * Automatic choice (common practice, no published rule): satellite spots
+ * when four are found and are comparable to the brightest feature (a
+ * coronagraphic image); otherwise a Gaussian fit when the median frame shows
+ * an unsaturated compact star bright enough in single frames; otherwise
+ * registration with the absolute centre from the halo symmetry.
+ */
+#include "align/internal.h"
+#include "core/internal.h"
+
+#include <math.h>
+#include <stdio.h>
+#include <string.h>
+
+static const char *const method_names[GL_CENTRE_NMETHODS] = {"gaussian", "moffat", "register",
+                                                             "spots", "symmetry"};
+
+int gl_centre_method_from_name(const char *name)
+{
+    if (strcmp(name, "auto") == 0)
+        return GL_CENTRE_AUTO;
+    for (int i = 0; i < GL_CENTRE_NMETHODS; i++)
+        if (strcmp(name, method_names[i]) == 0)
+            return i;
+    return -2;
+}
+
+const char *gl_centre_method_name(gl_centre_method m)
+{
+    return m >= 0 && m < GL_CENTRE_NMETHODS ? method_names[m] : "auto";
+}
+
+/* ---- profile fits ------------------------------------------------------- */
+
+typedef struct profile_ctx {
+    gl_profile_kind kind;
+    const gl_align_params *p;
+} profile_ctx;
+
+static int profile_frame(const float *img, long nx, long ny, const void *ctx, double *x, double *y,
+                         double *ex, double *ey, double *q)
+{
+    const profile_ctx *c = ctx;
+    gl_profile_fit fit;
+    if (gl_profile_centre(img, nx, ny, c->kind, c->p, &fit))
+        return -1;
+    *x = fit.x;
+    *y = fit.y;
+    *ex = fit.err_x;
+    *ey = fit.err_y;
+    *q = fit.rms_residual / fit.amplitude;
+    return 0;
+}
+
+static gl_status measure_profile(const gl_align_stack *s, const gl_align_params *p, gl_centres *c,
+                                 gl_profile_kind kind)
+{
+    profile_ctx ctx = {kind, p};
+    gl_centres_each_frame(s, profile_frame, &ctx, c);
+    return GL_OK;
+}
+
+static gl_status measure_gaussian(const gl_align_stack *s, const gl_align_params *p, gl_centres *c)
+{
+    return measure_profile(s, p, c, GL_PROFILE_GAUSSIAN);
+}
+
+static gl_status measure_moffat(const gl_align_stack *s, const gl_align_params *p, gl_centres *c)
+{
+    return measure_profile(s, p, c, GL_PROFILE_MOFFAT);
+}
+
+/* ---- star or halo? ------------------------------------------------------ */
+
+/* 1 when img shows an unsaturated compact star that a Gaussian describes
+ * (fit residual below 10 per cent of the peak, no flat top). */
+static int compact_star(const float *img, long nx, long ny, const gl_align_params *p,
+                        gl_profile_fit *fit)
+{
+    if (gl_profile_centre(img, nx, ny, GL_PROFILE_GAUSSIAN, p, fit))
+        return 0;
+    if (!(fit->fwhm > 0.8 && fit->fwhm < GL_MIN(nx, ny) / 4.0))
+        return 0;
+    if (!(fit->rms_residual < 0.1 * fit->amplitude))
+        return 0;
+    /* a saturated core is flat: several pixels at the maximum */
+    long px = lround(fit->x), py = lround(fit->y);
+    double vmax = -INFINITY;
+    for (long y = GL_MAX(py - 2, 0); y <= GL_MIN(py + 2, ny - 1); y++)
+        for (long x = GL_MAX(px - 2, 0); x <= GL_MIN(px + 2, nx - 1); x++)
+            if (img[y * nx + x] > vmax)
+                vmax = img[y * nx + x];
+    int nflat = 0;
+    for (long y = GL_MAX(py - 2, 0); y <= GL_MIN(py + 2, ny - 1); y++)
+        for (long x = GL_MAX(px - 2, 0); x <= GL_MIN(px + 2, nx - 1); x++)
+            if (vmax - img[y * nx + x] <= 1e-3 * (vmax - fit->background))
+                nflat++;
+    return nflat <= 2;
+}
+
+/* ---- registration ------------------------------------------------------- */
+
+static gl_status measure_register(const gl_align_stack *s, const gl_align_params *p, gl_centres *c)
+{
+    gl_xcorr_plan *plan = NULL;
+    gl_profile_fit fit;
+    double cx, cy, ecx, ecy;
+    gl_status st = GL_OK;
+    if (compact_star(s->median, s->nx, s->ny, p, &fit)) {
+        cx = fit.x;
+        cy = fit.y;
+        ecx = fit.err_x;
+        ecy = fit.err_y;
+        gl_log(GL_LOG_INFO,
+               "registration: absolute centre (%.3f, %.3f) from a Gaussian fit of "
+               "the median frame",
+               cx, cy);
+    } else {
+        st = gl_align_symmetry_centre(s->median, s->nx, s->ny, p->upsample, &cx, &cy);
+        if (st)
+            return st;
+        ecx = ecy = 0.5 / p->upsample;
+        gl_log(GL_LOG_INFO,
+               "registration: absolute centre (%.3f, %.3f) from the point symmetry "
+               "of the median frame",
+               cx, cy);
+    }
+    st = gl_xcorr_plan_new(s->median, s->nx, s->ny, p->upsample, &plan);
+    if (st)
+        return st;
+    size_t npix = (size_t)s->nx * (size_t)s->ny;
+    double quant = 1.0 / (p->upsample * sqrt(12.0)); /* rounding to the 1/up grid */
+    int nomem = 0;
+    long done = 0;
+#pragma omp parallel
+    {
+        gl_xcorr_work *w = NULL;
+        if (gl_xcorr_work_new(plan, &w)) {
+#pragma omp atomic write
+            nomem = 1;
+        }
+#pragma omp for schedule(static)
+        for (long f = 0; f < s->nframe; f++) {
+            double dx = NAN, dy = NAN, err = NAN;
+            if (w)
+                gl_align_xcorr_shift(plan, w, s->img + (size_t)f * npix, &dx, &dy, &err);
+            /* frame f shifted by (dx, dy) matches the median frame */
+            c->x[f] = cx - dx;
+            c->y[f] = cy - dy;
+            c->err_x[f] = hypot(ecx, quant);
+            c->err_y[f] = hypot(ecy, quant);
+            c->quality[f] = err;
+            c->ok[f] = isfinite(dx) && isfinite(dy);
+            long d;
+#pragma omp atomic capture
+            d = ++done;
+            gl_progress("registering", d, s->nframe);
+        }
+        gl_xcorr_work_free(w);
+    }
+    gl_xcorr_plan_free(plan);
+    return nomem ? gl_error_nomem("registration work") : GL_OK;
+}
+
+/* ---- symmetry ----------------------------------------------------------- */
+
+static gl_status measure_symmetry(const gl_align_stack *s, const gl_align_params *p, gl_centres *c)
+{
+    gl_xcorr_plan *plan = NULL;
+    gl_status st = gl_symmetry_plan_new(s->nx, s->ny, p->upsample, &plan);
+    if (st)
+        return st;
+    size_t npix = (size_t)s->nx * (size_t)s->ny;
+    int nomem = 0;
+    long done = 0;
+#pragma omp parallel
+    {
+        gl_xcorr_work *w = NULL;
+        fftw_complex *spec = gl_malloc(npix * sizeof *spec);
+        if (gl_xcorr_work_new(plan, &w) || !spec) {
+#pragma omp atomic write
+            nomem = 1;
+        }
+#pragma omp for schedule(static)
+        for (long f = 0; f < s->nframe; f++) {
+            double x = NAN, y = NAN;
+            c->ok[f] =
+                w && spec &&
+                gl_symmetry_centre_with(plan, w, spec, s->img + (size_t)f * npix, &x, &y) == GL_OK;
+            c->x[f] = x;
+            c->y[f] = y;
+            c->err_x[f] = c->err_y[f] = NAN; /* no formal uncertainty */
+            c->quality[f] = NAN;
+            long d;
+#pragma omp atomic capture
+            d = ++done;
+            gl_progress("centring", d, s->nframe);
+        }
+        gl_free(spec);
+        gl_xcorr_work_free(w);
+    }
+    gl_xcorr_plan_free(plan);
+    return nomem ? gl_error_nomem("symmetry work") : GL_OK;
+}
+
+/* ---- satellite spots ---------------------------------------------------- */
+
+typedef struct spots_ctx {
+    gl_spots ref;
+    double search;
+} spots_ctx;
+
+static int spots_frame(const float *img, long nx, long ny, const void *ctx, double *x, double *y,
+                       double *ex, double *ey, double *q)
+{
+    const spots_ctx *c = ctx;
+    gl_spots s;
+    if (gl_align_spots_refit(img, nx, ny, &c->ref, c->search, &s))
+        return -1;
+    *x = s.cx;
+    *y = s.cy;
+    *ex = s.err_cx;
+    *ey = s.err_cy;
+    /* spread of the four spot distances from the centre, relative */
+    double r[4], m = 0, v = 0;
+    for (int k = 0; k < 4; k++) {
+        r[k] = hypot(s.x[k] - s.cx, s.y[k] - s.cy);
+        m += r[k] / 4;
+    }
+    for (int k = 0; k < 4; k++)
+        v += (r[k] - m) * (r[k] - m) / 3;
+    *q = sqrt(v) / m;
+    return 0;
+}
+
+static gl_status measure_spots(const gl_align_stack *s, const gl_align_params *p, gl_centres *c)
+{
+    spots_ctx ctx = {.search = p->spot_search};
+    gl_status st = gl_align_spots_find(s->median, s->nx, s->ny, &ctx.ref);
+    if (st)
+        return gl_error_set(st, "%s: %s", s->name, gl_error_message());
+    gl_log(GL_LOG_INFO,
+           "satellite spots in the median frame at (%.1f,%.1f) (%.1f,%.1f) "
+           "(%.1f,%.1f) (%.1f,%.1f); centre (%.3f, %.3f)",
+           ctx.ref.x[0], ctx.ref.y[0], ctx.ref.x[1], ctx.ref.y[1], ctx.ref.x[2], ctx.ref.y[2],
+           ctx.ref.x[3], ctx.ref.y[3], ctx.ref.cx, ctx.ref.cy);
+    gl_centres_each_frame(s, spots_frame, &ctx, c);
+    return GL_OK;
+}
+
+/* ---- table and automatic choice ----------------------------------------- */
+
+const gl_centre_ops gl_centre_gaussian_ops = {"gaussian", "2-D Gaussian fit per frame",
+                                              measure_gaussian};
+const gl_centre_ops gl_centre_moffat_ops = {"moffat", "Moffat (1969) profile fit per frame",
+                                            measure_moffat};
+const gl_centre_ops gl_centre_register_ops = {
+    "register", "cross-correlation with the median frame (upsampled DFT)", measure_register};
+const gl_centre_ops gl_centre_spots_ops = {"spots", "intersection of satellite-spot diagonals",
+                                           measure_spots};
+const gl_centre_ops gl_centre_symmetry_ops = {
+    "symmetry", "point symmetry of the halo (correlation with its 180-degree rotation)",
+    measure_symmetry};
+
+const gl_centre_ops *gl_centre_ops_get(gl_centre_method m)
+{
+    static const gl_centre_ops *const table[GL_CENTRE_NMETHODS] = {
+        &gl_centre_gaussian_ops, &gl_centre_moffat_ops, &gl_centre_register_ops,
+        &gl_centre_spots_ops, &gl_centre_symmetry_ops};
+    return m >= 0 && m < GL_CENTRE_NMETHODS ? table[m] : NULL;
+}
+
+gl_centre_method gl_centre_auto(const gl_align_stack *s, const gl_align_params *p, char *reason,
+                                size_t size)
+{
+    long px, py;
+    double peak;
+    double bg = gl_image_median(s->median, s->nx, s->ny);
+    gl_image_peak(s->median, s->nx, s->ny, 2, &px, &py, &peak);
+    gl_spots sp;
+    if (gl_align_spots_find(s->median, s->nx, s->ny, &sp) == GL_OK) {
+        double weakest = INFINITY;
+        for (int k = 0; k < 4; k++) {
+            long x = lround(sp.x[k]), y = lround(sp.y[k]);
+            double v = s->median[y * s->nx + x] - bg;
+            if (v < weakest)
+                weakest = v;
+        }
+        if (weakest > 0.05 * (peak - bg)) {
+            snprintf(reason, size,
+                     "four satellite spots found in the median frame, as bright "
+                     "as %.0f%% of its brightest feature",
+                     100 * weakest / (peak - bg));
+            return GL_CENTRE_SPOTS;
+        }
+    }
+    gl_error_clear();
+    gl_profile_fit fit;
+    if (compact_star(s->median, s->nx, s->ny, p, &fit)) {
+        double noise = gl_image_noise(s->img, s->nx, s->ny);
+        double snr = noise > 0 ? fit.amplitude / noise : INFINITY;
+        if (snr >= 20) {
+            snprintf(reason, size,
+                     "an unsaturated star (FWHM %.2f px, peak S/N %.0f in one "
+                     "frame)",
+                     fit.fwhm, snr);
+            return GL_CENTRE_GAUSSIAN;
+        }
+        snprintf(reason, size,
+                 "an unsaturated but faint star (peak S/N %.1f in one frame): "
+                 "registration uses the whole stack",
+                 snr);
+        return GL_CENTRE_REGISTER;
+    }
+    gl_error_clear();
+    snprintf(reason, size,
+             "no unsaturated compact star and no satellite spots: a saturated or "
+             "coronagraphic image, registered with its absolute centre from the halo symmetry");
+    return GL_CENTRE_REGISTER;
+}

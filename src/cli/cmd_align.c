@@ -1,0 +1,275 @@
+/*
+ * cmd_align.c -- `gloam align CUBE --out ALIGNED.fits`: find the star in
+ * every frame and move it to (nx/2, ny/2), with the preparation around it
+ * (bad pixels, frame selection, crop, binning, angles from the headers).
+ */
+#include "cli/cli.h"
+
+#include <errno.h>
+#include <math.h>
+#include <stdio.h>
+#include <string.h>
+
+static const char help[] =
+    "usage: gloam align CUBE --out ALIGNED.fits [options]\n"
+    "Finds the star in every frame and shifts it to pixel (nx/2, ny/2).\n\n"
+    "  --out FILE            aligned cube (required)\n"
+    "  --table FILE          star-position table (CSV): frame,x,y,x_err,y_err,method,...\n"
+    "  --method M            auto (default), gaussian, moffat, register, spots, symmetry\n"
+    "  --interp I            shift interpolator: fft (default) or cubic\n"
+    "  --upsample N          registration resolution 1/N pixel (default 100)\n"
+    "  --fwhm PX             star FWHM guess for the profile fits (default: estimated)\n"
+    "  --stamp PX            half-size of the profile-fit stamp (default: 2 FWHM)\n"
+    "  --spot-search PX      search radius around the median-frame spots (default 5)\n"
+    "  --bad-pixels SIGMA    find hot, cold, NaN and transient pixels and replace them\n"
+    "  --bad-pixel-map FILE  write the bad-pixel map (bits: 1 hot, 2 cold, 4 NaN,\n"
+    "                        8 transient); implies --bad-pixels 5 unless given\n"
+    "  --reject-outliers SIGMA  reject frames whose flux or correlation with the\n"
+    "                        median frame is an outlier by SIGMA\n"
+    "  --crop PX             output frames of PX x PX pixels around the star\n"
+    "  --bin N               average N consecutive kept frames (angles averaged)\n"
+    "  --angles FILE         parallactic angles of the input frames\n"
+    "  --angles-from-header  compute them from the header (DATE-OBS/MJD-OBS, EXPTIME,\n"
+    "                        RA, DEC, site); per-frame starts from a binary-table\n"
+    "                        extension with a column MJD when present\n"
+    "  --frame-cadence S     seconds between frame starts (default EXPTIME)\n"
+    "  --angles-out FILE     angles of the output frames (needed with angles)\n";
+
+enum {
+    OPT_OUT = CLI_OPT_FIRST_COMMAND_OPTION,
+    OPT_TABLE,
+    OPT_METHOD,
+    OPT_INTERP,
+    OPT_UPSAMPLE,
+    OPT_FWHM,
+    OPT_STAMP,
+    OPT_SPOT_SEARCH,
+    OPT_BADPIX,
+    OPT_BADPIX_MAP,
+    OPT_REJECT,
+    OPT_CROP,
+    OPT_BIN,
+    OPT_ANGLES,
+    OPT_ANGLES_HEADER,
+    OPT_CADENCE,
+    OPT_ANGLES_OUT
+};
+
+static gl_status write_angles(const char *path, const double *a, long n, const char *product)
+{
+    FILE *fp = fopen(path, "w");
+    if (!fp)
+        return gl_error_set(GL_ERR_IO, "%s: cannot create (%s)", path, strerror(errno));
+    fprintf(fp, "# parallactic angles (degrees) of the frames of %s\n", product);
+    for (long i = 0; i < n; i++)
+        fprintf(fp, "%.8f\n", a[i]);
+    int err = ferror(fp);
+    if (fclose(fp) != 0 || err)
+        return gl_error_set(GL_ERR_IO, "%s: write error", path);
+    return GL_OK;
+}
+
+static gl_status write_map(const char *path, const float *map, long nx, long ny,
+                           const gl_provenance *prov)
+{
+    gl_cube *c = NULL;
+    gl_status st = gl_cube_new(nx, ny, 1, 1, &c);
+    if (st)
+        return st;
+    memcpy(c->data, map, (size_t)nx * (size_t)ny * sizeof *map);
+    gl_header_set_str(c->header, "BUNIT", "", "bit codes");
+    gl_header_add_history(c->header,
+                          "gloam bad-pixel map: bit 1 hot, 2 cold (both in the "
+                          "median frame), 4 NaN in some frame, 8 transient in some frame");
+    st = gl_fits_write_cube(path, c, prov);
+    gl_cube_free(c);
+    return st;
+}
+
+int cmd_align(gl_cli *cli, int argc, char **argv)
+{
+    static const struct option opts[] = {{"out", required_argument, 0, OPT_OUT},
+                                         {"table", required_argument, 0, OPT_TABLE},
+                                         {"method", required_argument, 0, OPT_METHOD},
+                                         {"interp", required_argument, 0, OPT_INTERP},
+                                         {"upsample", required_argument, 0, OPT_UPSAMPLE},
+                                         {"fwhm", required_argument, 0, OPT_FWHM},
+                                         {"stamp", required_argument, 0, OPT_STAMP},
+                                         {"spot-search", required_argument, 0, OPT_SPOT_SEARCH},
+                                         {"bad-pixels", required_argument, 0, OPT_BADPIX},
+                                         {"bad-pixel-map", required_argument, 0, OPT_BADPIX_MAP},
+                                         {"reject-outliers", required_argument, 0, OPT_REJECT},
+                                         {"crop", required_argument, 0, OPT_CROP},
+                                         {"bin", required_argument, 0, OPT_BIN},
+                                         {"angles", required_argument, 0, OPT_ANGLES},
+                                         {"angles-from-header", no_argument, 0, OPT_ANGLES_HEADER},
+                                         {"frame-cadence", required_argument, 0, OPT_CADENCE},
+                                         {"angles-out", required_argument, 0, OPT_ANGLES_OUT},
+                                         CLI_COMMON_OPTIONS,
+                                         {0, 0, 0, 0}};
+    gl_align_params p;
+    gl_align_params_init(&p);
+    const char *out = NULL, *table = NULL, *map_path = NULL, *angles_in = NULL, *angles_out = NULL;
+    int from_header = 0;
+    double cadence = 0, d;
+    long n;
+    int c, exit_now = 0;
+    optind = 1;
+    opterr = 0;
+    while ((c = getopt_long(argc, argv, "", opts, NULL)) != -1) {
+        int h = cli_common_option(cli, c, optarg, help, &exit_now);
+        if (h < 0)
+            return 1;
+        if (exit_now)
+            return 0;
+        if (h)
+            continue;
+        switch (c) {
+        case OPT_OUT: out = optarg; break;
+        case OPT_TABLE: table = optarg; break;
+        case OPT_METHOD: {
+            int m = gl_centre_method_from_name(optarg);
+            if (m == -2)
+                return cli_usage(cli, "--method: unknown method '%s'", optarg);
+            p.method = (gl_centre_method)m;
+            break;
+        }
+        case OPT_INTERP: {
+            int i = gl_interp_from_name(optarg);
+            if (i < 0)
+                return cli_usage(cli, "--interp: '%s' is neither fft nor cubic", optarg);
+            p.interp = (gl_interp)i;
+            break;
+        }
+        case OPT_UPSAMPLE:
+            if (cli_parse_long(cli, "--upsample", optarg, 1, 1000, &n))
+                return 1;
+            p.upsample = (int)n;
+            break;
+        case OPT_FWHM:
+            if (cli_parse_double(cli, "--fwhm", optarg, 0.5, 1000, &p.fwhm))
+                return 1;
+            break;
+        case OPT_STAMP:
+            if (cli_parse_long(cli, "--stamp", optarg, 2, 500, &n))
+                return 1;
+            p.stamp_half = (int)n;
+            break;
+        case OPT_SPOT_SEARCH:
+            if (cli_parse_double(cli, "--spot-search", optarg, 1, 1000, &p.spot_search))
+                return 1;
+            break;
+        case OPT_BADPIX:
+            if (cli_parse_double(cli, "--bad-pixels", optarg, 1, 1000, &p.badpix_sigma))
+                return 1;
+            break;
+        case OPT_BADPIX_MAP: map_path = optarg; break;
+        case OPT_REJECT:
+            if (cli_parse_double(cli, "--reject-outliers", optarg, 0.5, 1000, &p.reject_sigma))
+                return 1;
+            break;
+        case OPT_CROP:
+            if (cli_parse_long(cli, "--crop", optarg, 3, 1000000, &p.crop))
+                return 1;
+            break;
+        case OPT_BIN:
+            if (cli_parse_long(cli, "--bin", optarg, 1, 1000000, &p.bin))
+                return 1;
+            break;
+        case OPT_ANGLES: angles_in = optarg; break;
+        case OPT_ANGLES_HEADER: from_header = 1; break;
+        case OPT_CADENCE:
+            if (cli_parse_double(cli, "--frame-cadence", optarg, 0, 1e7, &d))
+                return 1;
+            cadence = d;
+            break;
+        case OPT_ANGLES_OUT: angles_out = optarg; break;
+        default: return cli_usage(cli, "unknown option '%s'", argv[optind - 1]);
+        }
+    }
+    if (optind != argc - 1)
+        return cli_usage(cli, "expected one input cube");
+    const char *in = argv[optind];
+    if (!out)
+        return cli_usage(cli, "--out is required");
+    if (angles_in && from_header)
+        return cli_usage(cli, "--angles and --angles-from-header exclude each other");
+    if ((angles_in || from_header) && !angles_out)
+        return cli_usage(cli, "angles given: --angles-out is needed (frames may be rejected or "
+                              "binned)");
+    if (angles_out && !angles_in && !from_header)
+        return cli_usage(cli, "--angles-out needs --angles or --angles-from-header");
+    if (map_path && p.badpix_sigma <= 0)
+        p.badpix_sigma = 5;
+    cli_start(cli);
+
+    gl_status st;
+    gl_cube *cube = NULL;
+    gl_outset *set = NULL;
+    gl_align_result *r = NULL;
+    double *angles = NULL, *mjd = NULL;
+    long nang = 0;
+    const char *t_out = NULL, *t_table = NULL, *t_map = NULL, *t_angles = NULL;
+
+    if ((st = gl_provenance_add_input(&cli->prov, in)))
+        goto done;
+    if ((st = gl_fits_read_cube(in, 2, &cube)))
+        goto done;
+    if (angles_in) {
+        if ((st = gl_provenance_add_input(&cli->prov, angles_in)) ||
+            (st = gl_angles_read(angles_in, cube->nframe, &angles, &nang)))
+            goto done;
+    } else if (from_header) {
+        if ((st = gl_align_frame_times_read(in, cube->nframe, &mjd)))
+            goto done;
+        gl_frame_times times = {mjd, cadence};
+        if (mjd)
+            gl_log(GL_LOG_INFO, "angles from the header: frame starts from the MJD time table");
+        else
+            gl_log(GL_LOG_INFO,
+                   "angles from the header: frame f starts at the header start + f "
+                   "x %s",
+                   cadence > 0 ? "--frame-cadence" : "EXPTIME");
+        if (!(angles = gl_malloc((size_t)cube->nframe * sizeof *angles))) {
+            st = gl_error_nomem("angles");
+            goto done;
+        }
+        if ((st = gl_align_parang_from_header(cube->header, cube->nframe, &times, angles, NULL,
+                                              NULL))) {
+            st = gl_error_set(st, "%s: %s", in, gl_error_message());
+            goto done;
+        }
+    }
+
+    if ((st = gl_outset_new(cli->overwrite, &set)) ||
+        (st = gl_outset_add(set, out, &cli->prov, &t_out)) ||
+        (table && (st = gl_outset_add(set, table, &cli->prov, &t_table))) ||
+        (map_path && (st = gl_outset_add(set, map_path, &cli->prov, &t_map))) ||
+        (angles_out && (st = gl_outset_add(set, angles_out, &cli->prov, &t_angles))))
+        goto done;
+
+    long nx = cube->nx, ny = cube->ny;
+    if ((st = gl_align_run(cube, angles, in, &p, &r)))
+        goto done;
+    if ((st = gl_fits_write_cube(t_out, r->aligned, &cli->prov)))
+        goto done;
+    if (t_table && (st = gl_align_table_write_csv(t_table, r, angles)))
+        goto done;
+    if (t_map && (st = write_map(t_map, r->badpix_map, nx, ny, &cli->prov)))
+        goto done;
+    if (t_angles && (st = write_angles(t_angles, r->angles_out, r->nout, out)))
+        goto done;
+    if ((st = gl_outset_commit(set)))
+        goto done;
+    gl_log(GL_LOG_INFO, "wrote %s: %ld frames of %ldx%ld, star at (%ld, %ld)", out, r->nout,
+           r->aligned->nx, r->aligned->ny, r->aligned->nx / 2, r->aligned->ny / 2);
+
+done:;
+    int rc = st ? cli_fail(cli, st) : 0;
+    gl_align_result_free(r);
+    gl_outset_free(set);
+    gl_free(angles);
+    gl_free(mjd);
+    gl_cube_free(cube);
+    return rc;
+}
