@@ -289,7 +289,7 @@ gl_status gl_align_run(gl_cube *cube, const double *angles, const char *name,
     *out = NULL;
     if ((st = check_params(cube, p))) {
         if (st == GL_ERR_INPUT)
-            st = gl_error_set(st, "%s: %s", name, gl_error_message());
+            st = gl_align_error_wrap(st, name);
         return st;
     }
     r = gl_calloc(1, sizeof *r);

@@ -9,6 +9,7 @@
 #include "gloam/align.h"
 
 #include <fftw3.h>
+#include <stdio.h>
 
 /* Measurement images handed to a centring method: nframe planes of nx x ny
  * (channel means of the cube), and their median frame. */
@@ -42,6 +43,15 @@ const gl_centre_ops *gl_centre_ops_get(gl_centre_method m);
 /* Chooses a method for the stack (logged by the caller with the reason). */
 gl_centre_method gl_centre_auto(const gl_align_stack *s, const gl_align_params *p, char *reason,
                                 size_t size);
+
+/* Re-records the current error message as "prefix: message" (the message
+ * is copied first: gl_error_set must not read the buffer it writes). */
+static inline gl_status gl_align_error_wrap(gl_status st, const char *prefix)
+{
+    char msg[1024];
+    snprintf(msg, sizeof msg, "%s", gl_error_message());
+    return gl_error_set(st, "%s: %s", prefix, msg);
+}
 
 /* ---- helpers (stats.c) -------------------------------------------------- */
 

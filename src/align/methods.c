@@ -112,35 +112,89 @@ static int compact_star(const float *img, long nx, long ny, const gl_align_param
 
 /* ---- registration ------------------------------------------------------- */
 
+/* A sharp reference: up to 64 frames spread over the sequence, registered to
+ * the (jitter-blurred) median frame, shifted onto it, and median-combined.
+ * Its centre measured by a fit or by symmetry is then the centre that the
+ * registration of every frame refers to. */
+static gl_status sharp_reference(const gl_align_stack *s, const gl_align_params *p, float *ref)
+{
+    long nsub = GL_MIN(s->nframe, 64);
+    size_t npix = (size_t)s->nx * (size_t)s->ny;
+    gl_xcorr_plan *xp = NULL;
+    gl_geom_plan *gp = NULL;
+    float *buf = gl_malloc(npix * (size_t)nsub * sizeof *buf);
+    gl_status st = buf ? GL_OK : gl_error_nomem("registration reference");
+    if (!st)
+        st = gl_xcorr_plan_new(s->median, s->nx, s->ny, p->upsample, &xp);
+    if (!st)
+        st = gl_geom_plan_new(s->nx, s->ny, p->interp, &gp);
+    int nomem = 0;
+    if (!st) {
+#pragma omp parallel
+        {
+            gl_xcorr_work *xw = NULL;
+            gl_geom_work *gw = NULL;
+            if (gl_xcorr_work_new(xp, &xw) || gl_geom_work_new(gp, &gw)) {
+#pragma omp atomic write
+                nomem = 1;
+            }
+#pragma omp for schedule(static)
+            for (long k = 0; k < nsub; k++) {
+                float *slot = buf + (size_t)k * npix;
+                long f = k * s->nframe / nsub;
+                memcpy(slot, s->img + (size_t)f * npix, npix * sizeof *slot);
+                double dx, dy;
+                if (!xw || !gw || gl_align_xcorr_shift(xp, xw, slot, &dx, &dy, NULL) ||
+                    gl_geom_shift(gp, gw, slot, dx, dy))
+                    for (size_t i = 0; i < npix; i++)
+                        slot[i] = NAN;
+            }
+            gl_geom_work_free(gw);
+            gl_xcorr_work_free(xw);
+        }
+        st = nomem ? gl_error_nomem("registration reference")
+                   : gl_median_frame(buf, s->nx, s->ny, nsub, ref);
+    }
+    gl_geom_plan_free(gp);
+    gl_xcorr_plan_free(xp);
+    gl_free(buf);
+    return st;
+}
+
 static gl_status measure_register(const gl_align_stack *s, const gl_align_params *p, gl_centres *c)
 {
     gl_xcorr_plan *plan = NULL;
     gl_profile_fit fit;
     double cx, cy, ecx, ecy;
-    gl_status st = GL_OK;
-    if (compact_star(s->median, s->nx, s->ny, p, &fit)) {
+    size_t npix = (size_t)s->nx * (size_t)s->ny;
+    float *ref = gl_malloc(npix * sizeof *ref);
+    if (!ref)
+        return gl_error_nomem("registration reference");
+    gl_status st = sharp_reference(s, p, ref);
+    if (st)
+        goto cleanup;
+    if (compact_star(ref, s->nx, s->ny, p, &fit)) {
         cx = fit.x;
         cy = fit.y;
         ecx = fit.err_x;
         ecy = fit.err_y;
         gl_log(GL_LOG_INFO,
                "registration: absolute centre (%.3f, %.3f) from a Gaussian fit of "
-               "the median frame",
+               "the registered median frame",
                cx, cy);
     } else {
-        st = gl_align_symmetry_centre(s->median, s->nx, s->ny, p->upsample, &cx, &cy);
+        st = gl_align_symmetry_centre(ref, s->nx, s->ny, p->upsample, &cx, &cy);
         if (st)
-            return st;
+            goto cleanup;
         ecx = ecy = 0.5 / p->upsample;
         gl_log(GL_LOG_INFO,
                "registration: absolute centre (%.3f, %.3f) from the point symmetry "
-               "of the median frame",
+               "of the registered median frame",
                cx, cy);
     }
-    st = gl_xcorr_plan_new(s->median, s->nx, s->ny, p->upsample, &plan);
+    st = gl_xcorr_plan_new(ref, s->nx, s->ny, p->upsample, &plan);
     if (st)
-        return st;
-    size_t npix = (size_t)s->nx * (size_t)s->ny;
+        goto cleanup;
     double quant = 1.0 / (p->upsample * sqrt(12.0)); /* rounding to the 1/up grid */
     int nomem = 0;
     long done = 0;
@@ -170,8 +224,12 @@ static gl_status measure_register(const gl_align_stack *s, const gl_align_params
         }
         gl_xcorr_work_free(w);
     }
+    if (nomem)
+        st = gl_error_nomem("registration work");
+cleanup:
     gl_xcorr_plan_free(plan);
-    return nomem ? gl_error_nomem("registration work") : GL_OK;
+    gl_free(ref);
+    return st;
 }
 
 /* ---- symmetry ----------------------------------------------------------- */
@@ -250,7 +308,7 @@ static gl_status measure_spots(const gl_align_stack *s, const gl_align_params *p
     spots_ctx ctx = {.search = p->spot_search};
     gl_status st = gl_align_spots_find(s->median, s->nx, s->ny, &ctx.ref);
     if (st)
-        return gl_error_set(st, "%s: %s", s->name, gl_error_message());
+        return gl_align_error_wrap(st, s->name);
     gl_log(GL_LOG_INFO,
            "satellite spots in the median frame at (%.1f,%.1f) (%.1f,%.1f) "
            "(%.1f,%.1f) (%.1f,%.1f); centre (%.3f, %.3f)",

@@ -181,8 +181,8 @@ gl_status gl_align_fit_profile(const float *img, long nx, long ny, double x0, do
     /* reaching the iteration limit is accepted: a Moffat fit of a nearly
      * Gaussian star drifts towards beta -> infinity (the Gaussian limit)
      * with the centre long settled */
-    if (!isfinite(p[1]) || !isfinite(p[2]) || !(p[0] > 0) || !(p[3] > 0) || !(p[4] > 0) || fabs(p[1] - x0) > half ||
-        fabs(p[2] - y0) > half) {
+    if (!isfinite(p[1]) || !isfinite(p[2]) || !(p[0] > 0) || !(p[3] > 0) || !(p[4] > 0) ||
+        fabs(p[1] - x0) > half || fabs(p[2] - y0) > half) {
         st = gl_error_set(GL_ERR_NUMERIC,
                           "profile fit at (%.1f, %.1f) found no star "
                           "(no convergence, non-positive width or centre off the stamp)",

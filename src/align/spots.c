@@ -214,14 +214,14 @@ gl_status gl_align_spots_find(const float *img, long nx, long ny, gl_spots *out)
                             nc);
     for (int k = 0; k < 4; k++) {
         gl_status st = fit_spot(img, nx, ny, c[bi[k]].x, c[bi[k]].y, out, k);
-        if (st)
-            return gl_error_set(GL_ERR_INPUT,
-                                "satellite spot %d at (%.0f, %.0f) could not be "
-                                "fitted: %s",
-                                k + 1, c[bi[k]].x, c[bi[k]].y, gl_error_message());
+        if (st) {
+            char where[96];
+            snprintf(where, sizeof where, "satellite spot %d at (%.0f, %.0f) could not be fitted",
+                     k + 1, c[bi[k]].x, c[bi[k]].y);
+            return gl_align_error_wrap(GL_ERR_INPUT, where);
+        }
     }
-    return spots_centre(out) ? gl_error_set(GL_ERR_INPUT, "satellite spots: %s", gl_error_message())
-                             : GL_OK;
+    return spots_centre(out) ? gl_align_error_wrap(GL_ERR_INPUT, "satellite spots") : GL_OK;
 }
 
 gl_status gl_align_spots_refit(const float *img, long nx, long ny, const gl_spots *guess,

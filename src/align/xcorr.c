@@ -228,6 +228,8 @@ gl_status gl_align_xcorr_shift(const gl_xcorr_plan *p, gl_xcorr_work *w, const f
         return gl_error_set(GL_ERR_INTERNAL, "registration plan without a reference");
     size_t n = (size_t)p->nx * (size_t)p->ny;
     double e = spectrum(p, img, w->buf, 0);
+    if (!(e > 0))
+        return gl_error_set(GL_ERR_NUMERIC, "registration of an image without data");
     for (size_t i = 0; i < n; i++) {
         double fr = p->ref[i][0], fi = p->ref[i][1], gr = w->buf[i][0], gi = w->buf[i][1];
         w->prod[i][0] = fr * gr + fi * gi; /* F conj(G) */

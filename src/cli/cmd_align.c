@@ -236,7 +236,9 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
         }
         if ((st = gl_align_parang_from_header(cube->header, cube->nframe, &times, angles, NULL,
                                               NULL))) {
-            st = gl_error_set(st, "%s: %s", in, gl_error_message());
+            char msg[1024];
+            snprintf(msg, sizeof msg, "%s", gl_error_message());
+            st = gl_error_set(st, "%s: %s", in, msg);
             goto done;
         }
     }
