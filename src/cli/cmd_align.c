@@ -223,13 +223,6 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
         if ((st = gl_align_frame_times_read(in, cube->nframe, &mjd)))
             goto done;
         gl_frame_times times = {mjd, cadence};
-        if (mjd)
-            gl_log(GL_LOG_INFO, "angles from the header: frame starts from the MJD time table");
-        else
-            gl_log(GL_LOG_INFO,
-                   "angles from the header: frame f starts at the header start + f "
-                   "x %s",
-                   cadence > 0 ? "--frame-cadence" : "EXPTIME");
         if (!(angles = gl_malloc((size_t)cube->nframe * sizeof *angles))) {
             st = gl_error_nomem("angles");
             goto done;
@@ -241,6 +234,13 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
             st = gl_error_set(st, "%s: %s", in, msg);
             goto done;
         }
+        if (mjd)
+            gl_log(GL_LOG_INFO, "angles from the header: frame starts from the MJD time table");
+        else
+            gl_log(GL_LOG_INFO,
+                   "angles from the header: frame f starts at the header start + f "
+                   "x %s",
+                   cadence > 0 ? "--frame-cadence" : "EXPTIME");
     }
 
     if ((st = gl_outset_new(cli->overwrite, &set)) ||

@@ -1,0 +1,324 @@
+"""gloam align against outside references on the same data.
+
+References:
+- skimage.registration.phase_cross_correlation(upsample_factor=100,
+  normalization=None): the Guizar-Sicairos, Thurman & Fienup 2008
+  (Opt. Lett. 33, 156) algorithm, plain cross-correlation as in the paper;
+- astropy.modeling Gaussian2D + Const2D (theta fixed at 0) and Moffat2D +
+  Const2D fitted with LevMarLSQFitter on the same stamp; Gaussian
+  FWHM = 2 sqrt(2 ln 2) sigma; Moffat 1969 (A&A 3, 455) profile
+  A (1 + r^2/alpha^2)^-beta (astropy's gamma = alpha, astropy's alpha = beta);
+- Meeus, Astronomical Algorithms 2nd ed., eq. 14.1, with the same hour angle;
+  astroplan Observer.parallactic_angle (offline IERS) for the apparent place;
+- known injected sub-pixel jitter (issue 3: rms < 0.02 px unsaturated,
+  < 0.1 px with satellite spots).
+"""
+import os
+import subprocess
+
+import numpy as np
+import pytest
+from astropy.io import fits
+
+GLOAM = os.environ["GLOAM"]
+TOOL = os.path.join(os.environ["GLOAM_TEST_TOOLS"], "align_tool")
+
+
+def star(n, x0, y0, kind="gauss"):
+    y, x = np.mgrid[0:n, 0:n].astype(float)
+    r = np.hypot(x - x0, y - y0)
+    if kind == "gauss":
+        return 1000 * np.exp(-0.5 * r**2 / 1.8**2)
+    if kind == "moffat":
+        return 1000 * (1 + r**2 / 2.5**2) ** -2.5
+    if kind == "airy":
+        from scipy.special import j1
+        u = np.pi * r / 2.0
+        with np.errstate(invalid="ignore", divide="ignore"):
+            a = np.where(u < 1e-8, 1.0, 2 * j1(u) / u)
+        return 1000 * a**2
+    # coronagraphic halo with a dark centre and four satellite spots
+    img = 300 * np.exp(-r / 8) * (1 - np.exp(-0.5 * r**2 / 9))
+    for k in range(4):
+        a = np.pi / 4 + k * np.pi / 2
+        sx, sy = x0 + 14 * np.cos(a), y0 + 14 * np.sin(a)
+        img += 150 * np.exp(-0.5 * ((x - sx) ** 2 + (y - sy) ** 2) / 2.0)
+    return img
+
+
+def jitter_cube(n, nf, kind, noise, jitter, seed):
+    rng = np.random.default_rng(seed)
+    tx = n // 2 + 0.3 + rng.uniform(-jitter, jitter, nf)
+    ty = n // 2 - 0.2 + rng.uniform(-jitter, jitter, nf)
+    cube = np.array([star(n, a, b, kind) + 5 + rng.normal(0, noise, (n, n))
+                     for a, b in zip(tx, ty)])
+    return cube.astype(np.float32), tx, ty
+
+
+def write(path, data, header=None):
+    fits.PrimaryHDU(np.asarray(data, np.float32), header=header).writeto(path, overwrite=True)
+
+
+def run(*args, ok=True):
+    p = subprocess.run([GLOAM, "align", *map(str, args)], capture_output=True, text=True)
+    if ok:
+        assert p.returncode == 0, p.stderr
+    return p
+
+
+def read_table(path):
+    return np.genfromtxt(path, delimiter=",", names=True, dtype=None, encoding=None)
+
+
+# ---- registration against scikit-image ----------------------------------------
+
+@pytest.mark.parametrize("n,kind", [(64, "gauss"), (65, "airy"), (64, "spots")])
+def test_xcorr_matches_phase_cross_correlation(tmp_path, n, kind):
+    from skimage.registration import phase_cross_correlation
+    cube, tx, ty = jitter_cube(n, 6, kind, 2.0, 3.0, 1)
+    ref = cube[0]
+    write(tmp_path / "ref.fits", ref)
+    write(tmp_path / "img.fits", cube)
+    out = subprocess.run([TOOL, "xcorr", tmp_path / "ref.fits", tmp_path / "img.fits", "100"],
+                         check=True, capture_output=True, text=True).stdout.split("\n")
+    for f in range(len(cube)):
+        dx, dy, _ = map(float, out[f].split())
+        shift, _, _ = phase_cross_correlation(ref.astype(float), cube[f].astype(float),
+                                              upsample_factor=100, normalization=None)
+        # same algorithm, same grid of 1/100 px: equal up to one grid step
+        assert abs(dx - shift[1]) <= 0.0101 and abs(dy - shift[0]) <= 0.0101
+        # and the injected shift (ref star minus frame star) within 0.02 px
+        if kind != "spots":
+            assert abs(dx - (tx[0] - tx[f])) < 0.02 and abs(dy - (ty[0] - ty[f])) < 0.02
+
+
+# ---- profile fits against astropy.modeling --------------------------------------
+
+@pytest.mark.parametrize("kind", ["gaussian", "moffat"])
+def test_profile_fit_matches_astropy(tmp_path, kind):
+    from astropy.modeling import fitting, models
+    n, half = 41, 10
+    rng = np.random.default_rng(3)
+    img = star(n, 20.43, 19.71, "gauss" if kind == "gaussian" else "moffat") + 5
+    img += rng.normal(0, 3.0, img.shape)
+    write(tmp_path / "s.fits", img)
+    out = subprocess.run([TOOL, "fit", tmp_path / "s.fits", "20", "20", str(half), kind],
+                         check=True, capture_output=True, text=True).stdout.split()
+    x, y, amp, bg, sx, sy, alpha, beta, fwhm, ex, ey = map(float, out)
+    yy, xx = np.mgrid[20 - half:21 + half, 20 - half:21 + half]
+    stamp = img[20 - half:21 + half, 20 - half:21 + half].astype(np.float32).astype(float)
+    fitter = fitting.LevMarLSQFitter()
+    if kind == "gaussian":
+        m0 = models.Gaussian2D(900, 20, 20, 2, 2, theta=0, fixed={"theta": True}) + \
+            models.Const2D(4)
+        m = fitter(m0, xx, yy, stamp, maxiter=1000)
+        g = m[0]
+        assert abs(x - g.x_mean.value) < 1e-4 and abs(y - g.y_mean.value) < 1e-4
+        assert abs(sx - g.x_stddev.value) < 1e-4 and abs(sy - g.y_stddev.value) < 1e-4
+        assert abs(amp - g.amplitude.value) < 1e-3 * amp
+        # FWHM = 2 sqrt(2 ln 2) sigma
+        assert abs(fwhm - 2 * np.sqrt(2 * np.log(2)) * np.sqrt(sx * sy)) < 1e-6
+    else:
+        m0 = models.Moffat2D(900, 20, 20, 2.0, 2.0) + models.Const2D(4)
+        m = fitter(m0, xx, yy, stamp, maxiter=1000)
+        g = m[0]
+        assert abs(x - g.x_0.value) < 1e-4 and abs(y - g.y_0.value) < 1e-4
+        assert abs(alpha - abs(g.gamma.value)) < 1e-3 * alpha
+        assert abs(beta - g.alpha.value) < 1e-3 * beta
+        # Moffat 1969: FWHM = 2 alpha sqrt(2^(1/beta) - 1); astropy's fwhm property
+        assert abs(fwhm - g.fwhm) < 1e-3 * fwhm
+    assert abs(bg - m[1].amplitude.value) < 0.05
+    # uncertainties: the truth lies within a few sigma
+    assert abs(x - 20.43) < 5 * ex and abs(y - 19.71) < 5 * ey
+
+
+# ---- parallactic angles ---------------------------------------------------------
+
+SITE = dict(lat=-24.6, lon=-70.4, height=2600.0)
+
+
+def header_cube(tmp_path, nf, ra, dec, date, exptime, table=None):
+    h = fits.Header()
+    h["DATE-OBS"] = date
+    h["EXPTIME"] = exptime
+    h["RA"] = ra
+    h["DEC"] = dec
+    h["LATITUDE"] = SITE["lat"]
+    h["LONGITUD"] = SITE["lon"]
+    h["OBSGEO-H"] = SITE["height"]
+    cube, _, _ = jitter_cube(32, nf, "gauss", 1.0, 0.5, 2)
+    hdus = [fits.PrimaryHDU(cube, header=h)]
+    if table is not None:
+        hdus.append(fits.BinTableHDU.from_columns(
+            [fits.Column(name="MJD", format="D", array=np.asarray(table))], name="TIMES"))
+    path = tmp_path / "hdr.fits"
+    fits.HDUList(hdus).writeto(path, overwrite=True)
+    return path
+
+
+def tool_parang(path, cadence):
+    out = subprocess.run([TOOL, "parang", path, str(cadence)], check=True,
+                         capture_output=True, text=True).stdout
+    return np.array([list(map(float, l.split())) for l in out.strip().split("\n")])
+
+
+def test_parang_meeus_and_astroplan(tmp_path):
+    from astropy.utils import iers
+    iers.conf.auto_download = False
+    import astropy.units as u
+    from astroplan import Observer
+    from astropy.coordinates import TETE, EarthLocation, SkyCoord
+    from astropy.time import Time
+
+    ra, dec, exptime, cadence, nf = 150.0, 10.0, 30.0, 300.0, 60
+    date = "2019-04-10T22:00:00"  # inside the IERS-B table bundled with astropy
+    path = header_cube(tmp_path, nf, ra, dec, date, exptime)
+    res = tool_parang(path, cadence)
+    pa, ha, dc = res[:, 0], res[:, 1], res[:, 2]
+    assert (ha < -5).sum() > 5 and (ha > 5).sum() > 5  # both sides of the meridian
+    # Meeus eq. 14.1 with the same hour angle and declination
+    H, d, phi = np.radians(ha), np.radians(dc), np.radians(SITE["lat"])
+    q = np.degrees(np.arctan2(np.sin(H), np.tan(phi) * np.cos(d) - np.sin(d) * np.cos(H)))
+    assert np.max(np.abs(pa - q)) < 1e-8
+    # astroplan: apparent sidereal time minus the apparent (TETE) right ascension
+    loc = EarthLocation(lat=SITE["lat"] * u.deg, lon=SITE["lon"] * u.deg,
+                        height=SITE["height"] * u.m)
+    obs = Observer(location=loc)
+    t = Time(date, scale="utc") + (np.arange(nf) * cadence + exptime / 2) * u.s
+    ref = []
+    for ti in t:
+        c = SkyCoord(ra * u.deg, dec * u.deg, frame="icrs").transform_to(
+            TETE(obstime=ti, location=loc))
+        ref.append(obs.parallactic_angle(ti, c).to_value(u.deg))
+    d = (pa - np.array(ref) + 180) % 360 - 180
+    assert np.max(np.abs(d)) < 0.01, np.max(np.abs(d))
+
+
+def test_angles_from_header_cli_with_time_table(tmp_path):
+    nf, exptime = 8, 20.0
+    mjd0 = 58583.9
+    table = mjd0 + np.arange(nf) * 600.0 / 86400  # 10-minute cadence
+    path = header_cube(tmp_path, nf, 150.0, 10.0, "2019-04-10T21:36:00", exptime, table)
+    run(path, "--out", tmp_path / "a.fits", "--angles-from-header", "--angles-out",
+        tmp_path / "pa.txt", "--table", tmp_path / "t.csv")
+    got = np.loadtxt(tmp_path / "pa.txt")
+    ref = tool_parang(path, 0)[:, 0]  # the tool reads the same table
+    assert got.shape == (nf,) and np.allclose(got, ref, atol=1e-7)
+    t = read_table(tmp_path / "t.csv")
+    assert np.allclose(t["angle"], ref, atol=1e-7)
+    # without the table, the cadence decides: frames 600 s apart
+    path2 = header_cube(tmp_path, nf, 150.0, 10.0, "2019-04-10T21:36:00", exptime)
+    run(path2, "--out", tmp_path / "b.fits", "--angles-from-header", "--angles-out",
+        tmp_path / "pb.txt", "--frame-cadence", "600")
+    assert np.allclose(np.loadtxt(tmp_path / "pb.txt"), tool_parang(path2, 600)[:, 0], atol=1e-7)
+
+
+# ---- the command end to end -------------------------------------------------------
+
+@pytest.mark.parametrize("kind,method,tol", [("gauss", "auto", 0.02), ("airy", "register", 0.02),
+                                             ("moffat", "moffat", 0.02),
+                                             ("spots", "auto", 0.1),
+                                             ("spots", "symmetry", 0.1)])
+def test_known_jitter_recovered(tmp_path, kind, method, tol):
+    cube, tx, ty = jitter_cube(64, 16, kind, 2.0, 2.5, 5)
+    write(tmp_path / "c.fits", cube)
+    p = run(tmp_path / "c.fits", "--out", tmp_path / "o.fits", "--table", tmp_path / "t.csv",
+            "--method", method)
+    assert "centring method:" in p.stderr
+    t = read_table(tmp_path / "t.csv")
+    assert list(t.dtype.names[:5]) == ["frame", "x", "y", "x_err", "y_err"]
+    rms = np.sqrt(np.mean((t["x"] - tx) ** 2 + (t["y"] - ty) ** 2) / 2)
+    assert rms < tol, rms
+    out = fits.getdata(tmp_path / "o.fits")
+    assert out.shape == cube.shape
+    if kind == "gauss":
+        # the star of the aligned frames sits on (nx/2, ny/2): the flux-weighted
+        # centroid of the mean frame within 6 px
+        m = np.nanmean(out, axis=0) - 5
+        y, x = np.mgrid[0:64, 0:64]
+        w = np.where(np.hypot(x - 32, y - 32) < 6, m, 0)
+        assert abs((w * x).sum() / w.sum() - 32) < 0.02
+        assert abs((w * y).sum() / w.sum() - 32) < 0.02
+
+
+def test_threads_identical(tmp_path):
+    cube, _, _ = jitter_cube(48, 8, "airy", 2.0, 1.5, 9)
+    write(tmp_path / "c.fits", cube)
+    for t in (1, 2):
+        run(tmp_path / "c.fits", "--out", tmp_path / f"o{t}.fits", "--method", "register",
+            "--bad-pixels", "5", "--table", tmp_path / f"t{t}.csv", "--threads", t)
+    assert np.array_equal(fits.getdata(tmp_path / "o1.fits"), fits.getdata(tmp_path / "o2.fits"),
+                          equal_nan=True)
+    assert open(tmp_path / "t1.csv").read() == open(tmp_path / "t2.csv").read()
+
+
+def test_preparation_products(tmp_path):
+    cube, tx, ty = jitter_cube(48, 10, "gauss", 1.0, 0.5, 4)
+    cube[:, 10, 12] += 500          # a hot pixel
+    cube[3, 30, 35] += 800          # a cosmic ray
+    cube[6] *= 0.5                  # clouds
+    write(tmp_path / "c.fits", cube)
+    angles = np.linspace(-20, 25, 10)
+    np.savetxt(tmp_path / "in.txt", angles)
+    p = run(tmp_path / "c.fits", "--out", tmp_path / "o.fits", "--bad-pixel-map",
+            tmp_path / "bp.fits", "--reject-outliers", "5", "--crop", "21", "--bin", "3",
+            "--angles", tmp_path / "in.txt", "--angles-out", tmp_path / "out.txt",
+            "--table", tmp_path / "t.csv")
+    assert "frame 6 rejected: flux" in p.stderr
+    bp = fits.getdata(tmp_path / "bp.fits")
+    assert int(bp[10, 12]) & 1 and int(bp[30, 35]) & 8
+    out = fits.getdata(tmp_path / "o.fits")
+    assert out.shape == (3, 21, 21)
+    kept = np.delete(np.arange(10), 6)
+    want = [angles[kept[i:i + 3]].mean() for i in range(0, 9, 3)]
+    assert np.allclose(np.loadtxt(tmp_path / "out.txt"), want)
+    t = read_table(tmp_path / "t.csv")
+    assert t["kept"][6] == 0 and t["reason"][6] == "flux"
+
+
+# ---- bad input: one line, exit 1, nothing written ------------------------------------
+
+def check_refused(tmp_path, args, words):
+    before = set(os.listdir(tmp_path))
+    p = run(*args, ok=False)
+    assert p.returncode == 1, p.stderr
+    lines = p.stderr.strip().split("\n")
+    assert len(lines) == 1 and words in lines[0], p.stderr
+    assert set(os.listdir(tmp_path)) == before
+
+
+def test_bad_input(tmp_path):
+    rng = np.random.default_rng(0)
+    write(tmp_path / "noise.fits", rng.normal(0, 1, (4, 32, 32)))
+    check_refused(tmp_path, [tmp_path / "noise.fits", "--out", tmp_path / "o.fits", "--quiet"],
+                  "noise.fits: no star signal")
+    cube, tx, ty = jitter_cube(48, 6, "gauss", 1.0, 0.5, 1)
+    write(tmp_path / "star.fits", cube)
+    check_refused(tmp_path, [tmp_path / "star.fits", "--out", tmp_path / "o.fits", "--method",
+                             "spots", "--quiet"], "no four satellite spots")
+    # fluxes alternating by 10 per cent: nothing passes a 0.5-sigma selection
+    alt = cube * np.where(np.arange(6) % 2, 1.1, 1.0)[:, None, None].astype(np.float32)
+    write(tmp_path / "alt.fits", alt)
+    check_refused(tmp_path, [tmp_path / "alt.fits", "--out", tmp_path / "o.fits",
+                             "--reject-outliers", "0.5", "--quiet"], "every frame was rejected")
+    # a masked (NaN) core: centred by its halo, but a 5-px crop holds no data
+    spots, sx, sy = jitter_cube(64, 4, "spots", 1.0, 0.3, 2)
+    y, x = np.mgrid[0:64, 0:64]
+    for f in range(4):
+        spots[f][np.hypot(x - sx[f], y - sy[f]) < 5] = np.nan
+    write(tmp_path / "hole.fits", spots)
+    check_refused(tmp_path, [tmp_path / "hole.fits", "--out", tmp_path / "o.fits", "--method",
+                             "symmetry", "--crop", "5", "--quiet"], "holds no data")
+    np.savetxt(tmp_path / "short.txt", np.arange(5.0))
+    check_refused(tmp_path, [tmp_path / "star.fits", "--out", tmp_path / "o.fits", "--angles",
+                             tmp_path / "short.txt", "--angles-out", tmp_path / "a.txt"],
+                  "holds 5 angles but the cube has 6 frames")
+    check_refused(tmp_path, [tmp_path / "star.fits", "--out", tmp_path / "o.fits",
+                             "--angles-from-header", "--angles-out", tmp_path / "a.txt"],
+                  "no DATE-OBS or MJD-OBS")
+    check_refused(tmp_path, [tmp_path / "star.fits", "--out", tmp_path / "o.fits", "--crop",
+                             "100"], "does not fit")
+    check_refused(tmp_path, [tmp_path / "star.fits"], "--out is required")
+    write(tmp_path / "o.fits", np.zeros((2, 2)))
+    check_refused(tmp_path, [tmp_path / "star.fits", "--out", tmp_path / "o.fits", "--quiet"],
+                  "o.fits")
