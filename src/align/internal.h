@@ -89,7 +89,7 @@ int gl_profile_centre(const float *img, long nx, long ny, gl_profile_kind kind,
                       const gl_align_params *p, gl_profile_fit *fit);
 
 /* Symmetry centre with a caller-owned plan (no reference), work and
- * spectrum buffer (nx*ny complex), for use inside frame loops (xcorr.c). */
+ * spectrum buffer ((nx/2+1)*ny complex), for use inside frame loops (xcorr.c). */
 gl_status gl_symmetry_plan_new(long nx, long ny, int upsample, gl_xcorr_plan **out);
 gl_status gl_symmetry_centre_with(const gl_xcorr_plan *p, gl_xcorr_work *w, fftw_complex *spec,
                                   const float *img, double *x, double *y);

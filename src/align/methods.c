@@ -246,7 +246,7 @@ static gl_status measure_symmetry(const gl_align_stack *s, const gl_align_params
 #pragma omp parallel
     {
         gl_xcorr_work *w = NULL;
-        fftw_complex *spec = gl_malloc(npix * sizeof *spec);
+        fftw_complex *spec = gl_malloc((size_t)(s->nx / 2 + 1) * (size_t)s->ny * sizeof *spec);
         if (gl_xcorr_work_new(plan, &w) || !spec) {
 #pragma omp atomic write
             nomem = 1;
