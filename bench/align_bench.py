@@ -1,4 +1,4 @@
-#!/ usr / bin / python3
+#!/usr/bin/python3
 """Side-by-side timing of aligning a jittered cube by registration.
 
 gloam:  gloam align CUBE --out OUT --method register (process wall time,
@@ -69,7 +69,7 @@ def main():
         tg = time.perf_counter() - t0
         t = np.genfromtxt(os.path.join(d, "g.csv"), delimiter=",", names=True, dtype=None,
                           encoding=None)
-#registration is relative : compare after removing the mean offset
+        # registration is relative: compare after removing the mean offset
         eg = np.sqrt(np.mean(((t["x"] - tx) - np.mean(t["x"] - tx)) ** 2 +
                              ((t["y"] - ty) - np.mean(t["y"] - ty)) ** 2) / 2)
         t0 = time.perf_counter()
