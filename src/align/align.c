@@ -327,8 +327,18 @@ gl_status gl_align_run(gl_cube *cube, const double *angles, const char *name,
 
     if ((st = measurement_images(cube, &meas, &owned)))
         goto cleanup;
-    if ((st = gl_median_frame(meas, cube->nx, cube->ny, nf, median)))
-        goto cleanup;
+    {
+        long *idx = gl_malloc((size_t)nf * sizeof *idx);
+        if (!idx) {
+            st = gl_error_nomem("median frame");
+            goto cleanup;
+        }
+        long m = gl_spread_frames(nf, GL_MEDIAN_MAX_FRAMES, idx);
+        st = gl_median_frame(meas, cube->nx, cube->ny, idx, m, median);
+        gl_free(idx);
+        if (st)
+            goto cleanup;
+    }
     if ((st = check_signal(median, cube->nx, cube->ny, name)))
         goto cleanup;
 

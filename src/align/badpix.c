@@ -65,7 +65,7 @@ gl_status gl_badpix_fix(gl_cube *cube, double k, float *map, long *nstatic, long
     for (long ch = 0; ch < cube->nchan; ch++) {
         for (long f = 0; f < nf; f++)
             memcpy(planes + (size_t)f * npix, gl_cube_plane(cube, ch, f), npix * sizeof *planes);
-        if ((st = gl_median_frame(planes, nx, ny, nf, med)))
+        if ((st = gl_median_frame(planes, nx, ny, NULL, nf, med)))
             goto cleanup;
         double noise = gl_image_noise(med, nx, ny);
         if (!(noise > 0))

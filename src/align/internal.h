@@ -60,8 +60,16 @@ double gl_median_d(double *v, long n);
 /* Median and 1.4826 x median absolute deviation of the finite values of v
  * (scratch: n doubles). Returns the number of finite values. */
 long gl_robust_stats(const double *v, long n, double *scratch, double *median, double *sigma);
-/* NaN-aware per-pixel median of nframe planes (NaN where every frame is). */
-gl_status gl_median_frame(const float *planes, long nx, long ny, long nframe, float *out);
+/* NaN-aware per-pixel median of the planes listed in frames (NULL: planes
+ * 0..nframe-1); NaN where every one is NaN. */
+gl_status gl_median_frame(const float *planes, long nx, long ny, const long *frames, long nframe,
+                          float *out);
+/* Frames spread evenly over a sequence: at most maxn indices k * nframe / m
+ * into frames; returns their number m. */
+long gl_spread_frames(long nframe, long maxn, long *frames);
+/* Reference frames are medians of at most this many frames spread over the
+ * sequence: plenty for a median, and it keeps long sequences fast. */
+#define GL_MEDIAN_MAX_FRAMES 255
 /* Robust pixel noise of an image: MAD of differences of horizontal
  * neighbours / sqrt(2) (insensitive to smooth structure). */
 double gl_image_noise(const float *img, long nx, long ny);

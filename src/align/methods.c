@@ -153,7 +153,7 @@ static gl_status sharp_reference(const gl_align_stack *s, const gl_align_params 
             gl_xcorr_work_free(xw);
         }
         st = nomem ? gl_error_nomem("registration reference")
-                   : gl_median_frame(buf, s->nx, s->ny, nsub, ref);
+                   : gl_median_frame(buf, s->nx, s->ny, NULL, nsub, ref);
     }
     gl_geom_plan_free(gp);
     gl_xcorr_plan_free(xp);

@@ -7,6 +7,8 @@
  * cent of the flux, 0.002 in correlation; common practice) so that a very
  * stable sequence does not lose frames to insignificant differences.
  * Runs on aligned frames, so that jitter is not mistaken for a bad frame.
+ * The median frame is that of at most GL_MEDIAN_MAX_FRAMES kept frames
+ * spread evenly over the sequence.
  */
 #include "align/internal.h"
 #include "core/internal.h"
@@ -45,12 +47,11 @@ gl_status gl_select_frames(const float *planes, long nx, long ny, long nframe, d
 {
     size_t npix = (size_t)nx * (size_t)ny;
     gl_status st = GL_OK;
-    float *kept = NULL, *med = NULL;
+    float *med = NULL;
+    long *kept = NULL;
     double *v = NULL, *scratch = NULL;
     long nk = 0;
-    for (long f = 0; f < nframe; f++)
-        nk += status[f] == GL_FRAME_KEPT;
-    kept = gl_malloc(npix * (size_t)(nk ? nk : 1) * sizeof *kept);
+    kept = gl_malloc((size_t)nframe * sizeof *kept);
     med = gl_malloc(npix * sizeof *med);
     v = gl_malloc((size_t)nframe * sizeof *v);
     scratch = gl_malloc((size_t)nframe * sizeof *scratch);
@@ -58,13 +59,20 @@ gl_status gl_select_frames(const float *planes, long nx, long ny, long nframe, d
         st = gl_error_nomem("frame selection");
         goto cleanup;
     }
-    for (long f = 0, j = 0; f < nframe; f++)
+    for (long f = 0; f < nframe; f++)
         if (status[f] == GL_FRAME_KEPT)
-            memcpy(kept + (size_t)j++ * npix, planes + (size_t)f * npix, npix * sizeof *kept);
+            kept[nk++] = f;
     if (nk == 0)
         goto cleanup;
-    if ((st = gl_median_frame(kept, nx, ny, nk, med)))
-        goto cleanup;
+    /* the median of kept frames spread over the sequence (at most
+     * GL_MEDIAN_MAX_FRAMES of them) */
+    {
+        long m = GL_MIN(nk, GL_MEDIAN_MAX_FRAMES);
+        for (long k = 0; k < m; k++)
+            kept[k] = kept[k * nk / m];
+        if ((st = gl_median_frame(planes, nx, ny, kept, m, med)))
+            goto cleanup;
+    }
 #pragma omp parallel for schedule(static)
     for (long f = 0; f < nframe; f++) {
         const float *img = planes + (size_t)f * npix;

@@ -56,6 +56,14 @@ double gl_median_d(double *v, long n)
     return 0.5 * (lo + hi);
 }
 
+long gl_spread_frames(long nframe, long maxn, long *frames)
+{
+    long m = GL_MIN(nframe, maxn);
+    for (long k = 0; k < m; k++)
+        frames[k] = k * nframe / m;
+    return m;
+}
+
 long gl_robust_stats(const double *v, long n, double *scratch, double *median, double *sigma)
 {
     long m = 0;
@@ -69,32 +77,41 @@ long gl_robust_stats(const double *v, long n, double *scratch, double *median, d
     return m;
 }
 
-gl_status gl_median_frame(const float *planes, long nx, long ny, long nframe, float *out)
+gl_status gl_median_frame(const float *planes, long nx, long ny, const long *frames, long nframe,
+                          float *out)
 {
-    size_t npix = (size_t)nx * (size_t)ny;
-    gl_status st = GL_OK;
+    /* pixels are taken in blocks of 64 neighbours, so that each frame is
+     * read a cache line at a time rather than one pixel per frame */
+    enum { BLOCK = 64 };
+    long npix = nx * ny, nblock = (npix + BLOCK - 1) / BLOCK;
+    int nomem = 0;
 #pragma omp parallel
     {
-        double *buf = gl_malloc((size_t)nframe * sizeof *buf);
+        double *buf = gl_malloc((size_t)nframe * BLOCK * sizeof *buf);
         if (!buf) {
 #pragma omp atomic write
-            st = GL_ERR_NOMEM;
+            nomem = 1;
         }
 #pragma omp for schedule(static)
-        for (long i = 0; i < (long)npix; i++) {
+        for (long b = 0; b < nblock; b++) {
             if (!buf)
                 continue;
-            long m = 0;
+            long i0 = b * BLOCK, nb = GL_MIN(BLOCK, npix - i0);
+            long count[BLOCK] = {0};
             for (long f = 0; f < nframe; f++) {
-                float v = planes[(size_t)f * npix + (size_t)i];
-                if (!isnan(v))
-                    buf[m++] = v;
+                long k = frames ? frames[f] : f;
+                const float *src = planes + (size_t)k * (size_t)npix + (size_t)i0;
+                for (long j = 0; j < nb; j++)
+                    if (!isnan(src[j]))
+                        buf[(size_t)j * (size_t)nframe + (size_t)count[j]++] = src[j];
             }
-            out[i] = m ? (float)gl_median_d(buf, m) : NAN;
+            for (long j = 0; j < nb; j++)
+                out[i0 + j] =
+                    count[j] ? (float)gl_median_d(buf + (size_t)j * (size_t)nframe, count[j]) : NAN;
         }
         gl_free(buf);
     }
-    return st ? gl_error_nomem("median frame") : GL_OK;
+    return nomem ? gl_error_nomem("median frame") : GL_OK;
 }
 
 double gl_image_noise(const float *img, long nx, long ny)
