@@ -9,5 +9,4 @@
 #include "gloam/io.h"
 #include "gloam/geometry.h"
 
-
 #endif

@@ -68,8 +68,7 @@ int cli_parse_double(const gl_cli *cli, const char *opt, const char *arg, double
     return 0;
 }
 
-int cli_common_option(gl_cli *cli, int code, const char *arg, const char *help_text,
-                      int *exit_now)
+int cli_common_option(gl_cli *cli, int code, const char *arg, const char *help_text, int *exit_now)
 {
     long n;
     switch (code) {
