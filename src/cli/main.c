@@ -15,6 +15,7 @@ typedef struct command {
 
 static const command commands[] = {
     /* one line per command, in pipeline order */
+    {"inject", cmd_inject, "plant fake companions into a sequence"},
     {NULL, NULL, NULL},
 };
 
