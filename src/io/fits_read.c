@@ -130,8 +130,7 @@ gl_status gl_fits_read_cube(const char *path, int min_naxis, gl_cube **out)
         goto cleanup;
     if (naxis < min_naxis) {
         st = gl_error_set(GL_ERR_INPUT, "%s: HDU %d is a %d-D image; a %s is needed", path, hdu,
-                          naxis,
-                          min_naxis >= 3 ? "3-D cube (x, y, frame)" : "2-D image or a cube");
+                          naxis, min_naxis >= 3 ? "3-D cube (x, y, frame)" : "2-D image or a cube");
         goto cleanup;
     }
     /* trailing axes of length 1 beyond the 4th carry no data */
