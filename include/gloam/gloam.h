@@ -9,5 +9,6 @@
 #include "gloam/io.h"
 #include "gloam/geometry.h"
 #include "gloam/inject.h"
+#include "gloam/inspect.h"
 
 #endif
