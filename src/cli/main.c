@@ -15,6 +15,7 @@ typedef struct command {
 
 static const command commands[] = {
     /* one line per command, in pipeline order */
+    {"simulate", cmd_simulate, "simulate a coronagraphic sequence with known truth"},
     {NULL, NULL, NULL},
 };
 
