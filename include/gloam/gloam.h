@@ -7,7 +7,8 @@
 
 #include "gloam/core.h"
 #include "gloam/io.h"
+#include "gloam/geometry.h"
+#include "gloam/inject.h"
 #include "gloam/sim.h"
-
 
 #endif

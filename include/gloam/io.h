@@ -60,8 +60,7 @@ GL_API void gl_obsinfo_from_header(const gl_header *h, gl_obsinfo *info);
  * the count must equal it. *angles is allocated with gl_malloc.
  * Errors: GL_ERR_IO, GL_ERR_INPUT (bad number, with its line; wrong count;
  * not finite; empty). */
-GL_API gl_status gl_angles_read(const char *path, long expected, double **angles,
-                                long *n);
+GL_API gl_status gl_angles_read(const char *path, long expected, double **angles, long *n);
 
 /* ---- provenance -------------------------------------------------------- */
 
@@ -69,8 +68,8 @@ GL_API gl_status gl_angles_read(const char *path, long expected, double **angles
  * GLxxx keywords). CSV tables stay plain (one header line of column names);
  * their FITS-table twin carries the provenance. */
 typedef struct gl_provenance {
-    const char *program;   /* "gloam 0.1.0" */
-    const char *command;   /* the full command line */
+    const char *program; /* "gloam 0.1.0" */
+    const char *command; /* the full command line */
     int ninputs;
     const char *inputs[16];
     unsigned long crc32[16]; /* CRC-32 (zlib) of each input file's bytes */
@@ -103,8 +102,7 @@ GL_API void gl_outset_free(gl_outset *s);
 /* Writes a cube as a float32 FITS image to `path` (normally a temporary name
  * from gl_outset_add): NAXIS 2, 3 or 4 from c->naxis, the cube's header cards
  * and keywords, provenance, and CHECKSUM/DATASUM. NaN stays NaN (IEEE). */
-GL_API gl_status gl_fits_write_cube(const char *path, const gl_cube *c,
-                                    const gl_provenance *prov);
+GL_API gl_status gl_fits_write_cube(const char *path, const gl_cube *c, const gl_provenance *prov);
 
 /* A table of double columns, written as CSV (one header line of column
  * names; NaN as an empty field) or as a FITS file with an empty primary HDU
@@ -112,14 +110,14 @@ GL_API gl_status gl_fits_write_cube(const char *path, const gl_cube *c,
 typedef struct gl_table {
     int ncols;
     long nrows;
-    const char **names;   /* column names */
-    const char **units;   /* may be NULL or hold NULL entries */
-    const double **cols;  /* ncols arrays of nrows doubles */
+    const char **names;  /* column names */
+    const char **units;  /* may be NULL or hold NULL entries */
+    const double **cols; /* ncols arrays of nrows doubles */
 } gl_table;
 
 GL_API gl_status gl_table_write_csv(const char *path, const gl_table *t);
-GL_API gl_status gl_table_write_fits(const char *path, const gl_table *t,
-                                     const char *extname, const gl_provenance *prov);
+GL_API gl_status gl_table_write_fits(const char *path, const gl_table *t, const char *extname,
+                                     const gl_provenance *prov);
 
 /* CRC-32 of a file's bytes (zlib). */
 GL_API gl_status gl_file_crc32(const char *path, unsigned long *crc);

@@ -16,6 +16,7 @@ typedef struct command {
 static const command commands[] = {
     /* one line per command, in pipeline order */
     {"simulate", cmd_simulate, "simulate a coronagraphic sequence with known truth"},
+    {"inject", cmd_inject, "plant fake companions into a sequence"},
     {NULL, NULL, NULL},
 };
 

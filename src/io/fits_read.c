@@ -45,8 +45,8 @@ static gl_status open_readonly(const char *path, fitsfile **f)
 }
 
 /* Moves to the first HDU with an image of at least one pixel; sets *hdu. */
-static gl_status find_image_hdu(fitsfile *f, const char *path, int *hdu, int *naxis,
-                                long naxes[8], int *bitpix)
+static gl_status find_image_hdu(fitsfile *f, const char *path, int *hdu, int *naxis, long naxes[8],
+                                int *bitpix)
 {
     int nhdu = 0, status = 0;
     fits_get_num_hdus(f, &nhdu, &status);
