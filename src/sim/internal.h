@@ -77,7 +77,7 @@ int sim_fft_size(int n);
 gl_status sim_screens_init(sim_screens *s, int S, double dmax);
 void sim_screens_free(sim_screens *s);
 /* Draws one screen into out (S x S): Gaussian random field with the PSD,
- * piston removed over the pupil, scaled to rms_nm over the pupil when
+ * piston, tip and tilt removed over the pupil, scaled to rms_nm over the pupil when
  * exact != 0, else scaled so that the expected variance of the part inside
  * fcut is rms_nm^2. work: L*L complex. Thread-safe with distinct work/rng. */
 void sim_screen_draw(const sim_screens *s, const sim_psd *psd, double rms_nm, int exact,

@@ -108,11 +108,26 @@ void sim_screen_draw(const sim_screens *s, const sim_psd *psd, double rms_nm, in
             mean += v * s->pupil[(size_t)j * S + i];
         }
     mean /= s->npupil;
+    /* remove tip and tilt too (least squares over the pupil): the AO loop
+     * and the coronagraph centring take them out, and the star must stay at
+     * (nx/2, ny/2) */
+    double c = 0.5 * (S - 1), sxx = 0, syy = 0, sxz = 0, syz = 0;
+    for (int j = 0; j < S; j++)
+        for (int i = 0; i < S; i++) {
+            double w = s->pupil[(size_t)j * S + i], z = out[(size_t)j * S + i] - mean;
+            sxx += w * (i - c) * (i - c);
+            syy += w * (j - c) * (j - c);
+            sxz += w * (i - c) * z;
+            syz += w * (j - c) * z;
+        }
+    double tx = sxx > 0 ? sxz / sxx : 0, ty = syy > 0 ? syz / syy : 0;
     double ss = 0;
-    for (size_t k = 0; k < (size_t)S * S; k++) {
-        out[k] -= mean;
-        ss += out[k] * out[k] * s->pupil[k];
-    }
+    for (int j = 0; j < S; j++)
+        for (int i = 0; i < S; i++) {
+            size_t k = (size_t)j * S + i;
+            out[k] -= mean + tx * (i - c) + ty * (j - c);
+            ss += out[k] * out[k] * s->pupil[k];
+        }
     double scale;
     if (exact)
         scale = ss > 0 ? rms_nm / sqrt(ss / s->npupil) : 0.0;
