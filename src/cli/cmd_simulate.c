@@ -272,7 +272,6 @@ int cmd_simulate(gl_cli *cli, int argc, char **argv)
     gl_sim_params p;
     gl_sim_params_init(&p);
     long n;
-    double v;
     int c, exit_now = 0;
     opterr = 0;
     optind = 1;
@@ -379,7 +378,6 @@ int cmd_simulate(gl_cli *cli, int argc, char **argv)
         if (bad)
             return 1;
     }
-    (void)v;
     if (optind != argc - 1)
         return cli_usage(cli,
                          optind >= argc ? "missing output folder DIR"
