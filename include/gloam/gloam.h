@@ -10,5 +10,6 @@
 #include "gloam/geometry.h"
 #include "gloam/inject.h"
 #include "gloam/inspect.h"
+#include "gloam/sim.h"
 
 #endif
