@@ -242,11 +242,11 @@ static void test_bad_params(void)
     CHECK(strstr(gl_error_message(), "size") != NULL, "message names the size: %s",
           gl_error_message());
     gl_sim_companion c;
-    CHECK(gl_sim_companion_parse("10:20", &c) == GL_ERR_USAGE, "two fields refused");
-    CHECK(gl_sim_companion_parse("10:20:0", &c) == GL_ERR_USAGE, "zero contrast refused");
-    CHECK(gl_sim_companion_parse("10:20:1e-4x", &c) == GL_ERR_USAGE, "trailing text refused");
-    CHECK(gl_sim_companion_parse("10.5:-20:1e-4", &c) == GL_OK && c.sep_px == 10.5 &&
-              c.pa_deg == -20 && c.contrast == 1e-4,
+    CHECK(gl_companion_parse("10:20", &c) == GL_ERR_USAGE, "two fields refused");
+    CHECK(gl_companion_parse("10:20:0", &c) == GL_ERR_USAGE, "zero contrast refused");
+    CHECK(gl_companion_parse("10:20:1e-4x", &c) == GL_ERR_USAGE, "trailing text refused");
+    CHECK(gl_companion_parse("10.5:-20:1e-4", &c) == GL_OK && c.sep_px == 10.5 && c.pa_deg == -20 &&
+              c.contrast == 1e-4,
           "good companion parsed");
     gl_sim_params_init(&p);
     snprintf(p.date_obs, sizeof p.date_obs, "2021-13-01T00:00:00");

@@ -18,6 +18,7 @@
 #define GLOAM_SIM_H
 
 #include "gloam/core.h"
+#include "gloam/inject.h"
 
 #ifdef __cplusplus
 extern "C" {
@@ -35,12 +36,9 @@ typedef enum gl_sim_coronagraph {
 } gl_sim_coronagraph;
 
 /* One companion: separation (pixels), sky position angle (degrees, north
- * through east) and contrast (companion flux / star flux). */
-typedef struct gl_sim_companion {
-    double sep_px;
-    double pa_deg;
-    double contrast;
-} gl_sim_companion;
+ * through east) and contrast (companion flux / star flux); the same type the
+ * injection stage plants, parsed by gl_companion_parse. */
+typedef gl_companion gl_sim_companion;
 
 /* Everything the simulation depends on. Fill with gl_sim_params_init(), then
  * change what you need. Lengths in the pupil are fractions of the diameter D;
@@ -140,10 +138,6 @@ GL_API gl_status gl_sim_run(const gl_sim_params *p, gl_sim_result **out);
 
 /* Frees a result; NULL is a no-op. */
 GL_API void gl_sim_result_free(gl_sim_result *r);
-
-/* Parses "SEP_PX:PA_DEG:CONTRAST" (sep >= 0, 0 < contrast, finite).
- * GL_ERR_USAGE with a message quoting the text when malformed. */
-GL_API gl_status gl_sim_companion_parse(const char *text, gl_sim_companion *c);
 
 /* Parses a coronagraph name ("none", "perfect", "lyot"). */
 GL_API gl_status gl_sim_coronagraph_parse(const char *text, gl_sim_coronagraph *c);

@@ -294,7 +294,7 @@ int cmd_simulate(gl_cli *cli, int argc, char **argv)
         case O_COMP:
             if (p.ncompanions >= GL_SIM_MAX_COMPANIONS)
                 return cli_usage(cli, "--companion: at most %d companions", GL_SIM_MAX_COMPANIONS);
-            if (gl_sim_companion_parse(optarg, &p.companions[p.ncompanions]) != GL_OK)
+            if (gl_companion_parse(optarg, &p.companions[p.ncompanions]) != GL_OK)
                 return cli_usage(cli, "--companion: %s", gl_error_message());
             p.ncompanions++;
             break;

@@ -156,26 +156,6 @@ gl_status gl_sim_params_check(const gl_sim_params *p)
     return GL_OK;
 }
 
-gl_status gl_sim_companion_parse(const char *text, gl_sim_companion *c)
-{
-    double v[3];
-    const char *s = text;
-    for (int i = 0; i < 3; i++) {
-        char *end;
-        errno = 0;
-        v[i] = strtod(s, &end);
-        if (end == s || errno || !isfinite(v[i]) || *end != (i < 2 ? ':' : '\0'))
-            return BAD("companion '%s': expected SEP_PX:PA_DEG:CONTRAST", text);
-        s = end + 1;
-    }
-    if (v[0] < 0 || !(v[2] > 0 && v[2] <= 1))
-        return BAD("companion '%s': separation must be >= 0 and contrast in (0, 1]", text);
-    c->sep_px = v[0];
-    c->pa_deg = v[1];
-    c->contrast = v[2];
-    return GL_OK;
-}
-
 gl_status gl_sim_coronagraph_parse(const char *text, gl_sim_coronagraph *c)
 {
     static const struct {
