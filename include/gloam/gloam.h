@@ -9,6 +9,7 @@
 #include "gloam/io.h"
 #include "gloam/geometry.h"
 #include "gloam/inject.h"
+#include "gloam/limits.h"
 #include "gloam/inspect.h"
 #include "gloam/sim.h"
 
