@@ -8,5 +8,6 @@
 #include "gloam/core.h"
 #include "gloam/io.h"
 #include "gloam/geometry.h"
+#include "gloam/detect.h"
 
 #endif

@@ -69,5 +69,6 @@ int cli_parse_double(const gl_cli *cli, const char *opt, const char *arg, double
 void cli_start(gl_cli *cli);
 
 /* Every command (one file each: cmd_NAME.c). */
+int cmd_detect(gl_cli *cli, int argc, char **argv);
 
 #endif

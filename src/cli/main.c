@@ -15,6 +15,7 @@ typedef struct command {
 
 static const command commands[] = {
     /* one line per command, in pipeline order */
+    {"detect", cmd_detect, "S/N and false-alarm maps, candidate point sources"},
     {NULL, NULL, NULL},
 };
 
