@@ -167,7 +167,7 @@ gl_status gl_detect_quicklook_write(const char *path, const gl_detect_maps *maps
     /* compass, lower left */
     double north[2], east[2];
     gl_detect_sky_compass(sky, (double)(nx / 2), (double)(ny / 2), north, east);
-    double len = fmax(0.09 * fmin(iw, ih), 18), cx0 = margin + 16 + len * 0.8,
+    double len = fmax(0.09 * fmin(iw, ih), 18), cx0 = margin + 30 + len,
            cy0 = top + ih - 16 - len * 0.3;
     cairo_set_source_rgb(cr, 0.98, 0.95, 0.86);
     cairo_set_line_width(cr, 1.5);
