@@ -8,6 +8,9 @@
 #include "gloam/core.h"
 #include "gloam/io.h"
 #include "gloam/geometry.h"
+#include "gloam/inject.h"
+#include "gloam/inspect.h"
+#include "gloam/sim.h"
 #include "gloam/detect.h"
 
 #endif
