@@ -14,18 +14,20 @@
 #include <string.h>
 #include <unistd.h>
 
-/* Keyword families of a celestial WCS, copied into the extensions. */
+/* Keyword families of a celestial WCS (FITS WCS papers I and II), copied
+ * into the extensions: a name starting with one of these, or PVi_m / PSi_m. */
 static const char *const wcs_prefix[] = {
-    "CTYPE", "CRPIX",   "CRVAL",   "CDELT",   "CUNIT",    "CROTA",   "CD1_",     "CD2_",
-    "PC1_",  "PC2_",    "PV",      "PS",      "WCSAXES",  "RADESYS", "RADECSYS", "EQUINOX",
-    "EPOCH", "LONPOLE", "LATPOLE", "MJD-OBS", "DATE-OBS", "WCSNAME", "MJDREF",   NULL};
+    "CTYPE",   "CRPIX",   "CRVAL",    "CDELT",   "CUNIT",    "CROTA",   "CD1_",  "CD2_",
+    "PC1_",    "PC2_",    "WCSAXES",  "RADESYS", "RADECSYS", "EQUINOX", "EPOCH", "LONPOLE",
+    "LATPOLE", "MJD-OBS", "DATE-OBS", "WCSNAME", "MJDREF",   NULL};
 
 static int is_wcs_key(const char *name)
 {
     for (int i = 0; wcs_prefix[i]; i++)
         if (strncmp(name, wcs_prefix[i], strlen(wcs_prefix[i])) == 0)
             return 1;
-    return 0;
+    return (name[0] == 'P' && (name[1] == 'V' || name[1] == 'S') && name[2] >= '1' &&
+            name[2] <= '9' && name[3] == '_');
 }
 
 /* Removes the keywords of a third (plane) axis from h. */
@@ -88,7 +90,7 @@ static int append_ext(fitsfile *f, const gl_header *h, const char *extname, cons
         int len = 0, s2 = 0;
         memcpy(card, gl_header_card(h, i), 81);
         fits_get_keyname(card, name, &len, &s2);
-        if (is_wcs_key(name) && strcmp(name, "CD3_3") != 0)
+        if (is_wcs_key(name))
             fits_write_record(f, card, status);
     }
     double wa;
