@@ -78,11 +78,16 @@ void gl_detect_ring_positions(double sx, double sy, double sep, double theta, lo
     }
 }
 
-size_t gl_detect_snr_worksize(const gl_aperture_plan *p, long nx, long ny)
+/* Most ring apertures a position on (or near) an nx x ny image can need. */
+static long ring_capacity(const gl_aperture_plan *p, long nx, long ny)
 {
     double rmax = 0.5 * hypot((double)nx, (double)ny) + 2;
-    long n = gl_detect_ring_count(rmax, 2 * gl_detect_aperture_radius(p)) + 2;
-    return (size_t)n + gl_detect_aperture_worksize(p);
+    return gl_detect_ring_count(rmax, 2 * gl_detect_aperture_radius(p)) + 2;
+}
+
+size_t gl_detect_snr_worksize(const gl_aperture_plan *p, long nx, long ny)
+{
+    return (size_t)ring_capacity(p, nx, ny) + gl_detect_aperture_worksize(p);
 }
 
 int gl_detect_snr_at(const gl_aperture_plan *p, const gl_detect_params *par, const float *img,
@@ -99,7 +104,8 @@ int gl_detect_snr_at(const gl_aperture_plan *p, const gl_detect_params *par, con
     if (!(sep >= g.mask))
         return 0;
     long n = gl_detect_ring_count(sep, diam);
-    if (n - 1 - 2 * excl < 2)
+    /* beyond the capacity the test aperture is off the image anyway */
+    if (n - 1 - 2 * excl < 2 || n > ring_capacity(p, nx, ny))
         return 0;
     double *flux = work, *apwork = work + n;
     double test;
