@@ -39,9 +39,11 @@ static void drop_third_axis(gl_header *h)
         "CSYER3", "CD4_4",  "CTYPE4", "CRPIX4", "CRVAL4", "CDELT4", "CUNIT4", NULL};
     for (int i = 0; keys[i]; i++)
         gl_header_remove(h, keys[i]);
+    /* WCSAXES must precede the other WCS cards; without it readers count
+     * the axes from the keywords, which now describe two */
     double wa;
     if (gl_header_get_dbl(h, "WCSAXES", &wa) && wa > 2)
-        gl_header_set_int(h, "WCSAXES", 2, "celestial axes only");
+        gl_header_remove(h, "WCSAXES");
 }
 
 static gl_status add_params(gl_header *h, const gl_detect_params *par, long nx, long ny, long plane)
@@ -93,9 +95,6 @@ static int append_ext(fitsfile *f, const gl_header *h, const char *extname, cons
         if (is_wcs_key(name))
             fits_write_record(f, card, status);
     }
-    double wa;
-    if (gl_header_get_dbl(h, "WCSAXES", &wa) && wa > 2)
-        fits_update_key_lng(f, "WCSAXES", 2, "celestial axes only", status);
     fits_update_key_str(f, "EXTNAME", extname, NULL, status);
     fits_update_key_str(f, "GLDMAP", extname, what, status);
     gl_fits_write_provenance(f, prov, status);

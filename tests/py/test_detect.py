@@ -10,6 +10,7 @@ References named beside each check:
 - the position-angle convention of docs/conventions.md.
 """
 import os
+import shutil
 import subprocess
 
 import numpy as np
@@ -258,7 +259,13 @@ def test_multi_plane_and_every_plane(tmp_path):
     src = gaussian_psf(n, 30.2, 60.4, fwhm)
     cube = np.stack([rng.normal(0, 1, (n, n)) + a * src for a in (5, 30, 15)])
     path = tmp_path / "c.fits"
-    fits.PrimaryHDU(cube.astype(np.float32)).writeto(path)
+    h = fits.Header()
+    h["WCSAXES"] = 3  # celestial axes plus a plane axis
+    for k, v in dict(CTYPE1="RA---TAN", CTYPE2="DEC--TAN", CTYPE3="MODES", CRPIX1=49.0,
+                     CRPIX2=49.0, CRPIX3=1.0, CRVAL1=10.0, CRVAL2=20.0, CRVAL3=1.0,
+                     CDELT1=-3e-6, CDELT2=3e-6, CDELT3=1.0).items():
+        h[k] = v
+    fits.PrimaryHDU(cube.astype(np.float32), header=h).writeto(path)
     gloam("detect", path, "--fwhm", fwhm, "--out", tmp_path / "d", "--plane", 2,
           "--every-plane", "--quiet")
     names, rows = read_csv(tmp_path / "d.candidates.csv")
@@ -268,6 +275,22 @@ def test_multi_plane_and_every_plane(tmp_path):
     assert r["snr_plane2"] == pytest.approx(r["snr"], rel=1e-9)
     assert r["snr_plane1"] < r["snr_plane3"] < r["snr_plane2"]
     assert fits.getheader(tmp_path / "d.snr.fits")["GLDPLANE"] == 2
+    # the maps keep the celestial part of the WCS (astropy.wcs), and the
+    # offsets agree with astropy's
+    w_in = WCS(h).celestial
+    for ext in ("SNR", "FPF", "SIGNIF"):
+        w = WCS(fits.getheader(tmp_path / "d.snr.fits", ext))
+        assert w.naxis == 2
+        assert w.pixel_to_world(5, 7).separation(w_in.pixel_to_world(5, 7)).arcsec < 1e-9
+    dra, ddec = w_in.pixel_to_world(48, 48).spherical_offsets_to(w_in.pixel_to_world(r["x"], r["y"]))
+    assert r["dra_arcsec"] == pytest.approx(dra.arcsec, abs=1e-4)
+    assert r["ddec_arcsec"] == pytest.approx(ddec.arcsec, abs=1e-4)
+    # FITS Standard 4.0 conformance: fitsverify, 0 errors (references.md)
+    if shutil.which("fitsverify"):
+        for f in ("d.snr.fits", "d.candidates.fits"):
+            res = subprocess.run(["fitsverify", "-q", str(tmp_path / f)], capture_output=True,
+                                 text=True)
+            assert "verification OK" in res.stdout, res.stdout
 
 
 def test_same_output_for_any_thread_count(tmp_path):
