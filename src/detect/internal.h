@@ -7,7 +7,7 @@
 
 #include "gloam/detect.h"
 
-/* Turns GSL's abort-on-error handler off (idempotent). */
+/* Turns GSL's abort-on-error handler off (once per process, thread-safe). */
 void gl_detect_gsl_quiet(void);
 
 /* Gaussian significance of a t value with dof degrees of freedom, from the

@@ -20,10 +20,19 @@
 #include <gsl/gsl_cdf.h>
 #include <gsl/gsl_errno.h>
 #include <math.h>
+#include <pthread.h>
+
+static void gsl_handler_off(void)
+{
+    gsl_set_error_handler_off();
+}
 
 void gl_detect_gsl_quiet(void)
 {
-    gsl_set_error_handler_off();
+    /* once per process: the statistics run inside parallel loops, and GSL's
+     * handler is one global variable */
+    static pthread_once_t once = PTHREAD_ONCE_INIT;
+    pthread_once(&once, gsl_handler_off);
 }
 
 gl_status gl_detect_ttest(double test, const double *ref, long nref, gl_ttest *out)
