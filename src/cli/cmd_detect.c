@@ -140,6 +140,7 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
     gl_outset *out = NULL;
     long ncand = 0, nplanes = 0;
     double *cols = NULL, *work = NULL;
+    char(*extra_names)[32] = NULL;
     gl_aperture_plan *plan = NULL;
     char path_map[4096], path_csv[4096], path_tab[4096], path_png[4096];
     const char *tmp_map, *tmp_csv, *tmp_tab, *tmp_png;
@@ -205,7 +206,6 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
     long nextra = (every && nplanes > 1) ? nplanes : 0;
     int ncols = NFIXED + (int)nextra;
     long nrows = ncand;
-    char(*extra_names)[32] = NULL;
     const char *names[NFIXED + 256], *unit_list[NFIXED + 256];
     const double *colp[NFIXED + 256];
     if (nextra > 256) {
@@ -216,7 +216,6 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
     cols = gl_calloc((size_t)ncols * (size_t)(nrows > 0 ? nrows : 1), sizeof *cols);
     extra_names = gl_calloc((size_t)(nextra > 0 ? nextra : 1), sizeof *extra_names);
     if (!cols || !extra_names) {
-        gl_free(extra_names);
         rc = cli_fail(cli, gl_error_nomem("candidate table"));
         goto cleanup;
     }
@@ -251,13 +250,11 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
         double diam = par.diameter > 0 ? par.diameter : par.fwhm;
         if ((st = gl_detect_aperture_plan_new(0.5 * diam, &plan))) {
             rc = cli_fail(cli, st);
-            gl_free(extra_names);
             goto cleanup;
         }
         work = gl_malloc(gl_detect_snr_worksize(plan, nx, ny) * sizeof *work);
         if (!work) {
             rc = cli_fail(cli, gl_error_nomem("work space"));
-            gl_free(extra_names);
             goto cleanup;
         }
         for (long p = 0; p < nextra; p++)
@@ -277,11 +274,9 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
         (st = gl_table_write_fits(tmp_tab, &tab, "CANDIDATES", &cli->prov)) ||
         (st = gl_detect_quicklook_write(tmp_png, maps, cand, ncand, &par, sky, title)) ||
         (st = gl_outset_commit(out))) {
-        gl_free(extra_names);
         rc = cli_fail(cli, st);
         goto cleanup;
     }
-    gl_free(extra_names);
 
     if (!cli->quiet) {
         printf("%ld candidate%s above %g sigma (FPF %.4g per test aperture) in %s plane %ld\n",
@@ -297,6 +292,7 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
     }
 
 cleanup:
+    gl_free(extra_names);
     gl_free(work);
     gl_detect_aperture_plan_free(plan);
     gl_free(cols);
