@@ -76,5 +76,6 @@ void cli_start(gl_cli *cli);
 int cmd_inject(gl_cli *cli, int argc, char **argv);
 int cmd_inspect(gl_cli *cli, int argc, char **argv);
 int cmd_simulate(gl_cli *cli, int argc, char **argv);
+int cmd_detect(gl_cli *cli, int argc, char **argv);
 
 #endif

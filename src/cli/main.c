@@ -18,6 +18,7 @@ static const command commands[] = {
     {"simulate", cmd_simulate, "simulate a coronagraphic sequence with known truth"},
     {"inspect", cmd_inspect, "report what a cube holds: shape, NaN, saturation, flux, rotation"},
     {"inject", cmd_inject, "plant fake companions into a sequence"},
+    {"detect", cmd_detect, "S/N and false-alarm maps, candidate point sources"},
     {NULL, NULL, NULL},
 };
 
