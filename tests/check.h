@@ -33,7 +33,7 @@ static int check_count;
 
 #define CHECK_DONE()                                                                               \
     do {                                                                                           \
-        printf("%d checks, %d failed\n", check_count, check_failures);                            \
+        printf("%d checks, %d failed\n", check_count, check_failures);                             \
         return check_failures ? 1 : 0;                                                             \
     } while (0)
 

@@ -27,13 +27,13 @@ extern "C" {
 /* Status codes. 0 is success; every other value has a message attached. */
 typedef enum gl_status {
     GL_OK = 0,
-    GL_ERR_USAGE,    /* a parameter or option value is invalid */
-    GL_ERR_INPUT,    /* an input file exists but its content is unusable */
-    GL_ERR_IO,       /* a file cannot be opened, read, written or renamed */
-    GL_ERR_EXISTS,   /* an output exists and overwriting was not allowed */
-    GL_ERR_NOMEM,    /* an allocation failed */
-    GL_ERR_NUMERIC,  /* a computation failed (singular matrix, no convergence) */
-    GL_ERR_INTERNAL  /* a bug: an invariant of the library did not hold */
+    GL_ERR_USAGE,   /* a parameter or option value is invalid */
+    GL_ERR_INPUT,   /* an input file exists but its content is unusable */
+    GL_ERR_IO,      /* a file cannot be opened, read, written or renamed */
+    GL_ERR_EXISTS,  /* an output exists and overwriting was not allowed */
+    GL_ERR_NOMEM,   /* an allocation failed */
+    GL_ERR_NUMERIC, /* a computation failed (singular matrix, no convergence) */
+    GL_ERR_INTERNAL /* a bug: an invariant of the library did not hold */
 } gl_status;
 
 /* Records status and a printf-style message for the calling thread; returns
@@ -68,8 +68,7 @@ typedef void (*gl_log_fn)(gl_log_level level, const char *message, void *user);
 
 /* Installs the log sink (NULL: discard) and the most verbose level passed on. */
 GL_API void gl_log_set_handler(gl_log_fn fn, void *user, gl_log_level max_level);
-GL_API void gl_log(gl_log_level level, const char *fmt, ...)
-    __attribute__((format(printf, 2, 3)));
+GL_API void gl_log(gl_log_level level, const char *fmt, ...) __attribute__((format(printf, 2, 3)));
 
 /* ---- progress ---------------------------------------------------------- */
 
@@ -110,10 +109,8 @@ GL_API gl_status gl_header_set_str(gl_header *h, const char *key, const char *va
                                    const char *comment);
 GL_API gl_status gl_header_set_dbl(gl_header *h, const char *key, double value,
                                    const char *comment);
-GL_API gl_status gl_header_set_int(gl_header *h, const char *key, long value,
-                                   const char *comment);
-GL_API gl_status gl_header_set_bool(gl_header *h, const char *key, int value,
-                                    const char *comment);
+GL_API gl_status gl_header_set_int(gl_header *h, const char *key, long value, const char *comment);
+GL_API gl_status gl_header_set_bool(gl_header *h, const char *key, int value, const char *comment);
 /* Appends HISTORY text; long text is split over several cards. */
 GL_API gl_status gl_header_add_history(gl_header *h, const char *text);
 /* Removes a carried or typed keyword; no-op when absent. */
@@ -122,8 +119,7 @@ GL_API void gl_header_remove(gl_header *h, const char *key);
 /* Look-ups over carried cards and typed keys (typed ones win). Return 1 when
  * found and parsed, 0 otherwise. */
 GL_API int gl_header_get_dbl(const gl_header *h, const char *key, double *value);
-GL_API int gl_header_get_str(const gl_header *h, const char *key, char *value,
-                             size_t size);
+GL_API int gl_header_get_str(const gl_header *h, const char *key, char *value, size_t size);
 
 /* Number of carried cards and access to them (for writers and inspect). */
 GL_API int gl_header_ncards(const gl_header *h);
@@ -148,15 +144,32 @@ typedef struct gl_cube {
 GL_API gl_status gl_cube_new(long nx, long ny, long nchan, long nframe, gl_cube **out);
 GL_API void gl_cube_free(gl_cube *c);
 /* Pixels in one image plane. */
-static inline size_t gl_cube_plane_size(const gl_cube *c) { return (size_t)c->nx * (size_t)c->ny; }
+static inline size_t gl_cube_plane_size(const gl_cube *c)
+{
+    return (size_t)c->nx * (size_t)c->ny;
+}
 /* Pointer to plane (channel, frame). */
-static inline float *gl_cube_plane(const gl_cube *c, long chan, long frame) {
+static inline float *gl_cube_plane(const gl_cube *c, long chan, long frame)
+{
     return c->data + ((size_t)frame * (size_t)c->nchan + (size_t)chan) * gl_cube_plane_size(c);
 }
 /* Total number of pixels. */
-static inline size_t gl_cube_size(const gl_cube *c) {
+static inline size_t gl_cube_size(const gl_cube *c)
+{
     return gl_cube_plane_size(c) * (size_t)c->nchan * (size_t)c->nframe;
 }
+
+/* ---- robust statistics ------------------------------------------------- */
+
+/* Median and robust standard deviation (1.4826 * median absolute deviation,
+ * Hampel 1974) of the finite values among x[0..n-1]; NaN and infinities are
+ * skipped. work must hold n doubles (owned by the caller, reusable across
+ * calls, so hot loops do not allocate). Returns the number of values used;
+ * with none, *median and *sigma are NaN. Never fails. */
+GL_API size_t gl_stats_robust_float(const float *x, size_t n, double *work, double *median,
+                                    double *sigma);
+GL_API size_t gl_stats_robust(const double *x, size_t n, double *work, double *median,
+                              double *sigma);
 
 #ifdef __cplusplus
 }

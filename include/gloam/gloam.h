@@ -8,7 +8,11 @@
 #include "gloam/core.h"
 #include "gloam/io.h"
 #include "gloam/geometry.h"
+#include "gloam/inject.h"
+#include "gloam/limits.h"
+#include "gloam/inspect.h"
+#include "gloam/sim.h"
+#include "gloam/detect.h"
 #include "gloam/align.h"
-
 
 #endif

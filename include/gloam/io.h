@@ -29,6 +29,25 @@ extern "C" {
  * HDU, fewer than min_naxis axes, more than 4 axes, an empty axis). */
 GL_API gl_status gl_fits_read_cube(const char *path, int min_naxis, gl_cube **out);
 
+/* Layout of the image HDU that gl_fits_read_cube would use, for reports:
+ * HDU number (1 = primary, as cfitsio counts), BITPIX on disk, axes, and the
+ * scaling keywords (which the cube reader applies and does not carry). */
+typedef struct gl_fits_info {
+    int hdu;          /* 1-based HDU number */
+    char extname[72]; /* EXTNAME of that HDU, or "" */
+    int bitpix;       /* BITPIX as written (16 for BZERO=32768 unsigned data) */
+    int naxis;        /* NAXIS as written */
+    long naxes[8];    /* NAXISn (first 8) */
+    int has_bscale, has_bzero, has_blank;
+    double bscale;   /* 1 when absent */
+    double bzero;    /* 0 when absent */
+    long long blank; /* BLANK of integer images, when has_blank */
+} gl_fits_info;
+
+/* Fills info for the first image HDU of path (the one gl_fits_read_cube
+ * reads). Errors as for gl_fits_read_cube (GL_ERR_IO, GL_ERR_INPUT). */
+GL_API gl_status gl_fits_image_info(const char *path, gl_fits_info *info);
+
 /* Observation metadata found in a header. Fields absent from the header are
  * NaN (numbers) or "" (strings); `found` lists the keywords seen. */
 typedef struct gl_obsinfo {
@@ -60,8 +79,7 @@ GL_API void gl_obsinfo_from_header(const gl_header *h, gl_obsinfo *info);
  * the count must equal it. *angles is allocated with gl_malloc.
  * Errors: GL_ERR_IO, GL_ERR_INPUT (bad number, with its line; wrong count;
  * not finite; empty). */
-GL_API gl_status gl_angles_read(const char *path, long expected, double **angles,
-                                long *n);
+GL_API gl_status gl_angles_read(const char *path, long expected, double **angles, long *n);
 
 /* ---- provenance -------------------------------------------------------- */
 
@@ -69,8 +87,8 @@ GL_API gl_status gl_angles_read(const char *path, long expected, double **angles
  * GLxxx keywords). CSV tables stay plain (one header line of column names);
  * their FITS-table twin carries the provenance. */
 typedef struct gl_provenance {
-    const char *program;   /* "gloam 0.1.0" */
-    const char *command;   /* the full command line */
+    const char *program; /* "gloam 0.1.0" */
+    const char *command; /* the full command line */
     int ninputs;
     const char *inputs[16];
     unsigned long crc32[16]; /* CRC-32 (zlib) of each input file's bytes */
@@ -103,8 +121,7 @@ GL_API void gl_outset_free(gl_outset *s);
 /* Writes a cube as a float32 FITS image to `path` (normally a temporary name
  * from gl_outset_add): NAXIS 2, 3 or 4 from c->naxis, the cube's header cards
  * and keywords, provenance, and CHECKSUM/DATASUM. NaN stays NaN (IEEE). */
-GL_API gl_status gl_fits_write_cube(const char *path, const gl_cube *c,
-                                    const gl_provenance *prov);
+GL_API gl_status gl_fits_write_cube(const char *path, const gl_cube *c, const gl_provenance *prov);
 
 /* A table of double columns, written as CSV (one header line of column
  * names; NaN as an empty field) or as a FITS file with an empty primary HDU
@@ -112,14 +129,14 @@ GL_API gl_status gl_fits_write_cube(const char *path, const gl_cube *c,
 typedef struct gl_table {
     int ncols;
     long nrows;
-    const char **names;   /* column names */
-    const char **units;   /* may be NULL or hold NULL entries */
-    const double **cols;  /* ncols arrays of nrows doubles */
+    const char **names;  /* column names */
+    const char **units;  /* may be NULL or hold NULL entries */
+    const double **cols; /* ncols arrays of nrows doubles */
 } gl_table;
 
 GL_API gl_status gl_table_write_csv(const char *path, const gl_table *t);
-GL_API gl_status gl_table_write_fits(const char *path, const gl_table *t,
-                                     const char *extname, const gl_provenance *prov);
+GL_API gl_status gl_table_write_fits(const char *path, const gl_table *t, const char *extname,
+                                     const gl_provenance *prov);
 
 /* CRC-32 of a file's bytes (zlib). */
 GL_API gl_status gl_file_crc32(const char *path, unsigned long *crc);

@@ -39,7 +39,7 @@ static int neighbours(const float *img, const unsigned char *flags, long nx, lon
         }
     if (m == 0)
         return 0;
-    gl_robust_stats(v, m, s, med, sig);
+    gl_stats_robust(v, (size_t)(m), s, med, sig);
     return m;
 }
 
@@ -105,7 +105,7 @@ gl_status gl_badpix_fix(gl_cube *cube, double k, float *map, long *nstatic, long
                     continue;
                 for (long f = 0; f < nf; f++)
                     buf[f] = planes[(size_t)f * npix + (size_t)i];
-                gl_robust_stats(buf, nf, buf + nf, &tmed[i], &tsig[i]);
+                gl_stats_robust(buf, (size_t)(nf), buf + nf, &tmed[i], &tsig[i]);
             }
             gl_free(buf);
         }

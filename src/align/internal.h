@@ -57,9 +57,6 @@ static inline gl_status gl_align_error_wrap(gl_status st, const char *prefix)
 
 /* Median of n doubles (reorders v); NaN when n == 0. */
 double gl_median_d(double *v, long n);
-/* Median and 1.4826 x median absolute deviation of the finite values of v
- * (scratch: n doubles). Returns the number of finite values. */
-long gl_robust_stats(const double *v, long n, double *scratch, double *median, double *sigma);
 /* NaN-aware per-pixel median of the planes listed in frames (NULL: planes
  * 0..nframe-1); NaN where every one is NaN. */
 gl_status gl_median_frame(const float *planes, long nx, long ny, const long *frames, long nframe,

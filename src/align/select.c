@@ -91,13 +91,13 @@ gl_status gl_select_frames(const float *planes, long nx, long ny, long nframe, d
     for (long f = 0; f < nframe; f++)
         if (status[f] == GL_FRAME_KEPT)
             v[m++] = flux[f];
-    gl_robust_stats(v, m, scratch, &fm, &fs);
+    gl_stats_robust(v, (size_t)(m), scratch, &fm, &fs);
     fs = fmax(fs, 0.005 * fabs(fm));
     m = 0;
     for (long f = 0; f < nframe; f++)
         if (status[f] == GL_FRAME_KEPT)
             v[m++] = corr[f];
-    gl_robust_stats(v, m, scratch, &cm, &cs);
+    gl_stats_robust(v, (size_t)(m), scratch, &cm, &cs);
     cs = fmax(cs, 0.002);
     for (long f = 0; f < nframe; f++) {
         if (status[f] != GL_FRAME_KEPT)

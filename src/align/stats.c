@@ -1,7 +1,7 @@
 /*
- * stats.c -- small robust statistics used by the align stage: medians
- * (quickselect), the median absolute deviation scaled by 1.4826 to a Gaussian
- * sigma (Hampel 1974, common practice), NaN-aware median frames, a noise
+ * stats.c -- image statistics used by the align stage: medians by
+ * quickselect (Hoare 1961; linear time, for the per-pixel medians of long
+ * sequences), NaN-aware median frames, a noise
  * estimate from neighbour differences, peak finding and a quick FWHM guess.
  * Also the per-frame driver that runs a measurement over a stack with a
  * static OpenMP schedule, so results do not depend on the thread count.
@@ -64,19 +64,6 @@ long gl_spread_frames(long nframe, long maxn, long *frames)
     return m;
 }
 
-long gl_robust_stats(const double *v, long n, double *scratch, double *median, double *sigma)
-{
-    long m = 0;
-    for (long i = 0; i < n; i++)
-        if (isfinite(v[i]))
-            scratch[m++] = v[i];
-    *median = gl_median_d(scratch, m);
-    for (long i = 0; i < m; i++)
-        scratch[i] = fabs(scratch[i] - *median);
-    *sigma = 1.4826 * gl_median_d(scratch, m);
-    return m;
-}
-
 gl_status gl_median_frame(const float *planes, long nx, long ny, const long *frames, long nframe,
                           float *out)
 {
@@ -126,7 +113,7 @@ double gl_image_noise(const float *img, long nx, long ny)
                 double a = img[y * nx + x], b = img[y * nx + x + 1];
                 d[m++] = (isfinite(a) && isfinite(b)) ? a - b : NAN;
             }
-        gl_robust_stats(d, m, s, &med, &sig);
+        gl_stats_robust(d, (size_t)(m), s, &med, &sig);
     }
     gl_free(d);
     gl_free(s);

@@ -12,11 +12,11 @@
 #include <getopt.h>
 
 typedef struct gl_cli {
-    const char *command;   /* "simulate", ... */
+    const char *command; /* "simulate", ... */
     int overwrite;
     int quiet;
     int verbose;
-    int threads;           /* 0: the OpenMP default */
+    int threads; /* 0: the OpenMP default */
     char cmdline[4096];
     char program[64];
     gl_provenance prov;
@@ -35,38 +35,48 @@ enum {
 #define CLI_COMMON_OPTIONS                                                                         \
     {"overwrite", no_argument, 0, CLI_OPT_OVERWRITE}, {"quiet", no_argument, 0, CLI_OPT_QUIET},    \
         {"verbose", no_argument, 0, CLI_OPT_VERBOSE},                                              \
-        {"threads", required_argument, 0, CLI_OPT_THREADS}, {"help", no_argument, 0, CLI_OPT_HELP}
+        {"threads", required_argument, 0, CLI_OPT_THREADS},                                        \
+    {                                                                                              \
+        "help", no_argument, 0, CLI_OPT_HELP                                                       \
+    }
 
 #define CLI_COMMON_HELP                                                                            \
     "common options:\n"                                                                            \
-    "  --overwrite        replace existing products\n"                                           \
-    "  --threads N        worker threads (results do not depend on N)\n"                          \
-    "  --quiet            only errors on stderr\n"                                                \
-    "  --verbose          debugging detail on stderr\n"                                           \
+    "  --overwrite        replace existing products\n"                                             \
+    "  --threads N        worker threads (results do not depend on N)\n"                           \
+    "  --quiet            only errors on stderr\n"                                                 \
+    "  --verbose          debugging detail on stderr\n"                                            \
     "  --help             this text\n"
 
 /* Handles a common option; returns 1 when handled, 0 when not common,
  * -1 on a bad value (message printed). help_text is printed for --help, after
  * which the caller returns with *exit_now set. */
-int cli_common_option(gl_cli *cli, int code, const char *arg, const char *help_text,
-                      int *exit_now);
+int cli_common_option(gl_cli *cli, int code, const char *arg, const char *help_text, int *exit_now);
 
 /* Prints "gloam CMD: <library message>" and returns the exit code. */
 int cli_fail(const gl_cli *cli, gl_status st);
 /* Prints "gloam CMD: <message>" plus a hint to --help; returns 1. */
 int cli_usage(const gl_cli *cli, const char *fmt, ...) __attribute__((format(printf, 2, 3)));
 
+/* Reports the option getopt_long rejected ('?'): unknown, or missing its
+ * value. Returns 1. Call with the argv given to getopt_long. */
+int cli_bad_option(const gl_cli *cli, char **argv);
+
 /* Parse option values; on failure print a message naming the option and
  * return -1. */
 int cli_parse_long(const gl_cli *cli, const char *opt, const char *arg, long min, long max,
                    long *out);
-int cli_parse_double(const gl_cli *cli, const char *opt, const char *arg, double min,
-                     double max, double *out);
+int cli_parse_double(const gl_cli *cli, const char *opt, const char *arg, double min, double max,
+                     double *out);
 
 /* Applies --threads and installs the log and progress printers. */
 void cli_start(gl_cli *cli);
 
 /* Every command (one file each: cmd_NAME.c). */
 int cmd_align(gl_cli *cli, int argc, char **argv);
+int cmd_inject(gl_cli *cli, int argc, char **argv);
+int cmd_inspect(gl_cli *cli, int argc, char **argv);
+int cmd_simulate(gl_cli *cli, int argc, char **argv);
+int cmd_detect(gl_cli *cli, int argc, char **argv);
 
 #endif

@@ -32,6 +32,14 @@ int cli_usage(const gl_cli *cli, const char *fmt, ...)
     return 1;
 }
 
+int cli_bad_option(const gl_cli *cli, char **argv)
+{
+    const char *arg = argv[optind - 1];
+    if (optopt != 0 && strncmp(arg, "--", 2) == 0)
+        return cli_usage(cli, "option '%s' needs a value", arg);
+    return cli_usage(cli, "unknown option '%s'", arg);
+}
+
 int cli_parse_long(const gl_cli *cli, const char *opt, const char *arg, long min, long max,
                    long *out)
 {
@@ -68,8 +76,7 @@ int cli_parse_double(const gl_cli *cli, const char *opt, const char *arg, double
     return 0;
 }
 
-int cli_common_option(gl_cli *cli, int code, const char *arg, const char *help_text,
-                      int *exit_now)
+int cli_common_option(gl_cli *cli, int code, const char *arg, const char *help_text, int *exit_now)
 {
     long n;
     switch (code) {

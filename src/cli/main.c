@@ -15,7 +15,11 @@ typedef struct command {
 
 static const command commands[] = {
     /* one line per command, in pipeline order */
+    {"simulate", cmd_simulate, "simulate a coronagraphic sequence with known truth"},
+    {"inspect", cmd_inspect, "report what a cube holds: shape, NaN, saturation, flux, rotation"},
     {"align", cmd_align, "find the star in every frame and centre it"},
+    {"inject", cmd_inject, "plant fake companions into a sequence"},
+    {"detect", cmd_detect, "S/N and false-alarm maps, candidate point sources"},
     {NULL, NULL, NULL},
 };
 

@@ -12,7 +12,8 @@ gl_status gl_cube_new(long nx, long ny, long nchan, long nframe, gl_cube **out)
         return gl_error_set(GL_ERR_INTERNAL, "cube of shape %ldx%ldx%ldx%ld is empty", nx, ny,
                             nchan, nframe);
     size_t n = (size_t)nx * (size_t)ny;
-    if (n / (size_t)nx != (size_t)ny || n > SIZE_MAX / sizeof(float) / (size_t)nchan / (size_t)nframe)
+    if (n / (size_t)nx != (size_t)ny ||
+        n > SIZE_MAX / sizeof(float) / (size_t)nchan / (size_t)nframe)
         return gl_error_set(GL_ERR_NOMEM, "cube of shape %ldx%ldx%ldx%ld is too large", nx, ny,
                             nchan, nframe);
     n *= (size_t)nchan * (size_t)nframe;

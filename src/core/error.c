@@ -22,9 +22,15 @@ gl_status gl_error_set(gl_status status, const char *fmt, ...)
     return status;
 }
 
-const char *gl_error_message(void) { return error_buf; }
+const char *gl_error_message(void)
+{
+    return error_buf;
+}
 
-void gl_error_clear(void) { error_buf[0] = '\0'; }
+void gl_error_clear(void)
+{
+    error_buf[0] = '\0';
+}
 
 gl_status gl_error_nomem(const char *what)
 {
@@ -61,4 +67,7 @@ int gl_status_exit_code(gl_status status)
     return 2;
 }
 
-const char *gl_version(void) { return GLOAM_VERSION; }
+const char *gl_version(void)
+{
+    return GLOAM_VERSION;
+}

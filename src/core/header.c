@@ -13,8 +13,8 @@
 #include <string.h>
 
 static const char *const structural[] = {
-    "SIMPLE", "BITPIX", "NAXIS", "EXTEND", "BSCALE", "BZERO", "BLANK", "CHECKSUM",
-    "DATASUM", "END", "XTENSION", "PCOUNT", "GCOUNT", "TFIELDS", "ZIMAGE", NULL};
+    "SIMPLE",  "BITPIX", "NAXIS",    "EXTEND", "BSCALE", "BZERO",   "BLANK",  "CHECKSUM",
+    "DATASUM", "END",    "XTENSION", "PCOUNT", "GCOUNT", "TFIELDS", "ZIMAGE", NULL};
 
 int gl_header_is_structural(const char *key)
 {
@@ -132,8 +132,8 @@ static gl_key *key_slot(gl_header *h, const char *key)
     return k;
 }
 
-static gl_status set_key(gl_header *h, const char *key, gl_key_type t, const char *s,
-                         double d, long i, const char *comment)
+static gl_status set_key(gl_header *h, const char *key, gl_key_type t, const char *s, double d,
+                         long i, const char *comment)
 {
     if (!key || !*key || strlen(key) > 68)
         return gl_error_set(GL_ERR_INTERNAL, "bad header keyword name");
@@ -285,7 +285,10 @@ int gl_header_get_str(const gl_header *h, const char *key, char *value, size_t s
     return 1;
 }
 
-int gl_header_ncards(const gl_header *h) { return h ? h->ncards : 0; }
+int gl_header_ncards(const gl_header *h)
+{
+    return h ? h->ncards : 0;
+}
 
 const char *gl_header_card(const gl_header *h, int i)
 {

@@ -11,7 +11,10 @@
 
 static atomic_long fail_countdown;
 
-void gl_malloc_fail_after(long countdown) { atomic_store(&fail_countdown, countdown); }
+void gl_malloc_fail_after(long countdown)
+{
+    atomic_store(&fail_countdown, countdown);
+}
 
 static int should_fail(void)
 {
@@ -43,4 +46,7 @@ void *gl_calloc(size_t n, size_t size)
     return p;
 }
 
-void gl_free(void *p) { free(p); }
+void gl_free(void *p)
+{
+    free(p);
+}

@@ -113,8 +113,8 @@ gl_status gl_outset_add(gl_outset *s, const char *path, const gl_provenance *pro
     /* temporary name beside the destination: DIR/.BASE.tmp-PID-N */
     const char *slash = strrchr(path, '/');
     int dirlen = slash ? (int)(slash - path + 1) : 0;
-    snprintf(tmp, len, "%.*s.%s.tmp-%ld-%d", dirlen, path, slash ? slash + 1 : path,
-             (long)getpid(), s->n);
+    snprintf(tmp, len, "%.*s.%s.tmp-%ld-%d", dirlen, path, slash ? slash + 1 : path, (long)getpid(),
+             s->n);
     s->files[s->n].path = p2;
     s->files[s->n].tmp = tmp;
     s->n++;
