@@ -161,7 +161,7 @@ static void test_spots(void)
     float *img = malloc(sizeof(float) * n * n);
     make_frame(img, n, STAR_SPOTS, 32.4, 31.7, 0, NULL);
     gl_spots s;
-    CHECK(gl_align_spots_find(img, n, n, &s) == GL_OK, "%s", gl_error_message());
+    CHECK(gl_align_spots_find(img, n, n, 0, &s) == GL_OK, "%s", gl_error_message());
     CHECK_CLOSE(s.cx, 32.4, 0.05, "spots centre x");
     CHECK_CLOSE(s.cy, 31.7, 0.05, "spots centre y");
     /* two lines crossing at (1, 2) */
@@ -176,7 +176,7 @@ static void test_spots(void)
     for (long y = 0; y < n; y++)
         for (long x = 0; x < n; x++)
             img[y * n + x] = (float)(100 * exp(-hypot(x - 32.0, y - 32.0) / 8));
-    CHECK(gl_align_spots_find(img, n, n, &s) == GL_ERR_INPUT, "no spots");
+    CHECK(gl_align_spots_find(img, n, n, 0, &s) == GL_ERR_INPUT, "no spots");
     free(img);
 }
 

@@ -100,14 +100,20 @@ typedef struct gl_spots {
     double x[4], y[4];
     double err_x[4], err_y[4];
     double cx, cy, err_cx, err_cy; /* least-squares intersection of the diagonals */
+    double fwhm;                   /* spot FWHM used for the fits, px */
 } gl_spots;
 
-/* Looks for four spots in img: compact peaks forming two diagonals of equal
- * length that cross at right angles (within 15 degrees and 15 per cent) and
- * share their midpoint (within 2 pixels); the brightest such set wins. Peaks
- * are fitted with Gaussians.
+/* Looks for four spots in img: compact peaks (local maxima of the 3x3 mean,
+ * 5 sigma above the median of an annulus of radius 4-7 px around them)
+ * forming two diagonals of equal length (within 10 per cent) that cross at
+ * right angles (within 10 degrees) and share their midpoint (within 2 px),
+ * each spot at least 5 px from that midpoint, the four within a factor 5 in
+ * brightness. radius > 0: the spots' distance from the star, px, known to
+ * 25 per cent (0: any). Of the qualifying sets, the one whose faintest spot
+ * is brightest wins. Spots are fitted with Gaussians.
  * Errors: GL_ERR_INPUT (no such set of four spots). */
-GL_API gl_status gl_align_spots_find(const float *img, long nx, long ny, gl_spots *out);
+GL_API gl_status gl_align_spots_find(const float *img, long nx, long ny, double radius,
+                                     gl_spots *out);
 /* Refits spots near the positions of `guess` (within `search` pixels) in img
  * and recomputes the centre. Errors: GL_ERR_NUMERIC (a spot not found). */
 GL_API gl_status gl_align_spots_refit(const float *img, long nx, long ny, const gl_spots *guess,
@@ -125,7 +131,8 @@ GL_API gl_status gl_align_lines_intersect(int n, const double *x1, const double 
 typedef struct gl_frame_times {
     const double *mjd_start; /* nframe exposure starts (UTC MJD), e.g. from a
                                 time table; NULL: header start + i * cadence */
-    double cadence_s;        /* seconds between frame starts; <= 0: EXPTIME */
+    double cadence_s;        /* seconds between frame starts; <= 0: the header's
+                                CADENCE keyword, else EXPTIME */
 } gl_frame_times;
 
 /* Parallactic angle (degrees) of every frame at mid-exposure. Needs in the
@@ -172,6 +179,7 @@ typedef struct gl_align_params {
     int stamp_half;          /* profile-fit stamp half-size, px (0: from the FWHM) */
     double fwhm;             /* star FWHM guess, px (0: estimated) */
     double spot_search;      /* px around the median-frame spot positions (5) */
+    double spot_radius;      /* expected spot distance from the star, px (0: any) */
     double badpix_sigma;     /* > 0: find and replace bad pixels at this threshold */
     double reject_sigma;     /* > 0: reject frames whose flux or correlation with
                                 the median frame is an outlier by this many sigma */

@@ -88,6 +88,11 @@ typedef int (*gl_frame_measure_fn)(const float *img, long nx, long ny, const voi
 void gl_centres_each_frame(const gl_align_stack *s, gl_frame_measure_fn fn, const void *ctx,
                            gl_centres *c);
 
+/* gl_align_fit_profile with, when plane != 0, a sloped background
+ * B + bx (x - xc) + by (y - yc) about the stamp centre (for spots on a halo). */
+gl_status gl_fit_profile_plane(const float *img, long nx, long ny, double x0, double y0, int half,
+                               double fwhm0, gl_profile_kind kind, int plane, gl_profile_fit *out);
+
 /* Profile centre of the star in an image: peak search, FWHM estimate, fit.
  * Returns 0 on success. */
 int gl_profile_centre(const float *img, long nx, long ny, gl_profile_kind kind,

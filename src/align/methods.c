@@ -306,7 +306,7 @@ static int spots_frame(const float *img, long nx, long ny, const void *ctx, doub
 static gl_status measure_spots(const gl_align_stack *s, const gl_align_params *p, gl_centres *c)
 {
     spots_ctx ctx = {.search = p->spot_search};
-    gl_status st = gl_align_spots_find(s->median, s->nx, s->ny, &ctx.ref);
+    gl_status st = gl_align_spots_find(s->median, s->nx, s->ny, p->spot_radius, &ctx.ref);
     if (st)
         return gl_align_error_wrap(st, s->name);
     gl_log(GL_LOG_INFO,
@@ -348,7 +348,7 @@ gl_centre_method gl_centre_auto(const gl_align_stack *s, const gl_align_params *
     double bg = gl_image_median(s->median, s->nx, s->ny);
     gl_image_peak(s->median, s->nx, s->ny, 2, &px, &py, &peak);
     gl_spots sp;
-    if (gl_align_spots_find(s->median, s->nx, s->ny, &sp) == GL_OK) {
+    if (gl_align_spots_find(s->median, s->nx, s->ny, p->spot_radius, &sp) == GL_OK) {
         double weakest = INFINITY;
         for (int k = 0; k < 4; k++) {
             long x = lround(sp.x[k]), y = lround(sp.y[k]);

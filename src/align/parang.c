@@ -11,7 +11,9 @@
  * angle (Meeus, Astronomical Algorithms, eq. 14.1):
  *   tan q = sin H / (tan(phi) cos(dec) - sin(dec) cos H).
  * Per-frame times: a binary-table extension of the cube file with a column
- * MJD (UTC start of each exposure, one row per frame) wins over the header.
+ * MJD (UTC start of each exposure, one row per frame) wins over the header;
+ * otherwise frame i starts at the header start + i x cadence, the cadence
+ * being the caller's, a CADENCE keyword (seconds), or EXPTIME.
  */
 #include "align/internal.h"
 #include "core/internal.h"
@@ -47,7 +49,13 @@ gl_status gl_align_parang_from_header(const gl_header *h, long nframe, const gl_
     if (info.exptime < 0)
         return gl_error_set(GL_ERR_INPUT, "parallactic angles: EXPTIME %g is negative",
                             info.exptime);
-    double cadence = times && times->cadence_s > 0 ? times->cadence_s : info.exptime;
+    /* seconds between frame starts: the caller's, else a CADENCE keyword,
+     * else back-to-back exposures */
+    double cadence = info.exptime, hc;
+    if (times && times->cadence_s > 0)
+        cadence = times->cadence_s;
+    else if (gl_header_get_dbl(h, "CADENCE", &hc) && hc > 0)
+        cadence = hc;
     double height = isfinite(info.site_height_m) ? info.site_height_m : 0.0;
     double phi = info.site_lat_deg * ERFA_DD2R, elong = info.site_lon_deg * ERFA_DD2R;
     for (long f = 0; f < nframe; f++) {

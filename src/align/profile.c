@@ -21,13 +21,15 @@
 #include <math.h>
 #include <string.h>
 
-#define NPAR 6
+#define NPAR_MAX 8 /* 6 profile parameters, 2 more for a sloped background */
 static const double FWHM_PER_SIGMA = 2.3548200450309493; /* 2 sqrt(2 ln 2) */
 
 typedef struct stamp {
     int n;
     double *x, *y, *v;
     gl_profile_kind kind;
+    int plane; /* background B + bx (x - xc) + by (y - yc) */
+    double xc, yc;
 } stamp;
 
 /* Gaussian: p = A, x0, y0, sx, sy, B.  Moffat: p = A, x0, y0, alpha, beta, B. */
@@ -42,6 +44,9 @@ static int model_f(const gsl_vector *p, void *data, gsl_vector *f)
             m = A * exp(-0.5 * (dx * dx / (w1 * w1) + dy * dy / (w2 * w2)));
         else
             m = A * pow(1 + (dx * dx + dy * dy) / (w1 * w1), -w2);
+        if (s->plane)
+            m +=
+                gsl_vector_get(p, 6) * (s->x[i] - s->xc) + gsl_vector_get(p, 7) * (s->y[i] - s->yc);
         gsl_vector_set(f, (size_t)i, m + B - s->v[i]);
     }
     return GSL_SUCCESS;
@@ -72,6 +77,10 @@ static int model_df(const gsl_vector *p, void *data, gsl_matrix *J)
             gsl_matrix_set(J, r, 4, -A * m * log(u));
         }
         gsl_matrix_set(J, r, 5, 1.0);
+        if (s->plane) {
+            gsl_matrix_set(J, r, 6, s->x[i] - s->xc);
+            gsl_matrix_set(J, r, 7, s->y[i] - s->yc);
+        }
     }
     return GSL_SUCCESS;
 }
@@ -82,9 +91,10 @@ static int cmp_double(const void *a, const void *b)
     return (x > y) - (x < y);
 }
 
-gl_status gl_align_fit_profile(const float *img, long nx, long ny, double x0, double y0, int half,
-                               double fwhm0, gl_profile_kind kind, gl_profile_fit *out)
+gl_status gl_fit_profile_plane(const float *img, long nx, long ny, double x0, double y0, int half,
+                               double fwhm0, gl_profile_kind kind, int plane, gl_profile_fit *out)
 {
+    const int NPAR = plane ? 8 : 6;
     gl_status st = GL_OK;
     stamp s = {0};
     double *border = NULL;
@@ -112,6 +122,9 @@ gl_status gl_align_fit_profile(const float *img, long nx, long ny, double x0, do
         goto cleanup;
     }
     s.kind = kind;
+    s.plane = plane;
+    s.xc = (double)cx;
+    s.yc = (double)cy;
     int nb = 0;
     double vmax = -INFINITY;
     for (long y = ya; y <= yb; y++)
@@ -137,7 +150,7 @@ gl_status gl_align_fit_profile(const float *img, long nx, long ny, double x0, do
     double bg = border[nb / 2];
     double fwhm = fwhm0 > 0 ? fwhm0 : 0.5 * half;
 
-    double p0[NPAR];
+    double p0[NPAR_MAX] = {0};
     p0[0] = vmax - bg;
     p0[1] = x0;
     p0[2] = y0;
@@ -157,20 +170,24 @@ gl_status gl_align_fit_profile(const float *img, long nx, long ny, double x0, do
     }
 
     gsl_multifit_nlinear_parameters fp = gsl_multifit_nlinear_default_parameters();
-    ws = gsl_multifit_nlinear_alloc(gsl_multifit_nlinear_trust, &fp, (size_t)s.n, NPAR);
-    covar = gsl_matrix_alloc(NPAR, NPAR);
+    ws = gsl_multifit_nlinear_alloc(gsl_multifit_nlinear_trust, &fp, (size_t)s.n, (size_t)NPAR);
+    covar = gsl_matrix_alloc((size_t)NPAR, (size_t)NPAR);
     if (!ws || !covar) {
         st = gl_error_nomem("profile fit workspace");
         goto cleanup;
     }
-    gsl_multifit_nlinear_fdf fdf = {
-        .f = model_f, .df = model_df, .fvv = NULL, .n = (size_t)s.n, .p = NPAR, .params = &s};
-    gsl_vector_view pv = gsl_vector_view_array(p0, NPAR);
+    gsl_multifit_nlinear_fdf fdf = {.f = model_f,
+                                    .df = model_df,
+                                    .fvv = NULL,
+                                    .n = (size_t)s.n,
+                                    .p = (size_t)NPAR,
+                                    .params = &s};
+    gsl_vector_view pv = gsl_vector_view_array(p0, (size_t)NPAR);
     int info = 0;
     gsl_multifit_nlinear_init(&pv.vector, &fdf, ws);
     int rc = gsl_multifit_nlinear_driver(200, 1e-10, 1e-10, 0.0, NULL, NULL, &info, ws);
     const gsl_vector *pf = gsl_multifit_nlinear_position(ws);
-    double p[NPAR];
+    double p[NPAR_MAX];
     for (int k = 0; k < NPAR; k++)
         p[k] = gsl_vector_get(pf, (size_t)k);
     if (rc != GSL_SUCCESS && rc != GSL_EMAXITER) {
@@ -194,7 +211,7 @@ gl_status gl_align_fit_profile(const float *img, long nx, long ny, double x0, do
     double chi2;
     gsl_blas_ddot(gsl_multifit_nlinear_residual(ws), gsl_multifit_nlinear_residual(ws), &chi2);
     double scale = chi2 / (double)(s.n - NPAR);
-    double e[NPAR];
+    double e[NPAR_MAX];
     for (int k = 0; k < NPAR; k++)
         e[k] = sqrt(fmax(gsl_matrix_get(covar, (size_t)k, (size_t)k), 0) * scale);
 
@@ -234,6 +251,12 @@ cleanup:
     gl_free(s.y);
     gl_free(s.v);
     return st;
+}
+
+gl_status gl_align_fit_profile(const float *img, long nx, long ny, double x0, double y0, int half,
+                               double fwhm0, gl_profile_kind kind, gl_profile_fit *out)
+{
+    return gl_fit_profile_plane(img, nx, ny, x0, y0, half, fwhm0, kind, 0, out);
 }
 
 int gl_profile_centre(const float *img, long nx, long ny, gl_profile_kind kind,

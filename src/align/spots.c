@@ -5,12 +5,13 @@
  * the 3x3-smoothed image ranked by their contrast over a surrounding annulus;
  * the brightest set of four forming two diagonals of equal length that cross
  * at right angles and share their midpoint is taken. Each spot is fitted
- * with a 2-D Gaussian (profile.c); the centre is the least-squares
+ * with a 2-D Gaussian on a sloped background (profile.c); the centre is the least-squares
  * intersection of the diagonals (the point minimising the summed squared
  * distances to the lines), with its uncertainty propagated from the spot
  * fits by numerical derivatives.
- * Assumptions: the spots are among the 30 most prominent compact peaks; the
- * four are arranged as a square around the star (the usual waffle pattern).
+ * Assumptions: the spots are among the 60 most prominent compact peaks, at
+ * least 5 px from the star; the four are arranged as a square around the
+ * star (the usual waffle pattern) with similar brightness.
  */
 #include "align/internal.h"
 #include "core/internal.h"
@@ -19,7 +20,7 @@
 #include <stdlib.h>
 #include <string.h>
 
-#define MAX_CAND 30
+#define MAX_CAND 60
 
 typedef struct cand {
     double x, y, contrast;
@@ -124,10 +125,12 @@ static gl_status fit_spot(const float *img, long nx, long ny, double x, double y
                           int k)
 {
     gl_profile_fit fit;
-    gl_status st = gl_align_fit_profile(img, nx, ny, x, y, 4, 3.0, GL_PROFILE_GAUSSIAN, &fit);
+    int half = (int)GL_MIN(GL_MAX(ceil(1.5 * s->fwhm), 3), 9);
+    gl_status st =
+        gl_fit_profile_plane(img, nx, ny, x, y, half, s->fwhm, GL_PROFILE_GAUSSIAN, 1, &fit);
     if (st)
         return st;
-    if (hypot(fit.x - x, fit.y - y) > 3)
+    if (hypot(fit.x - x, fit.y - y) > fmax(3, s->fwhm))
         return gl_error_set(GL_ERR_NUMERIC, "spot %d fit wandered off (%.1f, %.1f)", k + 1, x, y);
     s->x[k] = fit.x;
     s->y[k] = fit.y;
@@ -136,7 +139,7 @@ static gl_status fit_spot(const float *img, long nx, long ny, double x, double y
     return GL_OK;
 }
 
-gl_status gl_align_spots_find(const float *img, long nx, long ny, gl_spots *out)
+gl_status gl_align_spots_find(const float *img, long nx, long ny, double radius, gl_spots *out)
 {
     cand c[MAX_CAND + 1];
     int nc = 0;
@@ -179,7 +182,7 @@ gl_status gl_align_spots_find(const float *img, long nx, long ny, gl_spots *out)
         for (int b = a + 1; b < nc; b++) {
             double mx1 = 0.5 * (c[a].x + c[b].x), my1 = 0.5 * (c[a].y + c[b].y);
             double l1 = hypot(c[b].x - c[a].x, c[b].y - c[a].y);
-            if (l1 < 6)
+            if (l1 < 10 || (radius > 0 && fabs(0.5 * l1 - radius) > 0.25 * radius))
                 continue;
             for (int d = a + 1; d < nc; d++) {
                 if (d == b)
@@ -189,21 +192,24 @@ gl_status gl_align_spots_find(const float *img, long nx, long ny, gl_spots *out)
                         continue;
                     double mx2 = 0.5 * (c[d].x + c[e].x), my2 = 0.5 * (c[d].y + c[e].y);
                     double l2 = hypot(c[e].x - c[d].x, c[e].y - c[d].y);
-                    if (hypot(mx1 - mx2, my1 - my2) > 2 || fabs(l1 - l2) > 0.15 * 0.5 * (l1 + l2))
+                    if (hypot(mx1 - mx2, my1 - my2) > 2 || fabs(l1 - l2) > 0.1 * 0.5 * (l1 + l2))
                         continue;
                     double cosang = ((c[b].x - c[a].x) * (c[e].x - c[d].x) +
                                      (c[b].y - c[a].y) * (c[e].y - c[d].y)) /
                                     (l1 * l2);
-                    if (fabs(cosang) > sin(15 * M_PI / 180))
+                    if (fabs(cosang) > sin(10 * M_PI / 180))
                         continue;
-                    double score = c[a].contrast + c[b].contrast + c[d].contrast + c[e].contrast;
-                    if (score > best) {
-                        best = score;
-                        bi[0] = a;
-                        bi[1] = d;
-                        bi[2] = b;
-                        bi[3] = e;
-                    }
+                    double lo = fmin(fmin(c[a].contrast, c[b].contrast),
+                                     fmin(c[d].contrast, c[e].contrast));
+                    double hi = fmax(fmax(c[a].contrast, c[b].contrast),
+                                     fmax(c[d].contrast, c[e].contrast));
+                    if (hi > 5 * lo || lo <= best)
+                        continue;
+                    best = lo;
+                    bi[0] = a;
+                    bi[1] = d;
+                    bi[2] = b;
+                    bi[3] = e;
                 }
             }
         }
@@ -212,6 +218,20 @@ gl_status gl_align_spots_find(const float *img, long nx, long ny, gl_spots *out)
                             "no four satellite spots found (%d compact peaks, none "
                             "forming two equal perpendicular diagonals)",
                             nc);
+    /* spot width from the half-maximum area of the faintest spot over its
+     * surroundings */
+    out->fwhm = 3;
+    {
+        int k = 0;
+        for (int j = 1; j < 4; j++)
+            if (c[bi[j]].contrast < c[bi[k]].contrast)
+                k = j;
+        long px = lround(c[bi[k]].x), py = lround(c[bi[k]].y);
+        double f =
+            gl_image_fwhm_estimate(img, nx, ny, px, py, annulus_median(img, nx, ny, px, py), 4);
+        if (f >= 1.5)
+            out->fwhm = fmin(f, 6);
+    }
     for (int k = 0; k < 4; k++) {
         gl_status st = fit_spot(img, nx, ny, c[bi[k]].x, c[bi[k]].y, out, k);
         if (st) {
@@ -228,6 +248,7 @@ gl_status gl_align_spots_refit(const float *img, long nx, long ny, const gl_spot
                                double search, gl_spots *out)
 {
     memset(out, 0, sizeof *out);
+    out->fwhm = guess->fwhm > 0 ? guess->fwhm : 3;
     long r = (long)ceil(search);
     for (int k = 0; k < 4; k++) {
         long gx = lround(guess->x[k]), gy = lround(guess->y[k]), bx = -1, by = -1;

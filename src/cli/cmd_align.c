@@ -21,6 +21,7 @@ static const char help[] =
     "  --fwhm PX             star FWHM guess for the profile fits (default: estimated)\n"
     "  --stamp PX            half-size of the profile-fit stamp (default: 2 FWHM)\n"
     "  --spot-search PX      search radius around the median-frame spots (default 5)\n"
+    "  --spot-radius PX      expected distance of the satellite spots from the star\n"
     "  --bad-pixels SIGMA    find hot, cold, NaN and transient pixels and replace them\n"
     "  --bad-pixel-map FILE  write the bad-pixel map (bits: 1 hot, 2 cold, 4 NaN,\n"
     "                        8 transient); implies --bad-pixels 5 unless given\n"
@@ -32,7 +33,8 @@ static const char help[] =
     "  --angles-from-header  compute them from the header (DATE-OBS/MJD-OBS, EXPTIME,\n"
     "                        RA, DEC, site); per-frame starts from a binary-table\n"
     "                        extension with a column MJD when present\n"
-    "  --frame-cadence S     seconds between frame starts (default EXPTIME)\n"
+    "  --frame-cadence S     seconds between frame starts (default: header CADENCE,\n"
+    "                        else EXPTIME)\n"
     "  --angles-out FILE     angles of the output frames (needed with angles)\n";
 
 enum {
@@ -44,6 +46,7 @@ enum {
     OPT_FWHM,
     OPT_STAMP,
     OPT_SPOT_SEARCH,
+    OPT_SPOT_RADIUS,
     OPT_BADPIX,
     OPT_BADPIX_MAP,
     OPT_REJECT,
@@ -96,6 +99,7 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
                                          {"fwhm", required_argument, 0, OPT_FWHM},
                                          {"stamp", required_argument, 0, OPT_STAMP},
                                          {"spot-search", required_argument, 0, OPT_SPOT_SEARCH},
+                                         {"spot-radius", required_argument, 0, OPT_SPOT_RADIUS},
                                          {"bad-pixels", required_argument, 0, OPT_BADPIX},
                                          {"bad-pixel-map", required_argument, 0, OPT_BADPIX_MAP},
                                          {"reject-outliers", required_argument, 0, OPT_REJECT},
@@ -157,6 +161,10 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
             break;
         case OPT_SPOT_SEARCH:
             if (cli_parse_double(cli, "--spot-search", optarg, 1, 1000, &p.spot_search))
+                return 1;
+            break;
+        case OPT_SPOT_RADIUS:
+            if (cli_parse_double(cli, "--spot-radius", optarg, 5, 100000, &p.spot_radius))
                 return 1;
             break;
         case OPT_BADPIX:
@@ -240,7 +248,7 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
             gl_log(GL_LOG_INFO,
                    "angles from the header: frame f starts at the header start + f "
                    "x %s",
-                   cadence > 0 ? "--frame-cadence" : "EXPTIME");
+                   cadence > 0 ? "--frame-cadence" : "CADENCE (or EXPTIME)");
     }
 
     if ((st = gl_outset_new(cli->overwrite, &set)) ||

@@ -322,3 +322,21 @@ def test_bad_input(tmp_path):
     write(tmp_path / "o.fits", np.zeros((2, 2)))
     check_refused(tmp_path, [tmp_path / "star.fits", "--out", tmp_path / "o.fits", "--quiet"],
                   "o.fits")
+
+
+# ---- end to end on gloam simulate output (true star positions in frames.csv) ----------
+
+@pytest.mark.parametrize("sim_args,method,tol", [
+    (["--size", "128", "--spots", "6:1e-2"], "spots", 0.1),      # coronagraph + spots
+    (["--size", "64", "--coronagraph", "none"], "gaussian", 0.02),  # unsaturated star
+])
+def test_simulated_jitter(tmp_path, sim_args, method, tol):
+    d = tmp_path / "sim"
+    subprocess.run([GLOAM, "simulate", d, "--frames", "12", "--jitter", "15", "--quiet",
+                    *sim_args], check=True)
+    p = run(d / "cube.fits", "--out", tmp_path / "a.fits", "--table", tmp_path / "t.csv")
+    assert f"centring method: {method}, chosen because" in p.stderr
+    f = np.genfromtxt(d / "frames.csv", delimiter=",", names=True)
+    t = read_table(tmp_path / "t.csv")
+    rms = np.sqrt(np.mean((t["x"] - f["star_x"]) ** 2 + (t["y"] - f["star_y"]) ** 2) / 2)
+    assert rms < tol, rms
