@@ -282,7 +282,7 @@ gl_status gl_align_run(gl_cube *cube, const double *angles, const char *name,
 {
     gl_status st;
     gl_align_result *r = NULL;
-    float *meas = NULL, *median = NULL;
+    float *meas = NULL, *median = NULL, *sharp = NULL;
     int owned = 0;
     size_t npix = gl_cube_plane_size(cube);
     long nf = cube->nframe;
@@ -342,7 +342,14 @@ gl_status gl_align_run(gl_cube *cube, const double *angles, const char *name,
     if ((st = check_signal(median, cube->nx, cube->ny, name)))
         goto cleanup;
 
-    gl_align_stack stack = {meas, median, cube->nx, cube->ny, nf, name};
+    gl_align_stack stack = {meas, median, NULL, cube->nx, cube->ny, nf, name};
+    if (!(sharp = gl_malloc(npix * sizeof *sharp))) {
+        st = gl_error_nomem("reference frame");
+        goto cleanup;
+    }
+    if ((st = gl_sharp_reference(&stack, p, sharp)))
+        goto cleanup;
+    stack.sharp = sharp;
     gl_centre_method m = p->method;
     char reason[256];
     if (m == GL_CENTRE_AUTO) {
@@ -410,6 +417,7 @@ cleanup:
     if (owned)
         gl_free(meas);
     gl_free(median);
+    gl_free(sharp);
     if (st) {
         gl_align_result_free(r);
         return st;

@@ -15,7 +15,8 @@
  * (channel means of the cube), and their median frame. */
 typedef struct gl_align_stack {
     const float *img;
-    const float *median;
+    const float *median; /* per-pixel median of the frames (blurred by jitter) */
+    const float *sharp;  /* median of frames registered onto it (gl_sharp_reference) */
     long nx, ny, nframe;
     const char *name; /* input file, for messages */
 } gl_align_stack;
@@ -39,6 +40,11 @@ typedef struct gl_centre_ops {
 extern const gl_centre_ops gl_centre_gaussian_ops, gl_centre_moffat_ops, gl_centre_register_ops,
     gl_centre_spots_ops, gl_centre_symmetry_ops;
 const gl_centre_ops *gl_centre_ops_get(gl_centre_method m);
+
+/* A sharp reference: up to 64 frames spread over the sequence, registered
+ * to the median frame, shifted onto it and median-combined (methods.c).
+ * Only s->img and s->median are used. */
+gl_status gl_sharp_reference(const gl_align_stack *s, const gl_align_params *p, float *ref);
 
 /* Chooses a method for the stack (logged by the caller with the reason). */
 gl_centre_method gl_centre_auto(const gl_align_stack *s, const gl_align_params *p, char *reason,

@@ -116,7 +116,7 @@ static int compact_star(const float *img, long nx, long ny, const gl_align_param
  * the (jitter-blurred) median frame, shifted onto it, and median-combined.
  * Its centre measured by a fit or by symmetry is then the centre that the
  * registration of every frame refers to. */
-static gl_status sharp_reference(const gl_align_stack *s, const gl_align_params *p, float *ref)
+gl_status gl_sharp_reference(const gl_align_stack *s, const gl_align_params *p, float *ref)
 {
     long nsub = GL_MIN(s->nframe, 64);
     size_t npix = (size_t)s->nx * (size_t)s->ny;
@@ -167,12 +167,8 @@ static gl_status measure_register(const gl_align_stack *s, const gl_align_params
     gl_profile_fit fit;
     double cx, cy, ecx, ecy;
     size_t npix = (size_t)s->nx * (size_t)s->ny;
-    float *ref = gl_malloc(npix * sizeof *ref);
-    if (!ref)
-        return gl_error_nomem("registration reference");
-    gl_status st = sharp_reference(s, p, ref);
-    if (st)
-        goto cleanup;
+    const float *ref = s->sharp;
+    gl_status st = GL_OK;
     if (compact_star(ref, s->nx, s->ny, p, &fit)) {
         cx = fit.x;
         cy = fit.y;
@@ -228,7 +224,6 @@ static gl_status measure_register(const gl_align_stack *s, const gl_align_params
         st = gl_error_nomem("registration work");
 cleanup:
     gl_xcorr_plan_free(plan);
-    gl_free(ref);
     return st;
 }
 
@@ -275,47 +270,71 @@ static gl_status measure_symmetry(const gl_align_stack *s, const gl_align_params
 
 /* ---- satellite spots ---------------------------------------------------- */
 
-typedef struct spots_ctx {
-    gl_spots ref;
-    double search;
-} spots_ctx;
-
-static int spots_frame(const float *img, long nx, long ny, const void *ctx, double *x, double *y,
-                       double *ex, double *ey, double *q)
-{
-    const spots_ctx *c = ctx;
-    gl_spots s;
-    if (gl_align_spots_refit(img, nx, ny, &c->ref, c->search, &s))
-        return -1;
-    *x = s.cx;
-    *y = s.cy;
-    *ex = s.err_cx;
-    *ey = s.err_cy;
-    /* spread of the four spot distances from the centre, relative */
-    double r[4], m = 0, v = 0;
-    for (int k = 0; k < 4; k++) {
-        r[k] = hypot(s.x[k] - s.cx, s.y[k] - s.cy);
-        m += r[k] / 4;
-    }
-    for (int k = 0; k < 4; k++)
-        v += (r[k] - m) * (r[k] - m) / 3;
-    *q = sqrt(v) / m;
-    return 0;
-}
-
+/* Spots found on the sharp reference; in each frame they are looked for
+ * around their reference positions moved by the frame's registration shift,
+ * so that large jitter does not lose them. */
 static gl_status measure_spots(const gl_align_stack *s, const gl_align_params *p, gl_centres *c)
 {
-    spots_ctx ctx = {.search = p->spot_search};
-    gl_status st = gl_align_spots_find(s->median, s->nx, s->ny, p->spot_radius, &ctx.ref);
+    gl_spots ref;
+    gl_xcorr_plan *plan = NULL;
+    gl_status st = gl_align_spots_find(s->sharp, s->nx, s->ny, p->spot_radius, &ref);
     if (st)
         return gl_align_error_wrap(st, s->name);
     gl_log(GL_LOG_INFO,
-           "satellite spots in the median frame at (%.1f,%.1f) (%.1f,%.1f) "
+           "satellite spots in the registered median frame at (%.1f,%.1f) (%.1f,%.1f) "
            "(%.1f,%.1f) (%.1f,%.1f); centre (%.3f, %.3f)",
-           ctx.ref.x[0], ctx.ref.y[0], ctx.ref.x[1], ctx.ref.y[1], ctx.ref.x[2], ctx.ref.y[2],
-           ctx.ref.x[3], ctx.ref.y[3], ctx.ref.cx, ctx.ref.cy);
-    gl_centres_each_frame(s, spots_frame, &ctx, c);
-    return GL_OK;
+           ref.x[0], ref.y[0], ref.x[1], ref.y[1], ref.x[2], ref.y[2], ref.x[3], ref.y[3], ref.cx,
+           ref.cy);
+    if ((st = gl_xcorr_plan_new(s->sharp, s->nx, s->ny, p->upsample, &plan)))
+        return st;
+    size_t npix = (size_t)s->nx * (size_t)s->ny;
+    int nomem = 0;
+    long done = 0;
+#pragma omp parallel
+    {
+        gl_xcorr_work *w = NULL;
+        if (gl_xcorr_work_new(plan, &w)) {
+#pragma omp atomic write
+            nomem = 1;
+        }
+#pragma omp for schedule(static)
+        for (long f = 0; f < s->nframe; f++) {
+            const float *img = s->img + (size_t)f * npix;
+            double dx = 0, dy = 0;
+            gl_spots guess = ref, sp;
+            c->ok[f] = 0;
+            c->x[f] = c->y[f] = c->err_x[f] = c->err_y[f] = c->quality[f] = NAN;
+            if (w && gl_align_xcorr_shift(plan, w, img, &dx, &dy, NULL) == GL_OK) {
+                for (int k = 0; k < 4; k++) {
+                    guess.x[k] -= dx;
+                    guess.y[k] -= dy;
+                }
+                if (gl_align_spots_refit(img, s->nx, s->ny, &guess, p->spot_search, &sp) == GL_OK) {
+                    c->x[f] = sp.cx;
+                    c->y[f] = sp.cy;
+                    c->err_x[f] = sp.err_cx;
+                    c->err_y[f] = sp.err_cy;
+                    /* relative spread of the four spot distances from the centre */
+                    double r[4], m = 0, v = 0;
+                    for (int k = 0; k < 4; k++) {
+                        r[k] = hypot(sp.x[k] - sp.cx, sp.y[k] - sp.cy);
+                        m += r[k] / 4;
+                    }
+                    for (int k = 0; k < 4; k++)
+                        v += (r[k] - m) * (r[k] - m) / 3;
+                    c->quality[f] = sqrt(v) / m;
+                    c->ok[f] = isfinite(sp.cx) && isfinite(sp.cy);
+                }
+            }
+            long d;
+#pragma omp atomic capture
+            d = ++done;
+            gl_progress("centring", d, s->nframe);
+        }
+        gl_xcorr_work_free(w);
+    }
+    gl_xcorr_plan_free(plan);
+    return nomem ? gl_error_nomem("spot work") : GL_OK;
 }
 
 /* ---- table and automatic choice ----------------------------------------- */
@@ -345,20 +364,20 @@ gl_centre_method gl_centre_auto(const gl_align_stack *s, const gl_align_params *
 {
     long px, py;
     double peak;
-    double bg = gl_image_median(s->median, s->nx, s->ny);
-    gl_image_peak(s->median, s->nx, s->ny, 2, &px, &py, &peak);
+    double bg = gl_image_median(s->sharp, s->nx, s->ny);
+    gl_image_peak(s->sharp, s->nx, s->ny, 2, &px, &py, &peak);
     gl_spots sp;
-    if (gl_align_spots_find(s->median, s->nx, s->ny, p->spot_radius, &sp) == GL_OK) {
+    if (gl_align_spots_find(s->sharp, s->nx, s->ny, p->spot_radius, &sp) == GL_OK) {
         double weakest = INFINITY;
         for (int k = 0; k < 4; k++) {
             long x = lround(sp.x[k]), y = lround(sp.y[k]);
-            double v = s->median[y * s->nx + x] - bg;
+            double v = s->sharp[y * s->nx + x] - bg;
             if (v < weakest)
                 weakest = v;
         }
         if (weakest > 0.05 * (peak - bg)) {
             snprintf(reason, size,
-                     "four satellite spots found in the median frame, as bright "
+                     "four satellite spots found in the registered median frame, as bright "
                      "as %.0f%% of its brightest feature",
                      100 * weakest / (peak - bg));
             return GL_CENTRE_SPOTS;
@@ -366,7 +385,7 @@ gl_centre_method gl_centre_auto(const gl_align_stack *s, const gl_align_params *
     }
     gl_error_clear();
     gl_profile_fit fit;
-    if (compact_star(s->median, s->nx, s->ny, p, &fit)) {
+    if (compact_star(s->sharp, s->nx, s->ny, p, &fit)) {
         double noise = gl_image_noise(s->img, s->nx, s->ny);
         double snr = noise > 0 ? fit.amplitude / noise : INFINITY;
         if (snr >= 20) {
