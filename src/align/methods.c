@@ -375,7 +375,7 @@ gl_centre_method gl_centre_auto(const gl_align_stack *s, const gl_align_params *
             if (v < weakest)
                 weakest = v;
         }
-        if (weakest > 0.05 * (peak - bg)) {
+        if (weakest > 0.02 * (peak - bg)) {
             snprintf(reason, size,
                      "four satellite spots found in the registered median frame, as bright "
                      "as %.0f%% of its brightest feature",
