@@ -271,8 +271,9 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
         goto done;
     if ((st = gl_outset_commit(set)))
         goto done;
-    gl_log(GL_LOG_INFO, "wrote %s: %ld frames of %ldx%ld, star at (%ld, %ld)", out, r->nout,
-           r->aligned->nx, r->aligned->ny, r->aligned->nx / 2, r->aligned->ny / 2);
+    gl_log(GL_LOG_INFO, "wrote %s: %ld frame%s of %ldx%ld, star at (%ld, %ld)", out, r->nout,
+           r->nout == 1 ? "" : "s", r->aligned->nx, r->aligned->ny, r->aligned->nx / 2,
+           r->aligned->ny / 2);
 
 done:;
     int rc = st ? cli_fail(cli, st) : 0;
