@@ -340,3 +340,21 @@ def test_simulated_jitter(tmp_path, sim_args, method, tol):
     t = read_table(tmp_path / "t.csv")
     rms = np.sqrt(np.mean((t["x"] - f["star_x"]) ** 2 + (t["y"] - f["star_y"]) ** 2) / 2)
     assert rms < tol, rms
+
+
+def test_single_image_and_4d_cube(tmp_path):
+    cube, tx, ty = jitter_cube(48, 6, "gauss", 1.0, 1.5, 3)
+    write(tmp_path / "img.fits", cube[0])
+    run(tmp_path / "img.fits", "--out", tmp_path / "o2.fits", "--table", tmp_path / "t2.csv")
+    assert fits.getdata(tmp_path / "o2.fits").shape == (48, 48)
+    t = read_table(tmp_path / "t2.csv")
+    assert abs(float(t["x"]) - tx[0]) < 0.02 and abs(float(t["y"]) - ty[0]) < 0.02
+    # 4-D (frame, channel, y, x): measured on the channel mean, same shift for all
+    write(tmp_path / "c4.fits", np.stack([cube, 0.5 * cube], axis=1))
+    run(tmp_path / "c4.fits", "--out", tmp_path / "o4.fits", "--table", tmp_path / "t4.csv",
+        "--crop", "31", "--bin", "2")
+    out = fits.getdata(tmp_path / "o4.fits")
+    assert out.shape == (3, 2, 31, 31)
+    assert np.allclose(out[:, 1], 0.5 * out[:, 0], rtol=1e-4, atol=1e-3)
+    t = read_table(tmp_path / "t4.csv")
+    assert np.max(np.abs(t["x"] - tx)) < 0.02 and np.max(np.abs(t["y"] - ty)) < 0.02
