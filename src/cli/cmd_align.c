@@ -261,6 +261,11 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
     long nx = cube->nx, ny = cube->ny;
     if ((st = gl_align_run(cube, angles, in, &p, &r)))
         goto done;
+    if (!angles && r->nout != r->nframe)
+        gl_log(GL_LOG_WARN,
+               "%ld input frames became %ld output frames: an angle list of the input no "
+               "longer matches (give it with --angles and --angles-out)",
+               r->nframe, r->nout);
     if ((st = gl_fits_write_cube(t_out, r->aligned, &cli->prov)))
         goto done;
     if (t_table && (st = gl_align_table_write_csv(t_table, r, angles)))
