@@ -280,6 +280,33 @@ static void test_preparation(void)
     gl_cube_free(c);
 }
 
+/* A frame taken with the AO loop open: same flux, a broad blob; its
+ * correlation with the median frame is the outlier. */
+static void test_correlation_rejection(void)
+{
+    long n = 48, nf = 9;
+    double tx[9], ty[9];
+    gl_cube *c = make_cube(n, nf, STAR_GAUSS, 1.0, 0.5, tx, ty, 12);
+    float *img = gl_cube_plane(c, 0, 3);
+    double s = 1.8 * 1.8 / (6.0 * 6.0); /* same total flux, sigma 6 */
+    for (long y = 0; y < n; y++)
+        for (long x = 0; x < n; x++)
+            img[y * n + x] =
+                (float)(5 + 1000 * s * exp(-0.5 * (pow(x - tx[3], 2) + pow(y - ty[3], 2)) / 36.0));
+    gl_align_params p;
+    gl_align_params_init(&p);
+    p.method = GL_CENTRE_GAUSSIAN;
+    p.reject_sigma = 5;
+    gl_align_result *r = NULL;
+    CHECK(gl_align_run(c, NULL, "ao", &p, &r) == GL_OK, "%s", gl_error_message());
+    if (r) {
+        CHECK(r->status[3] == GL_FRAME_CORRELATION, "open-loop frame: status %d", r->status[3]);
+        CHECK(r->nkept == nf - 1, "kept %ld", r->nkept);
+    }
+    gl_align_result_free(r);
+    gl_cube_free(c);
+}
+
 static void test_bad_input(void)
 {
     long n = 32, nf = 4;
@@ -387,6 +414,36 @@ static void test_threads(void)
     free(out[1]);
 }
 
+/* Allocation failures at every step: a clean status, nothing leaked (the
+ * sanitizer build checks the leaks), the input cube still usable. */
+static void test_allocation_failures(void)
+{
+    long n = 32, nf = 4;
+    double tx[4], ty[4], angles[4] = {0, 1, 2, 3};
+    gl_centre_method methods[3] = {GL_CENTRE_GAUSSIAN, GL_CENTRE_REGISTER, GL_CENTRE_SPOTS};
+    int bad = 0;
+    for (int m = 0; m < 3; m++)
+        for (long k = 1; k <= 120; k++) {
+            gl_cube *c = make_cube(n, nf, m == 2 ? STAR_SPOTS : STAR_GAUSS, 1.0, 0.5, tx, ty, 9);
+            gl_align_params p;
+            gl_align_params_init(&p);
+            p.method = methods[m];
+            p.badpix_sigma = 5;
+            p.reject_sigma = 5;
+            p.crop = 21;
+            p.bin = 2;
+            gl_align_result *r = NULL;
+            gl_malloc_fail_after(k);
+            gl_status st = gl_align_run(c, angles, "alloc", &p, &r);
+            gl_malloc_fail_after(0);
+            if (!(st == GL_OK || st == GL_ERR_NOMEM || st == GL_ERR_INPUT) || (st && r))
+                bad++;
+            gl_align_result_free(r);
+            gl_cube_free(c);
+        }
+    CHECK(bad == 0, "%d allocation-failure runs ended badly", bad);
+}
+
 int main(void)
 {
     test_profile_fits();
@@ -394,8 +451,10 @@ int main(void)
     test_spots();
     test_jitter_recovery();
     test_preparation();
+    test_correlation_rejection();
     test_bad_input();
     test_parang_meeus();
     test_threads();
+    test_allocation_failures();
     CHECK_DONE();
 }
