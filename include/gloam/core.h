@@ -159,6 +159,18 @@ static inline size_t gl_cube_size(const gl_cube *c)
     return gl_cube_plane_size(c) * (size_t)c->nchan * (size_t)c->nframe;
 }
 
+/* ---- robust statistics ------------------------------------------------- */
+
+/* Median and robust standard deviation (1.4826 * median absolute deviation,
+ * Hampel 1974) of the finite values among x[0..n-1]; NaN and infinities are
+ * skipped. work must hold n doubles (owned by the caller, reusable across
+ * calls, so hot loops do not allocate). Returns the number of values used;
+ * with none, *median and *sigma are NaN. Never fails. */
+GL_API size_t gl_stats_robust_float(const float *x, size_t n, double *work, double *median,
+                                    double *sigma);
+GL_API size_t gl_stats_robust(const double *x, size_t n, double *work, double *median,
+                              double *sigma);
+
 #ifdef __cplusplus
 }
 #endif

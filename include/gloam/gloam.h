@@ -9,5 +9,7 @@
 #include "gloam/io.h"
 #include "gloam/subtract.h"
 #include "gloam/geometry.h"
+#include "gloam/inject.h"
+#include "gloam/inspect.h"
 
 #endif

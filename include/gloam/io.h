@@ -29,6 +29,25 @@ extern "C" {
  * HDU, fewer than min_naxis axes, more than 4 axes, an empty axis). */
 GL_API gl_status gl_fits_read_cube(const char *path, int min_naxis, gl_cube **out);
 
+/* Layout of the image HDU that gl_fits_read_cube would use, for reports:
+ * HDU number (1 = primary, as cfitsio counts), BITPIX on disk, axes, and the
+ * scaling keywords (which the cube reader applies and does not carry). */
+typedef struct gl_fits_info {
+    int hdu;          /* 1-based HDU number */
+    char extname[72]; /* EXTNAME of that HDU, or "" */
+    int bitpix;       /* BITPIX as written (16 for BZERO=32768 unsigned data) */
+    int naxis;        /* NAXIS as written */
+    long naxes[8];    /* NAXISn (first 8) */
+    int has_bscale, has_bzero, has_blank;
+    double bscale;   /* 1 when absent */
+    double bzero;    /* 0 when absent */
+    long long blank; /* BLANK of integer images, when has_blank */
+} gl_fits_info;
+
+/* Fills info for the first image HDU of path (the one gl_fits_read_cube
+ * reads). Errors as for gl_fits_read_cube (GL_ERR_IO, GL_ERR_INPUT). */
+GL_API gl_status gl_fits_image_info(const char *path, gl_fits_info *info);
+
 /* Observation metadata found in a header. Fields absent from the header are
  * NaN (numbers) or "" (strings); `found` lists the keywords seen. */
 typedef struct gl_obsinfo {

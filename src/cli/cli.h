@@ -58,6 +58,10 @@ int cli_fail(const gl_cli *cli, gl_status st);
 /* Prints "gloam CMD: <message>" plus a hint to --help; returns 1. */
 int cli_usage(const gl_cli *cli, const char *fmt, ...) __attribute__((format(printf, 2, 3)));
 
+/* Reports the option getopt_long rejected ('?'): unknown, or missing its
+ * value. Returns 1. Call with the argv given to getopt_long. */
+int cli_bad_option(const gl_cli *cli, char **argv);
+
 /* Parse option values; on failure print a message naming the option and
  * return -1. */
 int cli_parse_long(const gl_cli *cli, const char *opt, const char *arg, long min, long max,
@@ -69,5 +73,7 @@ int cli_parse_double(const gl_cli *cli, const char *opt, const char *arg, double
 void cli_start(gl_cli *cli);
 
 /* Every command (one file each: cmd_NAME.c). */
+int cmd_inject(gl_cli *cli, int argc, char **argv);
+int cmd_inspect(gl_cli *cli, int argc, char **argv);
 
 #endif

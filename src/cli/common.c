@@ -32,6 +32,14 @@ int cli_usage(const gl_cli *cli, const char *fmt, ...)
     return 1;
 }
 
+int cli_bad_option(const gl_cli *cli, char **argv)
+{
+    const char *arg = argv[optind - 1];
+    if (optopt != 0 && strncmp(arg, "--", 2) == 0)
+        return cli_usage(cli, "option '%s' needs a value", arg);
+    return cli_usage(cli, "unknown option '%s'", arg);
+}
+
 int cli_parse_long(const gl_cli *cli, const char *opt, const char *arg, long min, long max,
                    long *out)
 {

@@ -15,6 +15,8 @@ typedef struct command {
 
 static const command commands[] = {
     /* one line per command, in pipeline order */
+    {"inspect", cmd_inspect, "report what a cube holds: shape, NaN, saturation, flux, rotation"},
+    {"inject", cmd_inject, "plant fake companions into a sequence"},
     {NULL, NULL, NULL},
 };
 

@@ -130,7 +130,7 @@ gl_status gl_fits_read_cube(const char *path, int min_naxis, gl_cube **out)
         goto cleanup;
     if (naxis < min_naxis) {
         st = gl_error_set(GL_ERR_INPUT, "%s: HDU %d is a %d-D image; a %s is needed", path, hdu,
-                          naxis, min_naxis >= 3 ? "3-D cube (x, y, frame)" : "2-D image");
+                          naxis, min_naxis >= 3 ? "3-D cube (x, y, frame)" : "2-D image or a cube");
         goto cleanup;
     }
     /* trailing axes of length 1 beyond the 4th carry no data */
@@ -187,6 +187,55 @@ gl_status gl_fits_read_cube(const char *path, int min_naxis, gl_cube **out)
 cleanup:
     gl_free(nulls);
     gl_cube_free(c);
+    if (f) {
+        int s2 = 0;
+        fits_close_file(f, &s2);
+    }
+    return st;
+}
+
+gl_status gl_fits_image_info(const char *path, gl_fits_info *info)
+{
+    fitsfile *f = NULL;
+    gl_status st;
+    int status = 0;
+    memset(info, 0, sizeof *info);
+    info->bscale = 1;
+    if ((st = open_readonly(path, &f)))
+        return st;
+    long naxes[8] = {0};
+    if ((st = find_image_hdu(f, path, &info->hdu, &info->naxis, naxes, &info->bitpix)))
+        goto cleanup;
+    for (int i = 0; i < info->naxis && i < 8; i++)
+        info->naxes[i] = naxes[i];
+    char comm[FLEN_COMMENT];
+    double d;
+    LONGLONG ll;
+    /* cfitsio reports a missing keyword as KEY_NO_EXIST; anything else is a
+     * malformed value */
+    if (fits_read_key(f, TDOUBLE, "BSCALE", &d, comm, &status) == 0) {
+        info->has_bscale = 1;
+        info->bscale = d;
+    }
+    status = 0;
+    if (fits_read_key(f, TDOUBLE, "BZERO", &d, comm, &status) == 0) {
+        info->has_bzero = 1;
+        info->bzero = d;
+    }
+    status = 0;
+    if (info->bitpix > 0 && fits_read_key(f, TLONGLONG, "BLANK", &ll, comm, &status) == 0) {
+        info->has_blank = 1;
+        info->blank = (long long)ll;
+    }
+    status = 0;
+    char extname[FLEN_VALUE] = "";
+    if (fits_read_key(f, TSTRING, "EXTNAME", extname, comm, &status) == 0)
+        snprintf(info->extname, sizeof info->extname, "%s", extname);
+    status = 0;
+    fits_clear_errmsg();
+    st = GL_OK;
+
+cleanup:
     if (f) {
         int s2 = 0;
         fits_close_file(f, &s2);

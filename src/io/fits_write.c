@@ -47,21 +47,41 @@ int gl_fits_write_provenance(fitsfile *f, const gl_provenance *prov, int *status
     return *status;
 }
 
-/* Writes the carried cards, typed keys and history of h into the current HDU. */
-static int write_header(fitsfile *f, const gl_header *h, int *status)
+/* 1 for the provenance keywords of an earlier product (GLPROG, GLINPnn,
+ * GLCRCnn): a new product lists its own inputs, and stale entries left over
+ * from a product with more inputs would name files this one never read. */
+static int is_provenance_key(const char *name)
+{
+    return strcmp(name, "GLPROG") == 0 ||
+           ((strncmp(name, "GLINP", 5) == 0 || strncmp(name, "GLCRC", 5) == 0) &&
+            strlen(name) == 7);
+}
+
+/* Writes the carried cards, typed keys and history of h into the current HDU.
+ * A carried card is dropped when a typed key replaces it, for DATE (rewritten
+ * by the provenance) and for earlier provenance when prov is given; the
+ * CONTINUE cards of a dropped long string go with it. */
+static int write_header(fitsfile *f, const gl_header *h, const gl_provenance *prov, int *status)
 {
     if (!h)
         return *status;
     char name[FLEN_KEYWORD], card[FLEN_CARD];
+    int dropping = 0;
     for (int i = 0; i < h->ncards && !*status; i++) {
         int len = 0, s2 = 0;
         memcpy(card, h->cards[i], 81);
         fits_get_keyname(card, name, &len, &s2);
+        if (strcmp(name, "CONTINUE") == 0) {
+            if (!dropping)
+                fits_write_record(f, card, status);
+            continue;
+        }
         int replaced = 0;
         for (int k = 0; k < h->nkeys; k++)
             if (strcmp(h->keys[k].name, name) == 0)
                 replaced = 1;
-        if (!replaced && !(name[0] && strcmp(name, "DATE") == 0))
+        dropping = replaced || strcmp(name, "DATE") == 0 || (prov && is_provenance_key(name));
+        if (!dropping)
             fits_write_record(f, card, status);
     }
     for (int k = 0; k < h->nkeys && !*status; k++) {
@@ -108,7 +128,7 @@ gl_status gl_fits_write_cube(const char *path, const gl_cube *c, const gl_proven
     if (fits_create_diskfile(&f, path, &status))
         return gl_fits_error(GL_ERR_IO, path, "cannot create", status);
     fits_create_img(f, FLOAT_IMG, naxis, naxes, &status);
-    write_header(f, c->header, &status);
+    write_header(f, c->header, prov, &status);
     gl_fits_write_provenance(f, prov, &status);
     if (!status)
         fits_write_img(f, TFLOAT, 1, (LONGLONG)gl_cube_size(c), c->data, &status);

@@ -9,8 +9,20 @@
 #include <errno.h>
 #include <math.h>
 #include <stdio.h>
+#include <stdlib.h>
 #include <string.h>
 #include <unistd.h>
+
+/* Shortest of 15 or 17 significant digits that reads back as the same
+ * double (15 keeps 0.1 as "0.1"; 17 always round-trips, IEEE 754). */
+static void print_double(FILE *fp, double v)
+{
+    char buf[32];
+    snprintf(buf, sizeof buf, "%.15g", v);
+    if (strtod(buf, NULL) != v)
+        snprintf(buf, sizeof buf, "%.17g", v);
+    fputs(buf, fp);
+}
 
 gl_status gl_table_write_csv(const char *path, const gl_table *t)
 {
@@ -31,7 +43,7 @@ gl_status gl_table_write_csv(const char *path, const gl_table *t)
             if (v == (double)(long long)v && fabs(v) < 1e15)
                 fprintf(fp, "%lld", (long long)v);
             else
-                fprintf(fp, "%.10g", v);
+                print_double(fp, v);
         }
         fputc('\n', fp);
     }

@@ -1,0 +1,202 @@
+/*
+ * cmd_inject.c -- `gloam inject`: plant fake companions into a sequence.
+ */
+#include "cli/cli.h"
+
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+static const char help[] =
+    "usage: gloam inject CUBE --angles FILE --psf PSF.fits --companion SEP_PX:PA_DEG:CONTRAST...\n"
+    "                    --out CUBE2.fits [options]\n\n"
+    "Plants fake companions: the off-axis PSF times --psf-scale (its total flux is the\n"
+    "star's flux per frame) times the contrast, moved with sub-pixel accuracy to where a\n"
+    "source at that separation and sky position angle sits in each frame. Writes\n"
+    "CUBE2.fits and the planted list CUBE2.planted.csv.\n\n"
+    "options:\n"
+    "  --angles FILE          parallactic angles (deg), one per frame\n"
+    "  --psf FILE             unsaturated off-axis PSF (2-D, or 3-D/4-D per channel)\n"
+    "  --companion S:PA:C     separation (px), position angle (deg), contrast; repeatable\n"
+    "  --out FILE             the cube with companions\n"
+    "  --psf-scale F          multiplies the PSF to the science exposure (default 1)\n"
+    "  --north-offset DEG     true north offset of the detector (default 0)\n"
+    "  --spectrum F1,F2,...   per-channel contrast multipliers for 4-D cubes (default flat)\n";
+
+enum {
+    OPT_ANGLES = CLI_OPT_FIRST_COMMAND_OPTION,
+    OPT_PSF,
+    OPT_COMP,
+    OPT_OUT,
+    OPT_SCALE,
+    OPT_NORTH,
+    OPT_SPECTRUM
+};
+
+#define MAX_COMPANIONS 256
+
+/* CUBE2.fits -> CUBE2.planted.csv */
+static void planted_name(const char *out, char *dst, size_t size)
+{
+    size_t len = strlen(out);
+    const char *dot = strrchr(out, '.');
+    const char *slash = strrchr(out, '/');
+    if (dot && (!slash || dot > slash))
+        len = (size_t)(dot - out);
+    snprintf(dst, size, "%.*s.planted.csv", (int)len, out);
+}
+
+int cmd_inject(gl_cli *cli, int argc, char **argv)
+{
+    static const struct option opts[] = {{"angles", required_argument, 0, OPT_ANGLES},
+                                         {"psf", required_argument, 0, OPT_PSF},
+                                         {"companion", required_argument, 0, OPT_COMP},
+                                         {"out", required_argument, 0, OPT_OUT},
+                                         {"psf-scale", required_argument, 0, OPT_SCALE},
+                                         {"north-offset", required_argument, 0, OPT_NORTH},
+                                         {"spectrum", required_argument, 0, OPT_SPECTRUM},
+                                         CLI_COMMON_OPTIONS,
+                                         {0, 0, 0, 0}};
+    const char *angles_path = NULL, *psf_path = NULL, *out_path = NULL, *spectrum_text = NULL;
+    gl_companion comps[MAX_COMPANIONS];
+    int ncomp = 0, exit_now = 0, c;
+    double psf_scale = 1, north = 0;
+    gl_status st;
+
+    opterr = 0;
+    optind = 1;
+    while ((c = getopt_long(argc, argv, "", opts, NULL)) != -1) {
+        int r = cli_common_option(cli, c, optarg, help, &exit_now);
+        if (r < 0)
+            return 1;
+        if (exit_now)
+            return 0;
+        if (r)
+            continue;
+        switch (c) {
+        case OPT_ANGLES: angles_path = optarg; break;
+        case OPT_PSF: psf_path = optarg; break;
+        case OPT_OUT: out_path = optarg; break;
+        case OPT_SPECTRUM: spectrum_text = optarg; break;
+        case OPT_SCALE:
+            if (cli_parse_double(cli, "--psf-scale", optarg, 0, INFINITY, &psf_scale))
+                return 1;
+            if (!(psf_scale > 0))
+                return cli_usage(cli, "--psf-scale must be positive");
+            break;
+        case OPT_NORTH:
+            if (cli_parse_double(cli, "--north-offset", optarg, -360, 360, &north))
+                return 1;
+            break;
+        case OPT_COMP:
+            if (ncomp == MAX_COMPANIONS)
+                return cli_usage(cli, "at most %d companions", MAX_COMPANIONS);
+            if ((st = gl_companion_parse(optarg, &comps[ncomp])))
+                return cli_fail(cli, st);
+            ncomp++;
+            break;
+        default: return cli_usage(cli, "unknown option '%s'", argv[optind - 1]);
+        }
+    }
+    if (optind != argc - 1)
+        return cli_usage(cli,
+                         optind >= argc ? "the input cube is missing" : "expected one input cube");
+    const char *cube_path = argv[optind];
+    if (!angles_path || !psf_path || !out_path || ncomp == 0)
+        return cli_usage(cli, "--angles, --psf, --out and at least one --companion are needed");
+    cli_start(cli);
+
+    gl_cube *cube = NULL, *psfc = NULL;
+    gl_psf_model *psf = NULL;
+    gl_outset *outs = NULL;
+    double *angles = NULL, *spectrum = NULL;
+    long nangles = 0;
+    char planted[4096];
+    const char *tmp_cube, *tmp_csv;
+
+    if ((st = gl_fits_read_cube(cube_path, 3, &cube)) ||
+        (st = gl_provenance_add_input(&cli->prov, cube_path)) ||
+        (st = gl_angles_read(angles_path, cube->nframe, &angles, &nangles)) ||
+        (st = gl_provenance_add_input(&cli->prov, angles_path)) ||
+        (st = gl_fits_read_cube(psf_path, 2, &psfc)) ||
+        (st = gl_provenance_add_input(&cli->prov, psf_path)))
+        goto cleanup;
+    if (spectrum_text) {
+        spectrum = gl_calloc((size_t)cube->nchan, sizeof *spectrum);
+        if (!spectrum) {
+            st = gl_error_nomem("spectrum");
+            goto cleanup;
+        }
+        const char *p = spectrum_text;
+        for (long i = 0; i < cube->nchan; i++) {
+            char *end;
+            spectrum[i] = strtod(p, &end);
+            if (end == p || !(spectrum[i] >= 0) || (i < cube->nchan - 1 && *end != ',') ||
+                (i == cube->nchan - 1 && *end)) {
+                st = gl_error_set(GL_ERR_USAGE,
+                                  "--spectrum '%s': expected %ld non-negative numbers separated by "
+                                  "commas (one per channel)",
+                                  spectrum_text, cube->nchan);
+                goto cleanup;
+            }
+            p = end + 1;
+        }
+    }
+    if ((st = gl_psf_model_new(psfc, psf_path, cube->nx, cube->ny, cube->nchan, psf_scale, &psf)))
+        goto cleanup;
+    gl_log(GL_LOG_INFO, "PSF centre (%.3f, %.3f) in %s, FWHM %.2f px, star flux %.6g per frame",
+           psf->centre_x, psf->centre_y, psf_path, psf->fwhm_px[0], psf->flux[0]);
+
+    planted_name(out_path, planted, sizeof planted);
+    if ((st = gl_outset_new(cli->overwrite, &outs)) ||
+        (st = gl_outset_add(outs, out_path, &cli->prov, &tmp_cube)) ||
+        (st = gl_outset_add(outs, planted, &cli->prov, &tmp_csv)))
+        goto cleanup;
+    if ((st = gl_inject_companions(cube, angles, north, psf, comps, ncomp, spectrum)))
+        goto cleanup;
+
+    gl_header_set_dbl(cube->header, "GLPSFSC", psf_scale, "PSF scale used for the fake companions");
+    gl_header_set_dbl(cube->header, "GLNORTH", north, "[deg] north offset used");
+    gl_header_set_int(cube->header, "GLNFAKE", ncomp, "fake companions planted");
+    for (int k = 0; k < ncomp; k++) {
+        char line[128];
+        snprintf(line, sizeof line, "fake companion %d: sep %.4f px, PA %.4f deg, contrast %.6g",
+                 k + 1, comps[k].sep_px, comps[k].pa_deg, comps[k].contrast);
+        gl_header_add_history(cube->header, line);
+    }
+    if ((st = gl_fits_write_cube(tmp_cube, cube, &cli->prov)))
+        goto cleanup;
+
+    {
+        double sep[MAX_COMPANIONS], pa[MAX_COMPANIONS], con[MAX_COMPANIONS], flux[MAX_COMPANIONS];
+        double x0[MAX_COMPANIONS], y0[MAX_COMPANIONS], idx[MAX_COMPANIONS];
+        for (int k = 0; k < ncomp; k++) {
+            idx[k] = k + 1;
+            sep[k] = comps[k].sep_px;
+            pa[k] = comps[k].pa_deg;
+            con[k] = comps[k].contrast;
+            flux[k] = comps[k].contrast * psf->flux[0] * (spectrum ? spectrum[0] : 1.0);
+            gl_companion_position(&comps[k], angles[0], north, cube->nx, cube->ny, &x0[k], &y0[k]);
+        }
+        const char *names[] = {"companion", "sep_px",   "pa_deg",  "contrast",
+                               "flux",      "x_frame1", "y_frame1"};
+        const double *cols[] = {idx, sep, pa, con, flux, x0, y0};
+        gl_table t = {7, ncomp, names, NULL, cols};
+        if ((st = gl_table_write_csv(tmp_csv, &t)))
+            goto cleanup;
+    }
+    if ((st = gl_outset_commit(outs)))
+        goto cleanup;
+    gl_log(GL_LOG_INFO, "planted %d companion%s into %s; list in %s", ncomp, ncomp > 1 ? "s" : "",
+           out_path, planted);
+
+cleanup:
+    gl_outset_free(outs);
+    gl_psf_model_free(psf);
+    gl_cube_free(psfc);
+    gl_cube_free(cube);
+    gl_free(angles);
+    gl_free(spectrum);
+    return st ? cli_fail(cli, st) : 0;
+}

@@ -1,0 +1,191 @@
+/*
+ * cmd_inspect.c -- `gloam inspect CUBE [--angles FILE] [--fwhm PX] [--json]`:
+ * a first look at a science cube. The numbers come from the library
+ * (gl_inspect_report_new); this file parses options and prints either a
+ * readable summary or the full report as one JSON object on stdout.
+ * Nothing is written to disk.
+ */
+#include "cli/cli.h"
+
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+static const char help[] =
+    "usage: gloam inspect CUBE [--angles FILE] [--fwhm PX] [--json]\n\n"
+    "Reports what a science cube holds: HDU, shape, BITPIX and scaling, NaN\n"
+    "fraction, saturated pixels, per-frame flux and background (median and\n"
+    "1.4826*MAD far from the star), outlier frames, field rotation, and the\n"
+    "observation keywords found in the header. Writes no file.\n\n"
+    "options:\n"
+    "  --angles FILE      parallactic angles (degrees, one a line, or 1-D FITS)\n"
+    "  --fwhm PX          PSF FWHM for the rotation in FWHM (default: 4 px, assumed)\n"
+    "  --json             print the full report as one JSON object\n";
+
+enum { OPT_ANGLES = CLI_OPT_FIRST_COMMAND_OPTION, OPT_FWHM, OPT_JSON };
+
+static void print_range(const char *name, const gl_inspect_range *rg)
+{
+    if (isfinite(rg->median))
+        printf("  %-22s min %-12.6g median %-12.6g max %.6g\n", name, rg->min, rg->median, rg->max);
+    else
+        printf("  %-22s n/a (no background pixels)\n", name);
+}
+
+static void print_text(const gl_inspect_report *r)
+{
+    const gl_fits_info *fi = &r->fits;
+    printf("file        %s\n", r->path);
+    printf("HDU         %d%s%s%s\n", fi->hdu, fi->hdu == 1 ? " (primary)" : " (extension)",
+           fi->extname[0] ? ", EXTNAME " : "", fi->extname);
+    printf("shape       nx %ld, ny %ld, channels %ld, frames %ld (NAXIS %d)\n", r->nx, r->ny,
+           r->nchan, r->nframe, fi->naxis);
+    printf("BITPIX      %d", fi->bitpix);
+    if (fi->has_bscale || fi->has_bzero)
+        printf(", BSCALE %s%.10g, BZERO %s%.10g", fi->has_bscale ? "" : "(absent) ", fi->bscale,
+               fi->has_bzero ? "" : "(absent) ", fi->bzero);
+    else
+        printf(", no BSCALE/BZERO");
+    if (fi->has_blank)
+        printf(", BLANK %lld", fi->blank);
+    printf("\n");
+    const gl_inspect_plane *w = &r->planes[r->worst_nan_plane];
+    printf("NaN         %.4f%% of all pixels; worst frame %ld", 100 * r->nan_fraction, w->frame);
+    if (r->nchan > 1)
+        printf(" channel %ld", w->chan);
+    printf(" (%.4f%%)\n", 100 * w->nan_fraction);
+    if (r->sat_rule == GL_SAT_NONE)
+        printf("saturation  not assessed: %s\n", gl_saturation_rule_name(r->sat_rule));
+    else
+        printf("saturation  %ld pixels >= %.10g (rule: %s)\n", r->nsat, r->sat_level,
+               gl_saturation_rule_name(r->sat_rule));
+
+    printf("\nper frame (%ld planes; frames count from 0; background: r >= %.1f px from "
+           "(%.0f, %.0f))\n",
+           r->nplanes, r->bg_inner_px, r->center_x, r->center_y);
+    print_range("flux (sum)", &r->flux);
+    print_range("background median", &r->bg_median);
+    print_range("background sigma", &r->bg_sigma);
+    if (r->noutliers == 0) {
+        printf("  outlier frames         none\n");
+    } else {
+        printf("  outlier frames         %ld:", r->noutliers);
+        long shown = 0;
+        for (long i = 0; i < r->nplanes && shown < 20; i++) {
+            const gl_inspect_plane *ps = &r->planes[i];
+            if (!ps->outlier)
+                continue;
+            shown++;
+            printf(" %ld", ps->frame);
+            if (r->nchan > 1)
+                printf("/%ld", ps->chan);
+            printf("(%s%s%s%s)", ps->outlier & GL_INSPECT_OUT_FLUX ? "F" : "",
+                   ps->outlier & GL_INSPECT_OUT_BG_MEDIAN ? "B" : "",
+                   ps->outlier & GL_INSPECT_OUT_BG_SIGMA ? "S" : "",
+                   ps->outlier & GL_INSPECT_OUT_NAN ? "N" : "");
+        }
+        printf("%s\n  (F flux, B background level, S background noise, N missing data;"
+               " --json lists all)\n",
+               r->noutliers > 20 ? " ..." : "");
+    }
+
+    if (r->has_angles) {
+        printf("\nangles      %s: %ld, from %.4f to %.4f deg\n", r->angles_path, r->nangles,
+               r->angle_first_deg, r->angle_last_deg);
+        printf("rotation    %.4f deg in all; FWHM %.3g px%s\n", r->rotation_deg, r->fwhm_px,
+               r->fwhm_assumed ? " (assumed, not measured: give --fwhm)" : "");
+        printf("  separation    arc of the rotation\n");
+        for (int k = 0; k < r->nseps; k++)
+            printf("  %6.1f px  %5.1f FWHM  %8.3f FWHM\n", r->sep_px[k], r->sep_px[k] / r->fwhm_px,
+                   r->rotation_fwhm[k]);
+        if (isfinite(r->sep_one_fwhm_px))
+            printf("  the rotation reaches 1 FWHM at %.1f px\n", r->sep_one_fwhm_px);
+        else
+            printf("  no field rotation: angular differential imaging cannot work\n");
+    }
+
+    const gl_obsinfo *o = &r->obs;
+    printf("\nheader      %s\n", o->found[0] ? o->found : "(none of the observation keywords)");
+    if (o->date_obs[0])
+        printf("  DATE-OBS  %s\n", o->date_obs);
+    if (isfinite(o->mjd_obs))
+        printf("  MJD-OBS   %.6f\n", o->mjd_obs);
+    if (isfinite(o->exptime))
+        printf("  EXPTIME   %.6g s\n", o->exptime);
+    if (isfinite(o->ra_deg) || isfinite(o->dec_deg))
+        printf("  RA, DEC   %.6f, %.6f deg\n", o->ra_deg, o->dec_deg);
+    if (isfinite(o->site_lat_deg) || isfinite(o->site_lon_deg))
+        printf("  site      latitude %.5f, longitude %.5f deg (east +), height %.0f m\n",
+               o->site_lat_deg, o->site_lon_deg, o->site_height_m);
+    if (o->telescope[0] || o->instrument[0])
+        printf("  telescope %s, instrument %s\n", o->telescope[0] ? o->telescope : "?",
+               o->instrument[0] ? o->instrument : "?");
+    if (o->object[0])
+        printf("  object    %s\n", o->object);
+    if (o->filter[0])
+        printf("  filter    %s\n", o->filter);
+    if (o->has_wcs)
+        printf("  WCS       celestial; pixel scale %.4f mas\n", o->pixscale_mas);
+    else
+        printf("  WCS       none (give --pixscale to later commands for arcsec)\n");
+}
+
+int cmd_inspect(gl_cli *cli, int argc, char **argv)
+{
+    static const struct option opts[] = {{"angles", required_argument, 0, OPT_ANGLES},
+                                         {"fwhm", required_argument, 0, OPT_FWHM},
+                                         {"json", no_argument, 0, OPT_JSON},
+                                         CLI_COMMON_OPTIONS,
+                                         {0, 0, 0, 0}};
+    gl_inspect_params p;
+    gl_inspect_params_init(&p);
+    const char *angles = NULL;
+    int json = 0, c, exit_now = 0;
+    opterr = 0;
+    optind = 1;
+    while ((c = getopt_long(argc, argv, "", opts, NULL)) != -1) {
+        int h = cli_common_option(cli, c, optarg, help, &exit_now);
+        if (h < 0)
+            return 1;
+        if (exit_now)
+            return 0;
+        if (h)
+            continue;
+        switch (c) {
+        case OPT_ANGLES: angles = optarg; break;
+        case OPT_FWHM:
+            if (cli_parse_double(cli, "--fwhm", optarg, 0.1, 1000, &p.fwhm_px))
+                return 1;
+            p.fwhm_given = 1;
+            break;
+        case OPT_JSON: json = 1; break;
+        default:
+            if (optopt)
+                return cli_usage(cli, "option -%c is unknown or lacks its value", optopt);
+            return cli_usage(cli, "option '%s' is unknown or lacks its value", argv[optind - 1]);
+        }
+    }
+    if (optind != argc - 1)
+        return cli_usage(cli, optind >= argc ? "give one cube to inspect"
+                                             : "give exactly one cube to inspect");
+    cli_start(cli);
+
+    gl_inspect_report *r = NULL;
+    char *text = NULL;
+    gl_status st = gl_inspect_report_new(argv[optind], angles, &p, &r);
+    if (st)
+        return cli_fail(cli, st);
+    if (json) {
+        st = gl_inspect_report_json(r, &text);
+        if (!st)
+            printf("%s\n", text);
+        free(text);
+    } else {
+        print_text(r);
+    }
+    gl_inspect_report_free(r);
+    if (st)
+        return cli_fail(cli, st);
+    return 0;
+}

@@ -1,0 +1,55 @@
+/*
+ * stats.c -- robust location and scale of pixel samples: the median and the
+ * normalised median absolute deviation (MAD), which ignore the few bright
+ * outliers (companions, cosmic rays, hot pixels) that dominate a mean and a
+ * standard deviation. Sorting and medians come from GSL (gsl_sort,
+ * gsl_stats_median_from_sorted_data); NaN marks missing data and is skipped.
+ *
+ * The MAD is scaled by 1/Phi^-1(3/4) = 1.482602218505602 so that it estimates
+ * the standard deviation of Gaussian noise (Hampel 1974, JASA 69, 383; the
+ * same constant as scipy.stats.median_abs_deviation(scale="normal")).
+ */
+#include "core/internal.h"
+
+#include <gsl/gsl_sort.h>
+#include <gsl/gsl_statistics_double.h>
+#include <math.h>
+
+#define GL_MAD_TO_SIGMA 1.482602218505602
+
+/* Median and scaled MAD of the n values already copied into work. */
+static void robust_of_work(double *work, size_t n, double *median, double *sigma)
+{
+    if (n == 0) {
+        *median = NAN;
+        *sigma = NAN;
+        return;
+    }
+    gsl_sort(work, 1, n);
+    double med = gsl_stats_median_from_sorted_data(work, 1, n);
+    for (size_t i = 0; i < n; i++)
+        work[i] = fabs(work[i] - med);
+    gsl_sort(work, 1, n);
+    *median = med;
+    *sigma = GL_MAD_TO_SIGMA * gsl_stats_median_from_sorted_data(work, 1, n);
+}
+
+size_t gl_stats_robust_float(const float *x, size_t n, double *work, double *median, double *sigma)
+{
+    size_t m = 0;
+    for (size_t i = 0; i < n; i++)
+        if (isfinite(x[i]))
+            work[m++] = x[i];
+    robust_of_work(work, m, median, sigma);
+    return m;
+}
+
+size_t gl_stats_robust(const double *x, size_t n, double *work, double *median, double *sigma)
+{
+    size_t m = 0;
+    for (size_t i = 0; i < n; i++)
+        if (isfinite(x[i]))
+            work[m++] = x[i];
+    robust_of_work(work, m, median, sigma);
+    return m;
+}

@@ -1,0 +1,133 @@
+/*
+ * plant.c -- planting fake companions into a pupil-tracking sequence.
+ *
+ * Each companion is the prepared PSF times its contrast, moved by an FFT
+ * phase ramp to where conventions.md puts a source of that separation and
+ * position angle in each raw frame (angle 90 + pa + theta_i + north_offset
+ * from +x). Frames are independent, so they are shared among threads with a
+ * static schedule; each frame is written by one thread only, in a fixed
+ * companion order, so the result does not depend on the thread count.
+ */
+#include "core/internal.h"
+#include "gloam/geometry.h"
+#include "gloam/inject.h"
+
+#include <errno.h>
+#include <math.h>
+#include <omp.h>
+#include <stdlib.h>
+#include <string.h>
+
+void gl_companion_position(const gl_companion *c, double theta_deg, double north_offset_deg,
+                           long nx, long ny, double *x, double *y)
+{
+    double a = (90.0 + c->pa_deg + theta_deg + north_offset_deg) * M_PI / 180.0;
+    *x = (double)(nx / 2) + c->sep_px * cos(a);
+    *y = (double)(ny / 2) + c->sep_px * sin(a);
+}
+
+gl_status gl_companion_parse(const char *text, gl_companion *out)
+{
+    double v[3];
+    const char *p = text;
+    for (int i = 0; i < 3; i++) {
+        char *end;
+        errno = 0;
+        v[i] = strtod(p, &end);
+        if (end == p || errno || !isfinite(v[i]) || (i < 2 && *end != ':') || (i == 2 && *end))
+            return gl_error_set(
+                GL_ERR_USAGE, "--companion '%s': expected SEP_PX:PA_DEG:CONTRAST, e.g. 20:45:1e-4",
+                text);
+        p = end + 1;
+    }
+    if (!(v[0] > 0))
+        return gl_error_set(GL_ERR_USAGE, "--companion '%s': separation must be positive", text);
+    if (!(v[2] > 0))
+        return gl_error_set(GL_ERR_USAGE, "--companion '%s': contrast must be positive", text);
+    out->sep_px = v[0];
+    out->pa_deg = v[1];
+    out->contrast = v[2];
+    return GL_OK;
+}
+
+gl_status gl_inject_companions(gl_cube *cube, const double *angles_deg, double north_offset_deg,
+                               const gl_psf_model *psf, const gl_companion *comps, int ncomp,
+                               const double *spectrum)
+{
+    long nx = cube->nx, ny = cube->ny, nchan = cube->nchan, nframe = cube->nframe;
+    if (psf->nx != nx || psf->ny != ny || psf->nchan != nchan)
+        return gl_error_set(GL_ERR_INTERNAL, "PSF model prepared for another frame size");
+    /* every companion must stay on the image in every frame: check first so
+     * that a refusal leaves the cube untouched */
+    for (int k = 0; k < ncomp; k++)
+        for (long f = 0; f < nframe; f++) {
+            double x, y;
+            gl_companion_position(&comps[k], angles_deg[f], north_offset_deg, nx, ny, &x, &y);
+            if (x < 0 || y < 0 || x > (double)(nx - 1) || y > (double)(ny - 1))
+                return gl_error_set(GL_ERR_USAGE,
+                                    "companion %d (separation %g px, PA %g deg) falls off the "
+                                    "%ldx%ld image in frame %ld",
+                                    k + 1, comps[k].sep_px, comps[k].pa_deg, nx, ny, f + 1);
+        }
+    if (ncomp == 0)
+        return GL_OK;
+
+    int nthreads = omp_get_max_threads();
+    gl_geom_plan *plan = NULL;
+    gl_geom_work **work = gl_calloc((size_t)nthreads, sizeof *work);
+    float **buf = gl_calloc((size_t)nthreads, sizeof *buf);
+    gl_status st = GL_OK;
+    size_t fn = (size_t)nx * (size_t)ny;
+    if (!work || !buf) {
+        st = gl_error_nomem("injection work space");
+        goto cleanup;
+    }
+    if ((st = gl_geom_plan_new(nx, ny, GL_INTERP_FFT, &plan)))
+        goto cleanup;
+    for (int t = 0; t < nthreads; t++) {
+        if ((st = gl_geom_work_new(plan, &work[t])))
+            goto cleanup;
+        if (!(buf[t] = gl_malloc(fn * sizeof(float)))) {
+            st = gl_error_nomem("injection work space");
+            goto cleanup;
+        }
+    }
+
+    long done = 0;
+#pragma omp parallel for schedule(static)
+    for (long f = 0; f < nframe; f++) {
+        int t = omp_get_thread_num();
+        for (long c = 0; c < nchan; c++) {
+            float *frame = gl_cube_plane(cube, c, f);
+            double sc = spectrum ? spectrum[c] : 1.0;
+            for (int k = 0; k < ncomp; k++) {
+                double x, y;
+                gl_companion_position(&comps[k], angles_deg[f], north_offset_deg, nx, ny, &x, &y);
+                memcpy(buf[t], psf->images + (size_t)c * fn, fn * sizeof(float));
+                gl_geom_shift(plan, work[t], buf[t], x - (double)(nx / 2), y - (double)(ny / 2));
+                float amp = (float)(comps[k].contrast * sc);
+                for (size_t i = 0; i < fn; i++)
+                    if (!isnan(buf[t][i]))
+                        frame[i] += amp * buf[t][i]; /* NaN (no data) stays NaN */
+            }
+        }
+        long now;
+#pragma omp atomic capture
+        now = ++done;
+        if (t == 0)
+            gl_progress("inject", now, nframe);
+    }
+    gl_progress("inject", nframe, nframe);
+
+cleanup:
+    if (work)
+        for (int t = 0; t < nthreads; t++)
+            gl_geom_work_free(work[t]);
+    if (buf)
+        for (int t = 0; t < nthreads; t++)
+            gl_free(buf[t]);
+    gl_free(work);
+    gl_free(buf);
+    gl_geom_plan_free(plan);
+    return st;
+}

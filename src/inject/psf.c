@@ -1,0 +1,229 @@
+/*
+ * psf.c -- preparing the off-axis PSF for planting fake companions.
+ *
+ * The PSF (an unsaturated image of the star, conventions.md) is collapsed to
+ * one image per channel, its centre found by an iterated centre of light in a
+ * circular window of one FWHM radius around the peak (for a symmetric PSF the
+ * fixed point is the centre of symmetry; common practice), moved to the frame
+ * centre (nx/2, ny/2) with the FFT shift, and multiplied by psf_scale. Its
+ * total flux, before any cropping, is then the star's flux per frame. The FWHM
+ * is read off the azimuthally averaged profile (first crossing of half the
+ * peak, linearly interpolated).
+ */
+#include "core/internal.h"
+#include "geometry/internal.h"
+#include "gloam/inject.h"
+
+#include <math.h>
+#include <string.h>
+
+void gl_psf_model_free(gl_psf_model *m)
+{
+    if (!m)
+        return;
+    gl_free(m->images);
+    gl_free(m->flux);
+    gl_free(m->peak);
+    gl_free(m->fwhm_px);
+    gl_free(m);
+}
+
+/* Azimuthally averaged profile crossing of half the value at (cx, cy). */
+static double profile_fwhm(const float *img, long nx, long ny, double cx, double cy)
+{
+    const int naz = 32;
+    double centre = gl_geom_cubic_sample(img, nx, ny, cx, cy);
+    if (!(centre > 0))
+        return NAN;
+    double prev = centre, rmax = 0.5 * (double)GL_MIN(nx, ny);
+    for (double r = 0.05; r < rmax; r += 0.05) {
+        double sum = 0;
+        int n = 0;
+        for (int k = 0; k < naz; k++) {
+            double a = 2 * M_PI * k / naz;
+            double v = gl_geom_cubic_sample(img, nx, ny, cx + r * cos(a), cy + r * sin(a));
+            if (!isnan(v)) {
+                sum += v;
+                n++;
+            }
+        }
+        if (n == 0)
+            return NAN;
+        double mean = sum / n;
+        if (mean <= 0.5 * centre) {
+            double f = (prev - 0.5 * centre) / (prev - mean);
+            return 2 * (r - 0.05 + 0.05 * f);
+        }
+        prev = mean;
+    }
+    return NAN;
+}
+
+/* Iterated Gaussian-windowed centre of light: weights exp(-r^2 / 2 sw^2)
+ * around the current estimate, sw the PSF's Gaussian-equivalent width. The
+ * smooth window makes the estimate continuous in position, and for a
+ * symmetric PSF its fixed point is the centre of symmetry (common practice,
+ * as in windowed centroids of source extractors). */
+static void light_centre(const float *img, long nx, long ny, double *cx, double *cy, double fwhm)
+{
+    double sw = fwhm / 2.3548, rad = 4 * sw;
+    for (int it = 0; it < 100; it++) {
+        double sx = 0, sy = 0, s = 0;
+        long x0 = (long)floor(*cx - rad), x1 = (long)ceil(*cx + rad);
+        long y0 = (long)floor(*cy - rad), y1 = (long)ceil(*cy + rad);
+        for (long y = GL_MAX(y0, 0); y <= GL_MIN(y1, ny - 1); y++)
+            for (long x = GL_MAX(x0, 0); x <= GL_MIN(x1, nx - 1); x++) {
+                double dx = (double)x - *cx, dy = (double)y - *cy;
+                float v = img[y * nx + x];
+                if (isnan(v))
+                    continue;
+                double w = v * exp(-0.5 * (dx * dx + dy * dy) / (sw * sw));
+                sx += w * dx;
+                sy += w * dy;
+                s += w;
+            }
+        if (!(s > 0))
+            return;
+        /* the windowed first moment converges to the centre with a factor of
+         * about 2 per step for a Gaussian-like core; step twice as far */
+        double ddx = 2 * sx / s, ddy = 2 * sy / s;
+        *cx += ddx;
+        *cy += ddy;
+        if (hypot(ddx, ddy) < 1e-6)
+            return;
+    }
+}
+
+/* Mean of the finite values of planes [first, first + count) of stride n. */
+static void mean_planes(const float *src, size_t n, long count, size_t stride_planes, float *dst)
+{
+    for (size_t i = 0; i < n; i++) {
+        double s = 0;
+        long k = 0;
+        for (long p = 0; p < count; p++) {
+            float v = src[(size_t)p * stride_planes * n + i];
+            if (!isnan(v)) {
+                s += v;
+                k++;
+            }
+        }
+        dst[i] = k ? (float)(s / (double)k) : NAN;
+    }
+}
+
+gl_status gl_psf_model_new(const gl_cube *psf, const char *name, long nx, long ny, long nchan,
+                           double psf_scale, gl_psf_model **out)
+{
+    gl_psf_model *m = NULL;
+    gl_geom_plan *plan = NULL;
+    gl_geom_work *work = NULL;
+    float *plane = NULL;
+    gl_status st = GL_OK;
+    *out = NULL;
+
+    if (!(psf_scale > 0) || !isfinite(psf_scale))
+        return gl_error_set(GL_ERR_USAGE, "--psf-scale must be a positive number (got %g)",
+                            psf_scale);
+    long pw = psf->nx, ph = psf->ny;
+    if (pw > nx || ph > ny)
+        return gl_error_set(GL_ERR_INPUT, "%s: PSF of %ldx%ld px is larger than the %ldx%ld frames",
+                            name, pw, ph, nx, ny);
+    /* which planes make each channel's PSF */
+    int per_channel;
+    if (nchan == 1)
+        per_channel = 0;
+    else if (psf->nchan == nchan)
+        per_channel = 1;
+    else if (psf->naxis == 3 && psf->nframe == nchan)
+        per_channel = 2; /* a 3-D stack read as one plane per channel */
+    else if (psf->naxis == 2)
+        per_channel = 0;
+    else
+        return gl_error_set(GL_ERR_INPUT, "%s: PSF has %ld channels but the cube has %ld", name,
+                            psf->naxis == 3 ? psf->nframe : psf->nchan, nchan);
+
+    size_t pn = (size_t)pw * (size_t)ph, fn = (size_t)nx * (size_t)ny;
+    m = gl_calloc(1, sizeof *m);
+    if (!m)
+        return gl_error_nomem("PSF model");
+    m->nx = nx;
+    m->ny = ny;
+    m->nchan = nchan;
+    m->psf_scale = psf_scale;
+    m->images = gl_calloc(fn * (size_t)nchan, sizeof(float));
+    m->flux = gl_calloc((size_t)nchan, sizeof(double));
+    m->peak = gl_calloc((size_t)nchan, sizeof(double));
+    m->fwhm_px = gl_calloc((size_t)nchan, sizeof(double));
+    plane = gl_malloc(pn * sizeof *plane);
+    if (!m->images || !m->flux || !m->peak || !m->fwhm_px || !plane) {
+        st = gl_error_nomem("PSF model");
+        goto cleanup;
+    }
+    if ((st = gl_geom_plan_new(nx, ny, GL_INTERP_FFT, &plan)) ||
+        (st = gl_geom_work_new(plan, &work)))
+        goto cleanup;
+
+    for (long c = 0; c < nchan; c++) {
+        /* collapse to one plane */
+        if (per_channel == 1)
+            mean_planes(gl_cube_plane(psf, c, 0), pn, psf->nframe, (size_t)psf->nchan, plane);
+        else if (per_channel == 2)
+            memcpy(plane, gl_cube_plane(psf, 0, c), pn * sizeof *plane);
+        else
+            mean_planes(psf->data, pn, psf->nchan * psf->nframe, 1, plane);
+
+        long ipk = -1;
+        double flux = 0;
+        for (size_t i = 0; i < pn; i++) {
+            if (isnan(plane[i]))
+                continue;
+            flux += plane[i];
+            if (ipk < 0 || plane[i] > plane[ipk])
+                ipk = (long)i;
+        }
+        if (ipk < 0 || !(plane[ipk] > 0) || !(flux > 0)) {
+            st = gl_error_set(GL_ERR_INPUT, "%s: the PSF has no positive signal%s", name,
+                              nchan > 1 ? " in a channel" : "");
+            goto cleanup;
+        }
+        double cx = (double)(ipk % pw), cy = (double)(ipk / pw);
+        double fwhm = profile_fwhm(plane, pw, ph, cx, cy);
+        light_centre(plane, pw, ph, &cx, &cy, isfinite(fwhm) ? GL_MAX(fwhm, 1.5) : 2.0);
+        fwhm = profile_fwhm(plane, pw, ph, cx, cy);
+        if (c == 0) {
+            m->centre_x = cx;
+            m->centre_y = cy;
+        }
+        /* embed with the integer part of the offset, then shift the rest */
+        long ox = nx / 2 - lround(cx), oy = ny / 2 - lround(cy);
+        float *dst = m->images + (size_t)c * fn;
+        for (long y = 0; y < ph; y++) {
+            long ty = y + oy;
+            if (ty < 0 || ty >= ny)
+                continue;
+            for (long x = 0; x < pw; x++) {
+                long tx = x + ox;
+                float v = plane[y * pw + x];
+                if (tx >= 0 && tx < nx && !isnan(v))
+                    dst[ty * nx + tx] = v;
+            }
+        }
+        double fx = (double)(nx / 2) - (cx + (double)ox), fy = (double)(ny / 2) - (cy + (double)oy);
+        if ((st = gl_geom_shift(plan, work, dst, fx, fy)))
+            goto cleanup;
+        for (size_t i = 0; i < fn; i++)
+            dst[i] = isnan(dst[i]) ? 0.0f : (float)(dst[i] * psf_scale);
+        m->flux[c] = flux * psf_scale;
+        m->peak[c] = dst[(ny / 2) * nx + nx / 2];
+        m->fwhm_px[c] = fwhm;
+    }
+    *out = m;
+    m = NULL;
+
+cleanup:
+    gl_free(plane);
+    gl_geom_work_free(work);
+    gl_geom_plan_free(plan);
+    gl_psf_model_free(m);
+    return st;
+}
