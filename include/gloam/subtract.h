@@ -69,29 +69,29 @@ typedef enum gl_sdi_mode {
 
 typedef struct gl_subtract_params {
     /* ---- set by the user (gl_subtract_params_init gives the defaults) ---- */
-    gl_subtract_method method; /* default pca */
-    double fwhm;               /* PSF FWHM, pixels; must be > 0 (no default: 0) */
-    int nmodes;                /* number of KL mode counts (default 1) */
+    gl_subtract_method method;         /* default pca */
+    double fwhm;                       /* PSF FWHM, pixels; must be > 0 (no default: 0) */
+    int nmodes;                        /* number of KL mode counts (default 1) */
     long modes[GL_SUBTRACT_MAX_MODES]; /* the counts, in output order (default 5) */
-    double mask_radius;  /* px; pixels closer to the star are NaN (default 0) */
-    double outer_radius; /* px; 0: the largest circle inside the frame */
-    double ring_fwhm;    /* annulus width in FWHM (annular; median fit) (default 1) */
-    int sectors;         /* azimuthal sectors per annulus (annular) (default 1) */
-    double gap_fwhm;     /* smallest rotation between a frame and its references (default 0.75) */
-    long nearest;        /* keep only the N qualifying frames nearest in angle; 0: all */
-    int median_fit;      /* median: scale the median frame annulus by annulus */
-    gl_centring centring;   /* default GL_CENTRE_FRAME */
-    double north_offset;    /* degrees (default 0) */
-    gl_interp interp;       /* derotation interpolator (default GL_INTERP_FFT) */
-    gl_combine combine;     /* default median */
-    gl_refs_use refs_use;   /* when a reference cube is given (default refs only) */
-    long refs_best;         /* keep the N reference frames best correlated with the science; 0: all */
-    gl_sdi_mode sdi;        /* default off */
-    long sdi_modes;         /* KL modes of the spectral step (default 1) */
-    int nwave;              /* number of wavelengths given (0: none) */
+    double mask_radius;                /* px; pixels closer to the star are NaN (default 0) */
+    double outer_radius;               /* px; 0: the largest circle inside the frame */
+    double ring_fwhm;                  /* annulus width in FWHM (annular; median fit) (default 1) */
+    int sectors;                       /* azimuthal sectors per annulus (annular) (default 1) */
+    double gap_fwhm;      /* smallest rotation between a frame and its references (default 0.75) */
+    long nearest;         /* keep only the N qualifying frames nearest in angle; 0: all */
+    int median_fit;       /* median: scale the median frame annulus by annulus */
+    gl_centring centring; /* default GL_CENTRE_FRAME */
+    double north_offset;  /* degrees (default 0) */
+    gl_interp interp;     /* derotation interpolator (default GL_INTERP_FFT) */
+    gl_combine combine;   /* default median */
+    gl_refs_use refs_use; /* when a reference cube is given (default refs only) */
+    long refs_best;       /* keep the N reference frames best correlated with the science; 0: all */
+    gl_sdi_mode sdi;      /* default off */
+    long sdi_modes;       /* KL modes of the spectral step (default 1) */
+    int nwave;            /* number of wavelengths given (0: none) */
     const double *wavelengths; /* one per channel, any unit (SDI), not owned */
-    int keep_residuals;     /* also return the derotated residual cube */
-    int keep_raw_residuals; /* also return the residual cube before derotation */
+    int keep_residuals;        /* also return the derotated residual cube */
+    int keep_raw_residuals;    /* also return the residual cube before derotation */
 } gl_subtract_params;
 
 /* Fills p with the defaults listed above. */
@@ -143,8 +143,8 @@ GL_API const char *gl_combine_name(gl_combine c);
  * are skipped (usable may be NULL). idx must hold n entries. Returns the
  * number of frames written. */
 GL_API long gl_subtract_library_select(const double *angles, const unsigned char *usable, long n,
-                                       long target, double radius_px, double gap_px,
-                                       long nearest, long *idx);
+                                       long target, double radius_px, double gap_px, long nearest,
+                                       long *idx);
 
 #ifdef __cplusplus
 }

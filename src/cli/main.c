@@ -16,6 +16,7 @@ typedef struct command {
 static const command commands[] = {
     /* one line per command, in pipeline order */
     {"inspect", cmd_inspect, "report what a cube holds: shape, NaN, saturation, flux, rotation"},
+    {"subtract", cmd_subtract, "remove the star's halo, derotate to north-up and combine"},
     {"inject", cmd_inject, "plant fake companions into a sequence"},
     {NULL, NULL, NULL},
 };

@@ -41,7 +41,7 @@ gl_status sub_sink_new(const sub_ctx *c, gl_cube *image, gl_cube *resid, gl_cube
         goto fail;
     s->works = gl_calloc((size_t)s->nth, sizeof *s->works);
     s->scratch = gl_malloc(sizeof(float) * (size_t)s->nth * (size_t)c->nframe);
-        s->fstat = gl_calloc((size_t)c->nframe, sizeof *s->fstat);
+    s->fstat = gl_calloc((size_t)c->nframe, sizeof *s->fstat);
     double rmax = hypot((double)c->nx, (double)c->ny);
     s->nring = (long)ceil(rmax / c->p->fwhm) + 1;
     s->ring = gl_malloc(sizeof(int) * (size_t)c->npix);
@@ -142,8 +142,8 @@ gl_status sub_sink_put(void *sink, int mode_index, float *resid)
         if (!c->usable[i])
             continue;
         double ang = -(c->angles[i] + p->north_offset);
-        s->fstat[i] = gl_geom_rotate(s->plan, s->works[omp_get_thread_num()],
-                                     resid + (size_t)i * plane, ang);
+        s->fstat[i] =
+            gl_geom_rotate(s->plan, s->works[omp_get_thread_num()], resid + (size_t)i * plane, ang);
     }
     for (long i = 0; i < c->nframe; i++)
         if (s->fstat[i])

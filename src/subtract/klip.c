@@ -23,7 +23,10 @@
 #define TILE_N 2048
 #define COV_TILE 128
 
-int sub_max_threads(void) { return omp_get_max_threads(); }
+int sub_max_threads(void)
+{
+    return omp_get_max_threads();
+}
 
 void sub_centre(float *X, long nrow, long ncol, gl_centring mode, const unsigned char *basis)
 {
@@ -85,8 +88,8 @@ void sub_covariance(const float *X, long n, long ncol, float *C)
             cblas_ssyrk(CblasRowMajor, CblasUpper, CblasNoTrans, (int)mi, (int)ncol, 1.0f, Xi,
                         (int)ncol, 0.0f, Cij, (int)n);
         else
-            cblas_sgemm(CblasRowMajor, CblasNoTrans, CblasTrans, (int)mi, (int)mj, (int)ncol,
-                        1.0f, Xi, (int)ncol, Xj, (int)ncol, 0.0f, Cij, (int)n);
+            cblas_sgemm(CblasRowMajor, CblasNoTrans, CblasTrans, (int)mi, (int)mj, (int)ncol, 1.0f,
+                        Xi, (int)ncol, Xj, (int)ncol, 0.0f, Cij, (int)n);
     }
     /* mirror the upper triangle */
     for (long i = 0; i < n; i++)
@@ -138,10 +141,9 @@ static gl_status basis_from_eig(const float *X, long nrow, long ncol, long kmax,
     for (size_t i = 0; i < (size_t)nrow * (size_t)nrow; i++)
         A[i] = C[i];
     lapack_int m = 0;
-    lapack_int info =
-        LAPACKE_dsyevr(LAPACK_COL_MAJOR, 'V', 'I', 'U', (lapack_int)nrow, A, (lapack_int)nrow,
-                       0.0, 0.0, (lapack_int)(nrow - kmax + 1), (lapack_int)nrow, 0.0, &m, w, V,
-                       (lapack_int)nrow, isuppz);
+    lapack_int info = LAPACKE_dsyevr(LAPACK_COL_MAJOR, 'V', 'I', 'U', (lapack_int)nrow, A,
+                                     (lapack_int)nrow, 0.0, 0.0, (lapack_int)(nrow - kmax + 1),
+                                     (lapack_int)nrow, 0.0, &m, w, V, (lapack_int)nrow, isuppz);
     if (info != 0 || m != kmax) {
         st = gl_error_set(GL_ERR_NUMERIC,
                           "KL basis: eigendecomposition of the %ld x %ld covariance failed "
@@ -160,7 +162,8 @@ static gl_status basis_from_eig(const float *X, long nrow, long ncol, long kmax,
         if (s > 0)
             b->rank++;
         for (long i = 0; i < nrow; i++)
-            Vs[(size_t)q * (size_t)nrow + (size_t)i] = (float)(V[(size_t)src * (size_t)nrow + (size_t)i] * s);
+            Vs[(size_t)q * (size_t)nrow + (size_t)i] =
+                (float)(V[(size_t)src * (size_t)nrow + (size_t)i] * s);
     }
     /* Z = Lambda^-1/2 V^T X (Soummer et al. 2012, eq. 5) */
     sub_gemm(kmax, ncol, nrow, 1.0f, Vs, nrow, X, ncol, 0, 0.0f, b->Z, ncol);
@@ -318,10 +321,10 @@ gl_status sub_target_weights(const float *C, long nall, const long *lib, long nl
         w->c[i] = C[(size_t)lib[i] * (size_t)nall + (size_t)t];
     }
     lapack_int m = 0;
-    lapack_int info = LAPACKE_dsyevr_work(
-        LAPACK_COL_MAJOR, 'V', 'I', 'U', (lapack_int)nlib, w->S, (lapack_int)nlib, 0.0, 0.0,
-        (lapack_int)(nlib - kmax + 1), (lapack_int)nlib, 0.0, &m, w->w, w->V, (lapack_int)nlib,
-        w->isuppz, w->work, w->lwork, w->iwork, w->liwork);
+    lapack_int info = LAPACKE_dsyevr_work(LAPACK_COL_MAJOR, 'V', 'I', 'U', (lapack_int)nlib, w->S,
+                                          (lapack_int)nlib, 0.0, 0.0, (lapack_int)(nlib - kmax + 1),
+                                          (lapack_int)nlib, 0.0, &m, w->w, w->V, (lapack_int)nlib,
+                                          w->isuppz, w->work, w->lwork, w->iwork, w->liwork);
     if (info != 0 || m != kmax)
         return gl_error_set(GL_ERR_NUMERIC,
                             "KL basis of a %ld-frame library: eigensolver failed (info %d)", nlib,

@@ -30,9 +30,9 @@
 
 typedef struct thread_ws {
     sub_eig_work *eig;
-    float *W;    /* TARGET_BLOCK * nk x nall */
-    float *R;    /* TARGET_BLOCK * nk x npr_max */
-    long *lib;   /* nall */
+    float *W;  /* TARGET_BLOCK * nk x nall */
+    float *R;  /* TARGET_BLOCK * nk x npr_max */
+    long *lib; /* nall */
 } thread_ws;
 
 /* Library of target t (science row) in a piece at radius r: qualifying
@@ -42,8 +42,8 @@ static long piece_library(const sub_ctx *c, long t, double r, long *lib)
     const gl_subtract_params *p = c->p;
     long n = 0;
     if (!(c->nref > 0 && p->refs_use == GL_REFS_ONLY))
-        n = gl_subtract_library_select(c->angles, c->usable, c->nframe, t, r,
-                                       p->gap_fwhm * p->fwhm, p->nearest, lib);
+        n = gl_subtract_library_select(c->angles, c->usable, c->nframe, t, r, p->gap_fwhm * p->fwhm,
+                                       p->nearest, lib);
     for (long i = 0; i < c->nref; i++)
         lib[n++] = c->nframe + i;
     return n;
@@ -113,8 +113,8 @@ static gl_status annular_run(const sub_ctx *c)
     for (long k = 0; k < nring; k++) {
         double r_in = c->r_in + (double)k * width;
         for (int s = 0; s < nsect; s++) {
-            st = sub_region_make(c->nx, c->ny, r_in, GL_SUB_MIN(c->r_out, r_in + width), nsect,
-                                 s, &reg);
+            st = sub_region_make(c->nx, c->ny, r_in, GL_SUB_MIN(c->r_out, r_in + width), nsect, s,
+                                 &reg);
             if (st)
                 goto cleanup;
             npr_max = GL_SUB_MAX(npr_max, reg.npix);
@@ -135,7 +135,8 @@ static gl_status annular_run(const sub_ctx *c)
         if (st)
             goto cleanup;
         ws[t].W = gl_malloc(sizeof(float) * TARGET_BLOCK * (size_t)nk * (size_t)nall);
-        ws[t].R = gl_malloc(sizeof(float) * TARGET_BLOCK * (size_t)nk * (size_t)GL_SUB_MAX(npr_max, 1));
+        ws[t].R =
+            gl_malloc(sizeof(float) * TARGET_BLOCK * (size_t)nk * (size_t)GL_SUB_MAX(npr_max, 1));
         ws[t].lib = gl_malloc(sizeof(long) * (size_t)nall);
         if (!ws[t].W || !ws[t].R || !ws[t].lib) {
             st = gl_error_nomem("annular workspace");
@@ -191,7 +192,8 @@ static gl_status annular_run(const sub_ctx *c)
                         continue;
                     }
                     long nlib = piece_library(c, t, rmid, w->lib);
-                    gl_status e = sub_target_weights(C, nall, w->lib, nlib, t, sorted, nk, w->eig, Wt);
+                    gl_status e =
+                        sub_target_weights(C, nall, w->lib, nlib, t, sorted, nk, w->eig, Wt);
                     if (e)
                         tst[tid] = e;
                     for (int q = 0; q < nk; q++)
@@ -206,8 +208,10 @@ static gl_status annular_run(const sub_ctx *c)
                         continue;
                     const float *in = c->sci + (size_t)t * (size_t)c->npix;
                     for (int q = 0; q < nk; q++) {
-                        const float *r = w->R + ((size_t)(t - t0) * (size_t)nk + (size_t)q) * (size_t)npr;
-                        float *out = store + ((size_t)q * (size_t)c->nframe + (size_t)t) * (size_t)c->npix;
+                        const float *r =
+                            w->R + ((size_t)(t - t0) * (size_t)nk + (size_t)q) * (size_t)npr;
+                        float *out =
+                            store + ((size_t)q * (size_t)c->nframe + (size_t)t) * (size_t)c->npix;
                         for (long j = 0; j < npr; j++)
                             out[reg.pix[j]] = isnan(in[reg.pix[j]]) ? NAN : r[j];
                     }

@@ -43,7 +43,8 @@ static gl_status median_run(const sub_ctx *c)
         for (long x = 0; x < c->nx; x++) {
             double r = hypot((double)x - cx, (double)y - cy);
             long k = (long)floor((r - c->r_in) / width);
-            ring[y * c->nx + x] = (r < c->r_in || r >= c->r_out) ? -1 : (int)GL_SUB_MIN(k, nring - 1);
+            ring[y * c->nx + x] =
+                (r < c->r_in || r >= c->r_out) ? -1 : (int)GL_SUB_MIN(k, nring - 1);
         }
 #pragma omp parallel for schedule(static)
     for (long j = 0; j < c->npix; j++) {

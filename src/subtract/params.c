@@ -90,4 +90,7 @@ int gl_combine_from_name(const char *name)
     return -1;
 }
 
-const char *gl_combine_name(gl_combine c) { return (c >= 0 && c <= 2) ? combine_names[c] : "?"; }
+const char *gl_combine_name(gl_combine c)
+{
+    return (c >= 0 && c <= 2) ? combine_names[c] : "?";
+}

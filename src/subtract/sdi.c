@@ -105,7 +105,8 @@ gl_status sub_sdi_frames(const gl_cube *cube, const gl_subtract_params *p, doubl
         }
         for (long k = 0; k < nc; k++)
             for (long j = 0; j < npr; j++)
-                w->M[(size_t)k * (size_t)npr + (size_t)j] = w->chans[(size_t)k * np + (size_t)reg.pix[j]];
+                w->M[(size_t)k * (size_t)npr + (size_t)j] =
+                    w->chans[(size_t)k * np + (size_t)reg.pix[j]];
         sub_centre(w->M, nc, npr, GL_CENTRE_FRAME, NULL);
         sub_covariance(w->M, nc, npr, w->C);
         for (long t = 0; t < nc && !e; t++) {

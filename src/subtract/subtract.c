@@ -107,8 +107,7 @@ static gl_status record_params(gl_header *h, const gl_subtract_params *p, const 
             SET(gl_header_set_dbl(h, key, p->wavelengths[i], "wavelength of the channel"));
         }
     }
-    snprintf(text, sizeof text,
-             "starlight subtracted (%s), derotated to north-up, combined by %s",
+    snprintf(text, sizeof text, "starlight subtracted (%s), derotated to north-up, combined by %s",
              gl_subtract_method_name(p->method), gl_combine_name(p->combine));
     SET(gl_header_add_history(h, text));
 #undef SET
@@ -134,8 +133,10 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
     size_t np = gl_cube_plane_size(cube);
     const sub_method *method = method_table[p->method];
     if (nf < 2)
-        return gl_error_set(GL_ERR_INPUT, "the science cube holds %ld frame; a sequence of at "
-                                          "least 2 is needed", nf);
+        return gl_error_set(GL_ERR_INPUT,
+                            "the science cube holds %ld frame; a sequence of at "
+                            "least 2 is needed",
+                            nf);
     for (long i = 0; i < nf; i++)
         if (!isfinite(angles[i]))
             return gl_error_set(GL_ERR_INPUT, "angle of frame %ld is not finite", i);

@@ -18,10 +18,10 @@
 
 static void drop_linear_keys(gl_header *h)
 {
-    static const char *const keys[] = {"CD1_1", "CD1_2", "CD2_1", "CD2_2", "PC1_1", "PC1_2",
-                                       "PC2_1", "PC2_2", "CDELT1", "CDELT2", "CROTA1", "CROTA2",
-                                       "CRPIX1", "CRPIX2", "CRVAL1", "CRVAL2", "PC001001",
-                                       "PC001002", "PC002001", "PC002002"};
+    static const char *const keys[] = {"CD1_1",  "CD1_2",    "CD2_1",    "CD2_2",    "PC1_1",
+                                       "PC1_2",  "PC2_1",    "PC2_2",    "CDELT1",   "CDELT2",
+                                       "CROTA1", "CROTA2",   "CRPIX1",   "CRPIX2",   "CRVAL1",
+                                       "CRVAL2", "PC001001", "PC001002", "PC002001", "PC002002"};
     for (size_t i = 0; i < sizeof keys / sizeof keys[0]; i++)
         gl_header_remove(h, keys[i]);
 }
