@@ -164,9 +164,11 @@ static void test_target_weights(void)
 {
     long n = 12, ncol = 300, t = 5;
     unsigned seed = 5;
-    float *X = malloc(sizeof(float) * (size_t)(n * ncol)), *C = malloc(sizeof(float) * (size_t)(n * n));
+    float *X = malloc(sizeof(float) * (size_t)(n * ncol));
+    double *C = malloc(sizeof(double) * (size_t)(n * n));
     for (long i = 0; i < n * ncol; i++)
-        X[i] = (float)(urand(&seed) - 0.5 + sin(0.05 * (double)(i % ncol) * (1 + (double)(i / ncol) / 7.0)));
+        X[i] = (float)(urand(&seed) - 0.5 +
+                       sin(0.05 * (double)(i % ncol) * (1 + (double)(i / ncol) / 7.0)));
     sub_centre(X, n, ncol, GL_CENTRE_FRAME, NULL);
     sub_covariance(X, n, ncol, C);
     long lib[11], nlib = 0;
@@ -232,7 +234,9 @@ static gl_cube *make_cube(long n, long nf, double rot, double **angles)
                 double v = 30 * exp(-hypot((double)x - cx, (double)y - cx) / 4);
                 for (int k = 0; k < 20; k++)
                     v += sp[k][2] * (1 + 0.03 * sin((double)i + k)) *
-                         exp(-(pow((double)x - cx - sp[k][0], 2) + pow((double)y - cx - sp[k][1], 2)) / s2);
+                         exp(-(pow((double)x - cx - sp[k][0], 2) +
+                               pow((double)y - cx - sp[k][1], 2)) /
+                             s2);
                 v += exp(-(pow((double)x - xc, 2) + pow((double)y - yc, 2)) / s2);
                 v += 0.05 * (urand(&seed) - 0.5);
                 f[y * n + x] = (float)v;

@@ -305,6 +305,13 @@ int cmd_subtract(gl_cli *cli, int argc, char **argv)
             goto cleanup;
         }
     }
+    if (p.sdi == GL_SDI_CHANNELS && cube->nchan < 2) {
+        st = gl_error_set(GL_ERR_USAGE,
+                          "%s: --sdi needs a 4-D cube (x, y, wavelength, frame); this one has "
+                          "one channel",
+                          cube_path);
+        goto cleanup;
+    }
     if (p.sdi == GL_SDI_CHANNELS) {
         int nw = waves_text ? parse_list(waves_text, waves, 256)
                             : header_wavelengths(cube->header, cube->nchan, waves, 256);

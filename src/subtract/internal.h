@@ -73,9 +73,10 @@ extern const sub_method sub_method_none;
  * NaN become 0 afterwards, so they add nothing to covariances. */
 void sub_centre(float *X, long nrow, long ncol, gl_centring mode, const unsigned char *basis);
 
-/* C (n x n, full symmetric) = X X^T for X (n x ncol), in tiles of fixed size
- * computed in parallel (ssyrk on the diagonal, sgemm off it). */
-void sub_covariance(const float *X, long n, long ncol, float *C);
+/* C (n x n, full symmetric, double) = X X^T for X (n x ncol), in tiles of
+ * fixed size computed in parallel, accumulated in double over column chunks
+ * of fixed width (dsyrk on the diagonal, dgemm off it). GL_ERR_NOMEM. */
+gl_status sub_covariance(const float *X, long n, long ncol, double *C);
 
 /* C (m x n) = beta C + alpha A B with A (m x k), B (k x n), row-major, lda,
  * ldb, ldc row strides; transB transposes B (then B is n x k). Tiled over
@@ -100,7 +101,7 @@ gl_status sub_basis_build(const float *X, long nrow, long ncol, long kmax, sub_b
 void sub_basis_free(sub_basis *b);
 
 /* Per-target KLIP weights (annular and spectral libraries). Given the full
- * covariance C (nall x nall, float) of the centred rows, a library (lib,
+ * covariance C (nall x nall) of the centred rows, a library (lib,
  * nlib rows), the target row t and ascending mode counts, writes for each
  * count k the nall weights w with projection(x_t) = sum_l w_l x_l onto the
  * first k KL modes of the library (Soummer et al. 2012 eqs. 4-8 written in
@@ -109,7 +110,7 @@ void sub_basis_free(sub_basis *b);
 typedef struct sub_eig_work sub_eig_work;
 gl_status sub_eig_work_new(long maxlib, long kmax, sub_eig_work **out);
 void sub_eig_work_free(sub_eig_work *w);
-gl_status sub_target_weights(const float *C, long nall, const long *lib, long nlib, long t,
+gl_status sub_target_weights(const double *C, long nall, const long *lib, long nlib, long t,
                              const long *kcounts, int nk, sub_eig_work *w, float *weights);
 
 /* ---- reference frames (refs.c) ------------------------------------------ */

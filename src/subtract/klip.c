@@ -22,6 +22,7 @@
 #define TILE_M 128
 #define TILE_N 2048
 #define COV_TILE 128
+#define COV_CHUNK 2048
 
 int sub_max_threads(void)
 {
@@ -66,10 +67,15 @@ void sub_centre(float *X, long nrow, long ncol, gl_centring mode, const unsigned
     }
 }
 
-void sub_covariance(const float *X, long n, long ncol, float *C)
+gl_status sub_covariance(const float *X, long n, long ncol, double *C)
 {
     long nb = (n + COV_TILE - 1) / COV_TILE;
     long ntiles = nb * (nb + 1) / 2;
+    int nth = sub_max_threads();
+    size_t per = 2 * (size_t)COV_TILE * COV_CHUNK;
+    double *buf = gl_malloc(sizeof(double) * per * (size_t)nth);
+    if (!buf)
+        return gl_error_nomem("covariance workspace");
 #pragma omp parallel for schedule(static)
     for (long t = 0; t < ntiles; t++) {
         /* tile t -> (bi, bj) with bi <= bj, row by row */
@@ -81,20 +87,35 @@ void sub_covariance(const float *X, long n, long ncol, float *C)
         long bj = bi + rem;
         long i0 = bi * COV_TILE, j0 = bj * COV_TILE;
         long mi = GL_SUB_MIN(COV_TILE, n - i0), mj = GL_SUB_MIN(COV_TILE, n - j0);
-        const float *Xi = X + (size_t)i0 * (size_t)ncol;
-        const float *Xj = X + (size_t)j0 * (size_t)ncol;
-        float *Cij = C + (size_t)i0 * (size_t)n + (size_t)j0;
-        if (bi == bj)
-            cblas_ssyrk(CblasRowMajor, CblasUpper, CblasNoTrans, (int)mi, (int)ncol, 1.0f, Xi,
-                        (int)ncol, 0.0f, Cij, (int)n);
-        else
-            cblas_sgemm(CblasRowMajor, CblasNoTrans, CblasTrans, (int)mi, (int)mj, (int)ncol, 1.0f,
-                        Xi, (int)ncol, Xj, (int)ncol, 0.0f, Cij, (int)n);
+        double *A = buf + per * (size_t)omp_get_thread_num(), *B = A + (size_t)COV_TILE * COV_CHUNK;
+        double *Cij = C + (size_t)i0 * (size_t)n + (size_t)j0;
+        /* columns in chunks of fixed width, converted to double and
+         * accumulated in double: the eigenvectors of trailing modes need
+         * more than float32 sums over tens of thousands of pixels */
+        for (long c0 = 0; c0 < ncol; c0 += COV_CHUNK) {
+            long w = GL_SUB_MIN(COV_CHUNK, ncol - c0);
+            double beta = c0 ? 1.0 : 0.0;
+            for (long i = 0; i < mi; i++)
+                for (long j = 0; j < w; j++)
+                    A[i * w + j] = X[(size_t)(i0 + i) * (size_t)ncol + (size_t)(c0 + j)];
+            if (bi == bj) {
+                cblas_dsyrk(CblasRowMajor, CblasUpper, CblasNoTrans, (int)mi, (int)w, 1.0, A,
+                            (int)w, beta, Cij, (int)n);
+                continue;
+            }
+            for (long i = 0; i < mj; i++)
+                for (long j = 0; j < w; j++)
+                    B[i * w + j] = X[(size_t)(j0 + i) * (size_t)ncol + (size_t)(c0 + j)];
+            cblas_dgemm(CblasRowMajor, CblasNoTrans, CblasTrans, (int)mi, (int)mj, (int)w, 1.0, A,
+                        (int)w, B, (int)w, beta, Cij, (int)n);
+        }
     }
+    gl_free(buf);
     /* mirror the upper triangle */
     for (long i = 0; i < n; i++)
         for (long j = 0; j < i; j++)
             C[(size_t)i * (size_t)n + (size_t)j] = C[(size_t)j * (size_t)n + (size_t)i];
+    return GL_OK;
 }
 
 void sub_gemm(long m, long n, long k, float alpha, const float *A, long lda, const float *B,
@@ -127,19 +148,18 @@ void sub_gemm(long m, long n, long k, float alpha, const float *A, long lda, con
 static gl_status basis_from_eig(const float *X, long nrow, long ncol, long kmax, sub_basis *b)
 {
     gl_status st = GL_OK;
-    float *C = gl_malloc(sizeof(float) * (size_t)nrow * (size_t)nrow);
     double *A = gl_malloc(sizeof(double) * (size_t)nrow * (size_t)nrow);
     double *V = gl_malloc(sizeof(double) * (size_t)nrow * (size_t)kmax);
     double *w = gl_malloc(sizeof(double) * (size_t)nrow);
     lapack_int *isuppz = gl_malloc(sizeof(lapack_int) * 2 * (size_t)nrow);
     float *Vs = gl_malloc(sizeof(float) * (size_t)kmax * (size_t)nrow);
-    if (!C || !A || !V || !w || !isuppz || !Vs) {
+    if (!A || !V || !w || !isuppz || !Vs) {
         st = gl_error_nomem("KL basis");
         goto cleanup;
     }
-    sub_covariance(X, nrow, ncol, C);
-    for (size_t i = 0; i < (size_t)nrow * (size_t)nrow; i++)
-        A[i] = C[i];
+    st = sub_covariance(X, nrow, ncol, A);
+    if (st)
+        goto cleanup;
     lapack_int m = 0;
     lapack_int info = LAPACKE_dsyevr(LAPACK_COL_MAJOR, 'V', 'I', 'U', (lapack_int)nrow, A,
                                      (lapack_int)nrow, 0.0, 0.0, (lapack_int)(nrow - kmax + 1),
@@ -168,7 +188,6 @@ static gl_status basis_from_eig(const float *X, long nrow, long ncol, long kmax,
     /* Z = Lambda^-1/2 V^T X (Soummer et al. 2012, eq. 5) */
     sub_gemm(kmax, ncol, nrow, 1.0f, Vs, nrow, X, ncol, 0, 0.0f, b->Z, ncol);
 cleanup:
-    gl_free(C);
     gl_free(A);
     gl_free(V);
     gl_free(w);
@@ -302,7 +321,7 @@ void sub_eig_work_free(sub_eig_work *w)
     gl_free(w);
 }
 
-gl_status sub_target_weights(const float *C, long nall, const long *lib, long nlib, long t,
+gl_status sub_target_weights(const double *C, long nall, const long *lib, long nlib, long t,
                              const long *kcounts, int nk, sub_eig_work *w, float *weights)
 {
     memset(weights, 0, sizeof(float) * (size_t)nk * (size_t)nall);
@@ -315,7 +334,7 @@ gl_status sub_target_weights(const float *C, long nall, const long *lib, long nl
         return gl_error_set(GL_ERR_INTERNAL, "eigen workspace too small (%ld > %ld)", nlib,
                             w->maxlib);
     for (long i = 0; i < nlib; i++) {
-        const float *Ci = C + (size_t)lib[i] * (size_t)nall;
+        const double *Ci = C + (size_t)lib[i] * (size_t)nall;
         for (long j = 0; j < nlib; j++)
             w->S[(size_t)j * (size_t)nlib + (size_t)i] = Ci[lib[j]];
         w->c[i] = C[(size_t)lib[i] * (size_t)nall + (size_t)t];

@@ -94,7 +94,8 @@ static gl_status annular_run(const sub_ctx *c)
     sub_modes_sorted(p, sorted, order);
     long kmax = sorted[nk - 1];
 
-    float *M = NULL, *C = NULL, *store = NULL;
+    float *M = NULL, *store = NULL;
+    double *C = NULL;
     unsigned char *flags = NULL;
     thread_ws *ws = gl_calloc((size_t)nth, sizeof *ws);
     long *lib0 = gl_malloc(sizeof(long) * (size_t)nall);
@@ -122,7 +123,7 @@ static gl_status annular_run(const sub_ctx *c)
         }
     }
     M = gl_malloc(sizeof(float) * (size_t)nall * (size_t)GL_SUB_MAX(npr_max, 1));
-    C = gl_malloc(sizeof(float) * (size_t)nall * (size_t)nall);
+    C = gl_malloc(sizeof(double) * (size_t)nall * (size_t)nall);
     flags = gl_malloc((size_t)nall);
     store = nk == 1 ? c->work
                     : gl_malloc(sizeof(float) * (size_t)nk * (size_t)c->nframe * (size_t)c->npix);
@@ -175,7 +176,9 @@ static gl_status annular_run(const sub_ctx *c)
                     row[j] = ok ? src[reg.pix[j]] : NAN;
             }
             sub_centre(M, nall, npr, p->centring, flags);
-            sub_covariance(M, nall, npr, C);
+            st = sub_covariance(M, nall, npr, C);
+            if (st)
+                goto cleanup;
 
 #pragma omp parallel for schedule(static)
             for (long b = 0; b < ntb; b++) {

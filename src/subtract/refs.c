@@ -17,7 +17,8 @@ gl_status sub_refs_select(const sub_ctx *c, const float *ref_all, long nref_all,
     gl_status st = GL_OK;
     sub_region reg = {0};
     long nall = c->nframe + nref_all;
-    float *M = NULL, *C = NULL, *buf = NULL;
+    float *M = NULL, *buf = NULL;
+    double *C = NULL;
     double *score = NULL;
     long *rank = NULL;
     *ref_out = NULL;
@@ -26,7 +27,7 @@ gl_status sub_refs_select(const sub_ctx *c, const float *ref_all, long nref_all,
     if (st)
         goto cleanup;
     M = gl_malloc(sizeof(float) * (size_t)nall * (size_t)reg.npix);
-    C = gl_malloc(sizeof(float) * (size_t)nall * (size_t)nall);
+    C = gl_malloc(sizeof(double) * (size_t)nall * (size_t)nall);
     buf = gl_malloc(sizeof(float) * (size_t)c->nframe);
     score = gl_malloc(sizeof(double) * (size_t)nref_all);
     rank = gl_malloc(sizeof(long) * (size_t)nref_all);
@@ -42,7 +43,9 @@ gl_status sub_refs_select(const sub_ctx *c, const float *ref_all, long nref_all,
             M[(size_t)i * (size_t)reg.npix + (size_t)j] = src[reg.pix[j]];
     }
     sub_centre(M, nall, reg.npix, GL_CENTRE_FRAME, NULL);
-    sub_covariance(M, nall, reg.npix, C);
+    st = sub_covariance(M, nall, reg.npix, C);
+    if (st)
+        goto cleanup;
     for (long r = 0; r < nref_all; r++) {
         long ir = c->nframe + r, n = 0;
         double crr = C[(size_t)ir * (size_t)nall + (size_t)ir];

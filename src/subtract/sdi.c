@@ -30,7 +30,7 @@ typedef struct sdi_ws {
     gl_geom_work *geom;
     float *chans; /* nchan x npix */
     float *M;     /* nchan x npr */
-    float *C;     /* nchan x nchan */
+    double *C;    /* nchan x nchan */
     float *W;     /* nchan */
     long *lib;    /* nchan */
     sub_eig_work *eig;
@@ -85,7 +85,7 @@ gl_status sub_sdi_frames(const gl_cube *cube, const gl_subtract_params *p, doubl
             goto cleanup;
         w->chans = gl_malloc(sizeof(float) * (size_t)nc * np);
         w->M = gl_malloc(sizeof(float) * (size_t)nc * (size_t)GL_SUB_MAX(npr, 1));
-        w->C = gl_malloc(sizeof(float) * (size_t)nc * (size_t)nc);
+        w->C = gl_malloc(sizeof(double) * (size_t)nc * (size_t)nc);
         w->W = gl_malloc(sizeof(float) * (size_t)nc);
         w->lib = gl_malloc(sizeof(long) * (size_t)nc);
         if (!w->chans || !w->M || !w->C || !w->W || !w->lib) {
@@ -108,7 +108,16 @@ gl_status sub_sdi_frames(const gl_cube *cube, const gl_subtract_params *p, doubl
                 w->M[(size_t)k * (size_t)npr + (size_t)j] =
                     w->chans[(size_t)k * np + (size_t)reg.pix[j]];
         sub_centre(w->M, nc, npr, GL_CENTRE_FRAME, NULL);
-        sub_covariance(w->M, nc, npr, w->C);
+        /* a handful of channels: the covariance in plain double sums */
+        for (long a = 0; a < nc; a++)
+            for (long b = a; b < nc; b++) {
+                const float *ra = w->M + (size_t)a * (size_t)npr,
+                            *rb = w->M + (size_t)b * (size_t)npr;
+                double s = 0;
+                for (long j = 0; j < npr; j++)
+                    s += (double)ra[j] * rb[j];
+                w->C[a * nc + b] = w->C[b * nc + a] = s;
+            }
         for (long t = 0; t < nc && !e; t++) {
             long nlib = 0;
             for (long k = 0; k < nc; k++)

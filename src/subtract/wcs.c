@@ -24,6 +24,26 @@ static void drop_linear_keys(gl_header *h)
                                        "CRVAL2", "PC001001", "PC001002", "PC002001", "PC002002"};
     for (size_t i = 0; i < sizeof keys / sizeof keys[0]; i++)
         gl_header_remove(h, keys[i]);
+    /* axes 3 and 4 of the input (channel, frame) do not describe the
+     * product's planes (mode counts) */
+    static const char *const stems[] = {"CTYPE", "CRPIX", "CRVAL", "CDELT", "CUNIT", "CROTA"};
+    char key[16];
+    for (int a = 3; a <= 4; a++) {
+        for (size_t i = 0; i < sizeof stems / sizeof stems[0]; i++) {
+            snprintf(key, sizeof key, "%s%d", stems[i], a);
+            gl_header_remove(h, key);
+        }
+        for (int b = 1; b <= 4; b++) {
+            snprintf(key, sizeof key, "CD%d_%d", a, b);
+            gl_header_remove(h, key);
+            snprintf(key, sizeof key, "PC%d_%d", a, b);
+            gl_header_remove(h, key);
+            snprintf(key, sizeof key, "CD%d_%d", b, a);
+            gl_header_remove(h, key);
+            snprintf(key, sizeof key, "PC%d_%d", b, a);
+            gl_header_remove(h, key);
+        }
+    }
 }
 
 gl_status sub_wcs_north_up(gl_header *h, long nx, long ny)
@@ -46,8 +66,14 @@ gl_status sub_wcs_north_up(gl_header *h, long nx, long ny)
     struct wcsprm *wcs = NULL;
     double sky[2] = {0, 0}, scale = 0;
     char t1[72] = "", t2[72] = "";
-    if (wcspih(buf, n, WCSHDR_all, 0, &nreject, &nwcs, &wcs) == 0 && nwcs > 0 &&
-        wcsset(&wcs[0]) == 0 && wcs[0].lng == 0 && wcs[0].lat == 1) {
+    int parsed = wcspih(buf, n, WCSHDR_all, 0, &nreject, &nwcs, &wcs) == 0 && nwcs > 0;
+    if (parsed && (wcs[0].altlin & 2))
+        /* a CD matrix given for the celestial axes only leaves the others'
+         * diagonal at 0 (singular): a cube's frame axis is a unit axis */
+        for (int k = 2; k < wcs[0].naxis; k++)
+            if (wcs[0].cd[k * wcs[0].naxis + k] == 0.0)
+                wcs[0].cd[k * wcs[0].naxis + k] = 1.0;
+    if (parsed && wcsset(&wcs[0]) == 0 && wcs[0].lng == 0 && wcs[0].lat == 1) {
         struct wcsprm *w = &wcs[0];
         int na = w->naxis;
         double pix[4] = {0, 0, 0, 0}, img[4], phi, theta, world[4];
