@@ -138,10 +138,10 @@ GL_API const char *gl_combine_name(gl_combine c);
 
 /* The reference library of one target frame for annular KLIP: the indices
  * j != target with radius_px * |angles[j] - angles[target]| (radians) >=
- * gap_px, sorted by increasing angular distance (ties: lower index first)
- * and cut to the first `nearest` when nearest > 0. Frames with usable[j] == 0
- * are skipped (usable may be NULL). idx must hold n entries. Returns the
- * number of frames written. */
+ * gap_px, skipping frames with usable[j] == 0 (usable may be NULL). When
+ * nearest > 0 only the `nearest` qualifying frames closest in angle are kept
+ * (ties: lower index first). Written to idx (room for n entries) in
+ * increasing index order. Returns the number of frames written. */
 GL_API long gl_subtract_library_select(const double *angles, const unsigned char *usable, long n,
                                        long target, double radius_px, double gap_px, long nearest,
                                        long *idx);

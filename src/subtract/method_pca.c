@@ -16,6 +16,7 @@
 #include "subtract/internal.h"
 
 #include <math.h>
+#include <omp.h>
 #include <string.h>
 
 static gl_status pca_run(const sub_ctx *c)
@@ -51,6 +52,7 @@ static gl_status pca_run(const sub_ctx *c)
     for (long i = 0; i < nrow; i++)
         flags[i] = i < c->nframe ? (unsigned char)(use_sci && c->usable[i]) : 1;
     sub_centre(M, nrow, npr, p->centring, flags);
+    double t0 = omp_get_wtime(), t_la = 0;
 
     /* the basis rows are contiguous: science rows, then reference rows */
     long b0 = use_sci ? 0 : c->nframe;
@@ -74,6 +76,9 @@ static gl_status pca_run(const sub_ctx *c)
         goto cleanup;
     }
     sub_gemm(c->nframe, kmax, npr, 1.0f, M, npr, basis.Z, npr, 1, 0.0f, coef, kmax);
+    t_la = omp_get_wtime() - t0;
+    gl_log(GL_LOG_DEBUG, "KL basis of %ld x %ld frames x pixels and coefficients: %.3f s", nb, npr,
+           t_la);
 
     long sorted[GL_SUBTRACT_MAX_MODES];
     int order[GL_SUBTRACT_MAX_MODES], inv[GL_SUBTRACT_MAX_MODES];
@@ -84,9 +89,11 @@ static gl_status pca_run(const sub_ctx *c)
     for (int s = 0; s < p->nmodes; s++) {
         long k = sorted[s];
         if (k > kdone) {
+            double t1 = omp_get_wtime();
             sub_gemm(c->nframe, npr, k - kdone, -1.0f, coef + kdone, kmax,
                      basis.Z + (size_t)kdone * (size_t)npr, npr, 0, 1.0f, M, npr);
             kdone = k;
+            t_la += omp_get_wtime() - t1;
         }
         float *work = c->work;
 #pragma omp parallel for schedule(static)
@@ -105,6 +112,14 @@ static gl_status pca_run(const sub_ctx *c)
         if (st)
             goto cleanup;
         gl_progress("KLIP modes", s + 1, p->nmodes);
+    }
+    {
+        /* flops: covariance (n^2 p), basis (2 k n p), coefficients and
+         * residual updates (2 k f p each) */
+        double n = (double)nb, f = (double)c->nframe, P = (double)npr, k = (double)kmax;
+        double gflop = (n * n * P + 2 * k * n * P + 4 * k * f * P) * 1e-9;
+        gl_log(GL_LOG_DEBUG, "linear algebra: %.3f s for %.2f GFLOP (%.1f GFLOP/s)", t_la, gflop,
+               gflop / (t_la > 0 ? t_la : 1e-9));
     }
 cleanup:
     sub_region_free(&reg);

@@ -61,7 +61,7 @@ static gl_status record_params(gl_header *h, const gl_subtract_params *p, const 
                                int nplanes, int uses_modes)
 {
     gl_status st = GL_OK;
-    char key[16], text[160];
+    char key[32], text[160];
 #define SET(call)                                                                                  \
     do {                                                                                           \
         if (!st)                                                                                   \

@@ -27,7 +27,7 @@ static void drop_linear_keys(gl_header *h)
     /* axes 3 and 4 of the input (channel, frame) do not describe the
      * product's planes (mode counts) */
     static const char *const stems[] = {"CTYPE", "CRPIX", "CRVAL", "CDELT", "CUNIT", "CROTA"};
-    char key[16];
+    char key[32];
     for (int a = 3; a <= 4; a++) {
         for (size_t i = 0; i < sizeof stems / sizeof stems[0]; i++) {
             snprintf(key, sizeof key, "%s%d", stems[i], a);
