@@ -170,7 +170,7 @@ static void test_target_weights(void)
         X[i] = (float)(urand(&seed) - 0.5 +
                        sin(0.05 * (double)(i % ncol) * (1 + (double)(i / ncol) / 7.0)));
     sub_centre(X, n, ncol, GL_CENTRE_FRAME, NULL);
-    sub_covariance(X, n, ncol, C);
+    sub_covariance(X, n, ncol, C, NULL);
     long lib[11], nlib = 0;
     for (long i = 0; i < n; i++)
         if (i != t)

@@ -75,8 +75,11 @@ void sub_centre(float *X, long nrow, long ncol, gl_centring mode, const unsigned
 
 /* C (n x n, full symmetric, double) = X X^T for X (n x ncol), in tiles of
  * fixed size computed in parallel, accumulated in double over column chunks
- * of fixed width (dsyrk on the diagonal, dgemm off it). GL_ERR_NOMEM. */
-gl_status sub_covariance(const float *X, long n, long ncol, double *C);
+ * of fixed width (dsyrk on the diagonal, dgemm off it). work: NULL (then
+ * allocated here) or sub_covariance_work_size() doubles, for callers that
+ * repeat the call. GL_ERR_NOMEM. */
+size_t sub_covariance_work_size(void);
+gl_status sub_covariance(const float *X, long n, long ncol, double *C, double *work);
 
 /* C (m x n) = beta C + alpha A B with A (m x k), B (k x n), row-major, lda,
  * ldb, ldc row strides; transB transposes B (then B is n x k). Tiled over

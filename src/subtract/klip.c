@@ -67,13 +67,18 @@ void sub_centre(float *X, long nrow, long ncol, gl_centring mode, const unsigned
     }
 }
 
-gl_status sub_covariance(const float *X, long n, long ncol, double *C)
+size_t sub_covariance_work_size(void)
+{
+    return 2 * (size_t)COV_TILE * COV_CHUNK * (size_t)sub_max_threads();
+}
+
+gl_status sub_covariance(const float *X, long n, long ncol, double *C, double *work)
 {
     long nb = (n + COV_TILE - 1) / COV_TILE;
     long ntiles = nb * (nb + 1) / 2;
     int nth = sub_max_threads();
     size_t per = 2 * (size_t)COV_TILE * COV_CHUNK;
-    double *buf = gl_malloc(sizeof(double) * per * (size_t)nth);
+    double *buf = work ? work : gl_malloc(sizeof(double) * per * (size_t)nth);
     if (!buf)
         return gl_error_nomem("covariance workspace");
 #pragma omp parallel for schedule(static)
@@ -110,7 +115,8 @@ gl_status sub_covariance(const float *X, long n, long ncol, double *C)
                         (int)w, B, (int)w, beta, Cij, (int)n);
         }
     }
-    gl_free(buf);
+    if (buf != work)
+        gl_free(buf);
     /* mirror the upper triangle */
     for (long i = 0; i < n; i++)
         for (long j = 0; j < i; j++)
@@ -157,7 +163,7 @@ static gl_status basis_from_eig(const float *X, long nrow, long ncol, long kmax,
         st = gl_error_nomem("KL basis");
         goto cleanup;
     }
-    st = sub_covariance(X, nrow, ncol, A);
+    st = sub_covariance(X, nrow, ncol, A, NULL);
     if (st)
         goto cleanup;
     lapack_int m = 0;

@@ -100,7 +100,8 @@ static gl_status annular_run(const sub_ctx *c)
     thread_ws *ws = gl_calloc((size_t)nth, sizeof *ws);
     long *lib0 = gl_malloc(sizeof(long) * (size_t)nall);
     gl_status *tst = gl_calloc((size_t)nth, sizeof *tst);
-    sub_region reg = {0};
+    sub_region *regs = NULL;
+    double *covwork = NULL;
     if (!ws || !lib0 || !tst) {
         st = gl_error_nomem("annular workspace");
         goto cleanup;
@@ -109,17 +110,23 @@ static gl_status annular_run(const sub_ctx *c)
     if (st)
         goto cleanup;
 
-    /* the largest piece bounds every buffer */
+    /* plan: every piece's pixel list, once; the largest bounds the buffers */
+    long npieces = nring * nsect, done = 0;
+    regs = gl_calloc((size_t)npieces, sizeof *regs);
+    covwork = gl_malloc(sizeof(double) * sub_covariance_work_size());
+    if (!regs || !covwork) {
+        st = gl_error_nomem("annular plan");
+        goto cleanup;
+    }
     long npr_max = 0;
     for (long k = 0; k < nring; k++) {
         double r_in = c->r_in + (double)k * width;
         for (int s = 0; s < nsect; s++) {
             st = sub_region_make(c->nx, c->ny, r_in, GL_SUB_MIN(c->r_out, r_in + width), nsect, s,
-                                 &reg);
+                                 &regs[k * nsect + s]);
             if (st)
                 goto cleanup;
-            npr_max = GL_SUB_MAX(npr_max, reg.npix);
-            sub_region_free(&reg);
+            npr_max = GL_SUB_MAX(npr_max, regs[k * nsect + s].npix);
         }
     }
     M = gl_malloc(sizeof(float) * (size_t)nall * (size_t)GL_SUB_MAX(npr_max, 1));
@@ -150,21 +157,16 @@ static gl_status annular_run(const sub_ctx *c)
     for (long i = 0; i < nall; i++)
         flags[i] = i < c->nframe ? (unsigned char)(use_sci && c->usable[i]) : 1;
 
-    long npieces = nring * nsect, done = 0;
     long ntb = (c->nframe + TARGET_BLOCK - 1) / TARGET_BLOCK;
     for (long k = 0; k < nring; k++) {
         double r_in = c->r_in + (double)k * width;
         double r_out = GL_SUB_MIN(c->r_out, r_in + width);
         double rmid = 0.5 * (r_in + r_out);
         for (int s = 0; s < nsect; s++) {
-            st = sub_region_make(c->nx, c->ny, r_in, r_out, nsect, s, &reg);
-            if (st)
-                goto cleanup;
-            long npr = reg.npix;
-            if (npr == 0) {
-                sub_region_free(&reg);
+            const sub_region *reg = &regs[k * nsect + s];
+            long npr = reg->npix;
+            if (npr == 0)
                 continue;
-            }
 #pragma omp parallel for schedule(static)
             for (long i = 0; i < nall; i++) {
                 const float *src = i < c->nframe
@@ -173,10 +175,10 @@ static gl_status annular_run(const sub_ctx *c)
                 float *row = M + (size_t)i * (size_t)npr;
                 int ok = i < c->nframe ? c->usable[i] : 1;
                 for (long j = 0; j < npr; j++)
-                    row[j] = ok ? src[reg.pix[j]] : NAN;
+                    row[j] = ok ? src[reg->pix[j]] : NAN;
             }
             sub_centre(M, nall, npr, p->centring, flags);
-            st = sub_covariance(M, nall, npr, C);
+            st = sub_covariance(M, nall, npr, C, covwork);
             if (st)
                 goto cleanup;
 
@@ -216,11 +218,10 @@ static gl_status annular_run(const sub_ctx *c)
                         float *out =
                             store + ((size_t)q * (size_t)c->nframe + (size_t)t) * (size_t)c->npix;
                         for (long j = 0; j < npr; j++)
-                            out[reg.pix[j]] = isnan(in[reg.pix[j]]) ? NAN : r[j];
+                            out[reg->pix[j]] = isnan(in[reg->pix[j]]) ? NAN : r[j];
                     }
                 }
             }
-            sub_region_free(&reg);
             for (int t = 0; t < nth; t++)
                 if (tst[t]) {
                     /* messages are per thread: restate it on this one */
@@ -244,7 +245,11 @@ static gl_status annular_run(const sub_ctx *c)
             goto cleanup;
     }
 cleanup:
-    sub_region_free(&reg);
+    if (regs)
+        for (long i = 0; i < nring * nsect; i++)
+            sub_region_free(&regs[i]);
+    gl_free(regs);
+    gl_free(covwork);
     if (ws)
         for (int t = 0; t < nth; t++) {
             sub_eig_work_free(ws[t].eig);

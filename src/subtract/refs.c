@@ -43,7 +43,7 @@ gl_status sub_refs_select(const sub_ctx *c, const float *ref_all, long nref_all,
             M[(size_t)i * (size_t)reg.npix + (size_t)j] = src[reg.pix[j]];
     }
     sub_centre(M, nall, reg.npix, GL_CENTRE_FRAME, NULL);
-    st = sub_covariance(M, nall, reg.npix, C);
+    st = sub_covariance(M, nall, reg.npix, C, NULL);
     if (st)
         goto cleanup;
     for (long r = 0; r < nref_all; r++) {
