@@ -80,6 +80,18 @@ static void test_library(void)
     }
 }
 
+/* Angles crossing +-180 are close in field rotation. */
+static void test_library_wrap(void)
+{
+    double ang[4] = {178.0, 179.5, -179.5, -178.0};
+    long idx[4];
+    /* radius 100 px: 1 deg = 1.745 px of arc; gap 3 px needs >= 1.72 deg */
+    long m = gl_subtract_library_select(ang, NULL, 4, 1, 100, 3.0, 0, idx);
+    CHECK(m == 1 && idx[0] == 3, "across +-180: %ld frames", m);
+    m = gl_subtract_library_select(ang, NULL, 4, 2, 100, 0.5, 1, idx);
+    CHECK(m == 1 && idx[0] == 1, "nearest across +-180: frame %ld", m ? idx[0] : -1);
+}
+
 static void test_median(void)
 {
     float a[] = {5, NAN, 1, 4, 2, NAN, 3};
@@ -362,6 +374,7 @@ int main(void)
 {
     openblas_set_num_threads(1);
     test_library();
+    test_library_wrap();
     test_median();
     test_basis(20, 500); /* eigen route */
     test_basis(60, 40);  /* SVD route */

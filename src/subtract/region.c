@@ -67,6 +67,14 @@ void sub_region_free(sub_region *r)
     r->npix = 0;
 }
 
+/* |a - b| in degrees as a field rotation: angles that cross +-180 (a star
+ * transiting north of the zenith) are a few degrees apart, not ~360. */
+static double rotation_between(double a, double b)
+{
+    double d = fmod(fabs(a - b), 360.0);
+    return d > 180.0 ? 360.0 - d : d;
+}
+
 long gl_subtract_library_select(const double *angles, const unsigned char *usable, long n,
                                 long target, double radius_px, double gap_px, long nearest,
                                 long *idx)
@@ -75,7 +83,7 @@ long gl_subtract_library_select(const double *angles, const unsigned char *usabl
     for (long j = 0; j < n; j++) {
         if (j == target || (usable && !usable[j]))
             continue;
-        double arc = radius_px * fabs(angles[j] - angles[target]) * (M_PI / 180.0);
+        double arc = radius_px * rotation_between(angles[j], angles[target]) * (M_PI / 180.0);
         if (arc >= gap_px)
             idx[m++] = j;
     }
@@ -84,10 +92,10 @@ long gl_subtract_library_select(const double *angles, const unsigned char *usabl
          * libraries are a few hundred frames at most */
         for (long i = 1; i < m; i++) {
             long v = idx[i];
-            double dv = fabs(angles[v] - angles[target]);
+            double dv = rotation_between(angles[v], angles[target]);
             long k = i - 1;
             while (k >= 0) {
-                double dk = fabs(angles[idx[k]] - angles[target]);
+                double dk = rotation_between(angles[idx[k]], angles[target]);
                 if (dk < dv || (dk == dv && idx[k] < v))
                     break;
                 idx[k + 1] = idx[k];

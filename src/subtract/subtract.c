@@ -233,12 +233,20 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
     /* field rotation for ADI */
     int use_sci = !(c.nref > 0 && p->refs_use == GL_REFS_ONLY);
     if (p->method != GL_SUBTRACT_NONE && use_sci) {
-        double lo = INFINITY, hi = -INFINITY;
-        for (long i = 0; i < nf; i++)
-            if (usable[i]) {
-                lo = GL_SUB_MIN(lo, angles[i]);
-                hi = GL_SUB_MAX(hi, angles[i]);
+        /* span of the unwrapped sequence (angles may cross +-180) */
+        double lo = 0, hi = 0, cur = 0, prev = NAN;
+        for (long i = 0; i < nf; i++) {
+            if (!usable[i])
+                continue;
+            if (!isnan(prev)) {
+                double d = fmod(angles[i] - prev, 360.0);
+                d += d > 180 ? -360 : (d < -180 ? 360 : 0);
+                cur += d;
+                lo = GL_SUB_MIN(lo, cur);
+                hi = GL_SUB_MAX(hi, cur);
             }
+            prev = angles[i];
+        }
         double span = hi - lo;
         if (!(span > 1e-6)) {
             st = gl_error_set(GL_ERR_USAGE,
