@@ -10,6 +10,8 @@
 #include "gloam/subtract.h"
 #include "gloam/geometry.h"
 #include "gloam/inject.h"
+#include "gloam/limits.h"
 #include "gloam/inspect.h"
+#include "gloam/sim.h"
 
 #endif

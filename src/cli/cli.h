@@ -75,6 +75,7 @@ void cli_start(gl_cli *cli);
 /* Every command (one file each: cmd_NAME.c). */
 int cmd_inject(gl_cli *cli, int argc, char **argv);
 int cmd_inspect(gl_cli *cli, int argc, char **argv);
+int cmd_simulate(gl_cli *cli, int argc, char **argv);
 int cmd_subtract(gl_cli *cli, int argc, char **argv);
 
 #endif

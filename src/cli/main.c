@@ -15,6 +15,7 @@ typedef struct command {
 
 static const command commands[] = {
     /* one line per command, in pipeline order */
+    {"simulate", cmd_simulate, "simulate a coronagraphic sequence with known truth"},
     {"inspect", cmd_inspect, "report what a cube holds: shape, NaN, saturation, flux, rotation"},
     {"subtract", cmd_subtract, "remove the star's halo, derotate to north-up and combine"},
     {"inject", cmd_inject, "plant fake companions into a sequence"},

@@ -1,0 +1,107 @@
+/*
+ * completeness.c -- the probability that a companion is detected, under the
+ * two-sample Student-t test of Mawet et al. (2014, ApJ 792, 97).
+ *
+ * A companion whose true aperture flux is f, in an annulus where the aperture
+ * sums have standard deviation sigma and n2 reference apertures are compared
+ * with the test aperture, gives a statistic that follows a noncentral t
+ * distribution with nu = n2 - 1 degrees of freedom and noncentrality
+ * delta = f / (sigma sqrt(1 + 1/n2)). The completeness (true-positive
+ * fraction) at threshold tau is P(T_{nu,delta} > tau) (Jensen-Clem et al.
+ * 2018, AJ 155, 19). With T = (Z + delta) / sqrt(V / nu), V ~ chi2(nu):
+ *     P(T > tau) = integral_0^inf Q(tau sqrt(v / nu) - delta) p_chi2(v; nu) dv,
+ * Q the upper Gaussian tail; evaluated with GSL's adaptive quadrature, and
+ * inverted for delta with GSL's Brent root finder.
+ */
+#include "core/internal.h"
+#include "gloam/limits.h"
+
+#include <gsl/gsl_cdf.h>
+#include <gsl/gsl_errno.h>
+#include <gsl/gsl_integration.h>
+#include <gsl/gsl_randist.h>
+#include <gsl/gsl_roots.h>
+#include <math.h>
+
+typedef struct nct_args {
+    double tau, nu, delta;
+} nct_args;
+
+static double integrand(double v, void *data)
+{
+    const nct_args *a = data;
+    return gsl_cdf_ugaussian_Q(a->tau * sqrt(v / a->nu) - a->delta) * gsl_ran_chisq_pdf(v, a->nu);
+}
+
+double gl_limits_completeness(double delta, double tau, double nu)
+{
+    if (!(nu > 0) || !isfinite(delta) || !isfinite(tau))
+        return NAN;
+    gsl_set_error_handler_off();
+    gsl_integration_workspace *w = gsl_integration_workspace_alloc(256);
+    if (!w)
+        return NAN;
+    nct_args a = {tau, nu, delta};
+    gsl_function f = {integrand, &a};
+    double result = NAN, err = 0;
+    /* the chi2 density vanishes beyond nu + 40 sqrt(2 nu) + 200 to double
+     * precision; a finite interval keeps the quadrature robust for small nu */
+    double vmax = nu + 40 * sqrt(2 * nu) + 200;
+    if (gsl_integration_qags(&f, 0, vmax, 1e-13, 1e-10, 256, w, &result, &err) != GSL_SUCCESS &&
+        !(err < 1e-7))
+        result = NAN;
+    gsl_integration_workspace_free(w);
+    return result < 0 ? 0 : (result > 1 ? 1 : result);
+}
+
+typedef struct root_args {
+    double tau, nu, q;
+} root_args;
+
+static double root_fn(double delta, void *data)
+{
+    const root_args *a = data;
+    return gl_limits_completeness(delta, a->tau, a->nu) - a->q;
+}
+
+gl_status gl_limits_delta_for_completeness(double q, double tau, double nu, double *delta)
+{
+    *delta = NAN;
+    if (!(q > 0 && q < 1) || !(nu > 0) || !isfinite(tau))
+        return gl_error_set(GL_ERR_USAGE,
+                            "completeness %g with %g degrees of freedom: need 0 < q < 1, nu > 0", q,
+                            nu);
+    gsl_set_error_handler_off();
+    root_args a = {tau, nu, q};
+    gsl_function f = {root_fn, &a};
+    /* bracket: the completeness grows monotonically with delta */
+    double lo = tau - 10, hi = tau + 10;
+    while (root_fn(lo, &a) > 0 && lo > -1e4)
+        lo -= 10 + fabs(lo);
+    while (root_fn(hi, &a) < 0 && hi < 1e4)
+        hi += 10 + fabs(hi);
+    if (root_fn(lo, &a) > 0 || root_fn(hi, &a) < 0)
+        return gl_error_set(GL_ERR_NUMERIC, "cannot bracket the completeness %g (tau %g, nu %g)", q,
+                            tau, nu);
+    gsl_root_fsolver *s = gsl_root_fsolver_alloc(gsl_root_fsolver_brent);
+    if (!s)
+        return gl_error_nomem("root finder");
+    gsl_root_fsolver_set(s, &f, lo, hi);
+    gl_status st = GL_ERR_NUMERIC;
+    for (int it = 0; it < 200; it++) {
+        if (gsl_root_fsolver_iterate(s) != GSL_SUCCESS)
+            break;
+        double a0 = gsl_root_fsolver_x_lower(s), b0 = gsl_root_fsolver_x_upper(s);
+        if (gsl_root_test_interval(a0, b0, 1e-10, 1e-12) == GSL_SUCCESS) {
+            *delta = gsl_root_fsolver_root(s);
+            st = GL_OK;
+            break;
+        }
+    }
+    gsl_root_fsolver_free(s);
+    if (st)
+        return gl_error_set(GL_ERR_NUMERIC,
+                            "completeness %g (tau %g, nu %g): root finder did not converge", q, tau,
+                            nu);
+    return GL_OK;
+}
