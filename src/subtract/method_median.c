@@ -10,8 +10,6 @@
  *
  * The companion is partly subtracted where it moved by less than about one
  * FWHM over the sequence (self-subtraction), i.e. close to the star.
- * The "none" method lives here too: residual = frame (derotate and combine
- * only, e.g. after the spectral step or as a check).
  */
 #include "subtract/internal.h"
 
@@ -93,22 +91,4 @@ cleanup:
     return st;
 }
 
-static gl_status none_run(const sub_ctx *c)
-{
-    double cx = (double)(c->nx / 2), cy = (double)(c->ny / 2);
-#pragma omp parallel for schedule(static)
-    for (long i = 0; i < c->nframe; i++) {
-        const float *in = c->sci + (size_t)i * (size_t)c->npix;
-        float *out = c->work + (size_t)i * (size_t)c->npix;
-        for (long y = 0; y < c->ny; y++)
-            for (long x = 0; x < c->nx; x++) {
-                double r = hypot((double)x - cx, (double)y - cy);
-                long j = y * c->nx + x;
-                out[j] = (c->usable[i] && r >= c->r_in && r < c->r_out) ? in[j] : NAN;
-            }
-    }
-    return c->sink(c->sink_data, 0, c->work);
-}
-
 const sub_method sub_method_median = {"median", 0, median_run};
-const sub_method sub_method_none = {"none", 0, none_run};
