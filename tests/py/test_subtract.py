@@ -161,6 +161,36 @@ def test_rdi_residuals_match_numpy(tmp_path):
     assert rel_diff(raw[:, m], want) < 1e-4
 
 
+def test_rdi_keeps_best_correlated_refs(tmp_path):
+    """--refs-best keeps the reference frames whose speckles match the science
+    (Pearson correlation, numpy.corrcoef); the residuals then equal the numpy
+    projection on the basis of those frames alone."""
+    n = 48
+    cube, angles, pat = make_sequence(n=n, nf=12, sep=10)
+    good, _, _ = make_sequence(n=n, nf=6, amp=0.0, seed=5, pattern=pat)
+    junk, _, _ = make_sequence(n=n, nf=6, amp=0.0, seed=6,
+                               pattern=speckles(n, np.random.default_rng(99)))
+    refs = np.empty((12, n, n), np.float32)
+    refs[0::2], refs[1::2] = junk, good  # interleaved: selection, not order
+    c, a = write_inputs(tmp_path, cube, angles)
+    fits.PrimaryHDU(refs).writeto(tmp_path / "refs.fits")
+    r = run("subtract", c, "--angles", a, "--fwhm", FWHM, "--out", tmp_path / "o.fits",
+            "--modes", "3", "--mask-radius", 3, "--refs", tmp_path / "refs.fits",
+            "--refs-best", 6, "--raw-residuals", tmp_path / "raw.fits")
+    assert r.returncode == 0, r.stderr
+    assert fits.getheader(tmp_path / "o.fits")["GLSNREF"] == 6
+    m = region_mask(n, 3, 24)
+    corr = np.corrcoef(np.vstack([cube[:, m], refs[:, m]]))[:12, 12:]
+    best = np.sort(np.argsort(-np.median(corr, axis=0))[:6])
+    assert list(best) == [1, 3, 5, 7, 9, 11]
+    T = cube[:, m].astype(np.float64)
+    T -= T.mean(axis=1, keepdims=True)
+    R = refs[best][:, m].astype(np.float64)
+    R -= R.mean(axis=1, keepdims=True)
+    raw = fits.getdata(tmp_path / "raw.fits").astype(np.float64)
+    assert rel_diff(raw[:, m], klip_numpy(R, T, [3])[0]) < 1e-4
+
+
 def annular_numpy(cube, angles, fwhm, r_in, r_out, ring, gap, k, nearest=0):
     """Plain numpy annular KLIP (the loop an astronomer would write)."""
     nf, n, _ = cube.shape
@@ -336,6 +366,17 @@ def test_sdi_companion_found(tmp_path):
         x0, y0 = north_up_position(n, sep, pa)
         assert np.hypot(x - x0, y - y0) <= 1.5, (method, x, y, x0, y0)
         assert fits.getheader(out)["GLSSDI"] == "channels"
+    # wavelengths from the header's spectral axis (Greisen et al. 2006) give
+    # the same product as the option
+    hdr = fits.Header()
+    hdr["CTYPE3"], hdr["CRVAL3"], hdr["CDELT3"], hdr["CRPIX3"] = "WAVE", 1.0e-6, 0.1e-6, 1.0
+    fits.PrimaryHDU(cube, hdr).writeto(tmp_path / "cube_w.fits")
+    r = run("subtract", tmp_path / "cube_w.fits", "--angles", tmp_path / "a.txt", "--fwhm", FWHM,
+            "--out", tmp_path / "hdr.fits", "--sdi", "--sdi-modes", 1, "--method", "pca",
+            "--modes", 2, "--mask-radius", 5)
+    assert r.returncode == 0, r.stderr
+    assert np.allclose(fits.getdata(tmp_path / "hdr.fits"), fits.getdata(tmp_path / "pca.fits"),
+                       rtol=1e-5, atol=1e-6, equal_nan=True)
 
 
 def snr_at(img, x0, y0, sep, n):
