@@ -124,7 +124,6 @@ gl_status sub_sink_put(void *sink, int mode_index, float *resid)
     const sub_ctx *c = s->c;
     const gl_subtract_params *p = c->p;
     size_t plane = (size_t)c->npix;
-    size_t cube = (size_t)c->nframe * plane;
     int nk = (int)(s->image->nframe);
 
     if (s->raw) {
@@ -148,7 +147,6 @@ gl_status sub_sink_put(void *sink, int mode_index, float *resid)
     for (long i = 0; i < c->nframe; i++)
         if (s->fstat[i])
             return gl_error_set(s->fstat[i], "derotation of frame %ld failed", i);
-    (void)cube;
 
     if (s->resid)
         for (long i = 0; i < c->nframe; i++)
