@@ -13,5 +13,6 @@
 #include "gloam/limits.h"
 #include "gloam/inspect.h"
 #include "gloam/sim.h"
+#include "gloam/detect.h"
 
 #endif

@@ -19,6 +19,7 @@ static const command commands[] = {
     {"inspect", cmd_inspect, "report what a cube holds: shape, NaN, saturation, flux, rotation"},
     {"subtract", cmd_subtract, "remove the star's halo, derotate to north-up and combine"},
     {"inject", cmd_inject, "plant fake companions into a sequence"},
+    {"detect", cmd_detect, "S/N and false-alarm maps, candidate point sources"},
     {NULL, NULL, NULL},
 };
 

@@ -1,0 +1,305 @@
+/*
+ * cmd_detect.c -- `gloam detect RESULT.fits --fwhm PX --out PREFIX`: S/N,
+ * FPF and significance maps of a north-up starlight-subtracted image (or one
+ * plane of a cube of them) and the list of point-source candidates above a
+ * threshold given in Gaussian sigma, with small-sample statistics.
+ *
+ * Products: PREFIX.snr.fits (S/N map; extensions FPF and SIGNIF),
+ * PREFIX.candidates.csv and .fits (best first), PREFIX.snr.png.
+ */
+#include "cli/cli.h"
+
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+static const char help[] =
+    "usage: gloam detect RESULT.fits --fwhm PX --out PREFIX [options]\n"
+    "\n"
+    "S/N (two-sample Student t), false-positive-fraction and significance maps of a\n"
+    "north-up starlight-subtracted image, and the candidates above a threshold.\n"
+    "The star is at pixel (nx/2, ny/2).\n"
+    "\n"
+    "  --fwhm PX            PSF FWHM in pixels (required; apertures are 1 FWHM wide)\n"
+    "  --out PREFIX         writes PREFIX.snr.fits (HDUs SNR, FPF, SIGNIF),\n"
+    "                       PREFIX.candidates.csv, PREFIX.candidates.fits, PREFIX.snr.png\n"
+    "  --plane K            plane of a 3-D input, 1-based (default 1)\n"
+    "  --threshold SIGMA    detection threshold as a Gaussian sigma (default 5:\n"
+    "                       FPF 2.867e-7 per test aperture), converted to Student t\n"
+    "  --mask-radius PX     no detections closer to the star (default 1 FWHM)\n"
+    "  --aperture-diameter PX   aperture diameter (default 1 FWHM)\n"
+    "  --exclude-adjacent   leave out the two apertures next to the test aperture\n"
+    "                       (negative self-subtraction wings of ADI)\n"
+    "  --merge-radius PX    maxima closer than this are one candidate (default 1 FWHM)\n"
+    "  --pixscale MAS       pixel scale in mas (default: from the WCS, if any)\n"
+    "  --every-plane        report each candidate's S/N in every plane (snr_plane1..N)\n";
+
+enum {
+    OPT_FWHM = CLI_OPT_FIRST_COMMAND_OPTION,
+    OPT_OUT,
+    OPT_PLANE,
+    OPT_THRESHOLD,
+    OPT_MASK,
+    OPT_DIAM,
+    OPT_EXCL,
+    OPT_MERGE,
+    OPT_PIXSCALE,
+    OPT_EVERY
+};
+
+/* Prefixes the library's last message with the input file name. */
+static int fail_file(const gl_cli *cli, const char *path, gl_status st)
+{
+    char msg[1024];
+    snprintf(msg, sizeof msg, "%s", gl_error_message());
+    if (strncmp(msg, path, strlen(path)) != 0)
+        gl_error_set(st, "%s: %s", path, msg);
+    return cli_fail(cli, st);
+}
+
+int cmd_detect(gl_cli *cli, int argc, char **argv)
+{
+    static const struct option opts[] = {{"fwhm", required_argument, 0, OPT_FWHM},
+                                         {"out", required_argument, 0, OPT_OUT},
+                                         {"plane", required_argument, 0, OPT_PLANE},
+                                         {"threshold", required_argument, 0, OPT_THRESHOLD},
+                                         {"mask-radius", required_argument, 0, OPT_MASK},
+                                         {"aperture-diameter", required_argument, 0, OPT_DIAM},
+                                         {"exclude-adjacent", no_argument, 0, OPT_EXCL},
+                                         {"merge-radius", required_argument, 0, OPT_MERGE},
+                                         {"pixscale", required_argument, 0, OPT_PIXSCALE},
+                                         {"every-plane", no_argument, 0, OPT_EVERY},
+                                         CLI_COMMON_OPTIONS,
+                                         {0, 0, 0, 0}};
+    gl_detect_params par;
+    gl_detect_params_init(&par);
+    const char *prefix = NULL;
+    long plane = 1;
+    int every = 0, exit_now = 0, c;
+    optind = 1;
+    opterr = 0;
+    while ((c = getopt_long(argc, argv, "", opts, NULL)) != -1) {
+        int r = cli_common_option(cli, c, optarg, help, &exit_now);
+        if (r < 0)
+            return 1;
+        if (exit_now)
+            return 0;
+        if (r)
+            continue;
+        switch (c) {
+        case OPT_FWHM:
+            if (cli_parse_double(cli, "--fwhm", optarg, 1e-3, 1e4, &par.fwhm))
+                return 1;
+            break;
+        case OPT_OUT: prefix = optarg; break;
+        case OPT_PLANE:
+            if (cli_parse_long(cli, "--plane", optarg, 1, 1000000, &plane))
+                return 1;
+            break;
+        case OPT_THRESHOLD:
+            if (cli_parse_double(cli, "--threshold", optarg, 0.1, 30, &par.threshold_sigma))
+                return 1;
+            break;
+        case OPT_MASK:
+            if (cli_parse_double(cli, "--mask-radius", optarg, 0, 1e5, &par.mask_radius))
+                return 1;
+            break;
+        case OPT_DIAM:
+            if (cli_parse_double(cli, "--aperture-diameter", optarg, 0.1, 1e4, &par.diameter))
+                return 1;
+            break;
+        case OPT_EXCL: par.exclude_adjacent = 1; break;
+        case OPT_MERGE:
+            if (cli_parse_double(cli, "--merge-radius", optarg, 0, 1e5, &par.merge_radius))
+                return 1;
+            break;
+        case OPT_PIXSCALE:
+            if (cli_parse_double(cli, "--pixscale", optarg, 1e-3, 1e6, &par.pixscale_mas))
+                return 1;
+            break;
+        case OPT_EVERY: every = 1; break;
+        default: return cli_usage(cli, "unknown option '%s'", argv[optind - 1]);
+        }
+    }
+    if (optind != argc - 1)
+        return cli_usage(cli, "one input image expected (RESULT.fits)");
+    if (!(par.fwhm > 0))
+        return cli_usage(cli, "--fwhm PX is required");
+    if (!prefix || !*prefix)
+        return cli_usage(cli, "--out PREFIX is required");
+    const char *input = argv[optind];
+    cli_start(cli);
+
+    int rc = 0;
+    gl_status st = GL_OK;
+    gl_cube *cube = NULL;
+    gl_detect_maps *maps = NULL;
+    gl_detect_sky *sky = NULL;
+    gl_candidate *cand = NULL;
+    gl_outset *out = NULL;
+    long ncand = 0, nplanes = 0;
+    double *cols = NULL, *work = NULL;
+    char(*extra_names)[32] = NULL;
+    gl_aperture_plan *plan = NULL;
+    char path_map[4096], path_csv[4096], path_tab[4096], path_png[4096];
+    const char *tmp_map, *tmp_csv, *tmp_tab, *tmp_png;
+
+    if ((st = gl_provenance_add_input(&cli->prov, input)) ||
+        (st = gl_fits_read_cube(input, 2, &cube))) {
+        rc = fail_file(cli, input, st);
+        goto cleanup;
+    }
+    nplanes = cube->nchan * cube->nframe;
+    if (plane > nplanes) {
+        st =
+            gl_error_set(GL_ERR_USAGE, "%s: --plane %ld is out of range: the image has %ld plane%s",
+                         input, plane, nplanes, nplanes == 1 ? "" : "s");
+        rc = cli_fail(cli, st);
+        goto cleanup;
+    }
+    const long nx = cube->nx, ny = cube->ny;
+    const float *img = cube->data + (size_t)(plane - 1) * gl_cube_plane_size(cube);
+    if ((st = gl_detect_params_check(&par, nx, ny))) {
+        rc = fail_file(cli, input, st);
+        goto cleanup;
+    }
+    size_t nfinite = 0;
+    for (size_t k = 0; k < gl_cube_plane_size(cube); k++)
+        nfinite += !isnan(img[k]);
+    if (nfinite == 0) {
+        st = gl_error_set(GL_ERR_INPUT, "%s: plane %ld holds no data (every pixel is NaN)", input,
+                          plane);
+        rc = cli_fail(cli, st);
+        goto cleanup;
+    }
+
+    snprintf(path_map, sizeof path_map, "%s.snr.fits", prefix);
+    snprintf(path_csv, sizeof path_csv, "%s.candidates.csv", prefix);
+    snprintf(path_tab, sizeof path_tab, "%s.candidates.fits", prefix);
+    snprintf(path_png, sizeof path_png, "%s.snr.png", prefix);
+    if ((st = gl_outset_new(cli->overwrite, &out)) ||
+        (st = gl_outset_add(out, path_map, &cli->prov, &tmp_map)) ||
+        (st = gl_outset_add(out, path_csv, &cli->prov, &tmp_csv)) ||
+        (st = gl_outset_add(out, path_tab, &cli->prov, &tmp_tab)) ||
+        (st = gl_outset_add(out, path_png, &cli->prov, &tmp_png))) {
+        rc = cli_fail(cli, st);
+        goto cleanup;
+    }
+
+    if ((st = gl_detect_sky_new(cube->header, par.pixscale_mas, &sky)) ||
+        (st = gl_detect_maps_compute(img, nx, ny, &par, &maps)) ||
+        (st = gl_detect_candidates_find(img, nx, ny, maps, &par, sky, &cand, &ncand))) {
+        rc = fail_file(cli, input, st);
+        goto cleanup;
+    }
+
+    /* the table: fixed columns, then the S/N of each candidate in every plane */
+    enum { NFIXED = 19 };
+    static const char *fixed[NFIXED] = {
+        "rank",        "x",      "y",        "sep_px",    "sep_arcsec",   "pa_deg", "dra_arcsec",
+        "ddec_arcsec", "flux",   "snr",      "fpf",       "significance", "noise",  "nref",
+        "peak_x",      "peak_y", "peak_snr", "gauss_fit", "fit_fwhm"};
+    static const char *units[NFIXED] = {"",       "pix", "pix", "pix", "arcsec", "deg", "arcsec",
+                                        "arcsec", "",    "",    "",    "sigma",  "",    "",
+                                        "pix",    "pix", "",    "",    "pix"};
+    long nextra = (every && nplanes > 1) ? nplanes : 0;
+    int ncols = NFIXED + (int)nextra;
+    long nrows = ncand;
+    const char *names[NFIXED + 256], *unit_list[NFIXED + 256];
+    const double *colp[NFIXED + 256];
+    if (nextra > 256) {
+        gl_log(GL_LOG_WARN, "--every-plane: only the first 256 planes are reported");
+        nextra = 256;
+        ncols = NFIXED + 256;
+    }
+    cols = gl_calloc((size_t)ncols * (size_t)(nrows > 0 ? nrows : 1), sizeof *cols);
+    extra_names = gl_calloc((size_t)(nextra > 0 ? nextra : 1), sizeof *extra_names);
+    if (!cols || !extra_names) {
+        rc = cli_fail(cli, gl_error_nomem("candidate table"));
+        goto cleanup;
+    }
+    for (int k = 0; k < ncols; k++) {
+        colp[k] = cols + (size_t)k * (size_t)nrows;
+        if (k < NFIXED) {
+            names[k] = fixed[k];
+            unit_list[k] = units[k];
+        } else {
+            snprintf(extra_names[k - NFIXED], 32, "snr_plane%ld", (long)(k - NFIXED + 1));
+            names[k] = extra_names[k - NFIXED];
+            unit_list[k] = "";
+        }
+    }
+#define COL(k) (cols + (size_t)(k) * (size_t)nrows)
+    for (long r = 0; r < nrows; r++) {
+        const gl_candidate *cd = &cand[r];
+        double v[NFIXED] = {(double)(r + 1), cd->x,
+                            cd->y,           cd->sep_px,
+                            cd->sep_arcsec,  cd->pa_deg,
+                            cd->dra_arcsec,  cd->ddec_arcsec,
+                            cd->flux,        cd->stat.t,
+                            cd->stat.fpf,    cd->stat.significance,
+                            cd->stat.noise,  (double)cd->stat.nref,
+                            cd->peak_x,      cd->peak_y,
+                            cd->peak_snr,    cd->gaussian_fit,
+                            cd->fit_fwhm};
+        for (int k = 0; k < NFIXED; k++)
+            COL(k)[r] = v[k];
+    }
+    if (nextra > 0 && nrows > 0) {
+        double diam = par.diameter > 0 ? par.diameter : par.fwhm;
+        if ((st = gl_detect_aperture_plan_new(0.5 * diam, &plan))) {
+            rc = cli_fail(cli, st);
+            goto cleanup;
+        }
+        work = gl_malloc(gl_detect_snr_worksize(plan, nx, ny) * sizeof *work);
+        if (!work) {
+            rc = cli_fail(cli, gl_error_nomem("work space"));
+            goto cleanup;
+        }
+        for (long p = 0; p < nextra; p++)
+            for (long r = 0; r < nrows; r++) {
+                gl_ttest t;
+                gl_detect_snr_at(plan, &par, cube->data + (size_t)p * gl_cube_plane_size(cube), nx,
+                                 ny, cand[r].x, cand[r].y, work, &t);
+                COL(NFIXED + p)[r] = t.t; /* NaN: no statistic in that plane */
+            }
+    }
+#undef COL
+    gl_table tab = {ncols, nrows, names, unit_list, colp};
+    char title[512];
+    snprintf(title, sizeof title, "%s  (plane %ld of %ld)", input, plane, nplanes);
+    if ((st = gl_detect_maps_write(tmp_map, maps, cube->header, &par, plane, &cli->prov)) ||
+        (st = gl_table_write_csv(tmp_csv, &tab)) ||
+        (st = gl_table_write_fits(tmp_tab, &tab, "CANDIDATES", &cli->prov)) ||
+        (st = gl_detect_quicklook_write(tmp_png, maps, cand, ncand, &par, sky, title)) ||
+        (st = gl_outset_commit(out))) {
+        rc = cli_fail(cli, st);
+        goto cleanup;
+    }
+
+    if (!cli->quiet) {
+        printf("%ld candidate%s above %g sigma (FPF %.4g per test aperture) in %s plane %ld\n",
+               ncand, ncand == 1 ? "" : "s", par.threshold_sigma,
+               gl_detect_fpf_from_sigma(par.threshold_sigma), input, plane);
+        if (ncand > 0)
+            printf("%4s %9s %9s %8s %8s %8s %10s %8s\n", "rank", "x", "y", "sep_px", "pa_deg",
+                   "snr", "fpf", "sigma");
+        for (long r = 0; r < ncand; r++)
+            printf("%4ld %9.3f %9.3f %8.3f %8.2f %8.2f %10.3g %8.2f\n", r + 1, cand[r].x, cand[r].y,
+                   cand[r].sep_px, cand[r].pa_deg, cand[r].stat.t, cand[r].stat.fpf,
+                   cand[r].stat.significance);
+    }
+
+cleanup:
+    gl_free(extra_names);
+    gl_free(work);
+    gl_detect_aperture_plan_free(plan);
+    gl_free(cols);
+    gl_free(cand);
+    gl_detect_maps_free(maps);
+    gl_detect_sky_free(sky);
+    gl_outset_free(out);
+    gl_cube_free(cube);
+    return rc;
+}

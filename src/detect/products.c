@@ -1,0 +1,157 @@
+/*
+ * products.c -- the detection maps as one FITS file: the primary HDU is the
+ * S/N (Student t) map, image extensions FPF (float64, so that false-positive
+ * fractions far below the float range keep their value) and SIGNIF (the
+ * Gaussian-equivalent significance). Every HDU carries the celestial WCS of
+ * the input (a third axis of a multi-plane input is removed), the parameters
+ * (GLD* keywords), provenance and CHECKSUM/DATASUM.
+ */
+#include "core/internal.h"
+#include "detect/internal.h"
+#include "io/internal.h"
+
+#include <math.h>
+#include <string.h>
+#include <unistd.h>
+
+/* Keyword families of a celestial WCS (FITS WCS papers I and II), copied
+ * into the extensions: a name starting with one of these, or PVi_m / PSi_m. */
+static const char *const wcs_prefix[] = {
+    "CTYPE",   "CRPIX",   "CRVAL",    "CDELT",   "CUNIT",    "CROTA",   "CD1_",  "CD2_",
+    "PC1_",    "PC2_",    "WCSAXES",  "RADESYS", "RADECSYS", "EQUINOX", "EPOCH", "LONPOLE",
+    "LATPOLE", "MJD-OBS", "DATE-OBS", "WCSNAME", "MJDREF",   NULL};
+
+static int is_wcs_key(const char *name)
+{
+    for (int i = 0; wcs_prefix[i]; i++)
+        if (strncmp(name, wcs_prefix[i], strlen(wcs_prefix[i])) == 0)
+            return 1;
+    return (name[0] == 'P' && (name[1] == 'V' || name[1] == 'S') && name[2] >= '1' &&
+            name[2] <= '9' && name[3] == '_');
+}
+
+/* Removes the keywords of a third (plane) axis from h. */
+static void drop_third_axis(gl_header *h)
+{
+    static const char *const keys[] = {
+        "CTYPE3", "CRPIX3", "CRVAL3", "CDELT3", "CUNIT3", "CROTA3", "CD1_3",  "CD2_3",  "CD3_1",
+        "CD3_2",  "CD3_3",  "PC1_3",  "PC2_3",  "PC3_1",  "PC3_2",  "PC3_3",  "CNAME3", "CRDER3",
+        "CSYER3", "CD4_4",  "CTYPE4", "CRPIX4", "CRVAL4", "CDELT4", "CUNIT4", NULL};
+    for (int i = 0; keys[i]; i++)
+        gl_header_remove(h, keys[i]);
+    /* WCSAXES must precede the other WCS cards; without it readers count
+     * the axes from the keywords, which now describe two */
+    double wa;
+    if (gl_header_get_dbl(h, "WCSAXES", &wa) && wa > 2)
+        gl_header_remove(h, "WCSAXES");
+}
+
+static gl_status add_params(gl_header *h, const gl_detect_params *par, long nx, long ny, long plane)
+{
+    detect_geom g;
+    gl_detect_geom(par, &g);
+    gl_status st = GL_OK;
+    if (!st)
+        st = gl_header_set_str(h, "GLDMAP", "SNR", "this HDU: two-sample Student t (S/N)");
+    if (!st)
+        st = gl_header_set_dbl(h, "GLDFWHM", par->fwhm, "[px] PSF FWHM");
+    if (!st)
+        st = gl_header_set_dbl(h, "GLDDIAM", g.diam, "[px] aperture diameter");
+    if (!st)
+        st = gl_header_set_dbl(h, "GLDMASK", g.mask, "[px] inner mask radius");
+    if (!st)
+        st = gl_header_set_dbl(h, "GLDSIGMA", par->threshold_sigma, "threshold, Gaussian sigma");
+    if (!st)
+        st = gl_header_set_dbl(h, "GLDFPF", gl_detect_fpf_from_sigma(par->threshold_sigma),
+                               "threshold false-positive fraction");
+    if (!st)
+        st = gl_header_set_bool(h, "GLDEXADJ", par->exclude_adjacent,
+                                "two apertures next to the test one left out");
+    if (!st)
+        st = gl_header_set_int(h, "GLDSTARX", nx / 2, "star x, 0-based pixel");
+    if (!st)
+        st = gl_header_set_int(h, "GLDSTARY", ny / 2, "star y, 0-based pixel");
+    if (!st)
+        st = gl_header_set_int(h, "GLDPLANE", plane, "plane of the input used (1-based)");
+    if (!st)
+        st = gl_header_add_history(
+            h, "t test of each aperture against the non-overlapping apertures at its "
+               "separation (Mawet et al. 2014, ApJ 792, 97, eq. 9); NaN: no statistic");
+    return st;
+}
+
+/* Appends one image extension with the WCS cards of h. */
+static int append_ext(fitsfile *f, const gl_header *h, const char *extname, const char *what,
+                      int bitpix, int datatype, void *data, long nx, long ny,
+                      const gl_provenance *prov, int *status)
+{
+    long naxes[2] = {nx, ny};
+    fits_create_img(f, bitpix, 2, naxes, status);
+    char name[FLEN_KEYWORD], card[FLEN_CARD];
+    for (int i = 0; i < gl_header_ncards(h) && !*status; i++) {
+        int len = 0, s2 = 0;
+        memcpy(card, gl_header_card(h, i), 81);
+        fits_get_keyname(card, name, &len, &s2);
+        if (is_wcs_key(name))
+            fits_write_record(f, card, status);
+    }
+    fits_update_key_str(f, "EXTNAME", extname, NULL, status);
+    fits_update_key_str(f, "GLDMAP", extname, what, status);
+    gl_fits_write_provenance(f, prov, status);
+    fits_write_img(f, datatype, 1, (LONGLONG)nx * ny, data, status);
+    fits_write_chksum(f, status);
+    return *status;
+}
+
+gl_status gl_detect_maps_write(const char *path, const gl_detect_maps *maps,
+                               const gl_header *header, const gl_detect_params *par, long plane,
+                               const gl_provenance *prov)
+{
+    gl_status st = GL_OK;
+    gl_cube *c = NULL;
+    fitsfile *f = NULL;
+    int status = 0;
+    const long nx = maps->nx, ny = maps->ny;
+    if ((st = gl_cube_new(nx, ny, 1, 1, &c)))
+        goto cleanup;
+    if (header) {
+        gl_header *h = gl_header_copy(header);
+        if (!h) {
+            st = gl_error_nomem("header");
+            goto cleanup;
+        }
+        gl_header_free(c->header);
+        c->header = h;
+    }
+    drop_third_axis(c->header);
+    if ((st = add_params(c->header, par, nx, ny, plane)))
+        goto cleanup;
+    gl_header_set_str(c->header, "EXTNAME", "SNR", NULL);
+    memcpy(c->data, maps->snr, (size_t)nx * (size_t)ny * sizeof(float));
+    if ((st = gl_fits_write_cube(path, c, prov)))
+        goto cleanup;
+    if (fits_open_diskfile(&f, path, READWRITE, &status)) {
+        st = gl_fits_error(GL_ERR_IO, path, "cannot reopen", status);
+        goto cleanup;
+    }
+    append_ext(f, c->header, "FPF", "false-positive fraction P(T > t)", DOUBLE_IMG, TDOUBLE,
+               maps->fpf, nx, ny, prov, &status);
+    append_ext(f, c->header, "SIGNIF", "Gaussian-equivalent significance (sigma)", FLOAT_IMG,
+               TFLOAT, maps->significance, nx, ny, prov, &status);
+    if (status) {
+        st = gl_fits_error(GL_ERR_IO, path, "cannot write the map extensions", status);
+        int s2 = 0;
+        fits_close_file(f, &s2);
+        f = NULL;
+        unlink(path);
+        goto cleanup;
+    }
+    if (fits_close_file(f, &status)) {
+        st = gl_fits_error(GL_ERR_IO, path, "cannot finish writing", status);
+        unlink(path);
+    }
+    f = NULL;
+cleanup:
+    gl_cube_free(c);
+    return st;
+}
