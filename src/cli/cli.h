@@ -78,5 +78,6 @@ int cmd_inspect(gl_cli *cli, int argc, char **argv);
 int cmd_simulate(gl_cli *cli, int argc, char **argv);
 int cmd_subtract(gl_cli *cli, int argc, char **argv);
 int cmd_detect(gl_cli *cli, int argc, char **argv);
+int cmd_limits(gl_cli *cli, int argc, char **argv);
 
 #endif
