@@ -1,11 +1,46 @@
 #!/usr/bin/env bash
 # The demo reduction of the simulated sequence in demo-frames/ (see its
-# README): every pipeline stage that exists, in order, products in OUT.
+# README): the whole pipeline, in order, products in OUT.
 #   scripts/demo.sh GLOAM_BINARY OUT_FOLDER
 set -euo pipefail
 gloam=${1:-build/src/cli/gloam}
 out=${2:-demo-run}
 frames=demo-frames
+fwhm=4.1        # the PSF's FWHM in pixels (demo-frames/README.md)
 mkdir -p "$out"
-echo "== the sequence"
-"$gloam" inspect "$frames/cube.fits" --angles "$frames/angles.txt"
+# the candidate columns worth reading on a terminal
+brief() { cut -d, -f1,4,6,10,11,12 "$1" | sed 's/,/\t/g'; }
+
+echo "== 1. what the sequence holds"
+"$gloam" inspect "$frames/cube.fits" --angles "$frames/angles.txt" --fwhm "$fwhm"
+
+echo
+echo "== 2. classical ADI (median frame subtracted), for comparison"
+"$gloam" subtract "$frames/cube.fits" --angles "$frames/angles.txt" --fwhm "$fwhm" \
+  --mask-radius 6 --method median --out "$out/adi.fits" --overwrite
+"$gloam" detect "$out/adi.fits" --fwhm "$fwhm" --mask-radius 6 --out "$out/adi" --overwrite
+
+echo
+echo "== 3. annular KLIP: 5, 10 and 20 modes, references rotated by at least 0.75 FWHM"
+"$gloam" subtract "$frames/cube.fits" --angles "$frames/angles.txt" --fwhm "$fwhm" \
+  --mask-radius 6 --method annular --gap 0.75 --modes 5,10,20 --out "$out/klip.fits" --overwrite
+
+echo
+echo "== 4. detection in the 5-mode image (5 sigma, small-sample statistics)"
+"$gloam" detect "$out/klip.fits" --fwhm "$fwhm" --plane 1 --mask-radius 6 \
+  --out "$out/klip" --every-plane --overwrite
+echo "found ($out/klip.candidates.csv):"
+brief "$out/klip.candidates.csv"
+echo "planted in the simulation ($frames/truth.csv):"
+cut -d, -f1-3 "$frames/truth.csv" | sed 's/,/\t/g'
+
+echo
+echo "== 5. contrast curve calibrated with fake companions"
+"$gloam" limits "$frames/cube.fits" --angles "$frames/angles.txt" --psf "$frames/psf.fits" \
+  --fwhm "$fwhm" --mask-radius 6 --method annular --gap 0.75 --modes 5 \
+  --out "$out/klip5" --overwrite
+
+echo
+echo "products in $out/: klip.fits (north-up, one plane per mode count), klip.snr.fits"
+echo "and klip.snr.png (S/N maps), klip.candidates.csv, klip5.limits.csv/.png/.svg"
+echo "(contrast curve; the real companions in the field raise the noise at 16 and 31 px)"

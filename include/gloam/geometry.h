@@ -49,6 +49,13 @@ GL_API gl_status gl_geom_shift(const gl_geom_plan *p, gl_geom_work *w, float *im
 GL_API gl_status gl_geom_rotate(const gl_geom_plan *p, gl_geom_work *w, float *img,
                                 double angle_deg);
 
+/* Magnifies img (in place) by `factor` about the star centre: content at
+ * distance d from the star moves to factor * d. Cubic convolution sampling
+ * whatever the plan's interpolator (src/geometry/scale.c); surface brightness
+ * is kept; pixels whose source lies outside the input become NaN.
+ * Errors: GL_ERR_USAGE (factor not positive). */
+GL_API gl_status gl_geom_scale(const gl_geom_plan *p, gl_geom_work *w, float *img, double factor);
+
 /* Parses "fft" or "cubic"; returns -1 for anything else. */
 GL_API int gl_interp_from_name(const char *name);
 GL_API const char *gl_interp_name(gl_interp interp);

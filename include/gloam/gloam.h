@@ -7,6 +7,7 @@
 
 #include "gloam/core.h"
 #include "gloam/io.h"
+#include "gloam/subtract.h"
 #include "gloam/geometry.h"
 #include "gloam/inject.h"
 #include "gloam/limits.h"

@@ -129,9 +129,10 @@ GL_API gl_status gl_fits_write_cube(const char *path, const gl_cube *c, const gl
 typedef struct gl_table {
     int ncols;
     long nrows;
-    const char **names;  /* column names */
-    const char **units;  /* may be NULL or hold NULL entries */
-    const double **cols; /* ncols arrays of nrows doubles */
+    const char **names;      /* column names */
+    const char **units;      /* may be NULL or hold NULL entries */
+    const double **cols;     /* ncols arrays of nrows doubles */
+    const gl_header *header; /* optional keywords for the FITS table HDU (NULL: none) */
 } gl_table;
 
 GL_API gl_status gl_table_write_csv(const char *path, const gl_table *t);

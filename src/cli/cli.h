@@ -77,6 +77,8 @@ int cmd_align(gl_cli *cli, int argc, char **argv);
 int cmd_inject(gl_cli *cli, int argc, char **argv);
 int cmd_inspect(gl_cli *cli, int argc, char **argv);
 int cmd_simulate(gl_cli *cli, int argc, char **argv);
+int cmd_subtract(gl_cli *cli, int argc, char **argv);
 int cmd_detect(gl_cli *cli, int argc, char **argv);
+int cmd_limits(gl_cli *cli, int argc, char **argv);
 
 #endif

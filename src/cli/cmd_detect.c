@@ -266,7 +266,7 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
             }
     }
 #undef COL
-    gl_table tab = {ncols, nrows, names, unit_list, colp};
+    gl_table tab = {ncols, nrows, names, unit_list, colp, NULL};
     char title[512];
     snprintf(title, sizeof title, "%s  (plane %ld of %ld)", input, plane, nplanes);
     if ((st = gl_detect_maps_write(tmp_map, maps, cube->header, &par, plane, &cli->prov)) ||

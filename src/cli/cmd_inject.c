@@ -182,7 +182,7 @@ int cmd_inject(gl_cli *cli, int argc, char **argv)
         const char *names[] = {"companion", "sep_px",   "pa_deg",  "contrast",
                                "flux",      "x_frame1", "y_frame1"};
         const double *cols[] = {idx, sep, pa, con, flux, x0, y0};
-        gl_table t = {7, ncomp, names, NULL, cols};
+        gl_table t = {7, ncomp, names, NULL, cols, NULL};
         if ((st = gl_table_write_csv(tmp_csv, &t)))
             goto cleanup;
     }

@@ -236,7 +236,7 @@ static gl_status write_products(gl_cli *cli, const char *dir, const gl_sim_param
         const char *cn[] = {"sep_px",     "pa_deg",     "contrast", "sep_arcsec",
                             "x_north_up", "y_north_up", "flux"};
         const double *cc[] = {sep, pa, con, sepas, r->comp_x_north, r->comp_y_north, r->comp_flux};
-        gl_table t = {7, m, cn, NULL, cc};
+        gl_table t = {7, m, cn, NULL, cc, NULL};
         if ((st = gl_table_write_csv(tmp[3], &t)) != GL_OK)
             goto cleanup;
     }
@@ -254,7 +254,7 @@ static gl_status write_products(gl_cli *cli, const char *dir, const gl_sim_param
         }
         const char *cn[] = {"frame", "angle_deg", "star_x", "star_y", "hour_angle_deg", "time_s"};
         const double *cc[] = {idx, r->angle_deg, r->star_x, r->star_y, r->ha_deg, tsec};
-        gl_table t = {6, r->nframes, cn, NULL, cc};
+        gl_table t = {6, r->nframes, cn, NULL, cc, NULL};
         if ((st = gl_table_write_csv(tmp[4], &t)) != GL_OK)
             goto cleanup;
     }

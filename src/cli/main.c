@@ -18,8 +18,10 @@ static const command commands[] = {
     {"simulate", cmd_simulate, "simulate a coronagraphic sequence with known truth"},
     {"inspect", cmd_inspect, "report what a cube holds: shape, NaN, saturation, flux, rotation"},
     {"align", cmd_align, "find the star in every frame and centre it"},
-    {"inject", cmd_inject, "plant fake companions into a sequence"},
+    {"subtract", cmd_subtract, "remove the star's halo, derotate to north-up and combine"},
     {"detect", cmd_detect, "S/N and false-alarm maps, candidate point sources"},
+    {"inject", cmd_inject, "plant fake companions into a sequence"},
+    {"limits", cmd_limits, "contrast curves calibrated by fake companions"},
     {NULL, NULL, NULL},
 };
 

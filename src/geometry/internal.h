@@ -14,8 +14,10 @@ struct gl_geom_plan {
     long pad;             /* side of the square padded buffer for FFT rotation */
     fftwf_plan shift_fwd; /* 2-D r2c, ny x nx */
     fftwf_plan shift_inv; /* 2-D c2r */
-    fftwf_plan row_fwd;   /* 1-D r2c of length pad */
-    fftwf_plan row_inv;   /* 1-D c2r */
+    fftwf_plan rows_fwd;  /* GL_GEOM_BATCH contiguous rows of length pad, r2c */
+    fftwf_plan rows_inv;  /* their c2r */
+    fftwf_plan cols_fwd;  /* GL_GEOM_BATCH adjacent columns (stride pad), r2c */
+    fftwf_plan cols_inv;  /* their c2r */
 };
 
 struct gl_geom_work {
@@ -23,8 +25,7 @@ struct gl_geom_work {
     float *real2d;          /* nx*ny */
     fftwf_complex *spec2d;  /* ny*(nx/2+1) */
     float *padded;          /* pad*pad */
-    float *row;             /* pad */
-    fftwf_complex *spec1d;  /* pad/2+1 */
+    fftwf_complex *specb;   /* GL_GEOM_BATCH spectra of pad/2+1 */
     fftwf_complex *phase_x; /* nx/2+1: phase ramp along x for a 2-D shift */
     fftwf_complex *phase_y; /* ny */
 };
@@ -33,8 +34,14 @@ struct gl_geom_work {
  * lies outside [0, n-1] or a neighbour with non-zero weight is NaN. */
 float gl_geom_cubic_sample(const float *img, long nx, long ny, double x, double y);
 
-/* Shifts a real sequence of length n (with spectrum buffer of n/2+1) by d
- * samples, periodically, using the given 1-D plans. */
-void gl_geom_fft_shift_1d(const gl_geom_plan *p, float *row, fftwf_complex *spec, double d);
+/* Shears run on batches of this many rows or columns at once, so FFTW can
+ * vectorise across transforms. Column batches start at multiples of it, which
+ * keeps their alignment equal to the planning buffer's. */
+#define GL_GEOM_BATCH 8
+
+/* Shifts, periodically over the padded length, the GL_GEOM_BATCH spectra in
+ * w->specb by d0 + k * dstep samples (k = 0..BATCH-1), including the 1/pad
+ * normalisation of the inverse transform. */
+void gl_geom_batch_phase(const gl_geom_plan *p, gl_geom_work *w, double d0, double dstep);
 
 #endif

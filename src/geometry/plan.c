@@ -67,21 +67,30 @@ gl_status gl_geom_plan_new(long nx, long ny, gl_interp interp, gl_geom_plan **ou
     p->nx = nx;
     p->ny = ny;
     p->interp = interp;
-    /* padded side: twice the larger axis, so three shears never wrap */
-    p->pad = good_fft_size(2 * (nx > ny ? nx : ny) + 8);
+    /* padded side: twice the larger axis, the largest extent the content
+     * reaches between the shears, so nothing of the input footprint wraps */
+    p->pad = good_fft_size(2 * (nx > ny ? nx : ny));
     gl_status st = GL_OK;
     if (interp == GL_INTERP_FFT) {
         size_t nc2 = (size_t)ny * (size_t)(nx / 2 + 1);
         float *r = gl_malloc((size_t)nx * (size_t)ny * sizeof *r);
         fftwf_complex *c = gl_malloc(nc2 * sizeof *c);
-        float *r1 = gl_malloc((size_t)p->pad * sizeof *r1);
-        fftwf_complex *c1 = gl_malloc((size_t)(p->pad / 2 + 1) * sizeof *c1);
+        int P = (int)p->pad, H = P / 2 + 1, B = GL_GEOM_BATCH;
+        float *r1 = gl_malloc((size_t)P * (size_t)P * sizeof *r1);
+        fftwf_complex *c1 = gl_malloc((size_t)B * (size_t)H * sizeof *c1);
         if (r && c && r1 && c1) {
             p->shift_fwd = fftwf_plan_dft_r2c_2d((int)ny, (int)nx, r, c, FFTW_ESTIMATE);
             p->shift_inv = fftwf_plan_dft_c2r_2d((int)ny, (int)nx, c, r, FFTW_ESTIMATE);
-            p->row_fwd = fftwf_plan_dft_r2c_1d((int)p->pad, r1, c1, FFTW_ESTIMATE);
-            p->row_inv = fftwf_plan_dft_c2r_1d((int)p->pad, c1, r1, FFTW_ESTIMATE);
-            if (!p->shift_fwd || !p->shift_inv || !p->row_fwd || !p->row_inv)
+            p->rows_fwd =
+                fftwf_plan_many_dft_r2c(1, &P, B, r1, NULL, 1, P, c1, NULL, 1, H, FFTW_ESTIMATE);
+            p->rows_inv =
+                fftwf_plan_many_dft_c2r(1, &P, B, c1, NULL, 1, H, r1, NULL, 1, P, FFTW_ESTIMATE);
+            p->cols_fwd =
+                fftwf_plan_many_dft_r2c(1, &P, B, r1, NULL, P, 1, c1, NULL, 1, H, FFTW_ESTIMATE);
+            p->cols_inv =
+                fftwf_plan_many_dft_c2r(1, &P, B, c1, NULL, 1, H, r1, NULL, P, 1, FFTW_ESTIMATE);
+            if (!p->shift_fwd || !p->shift_inv || !p->rows_fwd || !p->rows_inv || !p->cols_fwd ||
+                !p->cols_inv)
                 st =
                     gl_error_set(GL_ERR_INTERNAL, "FFTW could not plan %ldx%ld transforms", nx, ny);
         } else {
@@ -108,10 +117,10 @@ void gl_geom_plan_free(gl_geom_plan *p)
         fftwf_destroy_plan(p->shift_fwd);
     if (p->shift_inv)
         fftwf_destroy_plan(p->shift_inv);
-    if (p->row_fwd)
-        fftwf_destroy_plan(p->row_fwd);
-    if (p->row_inv)
-        fftwf_destroy_plan(p->row_inv);
+    fftwf_plan plans[] = {p->rows_fwd, p->rows_inv, p->cols_fwd, p->cols_inv};
+    for (int i = 0; i < 4; i++)
+        if (plans[i])
+            fftwf_destroy_plan(plans[i]);
     gl_free(p);
 }
 
@@ -129,12 +138,10 @@ gl_status gl_geom_work_new(const gl_geom_plan *p, gl_geom_work **out)
         w->real2d = gl_malloc(n * sizeof(float));
         w->spec2d = gl_malloc((size_t)p->ny * (size_t)(p->nx / 2 + 1) * sizeof(fftwf_complex));
         w->padded = gl_malloc(pad * pad * sizeof(float));
-        w->row = gl_malloc(pad * sizeof(float));
-        w->spec1d = gl_malloc((pad / 2 + 1) * sizeof(fftwf_complex));
+        w->specb = gl_malloc((size_t)GL_GEOM_BATCH * (pad / 2 + 1) * sizeof(fftwf_complex));
         w->phase_x = gl_malloc((size_t)(p->nx / 2 + 1) * sizeof(fftwf_complex));
         w->phase_y = gl_malloc((size_t)p->ny * sizeof(fftwf_complex));
-        ok = ok && w->real2d && w->spec2d && w->padded && w->row && w->spec1d && w->phase_x &&
-             w->phase_y;
+        ok = ok && w->real2d && w->spec2d && w->padded && w->specb && w->phase_x && w->phase_y;
     }
     if (!ok) {
         gl_geom_work_free(w);
@@ -152,8 +159,7 @@ void gl_geom_work_free(gl_geom_work *w)
     gl_free(w->real2d);
     gl_free(w->spec2d);
     gl_free(w->padded);
-    gl_free(w->row);
-    gl_free(w->spec1d);
+    gl_free(w->specb);
     gl_free(w->phase_x);
     gl_free(w->phase_y);
     gl_free(w);

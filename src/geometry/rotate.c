@@ -26,6 +26,12 @@ static inline void source_of(double x, double y, double cx, double cy, double c,
     *sy = cy - s * u + c * v;
 }
 
+/* Nearest integer of a pixel coordinate (> -65536), without a libm call. */
+static inline long nearest(double v)
+{
+    return (long)(v + 65536.5) - 65536;
+}
+
 static void mask_rotated(const float *src, float *img, long nx, long ny, double c, double s)
 {
     double cx = (double)(nx / 2), cy = (double)(ny / 2);
@@ -33,34 +39,41 @@ static void mask_rotated(const float *src, float *img, long nx, long ny, double 
         for (long x = 0; x < nx; x++) {
             double sx, sy;
             source_of((double)x, (double)y, cx, cy, c, s, &sx, &sy);
-            long ix = lround(sx), iy = lround(sy);
+            long ix = nearest(sx), iy = nearest(sy);
             if (ix < 0 || ix >= nx || iy < 0 || iy >= ny || isnan(src[iy * nx + ix]))
                 img[y * nx + x] = NAN;
         }
 }
 
+/* First index of a batch covering lo, aligned to the batch size, kept inside
+ * the padded side P (a multiple of 16). */
+static long batch_start(long lo)
+{
+    return lo / GL_GEOM_BATCH * GL_GEOM_BATCH;
+}
+
+/* x-shear: row j moves by a (j - C); rows lo..hi hold all the content (the
+ * shear of an empty row is empty, so batches may run past hi). */
 static void shear_rows(const gl_geom_plan *p, gl_geom_work *w, double a, long lo, long hi)
 {
     long P = p->pad, C = P / 2;
-    for (long j = lo; j <= hi; j++) {
-        double d = a * (double)(j - C);
-        if (d != 0)
-            gl_geom_fft_shift_1d(p, w->padded + j * P, w->spec1d, d);
+    for (long j0 = batch_start(lo); j0 <= hi; j0 += GL_GEOM_BATCH) {
+        float *rows = w->padded + j0 * P;
+        fftwf_execute_dft_r2c(p->rows_fwd, rows, w->specb);
+        gl_geom_batch_phase(p, w, a * (double)(j0 - C), a);
+        fftwf_execute_dft_c2r(p->rows_inv, w->specb, rows);
     }
 }
 
+/* y-shear: column i moves by b (i - C). */
 static void shear_cols(const gl_geom_plan *p, gl_geom_work *w, double b, long lo, long hi)
 {
-    long P = p->pad, C = P / 2;
-    for (long i = lo; i <= hi; i++) {
-        double d = b * (double)(i - C);
-        if (d == 0)
-            continue;
-        for (long j = 0; j < P; j++)
-            w->row[j] = w->padded[j * P + i];
-        gl_geom_fft_shift_1d(p, w->row, w->spec1d, d);
-        for (long j = 0; j < P; j++)
-            w->padded[j * P + i] = w->row[j];
+    long C = p->pad / 2;
+    for (long i0 = batch_start(lo); i0 <= hi; i0 += GL_GEOM_BATCH) {
+        float *cols = w->padded + i0;
+        fftwf_execute_dft_r2c(p->cols_fwd, cols, w->specb);
+        gl_geom_batch_phase(p, w, b * (double)(i0 - C), b);
+        fftwf_execute_dft_c2r(p->cols_inv, w->specb, cols);
     }
 }
 

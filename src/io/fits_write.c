@@ -61,7 +61,7 @@ static int is_provenance_key(const char *name)
  * A carried card is dropped when a typed key replaces it, for DATE (rewritten
  * by the provenance) and for earlier provenance when prov is given; the
  * CONTINUE cards of a dropped long string go with it. */
-static int write_header(fitsfile *f, const gl_header *h, const gl_provenance *prov, int *status)
+int gl_fits_write_header(fitsfile *f, const gl_header *h, const gl_provenance *prov, int *status)
 {
     if (!h)
         return *status;
@@ -128,7 +128,7 @@ gl_status gl_fits_write_cube(const char *path, const gl_cube *c, const gl_proven
     if (fits_create_diskfile(&f, path, &status))
         return gl_fits_error(GL_ERR_IO, path, "cannot create", status);
     fits_create_img(f, FLOAT_IMG, naxis, naxes, &status);
-    write_header(f, c->header, prov, &status);
+    gl_fits_write_header(f, c->header, prov, &status);
     gl_fits_write_provenance(f, prov, &status);
     if (!status)
         fits_write_img(f, TFLOAT, 1, (LONGLONG)gl_cube_size(c), c->data, &status);

@@ -13,15 +13,12 @@
 #include <string.h>
 #include <unistd.h>
 
-/* Shortest of 15 or 17 significant digits that reads back as the same
- * double (15 keeps 0.1 as "0.1"; 17 always round-trips, IEEE 754). */
+/* 12 significant digits: every column is a measured or derived quantity
+ * known to far fewer digits, and the file stays readable (0.0966, not
+ * 0.096599999999999908). The FITS table twin keeps full double precision. */
 static void print_double(FILE *fp, double v)
 {
-    char buf[32];
-    snprintf(buf, sizeof buf, "%.15g", v);
-    if (strtod(buf, NULL) != v)
-        snprintf(buf, sizeof buf, "%.17g", v);
-    fputs(buf, fp);
+    fprintf(fp, "%.12g", v);
 }
 
 gl_status gl_table_write_csv(const char *path, const gl_table *t)
@@ -88,6 +85,7 @@ gl_status gl_table_write_fits(const char *path, const gl_table *t, const char *e
     for (int c = 0; c < t->ncols && !status; c++)
         if (t->nrows > 0)
             fits_write_col(f, TDOUBLE, c + 1, 1, 1, t->nrows, (void *)t->cols[c], &status);
+    gl_fits_write_header(f, t->header, prov, &status);
     gl_fits_write_provenance(f, prov, &status);
     fits_write_chksum(f, &status);
     gl_free(ttype);

@@ -210,9 +210,9 @@ static void draw(cairo_t *cr, const gl_limits_plot *p)
     }
     cairo_restore(cr);
 
-    /* legend and assumptions, lower left inside the plot */
+    /* legend and assumptions, upper right inside the plot (curves fall from
+     * the upper left, so that corner is the emptiest) */
     cairo_set_font_size(cr, 12);
-    double lx = M_LEFT + 14, ly = M_TOP + f.ph - 14 - 16.0 * (p->ncurves + p->nnotes);
     double bw = 0;
     for (int s = 0; s < p->ncurves; s++) {
         cairo_text_extents_t e;
@@ -224,6 +224,7 @@ static void draw(cairo_t *cr, const gl_limits_plot *p)
         cairo_text_extents(cr, p->notes[k], &e);
         bw = GL_MAX(bw, e.width + 12);
     }
+    double lx = M_LEFT + f.pw - bw - 22, ly = M_TOP + 26;
     cairo_set_source_rgba(cr, 1, 1, 1, 0.85);
     cairo_rectangle(cr, lx - 8, ly - 14, bw + 16, 16.0 * (p->ncurves + p->nnotes) + 12);
     cairo_fill(cr);

@@ -1,0 +1,152 @@
+/*
+ * gloam/subtract.h -- starlight subtraction: removes the star's speckle halo
+ * from a pupil-tracking sequence, derotates the residuals to north-up and
+ * combines them.
+ *
+ * Methods (one table of function pointers behind gl_subtract_run):
+ *  - median: classical ADI (Marois et al. 2006, ApJ 641, 556): every frame
+ *    minus the median frame, the median optionally scaled annulus by annulus
+ *    by least squares;
+ *  - pca: full-frame KLIP/PCA (Soummer, Pueyo & Larkin 2012, ApJL 755, L28):
+ *    one Karhunen-Loeve basis from all usable frames in the region between
+ *    the mask radius and the outer radius, every mode count of the list in
+ *    one pass;
+ *  - annular: KLIP annulus by annulus (optionally in azimuthal sectors),
+ *    where each frame's reference library holds only frames that rotated by
+ *    at least `gap` FWHM (arc length at the annulus' mid radius), optionally
+ *    the nearest N of them.
+ * Reference-star differential imaging (RDI): a reference cube builds the
+ * basis alone or together with the science frames. Spectral differential
+ * imaging (SDI, ASDI) for 4-D cubes: channels rescaled by wavelength, KLIP
+ * across channels, scaled back and averaged before the ADI step.
+ *
+ * Output: a cube of nx x ny x nmodes (one north-up plane per mode count, in
+ * the order given; one plane for the median method). Frame i is derotated
+ * counter-clockwise by -(theta_i + north_offset) degrees (conventions.md).
+ * NaN marks pixels with no data (inside the mask, outside the region).
+ */
+#ifndef GLOAM_SUBTRACT_H
+#define GLOAM_SUBTRACT_H
+
+#include "gloam/core.h"
+#include "gloam/geometry.h"
+
+#ifdef __cplusplus
+extern "C" {
+#endif
+
+typedef enum gl_subtract_method {
+    GL_SUBTRACT_MEDIAN = 0,
+    GL_SUBTRACT_PCA = 1,
+    GL_SUBTRACT_ANNULAR = 2,
+    GL_SUBTRACT_NONE = 3 /* derotate and combine only (after SDI, or a check) */
+} gl_subtract_method;
+
+typedef enum gl_combine {
+    GL_COMBINE_MEDIAN = 0,
+    GL_COMBINE_MEAN = 1,
+    GL_COMBINE_WEIGHTED = 2 /* mean weighted by 1 / residual variance per frame and ring */
+} gl_combine;
+
+/* How the data matrix is centred before the KL basis is built. */
+typedef enum gl_centring {
+    GL_CENTRE_FRAME = 0,   /* each frame minus its own mean in the region (Soummer 2012) */
+    GL_CENTRE_TEMPORAL = 1 /* each pixel minus its mean over the basis frames */
+} gl_centring;
+
+/* What builds the basis when a reference cube is given. */
+typedef enum gl_refs_use {
+    GL_REFS_ONLY = 0,        /* RDI: the reference frames alone */
+    GL_REFS_WITH_SCIENCE = 1 /* reference frames plus the (qualifying) science frames */
+} gl_refs_use;
+
+typedef enum gl_sdi_mode {
+    GL_SDI_OFF = 0,     /* 4-D input: channels averaged before the ADI step */
+    GL_SDI_CHANNELS = 1 /* per frame, KLIP across rescaled channels, then ADI (ASDI) */
+} gl_sdi_mode;
+
+#define GL_SUBTRACT_MAX_MODES 64
+
+typedef struct gl_subtract_params {
+    /* ---- set by the user (gl_subtract_params_init gives the defaults) ---- */
+    gl_subtract_method method;         /* default pca */
+    double fwhm;                       /* PSF FWHM, pixels; must be > 0 (no default: 0) */
+    int nmodes;                        /* number of KL mode counts (default 1) */
+    long modes[GL_SUBTRACT_MAX_MODES]; /* the counts, in output order (default 5) */
+    double mask_radius;                /* px; pixels closer to the star are NaN (default 0) */
+    double outer_radius;               /* px; 0: the largest circle inside the frame */
+    double ring_fwhm;                  /* annulus width in FWHM (annular; median fit) (default 1) */
+    int sectors;                       /* azimuthal sectors per annulus (annular) (default 1) */
+    double gap_fwhm;      /* smallest rotation between a frame and its references (default 0.75) */
+    long nearest;         /* keep only the N qualifying frames nearest in angle; 0: all */
+    int median_fit;       /* median: scale the median frame annulus by annulus */
+    gl_centring centring; /* default GL_CENTRE_FRAME */
+    double north_offset;  /* degrees (default 0) */
+    gl_interp interp;     /* derotation interpolator (default GL_INTERP_FFT) */
+    gl_combine combine;   /* default median */
+    gl_refs_use refs_use; /* when a reference cube is given (default refs only) */
+    long refs_best;       /* keep the N reference frames best correlated with the science; 0: all */
+    gl_sdi_mode sdi;      /* default off */
+    long sdi_modes;       /* KL modes of the spectral step (default 1) */
+    int nwave;            /* number of wavelengths given (0: none) */
+    const double *wavelengths; /* one per channel, any unit (SDI), not owned */
+    int keep_residuals;        /* also return the derotated residual cube */
+    int keep_raw_residuals;    /* also return the residual cube before derotation */
+} gl_subtract_params;
+
+/* Fills p with the defaults listed above. */
+GL_API void gl_subtract_params_init(gl_subtract_params *p);
+
+/* What gl_subtract_run returns besides the image. Residual cubes are
+ * (x, y, mode, frame) when several mode counts were asked for, else
+ * (x, y, frame); NULL unless asked for in the params. */
+typedef struct gl_subtract_result {
+    gl_cube *image;         /* nx x ny x nplanes, north-up */
+    gl_cube *residuals;     /* derotated residuals */
+    gl_cube *raw_residuals; /* residuals in the raw frame orientation */
+    long nframes_used;      /* usable science frames */
+    long nrefs_used;        /* reference frames used (RDI) */
+} gl_subtract_result;
+
+/* Runs the subtraction.
+ * Given: cube (3-D, or 4-D with channels), angles (one per frame, degrees),
+ *        refs (NULL, or a reference-star cube of the same nx, ny, nchan),
+ *        params.
+ * Returned: *out filled (free with gl_subtract_result_free). The image
+ *        header carries the input's cards, every parameter (GLSUB* keys) and
+ *        a north-up WCS when the input had a simple celestial one.
+ * Function return value: GL_OK; GL_ERR_USAGE (a parameter out of range: FWHM
+ *        not positive, modes larger than the usable frames, a gap that leaves
+ *        a frame without references, zero field rotation with an ADI method,
+ *        missing wavelengths for SDI); GL_ERR_INPUT (reference cube of another
+ *        size, no usable frame); GL_ERR_NOMEM; GL_ERR_NUMERIC (eigensolver
+ *        failure). On failure *out holds nothing. */
+GL_API gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cube *refs,
+                                 const gl_subtract_params *params, gl_subtract_result *out);
+/* Frees what a result holds (not the struct itself); NULL members are fine. */
+GL_API void gl_subtract_result_free(gl_subtract_result *r);
+
+/* Checks params alone (not against data): GL_OK or GL_ERR_USAGE with a
+ * message naming the parameter. */
+GL_API gl_status gl_subtract_params_check(const gl_subtract_params *p);
+
+/* Name tables: return -1 for an unknown name. */
+GL_API int gl_subtract_method_from_name(const char *name);
+GL_API const char *gl_subtract_method_name(gl_subtract_method m);
+GL_API int gl_combine_from_name(const char *name);
+GL_API const char *gl_combine_name(gl_combine c);
+
+/* The reference library of one target frame for annular KLIP: the indices
+ * j != target with radius_px * |angles[j] - angles[target]| (radians) >=
+ * gap_px, skipping frames with usable[j] == 0 (usable may be NULL). When
+ * nearest > 0 only the `nearest` qualifying frames closest in angle are kept
+ * (ties: lower index first). Written to idx (room for n entries) in
+ * increasing index order. Returns the number of frames written. */
+GL_API long gl_subtract_library_select(const double *angles, const unsigned char *usable, long n,
+                                       long target, double radius_px, double gap_px, long nearest,
+                                       long *idx);
+
+#ifdef __cplusplus
+}
+#endif
+#endif

@@ -1,0 +1,392 @@
+/*
+ * cmd_limits.c -- `gloam limits`: contrast curves calibrated by fake
+ * companions, written as a table (CSV and FITS) and a figure (PNG and SVG)
+ * that both carry their assumptions.
+ */
+#include "cli/subtract_options.h"
+
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+static const char help[] =
+    "usage: gloam limits CUBE --angles FILE --psf PSF.fits --fwhm PX --out PREFIX [options]\n\n"
+    "Detection limits: runs the subtraction you choose (same options as gloam subtract),\n"
+    "measures the noise at each separation from non-overlapping 1-FWHM apertures, sets\n"
+    "the Student-t threshold of the chosen false-positive fraction (Mawet et al. 2014),\n"
+    "calibrates the throughput with fake companions planted in extra runs of the same\n"
+    "subtraction, and reports the contrast at 50% completeness and at a chosen\n"
+    "completeness (Jensen-Clem et al. 2018). Writes PREFIX.limits.csv, .limits.fits,\n"
+    "PREFIX.limits.png, .limits.svg and PREFIX.fakes.csv.\n\n"
+    "options:\n"
+    "  --angles FILE          parallactic angles (deg), one per frame\n"
+    "  --psf FILE             unsaturated off-axis PSF\n"
+    "  --out PREFIX           prefix of the products\n"
+    "  --psf-scale F          multiplies the PSF to the science exposure (default 1)\n"
+    "  --threshold SIGMA      false-positive fraction as a Gaussian sigma (default 5)\n"
+    "  --completeness Q       completeness of the second curve, 0-1 (default 0.95)\n"
+    "  --step PX              separation step (default FWHM/2)\n"
+    "  --min-separation PX    first separation (default max(FWHM, mask + FWHM/2))\n"
+    "  --max-separation PX    last separation (default: where apertures still fit)\n"
+    "  --branches N           runs with fake companions (default 2)\n"
+    "  --fake-level X         fake flux in units of the local aperture noise (default 10)\n"
+    "  --exclude-adjacent     leave out the two apertures next to the test aperture\n"
+    "  --pixscale MAS         pixel scale for the arcsec axis (default: from the WCS)\n"
+    "  --title TEXT           title of the figure (default: OBJECT, or the file name)\n"
+    "subtraction options:\n";
+
+enum {
+    OPT_ANGLES = CLI_OPT_FIRST_COMMAND_OPTION,
+    OPT_PSF,
+    OPT_OUT,
+    OPT_SCALE,
+    OPT_THRESHOLD,
+    OPT_COMPLETENESS,
+    OPT_STEP,
+    OPT_RMIN,
+    OPT_RMAX,
+    OPT_BRANCHES,
+    OPT_FAKE_LEVEL,
+    OPT_EXCLUDE,
+    OPT_PIXSCALE,
+    OPT_TITLE
+};
+
+static int parse_limits_option(gl_cli *cli, int c, const char *arg, gl_limits_params *lp,
+                               double *psf_scale, double *pixscale)
+{
+    long n;
+    switch (c) {
+    case OPT_SCALE:
+        if (cli_parse_double(cli, "--psf-scale", arg, -INFINITY, INFINITY, psf_scale))
+            return -1;
+        if (!(*psf_scale > 0)) {
+            cli_usage(cli, "--psf-scale must be a positive number (got %s)", arg);
+            return -1;
+        }
+        return 1;
+    case OPT_THRESHOLD:
+        return cli_parse_double(cli, "--threshold", arg, 0.5, 20, &lp->sigma) ? -1 : 1;
+    case OPT_COMPLETENESS:
+        if (cli_parse_double(cli, "--completeness", arg, 0.01, 0.999, &lp->completeness))
+            return -1;
+        return 1;
+    case OPT_STEP: return cli_parse_double(cli, "--step", arg, 0.1, 1e4, &lp->step_px) ? -1 : 1;
+    case OPT_RMIN:
+        return cli_parse_double(cli, "--min-separation", arg, 0.1, 1e5, &lp->r_min_px) ? -1 : 1;
+    case OPT_RMAX:
+        return cli_parse_double(cli, "--max-separation", arg, 0.1, 1e5, &lp->r_max_px) ? -1 : 1;
+    case OPT_BRANCHES:
+        if (cli_parse_long(cli, "--branches", arg, 1, 64, &n))
+            return -1;
+        lp->branches = (int)n;
+        return 1;
+    case OPT_FAKE_LEVEL:
+        return cli_parse_double(cli, "--fake-level", arg, 0.1, 1e4, &lp->fake_level) ? -1 : 1;
+    case OPT_EXCLUDE: lp->exclude_adjacent = 1; return 1;
+    case OPT_PIXSCALE:
+        return cli_parse_double(cli, "--pixscale", arg, 1e-3, 1e6, pixscale) ? -1 : 1;
+    default: return 0;
+    }
+}
+
+/* PREFIX + suffix into buf. */
+static const char *product(char *buf, size_t size, const char *prefix, const char *suffix)
+{
+    snprintf(buf, size, "%s%s", prefix, suffix);
+    return buf;
+}
+
+/* Writes the long-format table (one block of rows per output plane). */
+static gl_status write_tables(const char *csv, const char *fits, const gl_limits_result *r,
+                              double pixscale, double q, const gl_header *keys,
+                              const gl_provenance *prov)
+{
+    long rows = r->n * r->nplanes;
+    enum { NCOL = 17 };
+    double *buf = gl_calloc((size_t)rows * NCOL, sizeof *buf);
+    if (!buf)
+        return gl_error_nomem("limits table");
+    char cq_name[32], dq_name[32];
+    snprintf(cq_name, sizeof cq_name, "contrast_c%02.0f", 100 * q);
+    snprintf(dq_name, sizeof dq_name, "delta_mag_c%02.0f", 100 * q);
+    const char *names[NCOL] = {
+        "plane",        "modes",        "sep_px",      "sep_arcsec",    "napertures", "dof",
+        "noise",        "mean",         "t_threshold", "throughput",    "contrast",   "delta_mag",
+        "completeness", "contrast_c50", cq_name,       "delta_mag_c50", dq_name};
+    const char *units[NCOL] = {"", "", "pix", "arcsec", "", "", "",    "",   "",
+                               "", "", "mag", "",       "", "", "mag", "mag"};
+    const double *cols[NCOL];
+    for (int c = 0; c < NCOL; c++)
+        cols[c] = buf + (size_t)c * (size_t)rows;
+    for (int k = 0; k < r->nplanes; k++)
+        for (long i = 0; i < r->n; i++) {
+            long row = k * r->n + i;
+            size_t j = (size_t)row;
+            double v[NCOL] = {k + 1,
+                              (double)r->modes[k],
+                              r->sep_px[i],
+                              pixscale > 0 ? r->sep_px[i] * pixscale / 1000 : NAN,
+                              r->napertures[j],
+                              r->dof[j],
+                              r->noise[j],
+                              r->mean[j],
+                              r->t_threshold[j],
+                              r->throughput[j],
+                              r->contrast[j],
+                              -2.5 * log10(r->contrast[j]),
+                              r->completeness_of_contrast[j],
+                              r->contrast_c50[j],
+                              r->contrast_cq[j],
+                              -2.5 * log10(r->contrast_c50[j]),
+                              -2.5 * log10(r->contrast_cq[j])};
+            for (int c = 0; c < NCOL; c++)
+                buf[(size_t)c * (size_t)rows + j] = isfinite(v[c]) ? v[c] : NAN;
+        }
+    gl_table t = {NCOL, rows, names, units, cols, keys};
+    gl_status st = gl_table_write_csv(csv, &t);
+    if (!st)
+        st = gl_table_write_fits(fits, &t, "LIMITS", prov);
+    gl_free(buf);
+    return st;
+}
+
+static gl_status write_fakes(const char *csv, const gl_limits_result *r)
+{
+    int nc = 4 + r->nplanes;
+    double *buf = gl_calloc((size_t)(r->nfakes ? r->nfakes : 1) * (size_t)nc, sizeof *buf);
+    const char **names = gl_calloc((size_t)nc, sizeof *names);
+    const double **cols = gl_calloc((size_t)nc, sizeof *cols);
+    char(*pn)[32] = gl_calloc((size_t)r->nplanes, sizeof *pn);
+    gl_status st = GL_OK;
+    if (!buf || !names || !cols || !pn) {
+        st = gl_error_nomem("fakes table");
+        goto cleanup;
+    }
+    names[0] = "sep_px";
+    names[1] = "pa_deg";
+    names[2] = "contrast";
+    names[3] = "branch";
+    for (int k = 0; k < r->nplanes; k++) {
+        snprintf(pn[k], sizeof pn[k], "throughput_plane%d", k + 1);
+        names[4 + k] = pn[k];
+    }
+    for (int c = 0; c < nc; c++)
+        cols[c] = buf + (size_t)c * (size_t)r->nfakes;
+    for (int j = 0; j < r->nfakes; j++) {
+        const gl_limits_fake *f = &r->fakes[j];
+        buf[j] = f->sep_px;
+        buf[(size_t)r->nfakes + (size_t)j] = f->pa_deg;
+        buf[2 * (size_t)r->nfakes + (size_t)j] = f->contrast;
+        buf[3 * (size_t)r->nfakes + (size_t)j] = f->branch + 1;
+        for (int k = 0; k < r->nplanes; k++)
+            buf[(size_t)(4 + k) * (size_t)r->nfakes + (size_t)j] = f->throughput[k];
+    }
+    gl_table t = {nc, r->nfakes, names, NULL, cols, NULL};
+    st = gl_table_write_csv(csv, &t);
+cleanup:
+    gl_free(buf);
+    gl_free(names);
+    gl_free(cols);
+    gl_free(pn);
+    return st;
+}
+
+int cmd_limits(gl_cli *cli, int argc, char **argv)
+{
+    static const struct option opts[] = {{"angles", required_argument, 0, OPT_ANGLES},
+                                         {"psf", required_argument, 0, OPT_PSF},
+                                         {"out", required_argument, 0, OPT_OUT},
+                                         {"psf-scale", required_argument, 0, OPT_SCALE},
+                                         {"threshold", required_argument, 0, OPT_THRESHOLD},
+                                         {"completeness", required_argument, 0, OPT_COMPLETENESS},
+                                         {"step", required_argument, 0, OPT_STEP},
+                                         {"min-separation", required_argument, 0, OPT_RMIN},
+                                         {"max-separation", required_argument, 0, OPT_RMAX},
+                                         {"branches", required_argument, 0, OPT_BRANCHES},
+                                         {"fake-level", required_argument, 0, OPT_FAKE_LEVEL},
+                                         {"exclude-adjacent", no_argument, 0, OPT_EXCLUDE},
+                                         {"pixscale", required_argument, 0, OPT_PIXSCALE},
+                                         {"title", required_argument, 0, OPT_TITLE},
+                                         CLI_SUBTRACT_OPTIONS,
+                                         CLI_COMMON_OPTIONS,
+                                         {0, 0, 0, 0}};
+    const char *angles_path = NULL, *psf_path = NULL, *prefix = NULL, *title = NULL;
+    cli_subtract_setup setup;
+    cli_subtract_setup_init(&setup);
+    gl_limits_params lp;
+    gl_limits_params_init(&lp);
+    double psf_scale = 1, pixscale = NAN;
+    int exit_now = 0, c;
+    char full_help[8192];
+    snprintf(full_help, sizeof full_help, "%s%s", help, cli_subtract_help);
+
+    opterr = 0;
+    optind = 1;
+    while ((c = getopt_long(argc, argv, "", opts, NULL)) != -1) {
+        int r = cli_common_option(cli, c, optarg, full_help, &exit_now);
+        if (r == 0)
+            r = cli_subtract_option(cli, c, optarg, &setup);
+        if (r == 0)
+            r = parse_limits_option(cli, c, optarg, &lp, &psf_scale, &pixscale);
+        if (r < 0)
+            return 1;
+        if (exit_now)
+            return 0;
+        if (r)
+            continue;
+        switch (c) {
+        case OPT_ANGLES: angles_path = optarg; break;
+        case OPT_PSF: psf_path = optarg; break;
+        case OPT_OUT: prefix = optarg; break;
+        case OPT_TITLE: title = optarg; break;
+        default: return cli_bad_option(cli, argv);
+        }
+    }
+    if (optind != argc - 1)
+        return cli_usage(cli,
+                         optind >= argc ? "the input cube is missing" : "expected one input cube");
+    const char *cube_path = argv[optind];
+    if (!angles_path || !psf_path || !prefix)
+        return cli_usage(cli, "--angles, --psf, --fwhm and --out are needed");
+    if (cli_subtract_check(cli, &setup))
+        return 1;
+    if (lp.r_min_px > 0 && lp.r_max_px > 0 && lp.r_min_px > lp.r_max_px)
+        return cli_usage(cli, "--min-separation is beyond --max-separation");
+    cli_start(cli);
+
+    gl_cube *cube = NULL, *refs = NULL, *psfc = NULL;
+    gl_psf_model *psf = NULL;
+    gl_outset *outs = NULL;
+    gl_header *keys = NULL;
+    double *angles = NULL;
+    long nangles = 0;
+    gl_limits_result res = {0};
+    gl_status st;
+    char p_csv[4096], p_fits[4096], p_png[4096], p_svg[4096], p_fakes[4096];
+    const char *t_csv, *t_fits, *t_png, *t_svg, *t_fakes;
+
+    if ((st = gl_fits_read_cube(cube_path, 3, &cube)) ||
+        (st = gl_provenance_add_input(&cli->prov, cube_path)) ||
+        (st = gl_angles_read(angles_path, cube->nframe, &angles, &nangles)) ||
+        (st = gl_provenance_add_input(&cli->prov, angles_path)) ||
+        (st = gl_fits_read_cube(psf_path, 2, &psfc)) ||
+        (st = gl_provenance_add_input(&cli->prov, psf_path)) ||
+        (st = cli_subtract_prepare(cli, &setup, cube_path, cube, &refs)) ||
+        (st = gl_psf_model_new(psfc, psf_path, cube->nx, cube->ny, cube->nchan, psf_scale, &psf)))
+        goto cleanup;
+    if ((st = gl_outset_new(cli->overwrite, &outs)) ||
+        (st = gl_outset_add(outs, product(p_csv, sizeof p_csv, prefix, ".limits.csv"), &cli->prov,
+                            &t_csv)) ||
+        (st = gl_outset_add(outs, product(p_fits, sizeof p_fits, prefix, ".limits.fits"),
+                            &cli->prov, &t_fits)) ||
+        (st = gl_outset_add(outs, product(p_png, sizeof p_png, prefix, ".limits.png"), &cli->prov,
+                            &t_png)) ||
+        (st = gl_outset_add(outs, product(p_svg, sizeof p_svg, prefix, ".limits.svg"), &cli->prov,
+                            &t_svg)) ||
+        (st = gl_outset_add(outs, product(p_fakes, sizeof p_fakes, prefix, ".fakes.csv"),
+                            &cli->prov, &t_fakes)))
+        goto cleanup;
+
+    gl_obsinfo info;
+    gl_obsinfo_from_header(cube->header, &info);
+    if (!(pixscale > 0) && info.pixscale_mas > 0)
+        pixscale = info.pixscale_mas;
+    gl_log(GL_LOG_INFO, "PSF in %s: FWHM %.2f px measured (--fwhm %.2f), star flux %.6g per frame",
+           psf_path, psf->fwhm_px[0], setup.p.fwhm, psf->flux[0]);
+    if ((st = gl_limits_compute(cube, angles, refs, &setup.p, psf, &lp, &res))) {
+        if (st == GL_ERR_INPUT) {
+            char msg[1024];
+            snprintf(msg, sizeof msg, "%s", gl_error_message());
+            gl_error_set(st, "%s: %s", cube_path, msg);
+        }
+        goto cleanup;
+    }
+
+    /* the assumptions, recorded with the table and printed on the figure */
+    char modes_text[256] = "";
+    for (int k = 0; k < res.nplanes && res.modes[k]; k++)
+        snprintf(modes_text + strlen(modes_text), sizeof modes_text - strlen(modes_text), "%s%ld",
+                 k ? "," : "", res.modes[k]);
+    keys = gl_header_new();
+    if (!keys) {
+        st = gl_error_nomem("limits header");
+        goto cleanup;
+    }
+    gl_header_set_dbl(keys, "GLSIGMA", lp.sigma, "threshold, Gaussian-equivalent sigma");
+    gl_header_set_dbl(keys, "GLFPF", res.fpf, "false-positive fraction of the threshold");
+    gl_header_set_str(keys, "GLSTAT", "two-sample Student-t, Mawet+2014",
+                      "small-sample statistics per separation");
+    gl_header_set_dbl(keys, "GLCOMPL", lp.completeness, "completeness of the second curve");
+    gl_header_set_str(keys, "GLCMPREF", "noncentral t, Jensen-Clem+2018", "completeness model");
+    gl_header_set_dbl(keys, "GLFWHM", setup.p.fwhm, "[pix] FWHM = aperture diameter");
+    gl_header_set_dbl(keys, "GLPSFSC", psf_scale, "PSF scale to the science exposure");
+    gl_header_set_dbl(keys, "GLPSFAP", res.psf_aperture_flux, "aperture flux of the scaled PSF");
+    gl_header_set_dbl(keys, "GLSTARF", psf->flux[0], "star flux per frame = scaled PSF total");
+    gl_header_set_str(keys, "GLMETHOD", gl_subtract_method_name(setup.p.method),
+                      "subtraction method");
+    if (modes_text[0])
+        gl_header_set_str(keys, "GLMODES", modes_text, "KL mode counts, one per plane");
+    gl_header_set_dbl(keys, "GLMASK", setup.p.mask_radius, "[pix] inner mask radius");
+    gl_header_set_int(keys, "GLBRANCH", lp.branches, "subtraction runs with fake companions");
+    gl_header_set_int(keys, "GLNFAKE", res.nfakes, "fake companions planted");
+    gl_header_set_dbl(keys, "GLFAKELV", lp.fake_level, "fake flux / local aperture noise");
+    gl_header_set_str(keys, "GLTHRU", "injection-recovery, linear in sep",
+                      "throughput: (with - without fakes), interpolated");
+    gl_header_set_bool(keys, "GLEXADJ", lp.exclude_adjacent, "adjacent apertures left out");
+    gl_header_add_history(keys, "contrast = t sigma sqrt(1+1/n2) / (throughput x PSF aperture "
+                                "flux); sigma = std of the aperture sums at the separation");
+
+    if ((st = write_tables(t_csv, t_fits, &res, pixscale, lp.completeness, keys, &cli->prov)) ||
+        (st = write_fakes(t_fakes, &res)))
+        goto cleanup;
+
+    {
+        char ttl[256], n1[160], n2[160], n3[200], n4[200], l1[96], l2[96];
+        if (title)
+            snprintf(ttl, sizeof ttl, "%s", title);
+        else
+            snprintf(ttl, sizeof ttl, "%s -- detection limits",
+                     info.object[0] ? info.object : cube_path);
+        snprintf(l1, sizeof l1, "%g sigma, 50%% completeness", lp.sigma);
+        snprintf(l2, sizeof l2, "%g sigma, %.0f%% completeness", lp.sigma, 100 * lp.completeness);
+        snprintf(n1, sizeof n1, "FPF %.3g per aperture (%g sigma), Student-t per separation",
+                 res.fpf, lp.sigma);
+        snprintf(n2, sizeof n2, "%s%s%s; FWHM %.2f px = aperture diameter; mask %.1f px",
+                 gl_subtract_method_name(setup.p.method), modes_text[0] ? ", modes " : "",
+                 modes_text[0] ? modes_text : "", setup.p.fwhm, setup.p.mask_radius);
+        snprintf(n3, sizeof n3, "throughput from %d fakes in %d runs at %g x noise; PSF scale %g",
+                 res.nfakes, lp.branches, lp.fake_level, psf_scale);
+        snprintf(n4, sizeof n4, "plane 1 of %d; star flux = scaled off-axis PSF total",
+                 res.nplanes);
+        gl_limits_plot plot = {res.n,
+                               res.sep_px,
+                               2,
+                               {{res.contrast_c50, l1}, {res.contrast_cq, l2}},
+                               pixscale > 0 ? pixscale : 0,
+                               ttl,
+                               4,
+                               {n1, n2, n3, n4}};
+        if ((st = gl_limits_plot_write(t_png, t_svg, &plot)))
+            goto cleanup;
+    }
+    if ((st = gl_outset_commit(outs)))
+        goto cleanup;
+    for (long i = 0; i<res.n; i += res.n> 8 ? res.n / 8 : 1)
+        gl_log(GL_LOG_INFO, "  %6.1f px: throughput %.2f, %g-sigma contrast %.3g (%.1f mag)",
+               res.sep_px[i], res.throughput[i], lp.sigma, res.contrast_c50[i],
+               -2.5 * log10(res.contrast_c50[i]));
+    gl_log(GL_LOG_INFO, "wrote %s (.fits, .png, .svg) and %s", p_csv, p_fakes);
+
+cleanup:
+    gl_outset_free(outs);
+    gl_limits_result_free(&res);
+    gl_psf_model_free(psf);
+    gl_header_free(keys);
+    gl_cube_free(cube);
+    gl_cube_free(refs);
+    gl_cube_free(psfc);
+    gl_free(angles);
+    return st ? cli_fail(cli, st) : 0;
+}

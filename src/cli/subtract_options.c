@@ -1,0 +1,271 @@
+/*
+ * subtract_options.c -- the options of the starlight subtraction, shared by
+ * `gloam subtract` and `gloam limits` (which must run exactly the subtraction
+ * the user chose): the getopt table entries, their help lines, parsing into
+ * gl_subtract_params, and the checks and loading that need the science cube
+ * (reference cube, wavelengths).
+ */
+#include "cli/subtract_options.h"
+
+#include <errno.h>
+#include <math.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+const char cli_subtract_help[] =
+    "  --fwhm PX              PSF full width at half maximum, pixels (> 0)\n"
+    "  --method NAME          median | pca | annular | none (default pca)\n"
+    "                           median: frame minus the median frame (classical ADI)\n"
+    "                           pca: full-frame KLIP, one basis for every mode count\n"
+    "                           annular: KLIP ring by ring with a rotation gap\n"
+    "                           none: derotate and combine only\n"
+    "  --modes K1,K2,...      KL mode counts, one output plane each (default 5)\n"
+    "  --mask-radius PX       inner mask: pixels closer to the star are left out (default 0)\n"
+    "  --outer-radius PX      outer edge of the region (default: largest circle in the frame)\n"
+    "  --ring W               annulus width, FWHM (annular, median fit; default 1)\n"
+    "  --sectors N            azimuthal sectors per annulus (annular; default 1)\n"
+    "  --gap G                least rotation between a frame and its references, FWHM of arc\n"
+    "                         at the annulus (annular; default 0.75)\n"
+    "  --nearest N            keep only the N qualifying frames nearest in angle (annular)\n"
+    "  --median-fit           scale the median frame ring by ring (median)\n"
+    "  --centre MODE          frame | temporal: mean removed before the KL basis\n"
+    "                         (default frame: each frame minus its own mean)\n"
+    "  --north-offset DEG     true north offset of the detector (default 0)\n"
+    "  --interp NAME          derotation: fft (default) | cubic\n"
+    "  --combine NAME         median (default) | mean | weighted (inverse residual variance)\n"
+    "  --refs FILE            reference-star cube for RDI (same frame size)\n"
+    "  --refs-use WHAT        refs (default: basis from the references alone) | both\n"
+    "  --refs-best N          keep the N reference frames best correlated with the science\n"
+    "  --sdi                  spectral step for 4-D cubes before the ADI step (ASDI)\n"
+    "  --wavelengths L1,...   one wavelength per channel (default: the header's WAVE axis)\n"
+    "  --sdi-modes K          KL modes of the spectral step (default 1)\n";
+
+void cli_subtract_setup_init(cli_subtract_setup *s)
+{
+    memset(s, 0, sizeof *s);
+    gl_subtract_params_init(&s->p);
+}
+
+/* Parses "a,b,c" into up to max doubles; returns the count or -1. */
+static int parse_list(const char *text, double *vals, int max)
+{
+    int n = 0;
+    const char *p = text;
+    while (*p) {
+        char *end;
+        errno = 0;
+        double v = strtod(p, &end);
+        if (end == p || errno || !isfinite(v) || n == max)
+            return -1;
+        vals[n++] = v;
+        if (*end == ',')
+            end++;
+        else if (*end)
+            return -1;
+        p = end;
+    }
+    return n;
+}
+
+/* Wavelengths from a FITS spectral axis 3 (CTYPE3 WAVE*, CRVAL3, CDELT3,
+ * CRPIX3; Greisen et al. 2006, A&A 446, 747). Returns the count found. */
+static int header_wavelengths(const gl_header *h, long nchan, double *w, int max)
+{
+    char ctype[72];
+    double crval, cdelt, crpix = 1;
+    if (!gl_header_get_str(h, "CTYPE3", ctype, sizeof ctype) || strncmp(ctype, "WAVE", 4) != 0 ||
+        !gl_header_get_dbl(h, "CRVAL3", &crval) || !gl_header_get_dbl(h, "CDELT3", &cdelt))
+        return 0;
+    gl_header_get_dbl(h, "CRPIX3", &crpix);
+    if (nchan > max)
+        return 0;
+    for (long k = 0; k < nchan; k++)
+        w[k] = crval + ((double)(k + 1) - crpix) * cdelt;
+    return (int)nchan;
+}
+
+int cli_subtract_option(gl_cli *cli, int code, const char *optarg, cli_subtract_setup *s)
+{
+    gl_subtract_params *pp = &s->p;
+#define p (*pp)
+    long n;
+    double list[GL_SUBTRACT_MAX_MODES];
+    switch (code) {
+    case CLI_OPT_REFS: s->refs_path = optarg; return 1;
+    case CLI_OPT_WAVES: s->waves_text = optarg; return 1;
+    case CLI_OPT_MEDFIT: p.median_fit = 1; return 1;
+    case CLI_OPT_SDI: p.sdi = GL_SDI_CHANNELS; return 1;
+    case CLI_OPT_FWHM:
+        if (cli_parse_double(cli, "--fwhm", optarg, -INFINITY, INFINITY, &p.fwhm))
+            return -1;
+        if (!(p.fwhm > 0)) {
+            cli_usage(cli, "--fwhm must be a positive number of pixels (got %s)", optarg);
+            return -1;
+        }
+        s->have_fwhm = 1;
+        return 1;
+    case CLI_OPT_METHOD: {
+        int m = gl_subtract_method_from_name(optarg);
+        if (m < 0) {
+            cli_usage(cli, "--method: '%s' is not median, pca, annular or none", optarg);
+            return -1;
+        }
+        p.method = (gl_subtract_method)m;
+        return 1;
+    }
+    case CLI_OPT_MODES: {
+        int k = parse_list(optarg, list, GL_SUBTRACT_MAX_MODES);
+        if (k < 1) {
+            cli_usage(cli, "--modes: '%s' is not a list of mode counts like 5,10,20", optarg);
+            return -1;
+        }
+        for (int i = 0; i < k; i++) {
+            if (list[i] < 1 || list[i] != floor(list[i]) || list[i] > 1e6) {
+                cli_usage(cli, "--modes: %g is not a positive whole number", list[i]);
+                return -1;
+            }
+            p.modes[i] = (long)list[i];
+        }
+        p.nmodes = k;
+        return 1;
+    }
+    case CLI_OPT_MASK:
+        return cli_parse_double(cli, "--mask-radius", optarg, 0, 1e6, &p.mask_radius) ? -1 : 1;
+    case CLI_OPT_OUTER:
+        return cli_parse_double(cli, "--outer-radius", optarg, 0, 1e6, &p.outer_radius) ? -1 : 1;
+    case CLI_OPT_RING:
+        return cli_parse_double(cli, "--ring", optarg, 1e-3, 1e4, &p.ring_fwhm) ? -1 : 1;
+    case CLI_OPT_SECTORS:
+        if (cli_parse_long(cli, "--sectors", optarg, 1, 360, &n))
+            return -1;
+        p.sectors = (int)n;
+        return 1;
+    case CLI_OPT_GAP: return cli_parse_double(cli, "--gap", optarg, 0, 1e4, &p.gap_fwhm) ? -1 : 1;
+    case CLI_OPT_NEAREST:
+        return cli_parse_long(cli, "--nearest", optarg, 1, 1000000, &p.nearest) ? -1 : 1;
+    case CLI_OPT_CENTRE:
+        if (strcmp(optarg, "frame") == 0)
+            p.centring = GL_CENTRE_FRAME;
+        else if (strcmp(optarg, "temporal") == 0)
+            p.centring = GL_CENTRE_TEMPORAL;
+        else {
+            cli_usage(cli, "--centre: '%s' is not frame or temporal", optarg);
+            return -1;
+        }
+        return 1;
+    case CLI_OPT_NORTH:
+        return cli_parse_double(cli, "--north-offset", optarg, -360, 360, &p.north_offset) ? -1 : 1;
+    case CLI_OPT_INTERP: {
+        int m = gl_interp_from_name(optarg);
+        if (m < 0) {
+            cli_usage(cli, "--interp: '%s' is not fft or cubic", optarg);
+            return -1;
+        }
+        p.interp = (gl_interp)m;
+        return 1;
+    }
+    case CLI_OPT_COMBINE: {
+        int m = gl_combine_from_name(optarg);
+        if (m < 0) {
+            cli_usage(cli, "--combine: '%s' is not median, mean or weighted", optarg);
+            return -1;
+        }
+        p.combine = (gl_combine)m;
+        return 1;
+    }
+    case CLI_OPT_REFS_USE:
+        if (strcmp(optarg, "refs") == 0)
+            p.refs_use = GL_REFS_ONLY;
+        else if (strcmp(optarg, "both") == 0)
+            p.refs_use = GL_REFS_WITH_SCIENCE;
+        else {
+            cli_usage(cli, "--refs-use: '%s' is not refs or both", optarg);
+            return -1;
+        }
+        return 1;
+    case CLI_OPT_REFS_BEST:
+        return cli_parse_long(cli, "--refs-best", optarg, 1, 1000000, &p.refs_best) ? -1 : 1;
+    case CLI_OPT_SDI_MODES:
+        return cli_parse_long(cli, "--sdi-modes", optarg, 1, 1000, &p.sdi_modes) ? -1 : 1;
+    default: return 0;
+    }
+#undef p
+}
+
+int cli_subtract_check(const gl_cli *cli, const cli_subtract_setup *s)
+{
+    if (!s->have_fwhm)
+        return cli_usage(cli, "--fwhm is needed");
+    if (!s->refs_path && (s->p.refs_use != GL_REFS_ONLY || s->p.refs_best))
+        return cli_usage(cli, "--refs-use and --refs-best need --refs");
+    return 0;
+}
+
+gl_status cli_subtract_prepare(gl_cli *cli, cli_subtract_setup *s, const char *cube_path,
+                               const gl_cube *cube, gl_cube **refs_out)
+{
+    gl_cube *refs = NULL;
+    gl_status st = GL_OK;
+    *refs_out = NULL;
+    if (s->refs_path) {
+        if ((st = gl_fits_read_cube(s->refs_path, 3, &refs)) ||
+            (st = gl_provenance_add_input(&cli->prov, s->refs_path)))
+            goto cleanup;
+        if (refs->nx != cube->nx || refs->ny != cube->ny || refs->nchan != cube->nchan) {
+            st = gl_error_set(GL_ERR_INPUT,
+                              "%s: reference cube is %ld x %ld px with %ld channel(s), but %s is "
+                              "%ld x %ld px with %ld",
+                              s->refs_path, refs->nx, refs->ny, refs->nchan, cube_path, cube->nx,
+                              cube->ny, cube->nchan);
+            goto cleanup;
+        }
+    }
+    if (s->p.sdi == GL_SDI_CHANNELS && cube->nchan < 2) {
+        st = gl_error_set(GL_ERR_USAGE,
+                          "%s: --sdi needs a 4-D cube (x, y, wavelength, frame); this one has "
+                          "one channel",
+                          cube_path);
+        goto cleanup;
+    }
+    if (s->p.sdi == GL_SDI_CHANNELS) {
+        int nw = s->waves_text ? parse_list(s->waves_text, s->waves, 256)
+                               : header_wavelengths(cube->header, cube->nchan, s->waves, 256);
+        if (nw < 0 || (s->waves_text && nw != cube->nchan)) {
+            st = gl_error_set(GL_ERR_USAGE,
+                              "--wavelengths '%s': expected %ld positive numbers separated by "
+                              "commas (one per channel of %s)",
+                              s->waves_text, cube->nchan, cube_path);
+            goto cleanup;
+        }
+        if (nw == 0) {
+            st = gl_error_set(GL_ERR_USAGE,
+                              "%s: --sdi needs --wavelengths or a WAVE axis 3 in the header",
+                              cube_path);
+            goto cleanup;
+        }
+        s->p.nwave = nw;
+        s->p.wavelengths = s->waves;
+    } else if (s->waves_text) {
+        st = gl_error_set(GL_ERR_USAGE, "--wavelengths is only used with --sdi");
+        goto cleanup;
+    }
+    *refs_out = refs;
+    refs = NULL;
+cleanup:
+    gl_cube_free(refs);
+    return st;
+}
+
+gl_status cli_subtract_run(const cli_subtract_setup *s, const char *cube_path, const gl_cube *cube,
+                           const double *angles, const gl_cube *refs, gl_subtract_result *res)
+{
+    gl_status st = gl_subtract_run(cube, angles, refs, &s->p, res);
+    if (st == GL_ERR_INPUT) {
+        /* name the file the message is about */
+        char msg[1024];
+        snprintf(msg, sizeof msg, "%s", gl_error_message());
+        gl_error_set(st, "%s: %s", cube_path, msg);
+    }
+    return st;
+}

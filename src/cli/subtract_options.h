@@ -1,0 +1,83 @@
+/*
+ * subtract_options.h -- the subtraction options shared by `gloam subtract`
+ * and `gloam limits`.
+ */
+#ifndef GLOAM_CLI_SUBTRACT_OPTIONS_H
+#define GLOAM_CLI_SUBTRACT_OPTIONS_H
+
+#include "cli/cli.h"
+
+enum {
+    CLI_OPT_FWHM = 1050,
+    CLI_OPT_METHOD,
+    CLI_OPT_MODES,
+    CLI_OPT_MASK,
+    CLI_OPT_OUTER,
+    CLI_OPT_RING,
+    CLI_OPT_SECTORS,
+    CLI_OPT_GAP,
+    CLI_OPT_NEAREST,
+    CLI_OPT_MEDFIT,
+    CLI_OPT_CENTRE,
+    CLI_OPT_NORTH,
+    CLI_OPT_INTERP,
+    CLI_OPT_COMBINE,
+    CLI_OPT_REFS,
+    CLI_OPT_REFS_USE,
+    CLI_OPT_REFS_BEST,
+    CLI_OPT_SDI,
+    CLI_OPT_WAVES,
+    CLI_OPT_SDI_MODES
+};
+
+#define CLI_SUBTRACT_OPTIONS                                                                       \
+    {"fwhm", required_argument, 0, CLI_OPT_FWHM},                                                  \
+        {"method", required_argument, 0, CLI_OPT_METHOD},                                          \
+        {"modes", required_argument, 0, CLI_OPT_MODES},                                            \
+        {"mask-radius", required_argument, 0, CLI_OPT_MASK},                                       \
+        {"outer-radius", required_argument, 0, CLI_OPT_OUTER},                                     \
+        {"ring", required_argument, 0, CLI_OPT_RING},                                              \
+        {"sectors", required_argument, 0, CLI_OPT_SECTORS},                                        \
+        {"gap", required_argument, 0, CLI_OPT_GAP},                                                \
+        {"nearest", required_argument, 0, CLI_OPT_NEAREST},                                        \
+        {"median-fit", no_argument, 0, CLI_OPT_MEDFIT},                                            \
+        {"centre", required_argument, 0, CLI_OPT_CENTRE},                                          \
+        {"north-offset", required_argument, 0, CLI_OPT_NORTH},                                     \
+        {"interp", required_argument, 0, CLI_OPT_INTERP},                                          \
+        {"combine", required_argument, 0, CLI_OPT_COMBINE},                                        \
+        {"refs", required_argument, 0, CLI_OPT_REFS},                                              \
+        {"refs-use", required_argument, 0, CLI_OPT_REFS_USE},                                      \
+        {"refs-best", required_argument, 0, CLI_OPT_REFS_BEST},                                    \
+        {"sdi", no_argument, 0, CLI_OPT_SDI},                                                      \
+        {"wavelengths", required_argument, 0, CLI_OPT_WAVES},                                      \
+    {                                                                                              \
+        "sdi-modes", required_argument, 0, CLI_OPT_SDI_MODES                                       \
+    }
+
+/* Help lines of those options. */
+extern const char cli_subtract_help[];
+
+typedef struct cli_subtract_setup {
+    gl_subtract_params p;
+    int have_fwhm;
+    const char *refs_path;
+    const char *waves_text;
+    double waves[256];
+} cli_subtract_setup;
+
+void cli_subtract_setup_init(cli_subtract_setup *s);
+/* Handles one of CLI_SUBTRACT_OPTIONS: 1 handled, 0 not one of them, -1 bad
+ * value (message printed). */
+int cli_subtract_option(gl_cli *cli, int code, const char *arg, cli_subtract_setup *s);
+/* Checks what needs no data (--fwhm given, --refs-* with --refs); prints and
+ * returns 1 on a problem, else 0. */
+int cli_subtract_check(const gl_cli *cli, const cli_subtract_setup *s);
+/* With the science cube read: loads the reference cube (added to the
+ * provenance), checks its size, resolves the wavelengths for --sdi. */
+gl_status cli_subtract_prepare(gl_cli *cli, cli_subtract_setup *s, const char *cube_path,
+                               const gl_cube *cube, gl_cube **refs);
+/* gl_subtract_run, with messages about the data naming cube_path. */
+gl_status cli_subtract_run(const cli_subtract_setup *s, const char *cube_path, const gl_cube *cube,
+                           const double *angles, const gl_cube *refs, gl_subtract_result *res);
+
+#endif

@@ -1,0 +1,33 @@
+/*
+ * subtract/combine.h -- the sink every method hands its residuals to:
+ * derotation to north-up and combination into one output plane.
+ */
+#ifndef GLOAM_SUBTRACT_COMBINE_H
+#define GLOAM_SUBTRACT_COMBINE_H
+
+#include "subtract/internal.h"
+
+typedef struct sub_sink {
+    const sub_ctx *c;
+    gl_cube *image; /* nx x ny x nplanes */
+    gl_cube *resid; /* derotated residuals, or NULL */
+    gl_cube *raw;   /* raw-orientation residuals, or NULL */
+    int nth;
+    gl_geom_plan *plan;
+    gl_geom_work **works; /* one per thread */
+    float *scratch;       /* nth x nframe */
+    double *wscratch;     /* nth x 3 x nring */
+    gl_status *fstat;     /* per frame rotation status */
+    long nring;
+    int *ring;       /* ring of each pixel, 1 FWHM wide */
+    double *weights; /* nframe x nring (weighted mean only) */
+} sub_sink;
+
+/* Builds the sink for ctx (geometry plan and per-thread work). */
+gl_status sub_sink_new(const sub_ctx *c, gl_cube *image, gl_cube *resid, gl_cube *raw,
+                       sub_sink **out);
+void sub_sink_free(sub_sink *s);
+/* The sub_sink_fn: derotates resid in place and fills plane mode_index. */
+gl_status sub_sink_put(void *sink, int mode_index, float *resid);
+
+#endif

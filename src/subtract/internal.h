@@ -1,0 +1,153 @@
+/*
+ * subtract/internal.h -- what the subtraction methods share: the prepared
+ * data (science frames as rows of plane pixels, references, angles), the
+ * region pixel lists, the linear-algebra kernels (blocked so every output
+ * element is computed by one fixed BLAS call, whatever the thread count) and
+ * the method table.
+ */
+#ifndef GLOAM_SUBTRACT_INTERNAL_H
+#define GLOAM_SUBTRACT_INTERNAL_H
+
+#include "gloam/subtract.h"
+
+#include <stddef.h>
+
+#define GL_SUB_MIN(a, b) ((a) < (b) ? (a) : (b))
+#define GL_SUB_MAX(a, b) ((a) > (b) ? (a) : (b))
+
+/* Pixels of one region of the plane (an annulus, a sector of one, or the
+ * whole area between the mask and the outer radius). */
+typedef struct sub_region {
+    long npix;
+    long *pix;   /* plane indices y * nx + x, increasing */
+    double r_in; /* inner and outer radius, px */
+    double r_out;
+    double r_mid;
+} sub_region;
+
+/* Lists the pixels with r_in <= r < r_out and, when nsect > 1, azimuth
+ * (counter-clockwise from +x, [0, 360)) in sector isect of nsect.
+ * r->pix is allocated; free with sub_region_free. An empty region is fine. */
+gl_status sub_region_make(long nx, long ny, double r_in, double r_out, int nsect, int isect,
+                          sub_region *r);
+void sub_region_free(sub_region *r);
+
+/* Called by a method once per mode count (in any order): resid holds
+ * nframe x npix raw-orientation residuals (NaN outside the region and in
+ * unusable frames) and may be changed by the sink. */
+typedef gl_status (*sub_sink_fn)(void *sink, int mode_index, float *resid);
+
+/* The prepared input every method works from. */
+typedef struct sub_ctx {
+    const gl_subtract_params *p;
+    long nx, ny, npix;           /* plane geometry */
+    long nframe;                 /* science frames */
+    const float *sci;            /* nframe x npix (channels already combined) */
+    const double *angles;        /* nframe, degrees */
+    const unsigned char *usable; /* nframe: 1 when the frame holds data */
+    long nusable;
+    long nref;          /* selected reference frames (0: no RDI) */
+    const float *ref;   /* nref x npix */
+    double r_in, r_out; /* region radii, px */
+    float *work;        /* nframe x npix scratch handed to the sink */
+    sub_sink_fn sink;
+    void *sink_data;
+} sub_ctx;
+
+typedef struct sub_method {
+    const char *name;
+    int uses_modes; /* the output has one plane per mode count */
+    gl_status (*run)(const sub_ctx *ctx);
+} sub_method;
+
+extern const sub_method sub_method_median;
+extern const sub_method sub_method_pca;
+extern const sub_method sub_method_annular;
+extern const sub_method sub_method_none;
+
+/* ---- linear algebra (klip.c) ------------------------------------------ */
+
+/* Centres rows of X (nrow x ncol, NaN = no data) in place: per-frame mode
+ * subtracts each row's mean over its finite pixels; temporal mode subtracts
+ * each column's mean over the rows flagged in `basis` (NULL: all rows).
+ * NaN become 0 afterwards, so they add nothing to covariances. */
+void sub_centre(float *X, long nrow, long ncol, gl_centring mode, const unsigned char *basis);
+
+/* C (n x n, full symmetric, double) = X X^T for X (n x ncol), in tiles of
+ * fixed size computed in parallel, accumulated in double over column chunks
+ * of fixed width (dsyrk on the diagonal, dgemm off it). work: NULL (then
+ * allocated here) or sub_covariance_work_size() doubles, for callers that
+ * repeat the call. GL_ERR_NOMEM. */
+size_t sub_covariance_work_size(void);
+gl_status sub_covariance(const float *X, long n, long ncol, double *C, double *work);
+
+/* C (m x n) = beta C + alpha A B with A (m x k), B (k x n), row-major, lda,
+ * ldb, ldc row strides; transB transposes B (then B is n x k). Tiled over
+ * fixed blocks of C and run in parallel; results do not depend on threads. */
+void sub_gemm(long m, long n, long k, float alpha, const float *A, long lda, const float *B,
+              long ldb, int transB, float beta, float *C, long ldc);
+
+/* A KL basis of the rows of X: Z (kmax x ncol), orthonormal rows, in
+ * decreasing eigenvalue order. Built once, reused for all mode counts. */
+typedef struct sub_basis {
+    long kmax, ncol;
+    long rank; /* modes with a significant eigenvalue (<= kmax) */
+    float *Z;
+    double *eigval; /* kmax eigenvalues of X X^T (squared singular values) */
+} sub_basis;
+
+/* Builds the basis from X (nrow x ncol, centred, no NaN): eigendecomposition
+ * of X X^T (LAPACKE_dsyevr, top kmax pairs) when nrow <= ncol, else an SVD of
+ * X (LAPACKE_sgesdd). GL_ERR_USAGE when kmax > nrow; GL_ERR_NUMERIC when the
+ * solver fails. */
+gl_status sub_basis_build(const float *X, long nrow, long ncol, long kmax, sub_basis *b);
+void sub_basis_free(sub_basis *b);
+
+/* Per-target KLIP weights (annular and spectral libraries). Given the full
+ * covariance C (nall x nall) of the centred rows, a library (lib,
+ * nlib rows), the target row t and ascending mode counts, writes for each
+ * count k the nall weights w with projection(x_t) = sum_l w_l x_l onto the
+ * first k KL modes of the library (Soummer et al. 2012 eqs. 4-8 written in
+ * the library's row space). Workspace from sub_eig_work_new. Returns
+ * GL_ERR_NUMERIC when the eigensolver fails. */
+typedef struct sub_eig_work sub_eig_work;
+gl_status sub_eig_work_new(long maxlib, long kmax, sub_eig_work **out);
+void sub_eig_work_free(sub_eig_work *w);
+gl_status sub_target_weights(const double *C, long nall, const long *lib, long nlib, long t,
+                             const long *kcounts, int nk, sub_eig_work *w, float *weights);
+
+/* ---- reference frames (refs.c) ------------------------------------------ */
+
+/* Keeps the nbest (<= nref_all) reference frames best correlated with the
+ * usable science frames of c (c->sci, usable, region set); *ref_out is
+ * nbest x npix, allocated; score_out (may be NULL) receives their scores. */
+gl_status sub_refs_select(const sub_ctx *c, const float *ref_all, long nref_all, long nbest,
+                          float **ref_out, long *nref_out, double *score_out);
+
+/* ---- spectral step (sdi.c) ----------------------------------------------- */
+
+/* For a 4-D cube: per frame, the channels rescaled to a common wavelength
+ * (the longest), KLIP across channels with p->sdi_modes modes (each channel's
+ * library: the other channels), scaled back and averaged; *out is nframe x
+ * npix, allocated. */
+gl_status sub_sdi_frames(const gl_cube *cube, const gl_subtract_params *p, double r_in,
+                         double r_out, float **out);
+
+/* ---- north-up WCS (wcs.c) ------------------------------------------------ */
+
+/* Rewrites a simple celestial WCS in h (the input's) as north-up, east-left
+ * with the star's sky position at the star pixel; notes in HISTORY when the
+ * WCS is not simple. Never fails on a bad WCS (it is then dropped, noted). */
+gl_status sub_wcs_north_up(gl_header *h, long nx, long ny);
+
+/* ---- helpers ---------------------------------------------------------- */
+
+/* Median of n floats, ignoring NaN (reorders buf); NaN when none finite. */
+float sub_nanmedian(float *buf, long n);
+/* Sorted copy of the mode counts (ascending, duplicates kept) and the
+ * position of each requested count in it. */
+void sub_modes_sorted(const gl_subtract_params *p, long *sorted, int *order);
+/* Largest thread count an OpenMP region may use here. */
+int sub_max_threads(void);
+
+#endif

@@ -1,0 +1,96 @@
+/*
+ * params.c -- the subtraction parameters: defaults, checks that need no
+ * data, and the name tables of methods and combinations.
+ */
+#include "subtract/internal.h"
+
+#include <math.h>
+#include <string.h>
+
+void gl_subtract_params_init(gl_subtract_params *p)
+{
+    memset(p, 0, sizeof *p);
+    p->method = GL_SUBTRACT_PCA;
+    p->fwhm = 0;
+    p->nmodes = 1;
+    p->modes[0] = 5;
+    p->mask_radius = 0;
+    p->outer_radius = 0;
+    p->ring_fwhm = 1.0;
+    p->sectors = 1;
+    p->gap_fwhm = 0.75;
+    p->nearest = 0;
+    p->median_fit = 0;
+    p->centring = GL_CENTRE_FRAME;
+    p->north_offset = 0;
+    p->interp = GL_INTERP_FFT;
+    p->combine = GL_COMBINE_MEDIAN;
+    p->refs_use = GL_REFS_ONLY;
+    p->refs_best = 0;
+    p->sdi = GL_SDI_OFF;
+    p->sdi_modes = 1;
+    p->nwave = 0;
+    p->wavelengths = NULL;
+}
+
+gl_status gl_subtract_params_check(const gl_subtract_params *p)
+{
+    if (!(p->fwhm > 0) || !isfinite(p->fwhm))
+        return gl_error_set(GL_ERR_USAGE, "--fwhm must be a positive number of pixels (got %g)",
+                            p->fwhm);
+    if (p->method < GL_SUBTRACT_MEDIAN || p->method > GL_SUBTRACT_NONE)
+        return gl_error_set(GL_ERR_USAGE, "unknown subtraction method %d", (int)p->method);
+    if (p->nmodes < 1 || p->nmodes > GL_SUBTRACT_MAX_MODES)
+        return gl_error_set(GL_ERR_USAGE, "--modes: between 1 and %d counts are accepted",
+                            GL_SUBTRACT_MAX_MODES);
+    for (int i = 0; i < p->nmodes; i++)
+        if (p->modes[i] < 1)
+            return gl_error_set(GL_ERR_USAGE, "--modes: %ld is not a positive mode count",
+                                p->modes[i]);
+    if (!(p->mask_radius >= 0) || !(p->outer_radius >= 0))
+        return gl_error_set(GL_ERR_USAGE, "--mask-radius and --outer-radius must be >= 0");
+    if (!(p->ring_fwhm > 0))
+        return gl_error_set(GL_ERR_USAGE, "--ring must be a positive width in FWHM (got %g)",
+                            p->ring_fwhm);
+    if (p->sectors < 1 || p->sectors > 360)
+        return gl_error_set(GL_ERR_USAGE, "--sectors must be between 1 and 360 (got %d)",
+                            p->sectors);
+    if (!(p->gap_fwhm >= 0))
+        return gl_error_set(GL_ERR_USAGE, "--gap must be >= 0 FWHM (got %g)", p->gap_fwhm);
+    if (p->nearest < 0 || p->refs_best < 0)
+        return gl_error_set(GL_ERR_USAGE, "--nearest and --refs-best must be >= 0");
+    if (!isfinite(p->north_offset))
+        return gl_error_set(GL_ERR_USAGE, "--north-offset must be finite");
+    if (p->sdi == GL_SDI_CHANNELS && p->sdi_modes < 1)
+        return gl_error_set(GL_ERR_USAGE, "--sdi-modes must be >= 1");
+    return GL_OK;
+}
+
+static const char *const method_names[] = {"median", "pca", "annular", "none"};
+static const char *const combine_names[] = {"median", "mean", "weighted"};
+
+int gl_subtract_method_from_name(const char *name)
+{
+    for (int i = 0; i < 4; i++)
+        if (name && strcmp(name, method_names[i]) == 0)
+            return i;
+    return -1;
+}
+
+const char *gl_subtract_method_name(gl_subtract_method m)
+{
+    return (m >= 0 && m <= 3) ? method_names[m] : "?";
+}
+
+int gl_combine_from_name(const char *name)
+{
+    for (int i = 0; i < 3; i++)
+        if (name && strcmp(name, combine_names[i]) == 0)
+            return i;
+    return -1;
+}
+
+const char *gl_combine_name(gl_combine c)
+{
+    return (c >= 0 && c <= 2) ? combine_names[c] : "?";
+}
