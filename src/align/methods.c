@@ -13,9 +13,11 @@
  *
  * Automatic choice (common practice, no published rule): satellite spots
  * when four are found and are comparable to the brightest feature (a
- * coronagraphic image); otherwise a Gaussian fit when the median frame shows
- * an unsaturated compact star bright enough in single frames; otherwise
- * registration with the absolute centre from the halo symmetry.
+ * coronagraphic image); otherwise a Gaussian fit when the reference shows
+ * an unsaturated compact star bright enough in single frames, registration
+ * when it is too faint in single frames; otherwise the halo symmetry of each
+ * frame (which followed the star better than registration on simulated
+ * coronagraphic sequences, where the speckles evolve).
  */
 #include "align/internal.h"
 #include "core/internal.h"
@@ -404,6 +406,6 @@ gl_centre_method gl_centre_auto(const gl_align_stack *s, const gl_align_params *
     gl_error_clear();
     snprintf(reason, size,
              "no unsaturated compact star and no satellite spots: a saturated or "
-             "coronagraphic image, registered with its absolute centre from the halo symmetry");
-    return GL_CENTRE_REGISTER;
+             "coronagraphic image, centred frame by frame on the symmetry of its halo");
+    return GL_CENTRE_SYMMETRY;
 }

@@ -358,3 +358,18 @@ def test_single_image_and_4d_cube(tmp_path):
     assert np.allclose(out[:, 1], 0.5 * out[:, 0], rtol=1e-4, atol=1e-3)
     t = read_table(tmp_path / "t4.csv")
     assert np.max(np.abs(t["x"] - tx)) < 0.02 and np.max(np.abs(t["y"] - ty)) < 0.02
+
+
+def test_demo_sequence(tmp_path):
+    # the committed demo sequence: perfect coronagraph, no spots, no jitter
+    # (frames.csv: the star at (64, 64) in every frame)
+    src = os.path.join(os.environ["GLOAM_SOURCE"], "demo-frames")
+    p = run(os.path.join(src, "cube.fits"), "--out", tmp_path / "a.fits", "--table",
+            tmp_path / "t.csv", "--angles", os.path.join(src, "angles.txt"), "--angles-out",
+            tmp_path / "a.txt")
+    assert "centring method: symmetry, chosen because" in p.stderr
+    f = np.genfromtxt(os.path.join(src, "frames.csv"), delimiter=",", names=True)
+    t = read_table(tmp_path / "t.csv")
+    rms = np.sqrt(np.mean((t["x"] - f["star_x"]) ** 2 + (t["y"] - f["star_y"]) ** 2) / 2)
+    assert rms < 0.1, rms
+    assert np.allclose(np.loadtxt(tmp_path / "a.txt"), np.loadtxt(os.path.join(src, "angles.txt")))
