@@ -115,10 +115,11 @@ typedef struct gl_sim_result {
                       same exposure as a frame (scale 1); one plane per channel */
     gl_cube *refs; /* reference-star sequence (NULL unless params.refs) */
     long nframes;
-    double *angle_deg; /* parallactic angle at mid-exposure */
-    double *ha_deg;    /* hour angle at mid-exposure */
-    double *mjd_mid;   /* MJD (UTC) at mid-exposure */
-    double *star_x;    /* true star position in the raw frame, 0-based pixels */
+    double *angle_deg;   /* parallactic angle at mid-exposure */
+    double *ha_deg;      /* observed hour angle at mid-exposure */
+    double *obs_dec_deg; /* observed declination at mid-exposure */
+    double *mjd_mid;     /* MJD (UTC) at mid-exposure */
+    double *star_x;      /* true star position in the raw frame, 0-based pixels */
     double *star_y;
     /* truth, one entry per companion */
     int ncompanions;

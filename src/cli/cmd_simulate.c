@@ -252,9 +252,11 @@ static gl_status write_products(gl_cli *cli, const char *dir, const gl_sim_param
             /* seconds from DATE-OBS to mid-exposure (full precision, unlike an MJD) */
             tsec[i] = 0.5 * p->exptime_s + (double)i * p->cadence_s;
         }
-        const char *cn[] = {"frame", "angle_deg", "star_x", "star_y", "hour_angle_deg", "time_s"};
-        const double *cc[] = {idx, r->angle_deg, r->star_x, r->star_y, r->ha_deg, tsec};
-        gl_table t = {6, r->nframes, cn, NULL, cc, NULL};
+        const char *cn[] = {"frame",          "angle_deg",       "star_x", "star_y",
+                            "hour_angle_deg", "declination_deg", "time_s"};
+        const double *cc[] = {idx,       r->angle_deg,   r->star_x, r->star_y,
+                              r->ha_deg, r->obs_dec_deg, tsec};
+        gl_table t = {7, r->nframes, cn, NULL, cc, NULL};
         if ((st = gl_table_write_csv(tmp[4], &t)) != GL_OK)
             goto cleanup;
     }

@@ -139,16 +139,16 @@ size_t sim_optics_work_size(const sim_optics *o);
 
 typedef struct sim_track {
     double mjd0;   /* UTC MJD at mid-exposure of frame 0 */
-    double ra_deg; /* right ascension making HA(frame 0) = ha_start */
+    double ra_deg; /* ICRS right ascension making the observed HA(frame 0) = ha_start */
     double ha0_deg;
     double lst0_deg;
 } sim_track;
 
 gl_status sim_track_init(sim_track *t, const gl_sim_params *p);
-/* Hour angle (deg) and parallactic angle (deg) dt seconds after the
- * mid-exposure of frame 0. */
+/* Observed hour angle, observed declination and parallactic angle (deg) dt
+ * seconds after the mid-exposure of frame 0 (any output may be NULL). */
 void sim_track_at(const sim_track *t, const gl_sim_params *p, double dt, double *ha_deg,
-                  double *pa_deg);
+                  double *dec_deg, double *pa_deg);
 
 /* ---- headers (header.c) --------------------------------------------------- */
 

@@ -129,7 +129,7 @@ static gl_status frame_compute(const sim_ctx *x, frame_job *job)
         }
         double dts = job->dt + ((s + 0.5) / nsub - 0.5) * p->exptime_s, theta = 0;
         if (job->companions && p->ncompanions > 0)
-            sim_track_at(&x->track, p, dts, NULL, &theta);
+            sim_track_at(&x->track, p, dts, NULL, NULL, &theta);
         for (int c = 0; c < o->nchan; c++) {
             const sim_channel *ch = &o->ch[c];
             size_t P2 = (size_t)ch->P * ch->P;
@@ -290,6 +290,7 @@ void gl_sim_result_free(gl_sim_result *r)
     gl_cube_free(r->refs);
     gl_free(r->angle_deg);
     gl_free(r->ha_deg);
+    gl_free(r->obs_dec_deg);
     gl_free(r->mjd_mid);
     gl_free(r->star_x);
     gl_free(r->star_y);
@@ -318,16 +319,17 @@ gl_status gl_sim_run(const gl_sim_params *p, gl_sim_result **out)
     r->nframes = n;
     r->angle_deg = gl_malloc((size_t)n * sizeof(double));
     r->ha_deg = gl_malloc((size_t)n * sizeof(double));
+    r->obs_dec_deg = gl_malloc((size_t)n * sizeof(double));
     r->mjd_mid = gl_malloc((size_t)n * sizeof(double));
     r->star_x = gl_malloc((size_t)n * sizeof(double));
     r->star_y = gl_malloc((size_t)n * sizeof(double));
-    if (!r->angle_deg || !r->ha_deg || !r->mjd_mid || !r->star_x || !r->star_y) {
+    if (!r->angle_deg || !r->ha_deg || !r->obs_dec_deg || !r->mjd_mid || !r->star_x || !r->star_y) {
         st = gl_error_nomem("simulation tables");
         goto cleanup;
     }
     for (long i = 0; i < n; i++) {
         double dt = (double)i * p->cadence_s;
-        sim_track_at(&x.track, p, dt, &r->ha_deg[i], &r->angle_deg[i]);
+        sim_track_at(&x.track, p, dt, &r->ha_deg[i], &r->obs_dec_deg[i], &r->angle_deg[i]);
         r->mjd_mid[i] = x.track.mjd0 + dt / 86400.0;
     }
     if ((st = gl_cube_new(nx, nx, p->nchan, n, &r->cube)) != GL_OK)

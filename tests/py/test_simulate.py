@@ -3,8 +3,9 @@
 References:
 - Meeus, Astronomical Algorithms, 2nd ed., eq. 14.1:
   tan q = sin H / (tan phi cos dec - sin dec cos H).
-- astroplan Observer.parallactic_angle, with the sidereal time from astropy
-  (IAU 2006 mean sidereal time; UT1 = UTC as in the simulator), offline.
+- astropy's apparent place (ICRS -> TETE, apparent sidereal time) for the
+  observed hour angle and declination, and astroplan Observer.parallactic_angle
+  for the angle itself (UT1 = UTC as in the simulator), offline.
 - conventions.md: a source at sky PA pa and separation s appears in raw frame i
   at 90 + pa + theta_i degrees counter-clockwise from +x about (nx/2, ny/2).
 - fitsverify (HEASARC, Debian package fitsverify): 0 errors on every product.
@@ -52,7 +53,9 @@ def test_angles_meeus_and_astroplan(tmp_path):
     np.testing.assert_allclose(tab["angle_deg"], ang, atol=1e-6)
     H = np.radians(tab["hour_angle_deg"])
     assert H.min() < 0 < H.max()
-    phi, dec = np.radians(hdr["OBSGEO-B"]), np.radians(hdr["DEC"])
+    # observed declination of each frame (the header's DEC is ICRS)
+    phi, dec = np.radians(hdr["OBSGEO-B"]), np.radians(tab["declination_deg"])
+    assert np.all(np.abs(tab["declination_deg"] - hdr["DEC"]) < 0.5)
     # Meeus eq. 14.1
     q = np.degrees(np.arctan2(np.sin(H), np.tan(phi) * np.cos(dec) - np.sin(dec) * np.cos(H)))
     np.testing.assert_allclose(ang, q, atol=0.01)
@@ -61,7 +64,7 @@ def test_angles_meeus_and_astroplan(tmp_path):
     from astropy.utils import iers
     iers.conf.auto_download = False
     import astropy.units as u
-    from astropy.coordinates import EarthLocation, SkyCoord
+    from astropy.coordinates import TETE, EarthLocation, SkyCoord
     from astropy.time import Time, TimeDelta
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
@@ -71,8 +74,22 @@ def test_angles_meeus_and_astroplan(tmp_path):
         obs = Observer(location=loc)
         t = Time(hdr["DATE-OBS"], scale="utc") + TimeDelta(tab["time_s"], format="sec")
         t.delta_ut1_utc = 0.0  # the simulator takes UT1 = UTC
-        target = FixedTarget(SkyCoord(hdr["RA"] * u.deg, hdr["DEC"] * u.deg))
-        pa = obs.parallactic_angle(t, target).to(u.deg).value
+        icrs = SkyCoord(hdr["RA"] * u.deg, hdr["DEC"] * u.deg, frame="icrs")
+        pa = []
+        for i, ti in enumerate(t):
+            app = icrs.transform_to(TETE(obstime=ti, location=loc))  # apparent place
+            lst = ti.sidereal_time("apparent", longitude=loc.lon)
+            # the simulator's observed hour angle and declination (ERFA) agree
+            # with astropy's apparent place to far below the 0.01 deg goal
+            ha = ((lst - app.ra).deg + 180) % 360 - 180
+            assert abs(ha - tab["hour_angle_deg"][i]) < 1e-5
+            assert abs(app.dec.deg - tab["declination_deg"][i]) < 1e-5
+            # astroplan takes H from the MEAN sidereal time, so its RA must be
+            # referred to the mean equinox: subtract the equation of the equinoxes
+            eqeq = lst - ti.sidereal_time("mean", longitude=loc.lon)
+            mean_eq = SkyCoord(app.ra - eqeq, app.dec)
+            pa.append(obs.parallactic_angle(ti, mean_eq).to(u.deg).value)
+        pa = np.array(pa)
     np.testing.assert_allclose(ang, pa, atol=0.01)
     # field rotation across the meridian is tens of degrees for the default
     assert abs(ang[-1] - ang[0]) > 20
@@ -149,7 +166,8 @@ def test_products_verify_and_read(tmp_path):
     _, dec1 = w.wcs_pix2world([[24 + 10 * np.cos(th), 24 + 10 * np.sin(th)]], 0)[0]
     assert abs((dec1 - dec) * 3.6e6 - 10 * hdr["PIXSCAL"]) < 1e-3 * hdr["PIXSCAL"]
     tab = read_csv(out / "frames.csv")
-    assert list(tab) == ["frame", "angle_deg", "star_x", "star_y", "hour_angle_deg", "time_s"]
+    assert list(tab) == ["frame", "angle_deg", "star_x", "star_y", "hour_angle_deg",
+                         "declination_deg", "time_s"]
     assert np.std(tab["star_x"] - 24) > 0.05  # jitter recorded
     truth = read_csv(out / "truth.csv")
     assert len(truth["sep_px"]) == 2
