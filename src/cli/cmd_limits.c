@@ -293,8 +293,6 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
     gl_obsinfo_from_header(cube->header, &info);
     if (!(pixscale > 0) && info.pixscale_mas > 0)
         pixscale = info.pixscale_mas;
-    gl_log(GL_LOG_INFO, "PSF in %s: FWHM %.2f px measured (--fwhm %.2f), star flux %.6g per frame",
-           psf_path, psf->fwhm_px[0], setup.p.fwhm, psf->flux[0]);
     if ((st = gl_limits_compute(cube, angles, refs, &setup.p, psf, &lp, &res))) {
         if (st == GL_ERR_INPUT) {
             char msg[1024];
@@ -303,6 +301,10 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
         }
         goto cleanup;
     }
+    /* logged after the checks in gl_limits_compute, so that a refused run
+     * prints its one error line and nothing else */
+    gl_log(GL_LOG_INFO, "PSF in %s: FWHM %.2f px measured (--fwhm %.2f), star flux %.6g per frame",
+           psf_path, psf->fwhm_px[0], setup.p.fwhm, psf->flux[0]);
 
     /* the assumptions, recorded with the table and printed on the figure */
     char modes_text[256] = "";

@@ -1,0 +1,60 @@
+#!/usr/bin/env bash
+# Contrast-curve benchmark: one `gloam subtract` (pca, modes 5,10,20,50) and
+# one `gloam limits` with the same options on the same cube; prints both wall
+# times and their ratio (issue 6 target: limits <= 4x subtract). Not part of
+# the test suite.
+#
+# Usage: bench/limits_bench.sh [FRAMES [SIZE [THREADS]]]   (default 400 200 2)
+#
+# The cube is made with numpy (Debian's /usr/bin/python3): a smooth stellar
+# halo, a quasi-static speckle pattern that turns with the pupil (fixed in the
+# detector frame while the sky rotates), and white noise; a Gaussian off-axis
+# PSF of FWHM 4 px. The running time of both commands does not depend on the
+# image content, only on frames, size, mode counts and threads.
+set -euo pipefail
+cd "$(dirname "$0")/.."
+FRAMES=${1:-400}
+SIZE=${2:-200}
+THREADS=${3:-2}
+[ -f build-bench/build.ninja ] || meson setup build-bench -Dbuildtype=release -Dtests=false >/dev/null
+ninja -C build-bench -j2 >/dev/null
+GLOAM=build-bench/src/cli/gloam
+DIR=$(mktemp -d)
+trap 'rm -rf "$DIR"' EXIT
+
+/usr/bin/python3 - "$DIR" "$FRAMES" "$SIZE" <<'PY'
+import sys
+import numpy as np
+from astropy.io import fits
+d, nf, n = sys.argv[1], int(sys.argv[2]), int(sys.argv[3])
+rng = np.random.default_rng(1)
+y, x = np.mgrid[0:n, 0:n] - n // 2
+r = np.hypot(x, y)
+halo = 1e3 / (1 + (r / 3.0) ** 3)
+speckles = np.fft.ifft2(np.fft.fft2(rng.normal(0, 1, (n, n))) *
+                        np.exp(-np.hypot(*np.meshgrid(np.fft.fftfreq(n), np.fft.fftfreq(n))) ** 2 / 0.02)).real
+speckles *= 30 * halo / halo.max() / speckles.std()
+cube = np.empty((nf, n, n), np.float32)
+for i in range(nf):
+    cube[i] = halo + speckles * (1 + 0.05 * np.sin(i / 40)) + rng.normal(0, 1, (n, n))
+fits.PrimaryHDU(cube).writeto(f"{d}/cube.fits")
+np.savetxt(f"{d}/angles.txt", np.linspace(-40, 40, nf), fmt="%.6f")
+s = 4 / (2 * np.sqrt(2 * np.log(2)))
+yy, xx = np.mgrid[0:25, 0:25] - 12
+fits.PrimaryHDU((1e5 * np.exp(-(xx**2 + yy**2) / (2 * s * s))).astype(np.float32)).writeto(f"{d}/psf.fits")
+PY
+
+OPTS=(--angles "$DIR/angles.txt" --fwhm 4 --method pca --modes 5,10,20,50 --mask-radius 6
+      --threads "$THREADS" --quiet)
+now() { date +%s.%N; }
+t0=$(now)
+"$GLOAM" subtract "$DIR/cube.fits" "${OPTS[@]}" --out "$DIR/sub.fits"
+t1=$(now)
+"$GLOAM" limits "$DIR/cube.fits" "${OPTS[@]}" --psf "$DIR/psf.fits" --out "$DIR/lim"
+t2=$(now)
+nf=$(($(wc -l <"$DIR/lim.fakes.csv") - 1))
+awk -v a="$t0" -v b="$t1" -v c="$t2" -v f="$FRAMES" -v s="$SIZE" -v t="$THREADS" -v k="$nf" 'BEGIN {
+    printf "cube %d frames of %dx%d, pca modes 5,10,20,50, --threads %d\n", f, s, s, t
+    printf "gloam subtract: %7.2f s\n", b - a
+    printf "gloam limits:   %7.2f s  (%d fakes, 2 runs with fakes)\n", c - b, k
+    printf "ratio limits / subtract: %.2f (target <= 4)\n", (c - b) / (b - a) }'
