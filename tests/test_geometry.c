@@ -151,8 +151,48 @@ static void test_rotate(long nx, long ny, gl_interp interp, double tol)
     gl_geom_plan_free(p);
 }
 
+/* Shifted copies of a stamp summed in the Fourier domain equal the analytic
+ * shifted Gaussians (shift theorem). */
+static void test_stamp(long nx, long ny)
+{
+    gl_geom_plan *p = NULL;
+    gl_geom_work *w = NULL;
+    gl_geom_stamp *s = NULL;
+    size_t n = (size_t)nx * (size_t)ny;
+    float *img = malloc(n * sizeof *img), *out = calloc(n, sizeof *out);
+    double *ref = calloc(n, sizeof *ref);
+    double cx = nx / 2, cy = ny / 2;
+    CHECK(gl_geom_plan_new(nx, ny, GL_INTERP_FFT, &p) == GL_OK, "plan");
+    CHECK(gl_geom_work_new(p, &w) == GL_OK, "work");
+    fill(img, nx, ny, cx, cy, 1.7, 1.7, 0);
+    CHECK(gl_geom_stamp_new(p, w, img, &s) == GL_OK, "stamp");
+    const double dx[] = {10.3, -7.85, 0.5}, dy[] = {-4.2, 12.6, 0}, wt[] = {1e-2, 3e-3, 0.5};
+    out[0] = NAN;
+    CHECK(gl_geom_stamp_add(p, w, s, 3, dx, dy, wt, out) == GL_OK, "add");
+    double m = 0;
+    for (long y = 0; y < ny; y++)
+        for (long x = 0; x < nx; x++) {
+            double v = 0;
+            for (int k = 0; k < 3; k++)
+                v += wt[k] * gauss((double)x, (double)y, cx + dx[k], cy + dy[k], 1.7, 1.7, 0);
+            if (x || y)
+                m = fmax(m, fabs(out[y * nx + x] - v));
+        }
+    CHECK(m < 2e-6, "stamp copies %ldx%ld: max error %.2e vs analytic Gaussians", nx, ny, m);
+    CHECK(isnan(out[0]), "NaN stays NaN");
+    gl_geom_stamp_free(s);
+    gl_geom_stamp_free(NULL);
+    gl_geom_work_free(w);
+    gl_geom_plan_free(p);
+    free(img);
+    free(out);
+    free(ref);
+}
+
 int main(void)
 {
+    test_stamp(64, 64);
+    test_stamp(63, 58);
     test_shift(64, 64, GL_INTERP_FFT, 2e-5);
     test_shift(65, 57, GL_INTERP_FFT, 2e-5);
     test_shift(64, 64, GL_INTERP_CUBIC, 2e-2);

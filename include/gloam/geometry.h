@@ -56,6 +56,24 @@ GL_API gl_status gl_geom_rotate(const gl_geom_plan *p, gl_geom_work *w, float *i
  * Errors: GL_ERR_USAGE (factor not positive). */
 GL_API gl_status gl_geom_scale(const gl_geom_plan *p, gl_geom_work *w, float *img, double factor);
 
+/* An image kept as its Fourier transform, to add many shifted copies of it
+ * cheaply (fake companions): read-only once made, shareable by threads. Needs
+ * a plan made with GL_INTERP_FFT. */
+typedef struct gl_geom_stamp gl_geom_stamp;
+
+GL_API gl_status gl_geom_stamp_new(const gl_geom_plan *p, gl_geom_work *w, const float *img,
+                                   gl_geom_stamp **out);
+GL_API void gl_geom_stamp_free(gl_geom_stamp *s);
+
+/* out (nx x ny) += sum over k of weight[k] x the stamp moved by (dx[k],
+ * dy[k]), by phase ramps summed in the Fourier domain and one inverse
+ * transform. The move is periodic: what leaves one edge re-enters at the
+ * opposite one, so keep the stamp's content well inside the frame. NaN pixels
+ * of out stay NaN. */
+GL_API gl_status gl_geom_stamp_add(const gl_geom_plan *p, gl_geom_work *w, const gl_geom_stamp *s,
+                                   int n, const double *dx, const double *dy, const double *weight,
+                                   float *out);
+
 /* Parses "fft" or "cubic"; returns -1 for anything else. */
 GL_API int gl_interp_from_name(const char *name);
 GL_API const char *gl_interp_name(gl_interp interp);

@@ -34,6 +34,10 @@ struct gl_geom_work {
  * lies outside [0, n-1] or a neighbour with non-zero weight is NaN. */
 float gl_geom_cubic_sample(const float *img, long nx, long ny, double x, double y);
 
+/* Phase factors exp(-2 pi i k d / n) for k = 0..m-1 (frequencies of a
+ * length-n axis, negative ones above n/2), the Nyquist one made real. */
+void gl_geom_phase_ramp(fftwf_complex *ph, long m, long n, double d);
+
 /* Shears run on batches of this many rows or columns at once, so FFTW can
  * vectorise across transforms. Column batches start at multiples of it, which
  * keeps their alignment equal to the planning buffer's. */
@@ -43,5 +47,10 @@ float gl_geom_cubic_sample(const float *img, long nx, long ny, double x, double 
  * w->specb by d0 + k * dstep samples (k = 0..BATCH-1), including the 1/pad
  * normalisation of the inverse transform. */
 void gl_geom_batch_phase(const gl_geom_plan *p, gl_geom_work *w, double d0, double dstep);
+
+struct gl_geom_stamp {
+    long nx, ny;
+    fftwf_complex *spec; /* ny x (nx/2+1), already divided by nx*ny */
+};
 
 #endif

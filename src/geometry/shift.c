@@ -17,7 +17,7 @@
 
 /* Phase factors exp(-2 pi i k d / n) for k = 0..m-1 (frequencies of a length-n
  * axis, negative ones above n/2), Nyquist made real. */
-static void phase_ramp(fftwf_complex *ph, long m, long n, double d)
+void gl_geom_phase_ramp(fftwf_complex *ph, long m, long n, double d)
 {
     for (long k = 0; k < m; k++) {
         long f = k <= n / 2 ? k : k - n;
@@ -103,8 +103,8 @@ gl_status gl_geom_shift(const gl_geom_plan *p, gl_geom_work *w, float *img, doub
         w->real2d[i] = isnan(img[i]) ? 0.0f : img[i];
     fftwf_execute_dft_r2c(p->shift_fwd, w->real2d, w->spec2d);
     long mx = nx / 2 + 1;
-    phase_ramp(w->phase_x, mx, nx, dx);
-    phase_ramp(w->phase_y, ny, ny, dy);
+    gl_geom_phase_ramp(w->phase_x, mx, nx, dx);
+    gl_geom_phase_ramp(w->phase_y, ny, ny, dy);
     float norm = 1.0f / (float)n;
     for (long ky = 0; ky < ny; ky++) {
         float yr = w->phase_y[ky][0], yi = w->phase_y[ky][1];

@@ -4,9 +4,14 @@
  * Each companion is the prepared PSF times its contrast, moved by an FFT
  * phase ramp to where conventions.md puts a source of that separation and
  * position angle in each raw frame (angle 90 + pa + theta_i + north_offset
- * from +x). Frames are independent, so they are shared among threads with a
- * static schedule; each frame is written by one thread only, in a fixed
- * companion order, so the result does not depend on the thread count.
+ * from +x). The PSF's spectrum is computed once per channel and all the
+ * companions of a frame are added with one inverse FFT (gl_geom_stamp). The
+ * move is periodic, so the PSF's far wings that leave one edge re-enter at
+ * the other: with the PSF centred in a frame-sized image that is the light
+ * beyond half a frame from the companion, negligible for a real PSF. Frames
+ * are independent, so they are shared among threads with a static schedule;
+ * each frame is written by one thread only, in a fixed companion order, so the
+ * result does not depend on the thread count.
  */
 #include "core/internal.h"
 #include "gloam/geometry.h"
@@ -75,41 +80,40 @@ gl_status gl_inject_companions(gl_cube *cube, const double *angles_deg, double n
     int nthreads = omp_get_max_threads();
     gl_geom_plan *plan = NULL;
     gl_geom_work **work = gl_calloc((size_t)nthreads, sizeof *work);
-    float **buf = gl_calloc((size_t)nthreads, sizeof *buf);
+    gl_geom_stamp **stamps = gl_calloc((size_t)nchan, sizeof *stamps);
+    double *args = gl_malloc((size_t)nthreads * 3 * (size_t)ncomp * sizeof *args);
     gl_status st = GL_OK;
     size_t fn = (size_t)nx * (size_t)ny;
-    if (!work || !buf) {
+    if (!work || !stamps || !args) {
         st = gl_error_nomem("injection work space");
         goto cleanup;
     }
     if ((st = gl_geom_plan_new(nx, ny, GL_INTERP_FFT, &plan)))
         goto cleanup;
-    for (int t = 0; t < nthreads; t++) {
+    for (int t = 0; t < nthreads; t++)
         if ((st = gl_geom_work_new(plan, &work[t])))
             goto cleanup;
-        if (!(buf[t] = gl_malloc(fn * sizeof(float)))) {
-            st = gl_error_nomem("injection work space");
+    for (long c = 0; c < nchan; c++)
+        if ((st = gl_geom_stamp_new(plan, work[0], psf->images + (size_t)c * fn, &stamps[c])))
             goto cleanup;
-        }
-    }
 
     long done = 0;
 #pragma omp parallel for schedule(static)
     for (long f = 0; f < nframe; f++) {
         int t = omp_get_thread_num();
+        double *dx = args + (size_t)t * 3 * (size_t)ncomp, *dy = dx + ncomp, *wt = dy + ncomp;
+        for (int k = 0; k < ncomp; k++) {
+            double x, y;
+            gl_companion_position(&comps[k], angles_deg[f], north_offset_deg, nx, ny, &x, &y);
+            dx[k] = x - (double)(nx / 2);
+            dy[k] = y - (double)(ny / 2);
+        }
         for (long c = 0; c < nchan; c++) {
-            float *frame = gl_cube_plane(cube, c, f);
             double sc = spectrum ? spectrum[c] : 1.0;
-            for (int k = 0; k < ncomp; k++) {
-                double x, y;
-                gl_companion_position(&comps[k], angles_deg[f], north_offset_deg, nx, ny, &x, &y);
-                memcpy(buf[t], psf->images + (size_t)c * fn, fn * sizeof(float));
-                gl_geom_shift(plan, work[t], buf[t], x - (double)(nx / 2), y - (double)(ny / 2));
-                float amp = (float)(comps[k].contrast * sc);
-                for (size_t i = 0; i < fn; i++)
-                    if (!isnan(buf[t][i]))
-                        frame[i] += amp * buf[t][i]; /* NaN (no data) stays NaN */
-            }
+            for (int k = 0; k < ncomp; k++)
+                wt[k] = comps[k].contrast * sc;
+            gl_geom_stamp_add(plan, work[t], stamps[c], ncomp, dx, dy, wt,
+                              gl_cube_plane(cube, c, f));
         }
         long now;
 #pragma omp atomic capture
@@ -123,11 +127,12 @@ cleanup:
     if (work)
         for (int t = 0; t < nthreads; t++)
             gl_geom_work_free(work[t]);
-    if (buf)
-        for (int t = 0; t < nthreads; t++)
-            gl_free(buf[t]);
+    if (stamps)
+        for (long c = 0; c < nchan; c++)
+            gl_geom_stamp_free(stamps[c]);
     gl_free(work);
-    gl_free(buf);
+    gl_free(stamps);
+    gl_free(args);
     gl_geom_plan_free(plan);
     return st;
 }
