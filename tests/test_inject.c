@@ -40,6 +40,8 @@ static void test_parse(void)
     CHECK(gl_companion_parse("24.5:131:2e-4:7", &c) == GL_ERR_USAGE, "four fields refused");
     CHECK(gl_companion_parse("-3:131:2e-4", &c) == GL_ERR_USAGE, "negative separation refused");
     CHECK(gl_companion_parse("3:131:0", &c) == GL_ERR_USAGE, "zero contrast refused");
+    CHECK(gl_companion_parse("3:131:-2e-4", &c) == GL_OK && c.contrast == -2e-4,
+          "negative contrast (removal of a known companion) accepted");
 }
 
 static void test_psf_model(void)

@@ -48,15 +48,18 @@ GL_API void gl_psf_model_free(gl_psf_model *m);
 typedef struct gl_companion {
     double sep_px;
     double pa_deg;
-    double contrast; /* companion flux / star flux (per channel: times spectrum[c]) */
+    double contrast; /* companion flux / star flux (per channel: times spectrum[c]);
+                        negative removes a source */
 } gl_companion;
 
 /* Position of a companion in raw frame of parallactic angle theta_deg. */
 GL_API void gl_companion_position(const gl_companion *c, double theta_deg, double north_offset_deg,
                                   long nx, long ny, double *x, double *y);
 
-/* Parses "SEP_PX:PA_DEG:CONTRAST" (e.g. "24.5:131:2e-4"). Errors:
- * GL_ERR_USAGE with a message quoting the text. */
+/* Parses "SEP_PX:PA_DEG:CONTRAST" (e.g. "24.5:131:2e-4"); the separation
+ * must be positive and the contrast non-zero (negative: a negative copy of the
+ * PSF, to remove a known companion). Errors: GL_ERR_USAGE with a message
+ * quoting the text. */
 GL_API gl_status gl_companion_parse(const char *text, gl_companion *out);
 
 /* Adds companions to every frame of cube (nframe angles in degrees).

@@ -47,8 +47,10 @@ gl_status gl_companion_parse(const char *text, gl_companion *out)
     }
     if (!(v[0] > 0))
         return gl_error_set(GL_ERR_USAGE, "--companion '%s': separation must be positive", text);
-    if (!(v[2] > 0))
-        return gl_error_set(GL_ERR_USAGE, "--companion '%s': contrast must be positive", text);
+    /* a negative contrast plants a negative copy: the way to remove a known
+     * companion (negative fake companion, Lagrange et al. 2010) */
+    if (v[2] == 0)
+        return gl_error_set(GL_ERR_USAGE, "--companion '%s': contrast must not be zero", text);
     out->sep_px = v[0];
     out->pa_deg = v[1];
     out->contrast = v[2];

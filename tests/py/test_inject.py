@@ -121,3 +121,20 @@ def test_bad_inputs(tmp_path):
     (tmp_path / "short.txt").write_text("1\n2\n")
     assert "holds 2 angles but the cube has 6 frames" in bad(tmp_path, *comp, angles=tmp_path / "short.txt")
     assert "unknown option" in bad(tmp_path, *comp, "--bogus")
+
+
+def test_negative_contrast_removes_a_planted_companion(tmp_path):
+    """The negative-fake-companion use (Lagrange et al. 2010; Marois et al.
+    2010): planting -c at the same place takes a +c companion out again,
+    down to float32 rounding."""
+    make_inputs(tmp_path, 64, 64)
+    common = ["--angles", tmp_path / "angles.txt", "--psf", tmp_path / "psf.fits"]
+    r = run("inject", tmp_path / "cube.fits", *common, "--companion", "15.3:77:2e-3",
+            "--out", tmp_path / "with.fits")
+    assert r.returncode == 0, r.stderr
+    r = run("inject", tmp_path / "with.fits", *common, "--companion", "15.3:77:-2e-3",
+            "--out", tmp_path / "removed.fits")
+    assert r.returncode == 0, r.stderr
+    orig = fits.getdata(tmp_path / "cube.fits").astype(float)
+    back = fits.getdata(tmp_path / "removed.fits").astype(float)
+    assert np.nanmax(np.abs(back - orig)) < 1e-5 * 2e-3 * 1000
