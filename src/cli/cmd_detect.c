@@ -279,9 +279,12 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
     }
 
     if (!cli->quiet) {
-        printf("%ld candidate%s above %g sigma (FPF %.4g per test aperture) in %s plane %ld\n",
+        printf("%ld candidate%s whose S/N-map peak passes %g sigma (FPF %.4g per test aperture) "
+               "in %s plane %ld\n",
                ncand, ncand == 1 ? "" : "s", par.threshold_sigma,
                gl_detect_fpf_from_sigma(par.threshold_sigma), input, plane);
+        if (ncand > 0)
+            printf("(values below at the fitted sub-pixel position; peak values in the table)\n");
         if (ncand > 0)
             printf("%4s %9s %9s %8s %8s %8s %10s %8s\n", "rank", "x", "y", "sep_px", "pa_deg",
                    "snr", "fpf", "sigma");
