@@ -373,6 +373,33 @@ static void test_rotation(void)
     CHECK_CLOSE(gl_inspect_rotation_total(b, 1), 0.0, 0, "one frame: no rotation");
 }
 
+/* A cube whose WCS gives a CD matrix for the celestial axes only, with a
+ * third (frame) axis named by CTYPE3: wcslib leaves CD3_3 at 0, so the
+ * matrix is singular unless the unit diagonal is filled in. The pixel scale
+ * must still be found (12.25 mas: CD = 3.4027...e-6 deg). */
+static void test_obsinfo_cube_wcs(void)
+{
+    gl_header *h = gl_header_new();
+    const double s = 12.25 / 3600e3;
+    gl_header_add_card(h, "CTYPE1  = 'RA---TAN'");
+    gl_header_add_card(h, "CTYPE2  = 'DEC--TAN'");
+    gl_header_add_card(h, "CTYPE3  = 'FRAME   '");
+    gl_header_add_card(h, "CRPIX1  = 32.0");
+    gl_header_add_card(h, "CRPIX2  = 32.0");
+    gl_header_add_card(h, "CRVAL1  = 150.0");
+    gl_header_add_card(h, "CRVAL2  = -30.0");
+    char card[81];
+    snprintf(card, sizeof card, "CD1_1   = %.15g", -s);
+    gl_header_add_card(h, card);
+    snprintf(card, sizeof card, "CD2_2   = %.15g", s);
+    gl_header_add_card(h, card);
+    gl_obsinfo info;
+    gl_obsinfo_from_header(h, &info);
+    CHECK(info.has_wcs, "celestial WCS of a cube with a 2x2 CD matrix found");
+    CHECK_CLOSE(info.pixscale_mas, 12.25, 1e-9, "pixel scale of a cube's WCS");
+    gl_header_free(h);
+}
+
 int main(void)
 {
     snprintf(dir, sizeof dir, "/tmp/gloam-test-io-XXXXXX");
@@ -387,6 +414,7 @@ int main(void)
     test_stats();
     test_fault_injection();
     test_rotation();
+    test_obsinfo_cube_wcs();
     /* remove what is left */
     DIR *dp = opendir(dir);
     for (struct dirent *e; dp && (e = readdir(dp));)

@@ -10,6 +10,7 @@
  */
 #include "core/internal.h"
 #include "detect/internal.h"
+#include "io/internal.h"
 
 #include <erfa.h>
 #include <erfam.h>
@@ -27,7 +28,6 @@ struct gl_detect_sky {
 gl_status gl_detect_sky_new(const gl_header *h, double pixscale_mas, gl_detect_sky **out)
 {
     gl_status st = GL_OK;
-    char *buf = NULL;
     *out = NULL;
     gl_detect_sky *s = gl_calloc(1, sizeof *s);
     if (!s)
@@ -35,28 +35,11 @@ gl_status gl_detect_sky_new(const gl_header *h, double pixscale_mas, gl_detect_s
     gl_obsinfo info;
     gl_obsinfo_from_header(h, &info);
     s->pixscale_mas = isfinite(pixscale_mas) ? pixscale_mas : info.pixscale_mas;
-    int n = h ? gl_header_ncards(h) : 0;
-    if (n > 0 && info.has_wcs) {
-        buf = gl_malloc((size_t)n * 80 + 1);
-        if (!buf) {
-            st = gl_error_nomem("WCS header");
-            goto cleanup;
-        }
-        for (int i = 0; i < n; i++)
-            memcpy(buf + (size_t)i * 80, gl_header_card(h, i), 80);
-        buf[(size_t)n * 80] = '\0';
-        int nreject = 0;
-        if (wcspih(buf, n, WCSHDR_all, 0, &nreject, &s->nwcs, &s->wcs) != 0 || s->nwcs < 1 ||
-            wcsset(&s->wcs[0]) != 0 || s->wcs[0].lng < 0 || s->wcs[0].lat < 0) {
-            if (s->wcs)
-                wcsvfree(&s->nwcs, &s->wcs);
-            s->wcs = NULL;
-        }
-    }
+    if (info.has_wcs && (st = gl_header_wcs_parse(h, &s->nwcs, &s->wcs)))
+        goto cleanup;
     *out = s;
     s = NULL;
 cleanup:
-    gl_free(buf);
     gl_detect_sky_free(s);
     return st;
 }

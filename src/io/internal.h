@@ -19,4 +19,13 @@ int gl_fits_write_header(fitsfile *f, const gl_header *h, const gl_provenance *p
 /* Writes the provenance of a product into the current HDU. */
 int gl_fits_write_provenance(fitsfile *f, const gl_provenance *prov, int *status);
 
+/* Celestial WCS of a header's carried cards, parsed by wcslib (wcspih, then
+ * wcsset; a CD matrix given for the celestial axes only gets a unit diagonal
+ * on further axes). Given h (may be NULL). Returned: *wcs, an array of *nwcs
+ * wcsprm to free with wcsvfree(nwcs, wcs), when wcs[0] is set and has a
+ * celestial pair (lng, lat >= 0); else *wcs = NULL, *nwcs = 0. Function
+ * return value: GL_OK (also without a WCS), GL_ERR_NOMEM. */
+struct wcsprm;
+gl_status gl_header_wcs_parse(const gl_header *h, int *nwcs, struct wcsprm **wcs);
+
 #endif

@@ -1,7 +1,7 @@
 /*
  * obsinfo.c -- observation metadata from a header: time (DATE-OBS, MJD-OBS,
  * EXPTIME), pointing (RA, DEC), site, instrument, saturation level, and the
- * celestial WCS, parsed by wcslib (wcspih) rather than by hand. Calendar
+ * celestial WCS, parsed by wcslib (gl_header_wcs_parse) rather than by hand. Calendar
  * dates become MJD through ERFA (eraDtf2d, UTC scale).
  */
 #include "core/internal.h"
@@ -14,8 +14,8 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
-#include <wcslib/wcshdr.h>
 #include <wcslib/wcs.h>
+#include <wcslib/wcshdr.h>
 
 static void note_found(gl_obsinfo *info, const char *key)
 {
@@ -98,35 +98,22 @@ static double iso_to_mjd(const char *s)
 /* Celestial WCS of a header through wcslib; sets has_wcs and pixscale_mas. */
 static void parse_wcs(const gl_header *h, gl_obsinfo *info)
 {
-    int n = gl_header_ncards(h);
-    if (n == 0)
-        return;
-    char *buf = gl_malloc((size_t)n * 80 + 1);
-    if (!buf)
-        return;
-    for (int i = 0; i < n; i++)
-        memcpy(buf + (size_t)i * 80, gl_header_card(h, i), 80);
-    buf[(size_t)n * 80] = '\0';
-    int nreject = 0, nwcs = 0;
+    int nwcs = 0;
     struct wcsprm *wcs = NULL;
-    if (wcspih(buf, n, WCSHDR_all, 0, &nreject, &nwcs, &wcs) == 0 && nwcs > 0) {
-        if (wcsset(&wcs[0]) == 0 && wcs[0].lng >= 0 && wcs[0].lat >= 0) {
-            const double *cd = wcs[0].pc, *cdelt = wcs[0].cdelt;
-            int na = wcs[0].naxis, il = wcs[0].lng, ib = wcs[0].lat;
-            /* linear part: CDELTi * PCij over the two celestial axes */
-            double m00 = cdelt[il] * cd[il * na + il], m01 = cdelt[il] * cd[il * na + ib];
-            double m10 = cdelt[ib] * cd[ib * na + il], m11 = cdelt[ib] * cd[ib * na + ib];
-            double det = fabs(m00 * m11 - m01 * m10);
-            if (det > 0) {
-                info->has_wcs = 1;
-                info->pixscale_mas = sqrt(det) * 3600e3;
-                note_found(info, "WCS");
-            }
-        }
+    if (gl_header_wcs_parse(h, &nwcs, &wcs) != GL_OK || !wcs)
+        return;
+    const double *cd = wcs[0].pc, *cdelt = wcs[0].cdelt;
+    int na = wcs[0].naxis, il = wcs[0].lng, ib = wcs[0].lat;
+    /* linear part: CDELTi * PCij over the two celestial axes */
+    double m00 = cdelt[il] * cd[il * na + il], m01 = cdelt[il] * cd[il * na + ib];
+    double m10 = cdelt[ib] * cd[ib * na + il], m11 = cdelt[ib] * cd[ib * na + ib];
+    double det = fabs(m00 * m11 - m01 * m10);
+    if (det > 0) {
+        info->has_wcs = 1;
+        info->pixscale_mas = sqrt(det) * 3600e3;
+        note_found(info, "WCS");
     }
-    if (wcs)
-        wcsvfree(&nwcs, &wcs);
-    gl_free(buf);
+    wcsvfree(&nwcs, &wcs);
 }
 
 void gl_obsinfo_from_header(const gl_header *h, gl_obsinfo *info)

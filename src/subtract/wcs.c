@@ -8,6 +8,7 @@
  * pixel scale; anything else is dropped with a HISTORY note, since a rotated
  * product cannot keep a distortion or a non-celestial mix of axes.
  */
+#include "io/internal.h"
 #include "subtract/internal.h"
 
 #include <math.h>
@@ -52,28 +53,14 @@ gl_status sub_wcs_north_up(gl_header *h, long nx, long ny)
     char ctype1[72] = "";
     if (n == 0 || !gl_header_get_str(h, "CTYPE1", ctype1, sizeof ctype1))
         return GL_OK;
-    char *buf = gl_malloc((size_t)n * 80 + 1);
-    if (!buf)
-        return gl_error_nomem("WCS header");
-    for (int i = 0; i < n; i++) {
-        const char *card = gl_header_card(h, i);
-        size_t len = strlen(card);
-        memset(buf + (size_t)i * 80, ' ', 80);
-        memcpy(buf + (size_t)i * 80, card, len > 80 ? 80 : len);
-    }
-    buf[(size_t)n * 80] = '\0';
-    int nreject = 0, nwcs = 0, ok = 0;
+    int nwcs = 0, ok = 0;
     struct wcsprm *wcs = NULL;
     double sky[2] = {0, 0}, scale = 0;
     char t1[72] = "", t2[72] = "";
-    int parsed = wcspih(buf, n, WCSHDR_all, 0, &nreject, &nwcs, &wcs) == 0 && nwcs > 0;
-    if (parsed && (wcs[0].altlin & 2))
-        /* a CD matrix given for the celestial axes only leaves the others'
-         * diagonal at 0 (singular): a cube's frame axis is a unit axis */
-        for (int k = 2; k < wcs[0].naxis; k++)
-            if (wcs[0].cd[k * wcs[0].naxis + k] == 0.0)
-                wcs[0].cd[k * wcs[0].naxis + k] = 1.0;
-    if (parsed && wcsset(&wcs[0]) == 0 && wcs[0].lng == 0 && wcs[0].lat == 1) {
+    gl_status st = gl_header_wcs_parse(h, &nwcs, &wcs);
+    if (st)
+        return st;
+    if (wcs && wcs[0].lng == 0 && wcs[0].lat == 1) {
         struct wcsprm *w = &wcs[0];
         int na = w->naxis;
         double pix[4] = {0, 0, 0, 0}, img[4], phi, theta, world[4];
@@ -98,12 +85,10 @@ gl_status sub_wcs_north_up(gl_header *h, long nx, long ny)
     }
     if (wcs)
         wcsvfree(&nwcs, &wcs);
-    gl_free(buf);
     drop_linear_keys(h);
     if (!ok)
         return gl_header_add_history(h, "input WCS not simple (celestial axes 1-2, square "
                                         "pixels): not carried to the north-up product");
-    gl_status st = GL_OK;
     if (!st)
         st = gl_header_set_str(h, "CTYPE1", t1, "north-up, east-left");
     if (!st)
