@@ -400,6 +400,22 @@ static void test_obsinfo_cube_wcs(void)
     gl_header_free(h);
 }
 
+/* An image with more axes than the reader's axis buffer (9 > 8) is refused
+ * with a message, not read past the buffer (ASan caught the old loop). */
+static void test_many_axes(void)
+{
+    long naxes[9] = {4, 4, 1, 1, 1, 1, 1, 1, 1};
+    float data[16] = {0};
+    const char *p = path_in("axes9.fits");
+    write_fits(p, 9, naxes, data);
+    gl_cube *c = NULL;
+    gl_status st = gl_fits_read_cube(p, 2, &c);
+    CHECK(st == GL_ERR_INPUT && !c, "9-axis image refused (status %d)", (int)st);
+    CHECK(strstr(gl_error_message(), "axes9.fits") != NULL, "message names the file: %s",
+          gl_error_message());
+    unlink(p);
+}
+
 int main(void)
 {
     snprintf(dir, sizeof dir, "/tmp/gloam-test-io-XXXXXX");
@@ -415,6 +431,7 @@ int main(void)
     test_fault_injection();
     test_rotation();
     test_obsinfo_cube_wcs();
+    test_many_axes();
     /* remove what is left */
     DIR *dp = opendir(dir);
     for (struct dirent *e; dp && (e = readdir(dp));)

@@ -62,6 +62,10 @@ static gl_status find_image_hdu(fitsfile *f, const char *path, int *hdu, int *na
             break;
         if (nax == 0)
             continue;
+        if (nax > 8) /* naxes holds 8: the rest were not read */
+            return gl_error_set(GL_ERR_INPUT,
+                                "%s: HDU %d has %d axes; at most 4 (x, y, channel, frame)", path, i,
+                                nax);
         *hdu = i;
         *naxis = nax;
         return GL_OK;
