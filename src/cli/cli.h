@@ -69,6 +69,23 @@ int cli_parse_long(const gl_cli *cli, const char *opt, const char *arg, long min
 int cli_parse_double(const gl_cli *cli, const char *opt, const char *arg, double min, double max,
                      double *out);
 
+/* Reads an input FITS image or cube (at least min_naxis axes) and records it
+ * in the provenance. On failure *cube is NULL and the library's message
+ * names the file. */
+gl_status cli_read_input(gl_cli *cli, const char *path, int min_naxis, gl_cube **cube);
+
+/* Reads the science cube (3-D or 4-D) and its angle list (one angle per
+ * frame), recording both in the provenance. On failure the message names the
+ * file at fault; the caller frees whatever is not NULL. */
+gl_status cli_read_cube_angles(gl_cli *cli, const char *cube_path, const char *angles_path,
+                               gl_cube **cube, double **angles);
+
+/* Registers the product PREFIX SUFFIX in outs: the name is written into
+ * path[size] (refused with GL_ERR_USAGE when it does not fit) and *tmp gets
+ * the temporary name to write to. */
+gl_status cli_add_product(gl_cli *cli, gl_outset *outs, const char *prefix, const char *suffix,
+                          char *path, size_t size, const char **tmp);
+
 /* Applies --threads and installs the log and progress printers. */
 void cli_start(gl_cli *cli);
 

@@ -174,15 +174,14 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
         goto cleanup;
     }
 
-    snprintf(path_map, sizeof path_map, "%s.snr.fits", prefix);
-    snprintf(path_csv, sizeof path_csv, "%s.candidates.csv", prefix);
-    snprintf(path_tab, sizeof path_tab, "%s.candidates.fits", prefix);
-    snprintf(path_png, sizeof path_png, "%s.snr.png", prefix);
     if ((st = gl_outset_new(cli->overwrite, &out)) ||
-        (st = gl_outset_add(out, path_map, &cli->prov, &tmp_map)) ||
-        (st = gl_outset_add(out, path_csv, &cli->prov, &tmp_csv)) ||
-        (st = gl_outset_add(out, path_tab, &cli->prov, &tmp_tab)) ||
-        (st = gl_outset_add(out, path_png, &cli->prov, &tmp_png))) {
+        (st =
+             cli_add_product(cli, out, prefix, ".snr.fits", path_map, sizeof path_map, &tmp_map)) ||
+        (st = cli_add_product(cli, out, prefix, ".candidates.csv", path_csv, sizeof path_csv,
+                              &tmp_csv)) ||
+        (st = cli_add_product(cli, out, prefix, ".candidates.fits", path_tab, sizeof path_tab,
+                              &tmp_tab)) ||
+        (st = cli_add_product(cli, out, prefix, ".snr.png", path_png, sizeof path_png, &tmp_png))) {
         rc = cli_fail(cli, st);
         goto cleanup;
     }

@@ -112,16 +112,11 @@ int cmd_inject(gl_cli *cli, int argc, char **argv)
     gl_psf_model *psf = NULL;
     gl_outset *outs = NULL;
     double *angles = NULL, *spectrum = NULL;
-    long nangles = 0;
     char planted[4096];
     const char *tmp_cube, *tmp_csv;
 
-    if ((st = gl_fits_read_cube(cube_path, 3, &cube)) ||
-        (st = gl_provenance_add_input(&cli->prov, cube_path)) ||
-        (st = gl_angles_read(angles_path, cube->nframe, &angles, &nangles)) ||
-        (st = gl_provenance_add_input(&cli->prov, angles_path)) ||
-        (st = gl_fits_read_cube(psf_path, 2, &psfc)) ||
-        (st = gl_provenance_add_input(&cli->prov, psf_path)))
+    if ((st = cli_read_cube_angles(cli, cube_path, angles_path, &cube, &angles)) ||
+        (st = cli_read_input(cli, psf_path, 2, &psfc)))
         goto cleanup;
     if (spectrum_text) {
         spectrum = gl_calloc((size_t)cube->nchan, sizeof *spectrum);

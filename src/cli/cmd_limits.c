@@ -91,13 +91,6 @@ static int parse_limits_option(gl_cli *cli, int c, const char *arg, gl_limits_pa
     }
 }
 
-/* PREFIX + suffix into buf. */
-static const char *product(char *buf, size_t size, const char *prefix, const char *suffix)
-{
-    snprintf(buf, size, "%s%s", prefix, suffix);
-    return buf;
-}
-
 /* Writes the long-format table (one block of rows per output plane). */
 static gl_status write_tables(const char *csv, const char *fits, const gl_limits_result *r,
                               double pixscale, double q, const gl_header *keys,
@@ -261,32 +254,22 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
     gl_outset *outs = NULL;
     gl_header *keys = NULL;
     double *angles = NULL;
-    long nangles = 0;
     gl_limits_result res = {0};
     gl_status st;
     char p_csv[4096], p_fits[4096], p_png[4096], p_svg[4096], p_fakes[4096];
     const char *t_csv, *t_fits, *t_png, *t_svg, *t_fakes;
 
-    if ((st = gl_fits_read_cube(cube_path, 3, &cube)) ||
-        (st = gl_provenance_add_input(&cli->prov, cube_path)) ||
-        (st = gl_angles_read(angles_path, cube->nframe, &angles, &nangles)) ||
-        (st = gl_provenance_add_input(&cli->prov, angles_path)) ||
-        (st = gl_fits_read_cube(psf_path, 2, &psfc)) ||
-        (st = gl_provenance_add_input(&cli->prov, psf_path)) ||
+    if ((st = cli_read_cube_angles(cli, cube_path, angles_path, &cube, &angles)) ||
+        (st = cli_read_input(cli, psf_path, 2, &psfc)) ||
         (st = cli_subtract_prepare(cli, &setup, cube_path, cube, &refs)) ||
         (st = gl_psf_model_new(psfc, psf_path, cube->nx, cube->ny, cube->nchan, psf_scale, &psf)))
         goto cleanup;
     if ((st = gl_outset_new(cli->overwrite, &outs)) ||
-        (st = gl_outset_add(outs, product(p_csv, sizeof p_csv, prefix, ".limits.csv"), &cli->prov,
-                            &t_csv)) ||
-        (st = gl_outset_add(outs, product(p_fits, sizeof p_fits, prefix, ".limits.fits"),
-                            &cli->prov, &t_fits)) ||
-        (st = gl_outset_add(outs, product(p_png, sizeof p_png, prefix, ".limits.png"), &cli->prov,
-                            &t_png)) ||
-        (st = gl_outset_add(outs, product(p_svg, sizeof p_svg, prefix, ".limits.svg"), &cli->prov,
-                            &t_svg)) ||
-        (st = gl_outset_add(outs, product(p_fakes, sizeof p_fakes, prefix, ".fakes.csv"),
-                            &cli->prov, &t_fakes)))
+        (st = cli_add_product(cli, outs, prefix, ".limits.csv", p_csv, sizeof p_csv, &t_csv)) ||
+        (st = cli_add_product(cli, outs, prefix, ".limits.fits", p_fits, sizeof p_fits, &t_fits)) ||
+        (st = cli_add_product(cli, outs, prefix, ".limits.png", p_png, sizeof p_png, &t_png)) ||
+        (st = cli_add_product(cli, outs, prefix, ".limits.svg", p_svg, sizeof p_svg, &t_svg)) ||
+        (st = cli_add_product(cli, outs, prefix, ".fakes.csv", p_fakes, sizeof p_fakes, &t_fakes)))
         goto cleanup;
 
     gl_obsinfo info;

@@ -80,15 +80,11 @@ int cmd_subtract(gl_cli *cli, int argc, char **argv)
     gl_cube *cube = NULL, *refs = NULL;
     gl_outset *outs = NULL;
     double *angles = NULL;
-    long nangles = 0;
     gl_subtract_result res = {0};
     const char *tmp_out = NULL, *tmp_resid = NULL, *tmp_raw = NULL;
     gl_status st;
 
-    if ((st = gl_fits_read_cube(cube_path, 3, &cube)) ||
-        (st = gl_provenance_add_input(&cli->prov, cube_path)) ||
-        (st = gl_angles_read(angles_path, cube->nframe, &angles, &nangles)) ||
-        (st = gl_provenance_add_input(&cli->prov, angles_path)))
+    if ((st = cli_read_cube_angles(cli, cube_path, angles_path, &cube, &angles)))
         goto cleanup;
     if ((st = cli_subtract_prepare(cli, &setup, cube_path, cube, &refs)))
         goto cleanup;

@@ -97,6 +97,38 @@ int cli_common_option(gl_cli *cli, int code, const char *arg, const char *help_t
     }
 }
 
+gl_status cli_read_input(gl_cli *cli, const char *path, int min_naxis, gl_cube **cube)
+{
+    gl_status st = gl_fits_read_cube(path, min_naxis, cube);
+    if (!st && (st = gl_provenance_add_input(&cli->prov, path))) {
+        gl_cube_free(*cube);
+        *cube = NULL;
+    }
+    return st;
+}
+
+gl_status cli_read_cube_angles(gl_cli *cli, const char *cube_path, const char *angles_path,
+                               gl_cube **cube, double **angles)
+{
+    long n = 0;
+    gl_status st;
+    *angles = NULL;
+    if ((st = cli_read_input(cli, cube_path, 3, cube)) ||
+        (st = gl_angles_read(angles_path, (*cube)->nframe, angles, &n)) ||
+        (st = gl_provenance_add_input(&cli->prov, angles_path)))
+        return st;
+    return GL_OK;
+}
+
+gl_status cli_add_product(gl_cli *cli, gl_outset *outs, const char *prefix, const char *suffix,
+                          char *path, size_t size, const char **tmp)
+{
+    int n = snprintf(path, size, "%s%s", prefix, suffix);
+    if (n < 0 || (size_t)n >= size)
+        return gl_error_set(GL_ERR_USAGE, "--out: the prefix '%.60s...' is too long", prefix);
+    return gl_outset_add(outs, path, &cli->prov, tmp);
+}
+
 /* ---- log and progress printers ---------------------------------------- */
 
 static void print_log(gl_log_level level, const char *msg, void *user)
