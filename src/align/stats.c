@@ -1,7 +1,6 @@
 /*
- * stats.c -- image statistics used by the align stage: medians by
- * quickselect (Hoare 1961; linear time, for the per-pixel medians of long
- * sequences), NaN-aware median frames, a noise
+ * stats.c -- image statistics used by the align stage: medians (the
+ * selection of core/stats.c), NaN-aware median frames, a noise
  * estimate from neighbour differences, peak finding and a quick FWHM guess.
  * Also the per-frame driver that runs a measurement over a stack with a
  * static OpenMP schedule, so results do not depend on the thread count.
@@ -14,46 +13,9 @@
 #include <stdlib.h>
 #include <string.h>
 
-/* k-th smallest of v[0..n-1] (Hoare's selection; reorders v). */
-static double select_kth(double *v, long n, long k)
-{
-    long lo = 0, hi = n - 1;
-    while (lo < hi) {
-        double pivot = v[lo + (hi - lo) / 2];
-        long i = lo, j = hi;
-        while (i <= j) {
-            while (v[i] < pivot)
-                i++;
-            while (v[j] > pivot)
-                j--;
-            if (i <= j) {
-                double t = v[i];
-                v[i++] = v[j];
-                v[j--] = t;
-            }
-        }
-        if (k <= j)
-            hi = j;
-        else if (k >= i)
-            lo = i;
-        else
-            break;
-    }
-    return v[k];
-}
-
 double gl_median_d(double *v, long n)
 {
-    if (n <= 0)
-        return NAN;
-    double hi = select_kth(v, n, n / 2);
-    if (n % 2)
-        return hi;
-    double lo = v[0];
-    for (long i = 1; i < n / 2; i++) /* the largest of the lower half */
-        if (v[i] > lo)
-            lo = v[i];
-    return 0.5 * (lo + hi);
+    return gl_stats_median_inplace(v, n);
 }
 
 long gl_spread_frames(long nframe, long maxn, long *frames)

@@ -30,6 +30,12 @@ struct gl_header {
 /* 1 for keywords that describe the data layout and are never carried. */
 int gl_header_is_structural(const char *key);
 
+/* Median of v[0..n-1] by Hoare's selection, in place (reorders v; no NaN
+ * expected: callers drop them first); NaN when n <= 0. The float version
+ * averages the two middle values of an even count in float. */
+double gl_stats_median_inplace(double *v, long n);
+float gl_stats_median_inplace_float(float *v, long n);
+
 #define GL_MIN(a, b) ((a) < (b) ? (a) : (b))
 #define GL_MAX(a, b) ((a) > (b) ? (a) : (b))
 

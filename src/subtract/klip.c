@@ -11,6 +11,7 @@
  * covers one tile of fixed size, and each tile is computed by one thread, so
  * results are bit-identical whatever the number of threads.
  */
+#include "core/internal.h"
 #include "subtract/internal.h"
 
 #include <cblas.h>
@@ -384,52 +385,13 @@ gl_status sub_target_weights(const double *C, long nall, const long *lib, long n
 
 /* ---- helpers ------------------------------------------------------------ */
 
-static float select_kth(float *a, long n, long k)
-{
-    long lo = 0, hi = n - 1;
-    while (lo < hi) {
-        float pivot = a[lo + (hi - lo) / 2];
-        long i = lo, j = hi;
-        while (i <= j) {
-            while (a[i] < pivot)
-                i++;
-            while (a[j] > pivot)
-                j--;
-            if (i <= j) {
-                float tmp = a[i];
-                a[i] = a[j];
-                a[j] = tmp;
-                i++;
-                j--;
-            }
-        }
-        if (k <= j)
-            hi = j;
-        else if (k >= i)
-            lo = i;
-        else
-            break;
-    }
-    return a[k];
-}
-
 float sub_nanmedian(float *buf, long n)
 {
     long m = 0;
     for (long i = 0; i < n; i++)
         if (!isnan(buf[i]))
             buf[m++] = buf[i];
-    if (m == 0)
-        return NAN;
-    float hi = select_kth(buf, m, m / 2);
-    if (m % 2)
-        return hi;
-    /* the lower middle is the largest value below position m/2 */
-    float lo = buf[0];
-    for (long i = 1; i < m / 2; i++)
-        if (buf[i] > lo)
-            lo = buf[i];
-    return 0.5f * (lo + hi);
+    return gl_stats_median_inplace_float(buf, m);
 }
 
 void sub_modes_sorted(const gl_subtract_params *p, long *sorted, int *order)
