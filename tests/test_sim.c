@@ -8,6 +8,7 @@
 #include "sim/internal.h"
 #include "check.h"
 
+#include <gsl/gsl_errno.h>
 #include <omp.h>
 #include <string.h>
 
@@ -254,6 +255,26 @@ static void test_bad_params(void)
     gl_sim_result_free(NULL);
 }
 
+static int gsl_handler_calls;
+static void counting_handler(const char *reason, const char *file, int line, int gsl_errno)
+{
+    (void)reason, (void)file, (void)line, (void)gsl_errno;
+    gsl_handler_calls++;
+}
+
+/* The library never aborts: the random streams turn GSL's error handler off
+ * (a failed gsl_rng_alloc would otherwise call abort()). */
+static void test_gsl_handler_off(void)
+{
+    gsl_set_error_handler(counting_handler);
+    gsl_rng *r = sim_rng_new(7, 1, 2);
+    CHECK(r != NULL, "random stream");
+    gsl_rng_free(r);
+    gsl_error_handler_t *prev = gsl_set_error_handler(NULL);
+    CHECK(prev != counting_handler, "GSL's error handler was turned off by the simulator");
+    gsl_set_error_handler_off();
+}
+
 int main(void)
 {
     test_airy();
@@ -262,5 +283,6 @@ int main(void)
     test_determinism();
     test_companion_position();
     test_bad_params();
+    test_gsl_handler_off();
     CHECK_DONE();
 }

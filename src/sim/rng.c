@@ -5,9 +5,12 @@
  * from (user seed, purpose, index) through the SplitMix64 finaliser (Steele,
  * Lea & Flood 2014, "Fast splittable pseudorandom number generators", OOPSLA),
  * so frame i always sees the same numbers, whatever the thread that computes
- * it and whatever else was drawn before.
+ * it and whatever else was drawn before. GSL's abort handler is turned off
+ * first: a failed allocation returns NULL to the caller instead of aborting.
  */
 #include "sim/internal.h"
+
+#include <gsl/gsl_errno.h>
 
 static unsigned long long splitmix64(unsigned long long x)
 {
@@ -19,6 +22,7 @@ static unsigned long long splitmix64(unsigned long long x)
 
 gsl_rng *sim_rng_new(unsigned long seed, int stream, long index)
 {
+    gsl_set_error_handler_off();
     gsl_rng *r = gsl_rng_alloc(gsl_rng_mt19937);
     if (!r)
         return NULL;
