@@ -45,6 +45,30 @@ static void test_header(void)
     gl_header_free(NULL);
 }
 
+/* Malformed cards: a named card without "= " (cfitsio then returns its 72
+ * characters as a comment) and a card of 75 characters without a blank (a
+ * keyword name of up to 74). Both used to overflow the parser's buffers
+ * (caught by ASan); now they read as "no value". */
+static void test_header_malformed_cards(void)
+{
+    gl_header *h = gl_header_new();
+    char card[81];
+    memset(card, 'x', 80);
+    memcpy(card, "OBJECT  ", 8);
+    card[80] = '\0';
+    gl_header_add_card(h, card);
+    memset(card, 'Y', 80);
+    gl_header_add_card(h, card);
+    char s[72];
+    double v;
+    CHECK(!gl_header_get_str(h, "OBJECT", s, sizeof s), "no value indicator: no value");
+    CHECK(!gl_header_get_dbl(h, "OBJECT", &v), "no value indicator: no number");
+    CHECK(!gl_header_get_dbl(h, "MISSING", &v), "long name card skipped");
+    gl_header_remove(h, "MISSING");
+    CHECK(gl_header_ncards(h) == 2, "cards kept: %d", gl_header_ncards(h));
+    gl_header_free(h);
+}
+
 static void test_cube(void)
 {
     gl_cube *c = NULL;
@@ -64,6 +88,7 @@ int main(void)
 {
     test_errors();
     test_header();
+    test_header_malformed_cards();
     test_cube();
     CHECK_DONE();
 }

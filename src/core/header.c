@@ -84,8 +84,9 @@ gl_header *gl_header_copy(const gl_header *h)
     return c;
 }
 
-/* Keyword name of a card (empty for blank/commentary-without-name cards). */
-static void card_name(const char *card, char name[72])
+/* Keyword name of a card (empty for blank/commentary-without-name cards).
+ * cfitsio writes up to FLEN_KEYWORD bytes (a card without blanks). */
+static void card_name(const char *card, char name[FLEN_KEYWORD])
 {
     int len = 0, status = 0;
     name[0] = '\0';
@@ -107,7 +108,7 @@ gl_status gl_header_add_card(gl_header *h, const char *card)
 static void remove_cards(gl_header *h, const char *key)
 {
     int j = 0;
-    char name[72];
+    char name[FLEN_KEYWORD];
     for (int i = 0; i < h->ncards; i++) {
         card_name(h->cards[i], name);
         if (strcmp(name, key) != 0) {
@@ -198,9 +199,10 @@ void gl_header_remove(gl_header *h, const char *key)
 }
 
 /* Finds the value string of a carried card named key; 1 when found. */
-static int card_value(const gl_header *h, const char *key, char value[72])
+static int card_value(const gl_header *h, const char *key, char value[FLEN_VALUE])
 {
-    char name[72], comm[72];
+    /* a card without "= " comes back whole as a 72-character comment */
+    char name[FLEN_KEYWORD], comm[FLEN_COMMENT];
     for (int i = 0; i < h->ncards; i++) {
         card_name(h->cards[i], name);
         if (strcmp(name, key) != 0)
@@ -231,7 +233,7 @@ int gl_header_get_dbl(const gl_header *h, const char *key, double *value)
         }
         return 0;
     }
-    char v[72];
+    char v[FLEN_VALUE];
     if (!card_value(h, key, v))
         return 0;
     if (v[0] == '\'')
@@ -259,7 +261,7 @@ int gl_header_get_str(const gl_header *h, const char *key, char *value, size_t s
             return 1;
         }
     }
-    char v[72];
+    char v[FLEN_VALUE];
     if (!card_value(h, key, v))
         return 0;
     if (v[0] != '\'') { /* a number or logical given where a string was expected */
