@@ -138,19 +138,7 @@ gl_status gl_detect_maps_write(const char *path, const gl_detect_maps *maps,
                maps->fpf, nx, ny, prov, &status);
     append_ext(f, c->header, "SIGNIF", "Gaussian-equivalent significance (sigma)", FLOAT_IMG,
                TFLOAT, maps->significance, nx, ny, prov, &status);
-    if (status) {
-        st = gl_fits_error(GL_ERR_IO, path, "cannot write the map extensions", status);
-        int s2 = 0;
-        fits_close_file(f, &s2);
-        f = NULL;
-        unlink(path);
-        goto cleanup;
-    }
-    if (fits_close_file(f, &status)) {
-        st = gl_fits_error(GL_ERR_IO, path, "cannot finish writing", status);
-        unlink(path);
-    }
-    f = NULL;
+    st = gl_fits_finish(f, path, "cannot write the map extensions", status);
 cleanup:
     gl_cube_free(c);
     return st;

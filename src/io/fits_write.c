@@ -103,7 +103,6 @@ gl_status gl_fits_write_cube(const char *path, const gl_cube *c, const gl_proven
 {
     fitsfile *f = NULL;
     int status = 0;
-    gl_status st = GL_OK;
 
     long naxes[4];
     int naxis = c->naxis;
@@ -134,8 +133,13 @@ gl_status gl_fits_write_cube(const char *path, const gl_cube *c, const gl_proven
         fits_write_img(f, TFLOAT, 1, (LONGLONG)gl_cube_size(c), c->data, &status);
     if (!status)
         fits_write_chksum(f, &status);
+    return gl_fits_finish(f, path, "cannot write", status);
+}
+
+gl_status gl_fits_finish(fitsfile *f, const char *path, const char *what, int status)
+{
     if (status) {
-        st = gl_fits_error(GL_ERR_IO, path, "cannot write", status);
+        gl_status st = gl_fits_error(GL_ERR_IO, path, what, status);
         int s2 = 0;
         fits_close_file(f, &s2);
         unlink(path);

@@ -12,6 +12,11 @@
  * the given gloam status. */
 gl_status gl_fits_error(gl_status st, const char *path, const char *what, int fstatus);
 
+/* Closes a FITS file being written to path. When status is non-zero on
+ * entry (what went wrong: "cannot write ...") or closing fails, the file is
+ * deleted and GL_ERR_IO returned with "PATH: what (cfitsio's message)". */
+gl_status gl_fits_finish(fitsfile *f, const char *path, const char *what, int status);
+
 /* Writes a header's carried cards, typed keywords and HISTORY into the
  * current HDU (earlier provenance cards dropped when prov is given). */
 int gl_fits_write_header(fitsfile *f, const gl_header *h, const gl_provenance *prov, int *status);

@@ -91,16 +91,5 @@ gl_status gl_table_write_fits(const char *path, const gl_table *t, const char *e
     gl_free(ttype);
     gl_free(tform);
     gl_free(tunit);
-    if (status) {
-        gl_status st = gl_fits_error(GL_ERR_IO, path, "cannot write the table", status);
-        int s2 = 0;
-        fits_close_file(f, &s2);
-        unlink(path);
-        return st;
-    }
-    if (fits_close_file(f, &status)) {
-        unlink(path);
-        return gl_fits_error(GL_ERR_IO, path, "cannot finish writing", status);
-    }
-    return GL_OK;
+    return gl_fits_finish(f, path, "cannot write the table", status);
 }
