@@ -52,6 +52,10 @@ GL_API int gl_status_exit_code(gl_status status);
 /* Convenience: records "out of memory (what)" and returns GL_ERR_NOMEM. */
 GL_API gl_status gl_error_nomem(const char *what);
 
+/* The smallest PSF FWHM accepted anywhere, in pixels: below it the PSF is
+ * not sampled and aperture counts per ring grow without bound. */
+#define GL_FWHM_MIN_PX 0.5
+
 /* Version string of the library, e.g. "0.1.0". */
 GL_API const char *gl_version(void);
 

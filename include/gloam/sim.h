@@ -123,7 +123,7 @@ typedef struct gl_sim_result {
     double *star_y;
     /* truth, one entry per companion */
     int ncompanions;
-    double comp_flux[GL_SIM_MAX_COMPANIONS];    /* electrons per frame (channel 0) */
+    double comp_flux[GL_SIM_MAX_COMPANIONS];    /* contrast x total of psf.fits (channel 0) */
     double comp_x_north[GL_SIM_MAX_COMPANIONS]; /* position in a north-up frame */
     double comp_y_north[GL_SIM_MAX_COMPANIONS];
     double star_flux_psf; /* whole-plane flux of the off-axis PSF (channel 0) */

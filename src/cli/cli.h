@@ -58,6 +58,11 @@ int cli_fail(const gl_cli *cli, gl_status st);
 /* Prints "gloam CMD: <message>" plus a hint to --help; returns 1. */
 int cli_usage(const gl_cli *cli, const char *fmt, ...) __attribute__((format(printf, 2, 3)));
 
+/* Checks required options: names[i] is missing when values[i] is NULL.
+ * Prints "--a, --b are needed" naming only the missing ones and returns 1;
+ * returns 0 when all are there. */
+int cli_missing(const gl_cli *cli, int n, const char *const *names, const void *const *values);
+
 /* Reports the option getopt_long rejected ('?'): unknown, or missing its
  * value. Returns 1. Call with the argv given to getopt_long. */
 int cli_bad_option(const gl_cli *cli, char **argv);

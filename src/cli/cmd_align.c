@@ -151,7 +151,7 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
             p.upsample = (int)n;
             break;
         case OPT_FWHM:
-            if (cli_parse_double(cli, "--fwhm", optarg, 0.5, 1000, &p.fwhm))
+            if (cli_parse_double(cli, "--fwhm", optarg, GL_FWHM_MIN_PX, 1000, &p.fwhm))
                 return 1;
             break;
         case OPT_STAMP:

@@ -89,7 +89,7 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
             continue;
         switch (c) {
         case OPT_FWHM:
-            if (cli_parse_double(cli, "--fwhm", optarg, 1e-3, 1e4, &par.fwhm))
+            if (cli_parse_double(cli, "--fwhm", optarg, GL_FWHM_MIN_PX, 1e4, &par.fwhm))
                 return 1;
             break;
         case OPT_OUT: prefix = optarg; break;

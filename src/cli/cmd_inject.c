@@ -104,8 +104,12 @@ int cmd_inject(gl_cli *cli, int argc, char **argv)
         return cli_usage(cli,
                          optind >= argc ? "the input cube is missing" : "expected one input cube");
     const char *cube_path = argv[optind];
-    if (!angles_path || !psf_path || !out_path || ncomp == 0)
-        return cli_usage(cli, "--angles, --psf, --out and at least one --companion are needed");
+    {
+        const char *names[] = {"--angles", "--psf", "--out", "--companion"};
+        const void *vals[] = {angles_path, psf_path, out_path, ncomp ? names : NULL};
+        if (cli_missing(cli, 4, names, vals))
+            return 1;
+    }
     cli_start(cli);
 
     gl_cube *cube = NULL, *psfc = NULL;

@@ -155,7 +155,7 @@ int cmd_inspect(gl_cli *cli, int argc, char **argv)
         switch (c) {
         case OPT_ANGLES: angles = optarg; break;
         case OPT_FWHM:
-            if (cli_parse_double(cli, "--fwhm", optarg, 0.1, 1000, &p.fwhm_px))
+            if (cli_parse_double(cli, "--fwhm", optarg, GL_FWHM_MIN_PX, 1000, &p.fwhm_px))
                 return 1;
             p.fwhm_given = 1;
             break;

@@ -241,8 +241,12 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
         return cli_usage(cli,
                          optind >= argc ? "the input cube is missing" : "expected one input cube");
     const char *cube_path = argv[optind];
-    if (!angles_path || !psf_path || !prefix)
-        return cli_usage(cli, "--angles, --psf, --fwhm and --out are needed");
+    {
+        const char *names[] = {"--angles", "--psf", "--fwhm", "--out"};
+        const void *vals[] = {angles_path, psf_path, setup.have_fwhm ? names : NULL, prefix};
+        if (cli_missing(cli, 4, names, vals))
+            return 1;
+    }
     if (cli_subtract_check(cli, &setup))
         return 1;
     if (lp.r_min_px > 0 && lp.r_max_px > 0 && lp.r_min_px > lp.r_max_px)
@@ -276,6 +280,11 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
     gl_obsinfo_from_header(cube->header, &info);
     if (!(pixscale > 0) && info.pixscale_mas > 0)
         pixscale = info.pixscale_mas;
+    if (!(psf->fwhm_px[0] > 0.7 * setup.p.fwhm && psf->fwhm_px[0] < 1.4 * setup.p.fwhm))
+        gl_log(GL_LOG_WARN,
+               "--fwhm %.2f px differs from the FWHM measured on %s (%.2f px): apertures and "
+               "rings are sized by --fwhm",
+               setup.p.fwhm, psf_path, psf->fwhm_px[0]);
     if ((st = gl_limits_compute(cube, angles, refs, &setup.p, psf, &lp, &res))) {
         if (st == GL_ERR_INPUT) {
             char msg[1024];
@@ -359,9 +368,11 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
     if ((st = gl_outset_commit(outs)))
         goto cleanup;
     for (long i = 0; i<res.n; i += res.n> 8 ? res.n / 8 : 1)
-        gl_log(GL_LOG_INFO, "  %6.1f px: throughput %.2f, %g-sigma contrast %.3g (%.1f mag)",
-               res.sep_px[i], res.throughput[i], lp.sigma, res.contrast_c50[i],
-               -2.5 * log10(res.contrast_c50[i]));
+        gl_log(GL_LOG_INFO,
+               "  %6.1f px: throughput %.2f, contrast %.3g (%.1f mag) at %g sigma and 50%% "
+               "completeness",
+               res.sep_px[i], res.throughput[i], res.contrast_c50[i],
+               -2.5 * log10(res.contrast_c50[i]), lp.sigma);
     gl_log(GL_LOG_INFO, "wrote %s (.fits, .png, .svg) and %s", p_csv, p_fakes);
 
 cleanup:

@@ -7,6 +7,8 @@
  */
 #include "cli/cli.h"
 
+#include <math.h>
+
 #include <errno.h>
 #include <stdio.h>
 #include <stdlib.h>
@@ -297,7 +299,7 @@ int cmd_simulate(gl_cli *cli, int argc, char **argv)
             if (p.ncompanions >= GL_SIM_MAX_COMPANIONS)
                 return cli_usage(cli, "--companion: at most %d companions", GL_SIM_MAX_COMPANIONS);
             if (gl_companion_parse(optarg, &p.companions[p.ncompanions]) != GL_OK)
-                return cli_usage(cli, "--companion: %s", gl_error_message());
+                return cli_usage(cli, "%s", gl_error_message());
             p.ncompanions++;
             break;
         case O_WAVE: bad = parse_wavelengths(cli, optarg, &p); break;
@@ -418,9 +420,12 @@ int cmd_simulate(gl_cli *cli, int argc, char **argv)
     gl_sim_result *res = NULL;
     st = gl_sim_run(&p, &res);
     if (st == GL_OK) {
+        /* the rotation over the sequence, unwrapped through +-180 degrees */
+        double rot = 0;
+        for (long i = 1; i < p.nframes; i++)
+            rot += remainder(res->angle_deg[i] - res->angle_deg[i - 1], 360.0);
         gl_log(GL_LOG_INFO, "%ld frames of %ld x %ld, %d channel(s), field rotation %.1f deg",
-               p.nframes, p.size, p.size, p.nchan,
-               res->angle_deg[p.nframes - 1] - res->angle_deg[0]);
+               p.nframes, p.size, p.size, p.nchan, fabs(rot));
         st = write_products(cli, dir, &p, res);
     }
     gl_sim_result_free(res);

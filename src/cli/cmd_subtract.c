@@ -71,8 +71,12 @@ int cmd_subtract(gl_cli *cli, int argc, char **argv)
         return cli_usage(cli,
                          optind >= argc ? "the input cube is missing" : "expected one input cube");
     const char *cube_path = argv[optind];
-    if (!angles_path || !out_path)
-        return cli_usage(cli, "--angles, --fwhm and --out are needed");
+    {
+        const char *names[] = {"--angles", "--fwhm", "--out"};
+        const void *vals[] = {angles_path, setup.have_fwhm ? names : NULL, out_path};
+        if (cli_missing(cli, 3, names, vals))
+            return 1;
+    }
     if (cli_subtract_check(cli, &setup))
         return 1;
     cli_start(cli);

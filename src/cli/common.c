@@ -32,6 +32,27 @@ int cli_usage(const gl_cli *cli, const char *fmt, ...)
     return 1;
 }
 
+int cli_missing(const gl_cli *cli, int n, const char *const *names, const void *const *values)
+{
+    char list[512] = "";
+    int missing = 0;
+    for (int i = 0; i < n; i++)
+        if (!values[i]) {
+            size_t len = strlen(list);
+            snprintf(list + len, sizeof list - len, "%s%s", missing ? ", " : "", names[i]);
+            missing++;
+        }
+    if (!missing)
+        return 0;
+    char *last = strrchr(list, ',');
+    if (last) { /* "--a, --b, --c" -> "--a, --b and --c" */
+        char tail[512];
+        snprintf(tail, sizeof tail, " and%s", last + 1);
+        snprintf(last, sizeof list - (size_t)(last - list), "%s", tail);
+    }
+    return cli_usage(cli, "%s %s needed", list, missing > 1 ? "are" : "is");
+}
+
 int cli_bad_option(const gl_cli *cli, char **argv)
 {
     const char *arg = argv[optind - 1];

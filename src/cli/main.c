@@ -55,6 +55,10 @@ int main(int argc, char **argv)
     for (size_t i = 0; commands[i].name; i++) {
         if (strcmp(argv[1], commands[i].name) != 0)
             continue;
+        /* -h is --help for every command */
+        for (int a = 2; a < argc; a++)
+            if (strcmp(argv[a], "-h") == 0)
+                argv[a] = "--help";
         gl_cli cli = {0};
         cli.command = commands[i].name;
         snprintf(cli.program, sizeof cli.program, "gloam %s", gl_version());

@@ -69,14 +69,25 @@ static int parse_list(const char *text, double *vals, int max)
 }
 
 /* Wavelengths from a FITS spectral axis 3 (CTYPE3 WAVE*, CRVAL3, CDELT3,
- * CRPIX3; Greisen et al. 2006, A&A 446, 747). Returns the count found. */
+ * CRPIX3; Greisen et al. 2006, A&A 446, 747), else from one keyword per
+ * channel WAVEL1..WAVELn (as gloam simulate writes them). Returns the count
+ * found. */
 static int header_wavelengths(const gl_header *h, long nchan, double *w, int max)
 {
     char ctype[72];
     double crval, cdelt, crpix = 1;
     if (!gl_header_get_str(h, "CTYPE3", ctype, sizeof ctype) || strncmp(ctype, "WAVE", 4) != 0 ||
-        !gl_header_get_dbl(h, "CRVAL3", &crval) || !gl_header_get_dbl(h, "CDELT3", &cdelt))
-        return 0;
+        !gl_header_get_dbl(h, "CRVAL3", &crval) || !gl_header_get_dbl(h, "CDELT3", &cdelt)) {
+        if (nchan > max)
+            return 0;
+        for (long k = 0; k < nchan; k++) {
+            char key[16];
+            snprintf(key, sizeof key, "WAVEL%ld", k + 1);
+            if (!gl_header_get_dbl(h, key, &w[k]) || !(w[k] > 0))
+                return 0;
+        }
+        return (int)nchan;
+    }
     gl_header_get_dbl(h, "CRPIX3", &crpix);
     if (nchan > max)
         return 0;
@@ -99,8 +110,9 @@ int cli_subtract_option(gl_cli *cli, int code, const char *optarg, cli_subtract_
     case CLI_OPT_FWHM:
         if (cli_parse_double(cli, "--fwhm", optarg, -INFINITY, INFINITY, &p.fwhm))
             return -1;
-        if (!(p.fwhm > 0)) {
-            cli_usage(cli, "--fwhm must be a positive number of pixels (got %s)", optarg);
+        if (!(p.fwhm >= GL_FWHM_MIN_PX) || p.fwhm > 1e4) {
+            cli_usage(cli, "--fwhm must be the PSF's FWHM in pixels, at least 0.5 (got %s)",
+                      optarg);
             return -1;
         }
         s->have_fwhm = 1;
@@ -240,7 +252,8 @@ gl_status cli_subtract_prepare(gl_cli *cli, cli_subtract_setup *s, const char *c
         }
         if (nw == 0) {
             st = gl_error_set(GL_ERR_USAGE,
-                              "%s: --sdi needs --wavelengths or a WAVE axis 3 in the header",
+                              "%s: --sdi needs --wavelengths, a WAVE axis 3 or WAVEL1..n "
+                              "keywords in the header",
                               cube_path);
             goto cleanup;
         }

@@ -11,7 +11,7 @@
  * circular 2-D Gaussian plus a constant to the image within one FWHM of the
  * peak (GSL multifit_nlinear, trust region with Levenberg-Marquardt steps);
  * when the fit fails or wanders (no convergence, centre more than one FWHM
- * away, width outside a factor of 4 of the FWHM, negative amplitude) the
+ * away, width outside a factor of 2 of the FWHM, negative amplitude) the
  * position is the centroid of the positive pixels within FWHM/2 of the peak.
  * The t test is then repeated at that position (the ring starts at its
  * angle), which gives the reported S/N, FPF and significance.
@@ -117,7 +117,7 @@ static int gauss_fit(stamp *s, double px, double py, double fwhm, double *x, dou
         double A = gsl_vector_get(r, 0), x0 = gsl_vector_get(r, 1), y0 = gsl_vector_get(r, 2);
         double sg = fabs(gsl_vector_get(r, 3));
         if (A > 0 && isfinite(x0) && isfinite(y0) && hypot(x0 - px, y0 - py) <= fwhm &&
-            sg >= 0.25 * sigma0 && sg <= 4 * sigma0) {
+            sg >= 0.5 * sigma0 && sg <= 2 * sigma0) {
             *x = x0;
             *y = y0;
             *fit_fwhm = sg * 2 * sqrt(2 * log(2));

@@ -36,8 +36,8 @@ void gl_detect_geom(const gl_detect_params *p, detect_geom *g)
 gl_status gl_detect_params_check(const gl_detect_params *p, long nx, long ny)
 {
     long nmin = nx < ny ? nx : ny;
-    if (!(p->fwhm > 0) || !isfinite(p->fwhm))
-        return gl_error_set(GL_ERR_USAGE, "FWHM %g px: must be positive", p->fwhm);
+    if (!(p->fwhm >= GL_FWHM_MIN_PX) || !isfinite(p->fwhm))
+        return gl_error_set(GL_ERR_USAGE, "FWHM %g px: must be at least 0.5 pixels", p->fwhm);
     if (p->fwhm > 0.25 * (double)nmin)
         return gl_error_set(GL_ERR_USAGE,
                             "FWHM %g px is larger than a quarter of the image (%ld x %ld px)",

@@ -127,15 +127,20 @@ static void plane_stats(const gl_inspect_report *r, const float *img, const unsi
     gl_stats_robust(work, (size_t)nbg, work + n, &ps->bg_median, &ps->bg_sigma);
 }
 
-/* min/median/max of a field over planes, and outlier flags for it. */
+/* min/median/max of a field over planes, and outlier flags for it. Outliers
+ * are judged channel by channel: channels of a spectral cube differ in flux
+ * and background by nature. */
 static void summarise(gl_inspect_report *r, size_t offset, double *work, gl_inspect_range *rg,
                       double nsigma, unsigned flag)
 {
-    long m = 0;
+#define FIELD(i) (*(const double *)((const char *)&r->planes[i] + offset))
+    long m = 0, nchan = 1;
     for (long i = 0; i < r->nplanes; i++) {
-        double v = *(const double *)((const char *)&r->planes[i] + offset);
+        double v = FIELD(i);
         if (isfinite(v))
             work[m++] = v;
+        if (r->planes[i].chan + 1 > nchan)
+            nchan = r->planes[i].chan + 1;
     }
     rg->min = rg->median = rg->max = NAN;
     if (m == 0)
@@ -146,17 +151,27 @@ static void summarise(gl_inspect_report *r, size_t offset, double *work, gl_insp
     double med, sig;
     gl_stats_robust(work, (size_t)m, work + m, &med, &sig);
     rg->median = med;
-    if (m < 3 || !(nsigma > 0))
+    if (!(nsigma > 0))
         return;
-    for (long i = 0; i < r->nplanes; i++) {
-        double v = *(const double *)((const char *)&r->planes[i] + offset);
-        if (!isfinite(v))
+    for (long c = 0; c < nchan; c++) {
+        m = 0;
+        for (long i = 0; i < r->nplanes; i++)
+            if (r->planes[i].chan == c && isfinite(FIELD(i)))
+                work[m++] = FIELD(i);
+        if (m < 3)
             continue;
-        /* with sig == 0 all but the differing frames are identical */
-        double tol = sig > 0 ? nsigma * sig : 1e-6 * fabs(med);
-        if (fabs(v - med) > tol)
-            r->planes[i].outlier |= flag;
+        gl_stats_robust(work, (size_t)m, work + m, &med, &sig);
+        for (long i = 0; i < r->nplanes; i++) {
+            double v = FIELD(i);
+            if (r->planes[i].chan != c || !isfinite(v))
+                continue;
+            /* with sig == 0 all but the differing frames are identical */
+            double tol = sig > 0 ? nsigma * sig : 1e-6 * fabs(med);
+            if (fabs(v - med) > tol)
+                r->planes[i].outlier |= flag;
+        }
     }
+#undef FIELD
 }
 
 static void rotation(gl_inspect_report *r, const double *angles, long n, const gl_inspect_params *p)

@@ -292,6 +292,23 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
         }
     }
     gl_progress("limits", 1 + lp->branches, 1 + lp->branches);
+    long usable = 0, low = 0;
+    for (long i = 0; i < n; i++) {
+        usable += isfinite(r.contrast_c50[i]);
+        low += isfinite(r.noise[i]) && !(r.throughput[i] > 0.01);
+    }
+    if (usable == 0) {
+        st = gl_error_set(GL_ERR_USAGE,
+                          "no separation kept a measurable throughput (above 1%%): the fakes "
+                          "(%g x the local noise) were removed by the subtraction; lower "
+                          "--fake-level or use fewer modes",
+                          lp->fake_level);
+        goto cleanup;
+    }
+    if (low > 0)
+        gl_log(GL_LOG_WARN,
+               "%ld of %ld separations have a throughput below 1%% and no contrast (plane 1)", low,
+               n);
     r.image = base.image;
     base.image = NULL;
     *out = r;

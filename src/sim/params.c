@@ -85,6 +85,8 @@ gl_status gl_sim_params_check(const gl_sim_params *p)
         if (!(l >= 0.3 && l <= 30.0))
             return BAD("wavelength %g um: must be in [0.3, 30]", l);
         /* the focal plane must stay Nyquist-sampled for the intensity */
+        if (c > 0 && !(l > p->wavelength_um[c - 1]))
+            return BAD("wavelength %g um: list the channels from the shortest wavelength up", l);
         if (!(p->sampling * l / p->wavelength_um[0] >= 2.0))
             return BAD("wavelength %g um: %g pixels per lambda/D is below Nyquist (2); "
                        "list the shortest wavelength first or raise the sampling",
@@ -147,6 +149,10 @@ gl_status gl_sim_params_check(const gl_sim_params *p)
         return BAD("companions %d: at most %d", p->ncompanions, GL_SIM_MAX_COMPANIONS);
     for (int i = 0; i < p->ncompanions; i++) {
         const gl_sim_companion *c = &p->companions[i];
+        if (c->sep_px > 0.5 * (double)p->size - 1)
+            return BAD("companion %d at %g px: outside the %ld-px frame (at most %g px from "
+                       "the star)",
+                       i + 1, c->sep_px, p->size, 0.5 * (double)p->size - 1);
         if (!(c->sep_px >= 0 && c->sep_px < 4096) || !isfinite(c->pa_deg) ||
             !(c->contrast > 0 && c->contrast <= 1))
             return BAD("companion %d (%g:%g:%g): need separation >= 0, finite angle and "

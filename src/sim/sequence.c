@@ -375,11 +375,16 @@ gl_status gl_sim_run(const gl_sim_params *p, gl_sim_result **out)
         thr = s2 / c0->amp_sum2;
     }
     r->star_flux_psf = p->star_flux * thr;
+    /* the star flux of the conventions is the total of psf.fits (what
+     * inject and limits scale by), which misses the light beyond the frame */
+    double psf_total = 0;
+    for (size_t i = 0; i < gl_cube_plane_size(r->psf); i++)
+        psf_total += r->psf->data[i];
     r->ncompanions = p->ncompanions;
     for (int m = 0; m < p->ncompanions; m++) {
         const gl_sim_companion *cp = &p->companions[m];
         double a = (90.0 + cp->pa_deg) * M_PI / 180.0;
-        r->comp_flux[m] = cp->contrast * r->star_flux_psf;
+        r->comp_flux[m] = cp->contrast * psf_total;
         r->comp_x_north[m] = (double)(nx / 2) + cp->sep_px * cos(a);
         r->comp_y_north[m] = (double)(nx / 2) + cp->sep_px * sin(a);
     }

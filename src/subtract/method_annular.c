@@ -65,12 +65,14 @@ static gl_status check_libraries(const sub_ctx *c, double width, long nring, lon
             if (n == 0)
                 return gl_error_set(GL_ERR_USAGE,
                                     "--gap %g FWHM leaves frame %ld without reference frames at "
-                                    "radius %.1f px (field rotation too small)",
+                                    "radius %.1f px (too little field rotation there): raise "
+                                    "--mask-radius past that radius or lower --gap",
                                     p->gap_fwhm, t, rmid);
             if (n < kmax)
                 return gl_error_set(GL_ERR_USAGE,
                                     "--modes %ld is larger than the %ld usable reference frames "
-                                    "of frame %ld at radius %.1f px (--gap %g FWHM)",
+                                    "of frame %ld at radius %.1f px (--gap %g FWHM): use fewer "
+                                    "modes, a larger --mask-radius or a smaller --gap",
                                     kmax, n, t, rmid, p->gap_fwhm);
         }
     }

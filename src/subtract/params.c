@@ -35,8 +35,9 @@ void gl_subtract_params_init(gl_subtract_params *p)
 
 gl_status gl_subtract_params_check(const gl_subtract_params *p)
 {
-    if (!(p->fwhm > 0) || !isfinite(p->fwhm))
-        return gl_error_set(GL_ERR_USAGE, "--fwhm must be a positive number of pixels (got %g)",
+    if (!(p->fwhm >= GL_FWHM_MIN_PX) || !isfinite(p->fwhm))
+        return gl_error_set(GL_ERR_USAGE,
+                            "--fwhm must be at least 0.5 pixels (the PSF's FWHM in pixels; got %g)",
                             p->fwhm);
     if (p->method < GL_SUBTRACT_MEDIAN || p->method > GL_SUBTRACT_NONE)
         return gl_error_set(GL_ERR_USAGE, "unknown subtraction method %d", (int)p->method);
