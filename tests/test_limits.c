@@ -121,9 +121,9 @@ static void test_curves(void)
     CHECK(gl_limits_compute(cube, angles, NULL, &sp, m1, &lb, &bad) == GL_ERR_USAGE,
           "completeness 1 refused");
     lb = lp;
-    lb.branches = 0;
+    lb.fake_runs = 0;
     CHECK(gl_limits_compute(cube, angles, NULL, &sp, m1, &lb, &bad) == GL_ERR_USAGE,
-          "no branches refused");
+          "no fake runs refused");
     gl_limits_result_free(&bad);
     gl_limits_result_free(&r1);
     gl_limits_result_free(&r4);

@@ -69,7 +69,8 @@ GL_API gl_status gl_companion_parse(const char *text, gl_companion *out);
  * thread count. */
 GL_API gl_status gl_inject_companions(gl_cube *cube, const double *angles_deg,
                                       double north_offset_deg, const gl_psf_model *psf,
-                                      const gl_companion *comps, int ncomp, const double *spectrum);
+                                      const gl_companion *comps, int ncompanions,
+                                      const double *spectrum);
 
 #ifdef __cplusplus
 }

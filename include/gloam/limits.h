@@ -31,7 +31,7 @@ typedef struct gl_limits_params {
     double step_px;       /* separation step of the curve; 0: FWHM / 2 */
     double r_min_px;      /* first separation; 0: max(FWHM, mask + FWHM / 2) */
     double r_max_px;      /* last separation; 0: as far as apertures fit */
-    int branches;         /* fake-companion branches, each one subtraction (default 2) */
+    int fake_runs;        /* runs with fake companions, each one subtraction (default 2) */
     double fake_level;    /* fake flux in units of the local aperture noise (default 10) */
     double pa0_deg;       /* position angle of the first fake (default 0) */
     int exclude_adjacent; /* leave out the two apertures next to the test one */
@@ -42,7 +42,7 @@ GL_API void gl_limits_params_init(gl_limits_params *p);
 /* One planted fake and what survived of it in each output plane. */
 typedef struct gl_limits_fake {
     double sep_px, pa_deg, contrast;
-    int branch;
+    int run;
     double throughput[GL_SUBTRACT_MAX_MODES];
 } gl_limits_fake;
 
@@ -75,7 +75,7 @@ typedef struct gl_limits_result {
  * Method: one subtraction of the cube; noise from the non-overlapping 1-FWHM
  *        apertures of each separation; the threshold and completeness from
  *        the two-sample t-test (Mawet et al. 2014; Jensen-Clem et al. 2018);
- *        throughput from fakes planted in `branches` runs of the same
+ *        throughput from fakes planted in `fake_runs` runs of the same
  *        subtraction, measured as (with fakes - without) aperture sums and
  *        interpolated linearly in separation (held at the end values beyond
  *        the outermost fakes).

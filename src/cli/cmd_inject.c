@@ -61,7 +61,7 @@ int cmd_inject(gl_cli *cli, int argc, char **argv)
                                          {0, 0, 0, 0}};
     const char *angles_path = NULL, *psf_path = NULL, *out_path = NULL, *spectrum_text = NULL;
     gl_companion comps[MAX_COMPANIONS];
-    int ncomp = 0, exit_now = 0, c;
+    int ncompanions = 0, exit_now = 0, c;
     double psf_scale = 1, north = 0;
     gl_status st;
 
@@ -91,11 +91,11 @@ int cmd_inject(gl_cli *cli, int argc, char **argv)
                 return 1;
             break;
         case OPT_COMP:
-            if (ncomp == MAX_COMPANIONS)
+            if (ncompanions == MAX_COMPANIONS)
                 return cli_usage(cli, "at most %d companions", MAX_COMPANIONS);
-            if ((st = gl_companion_parse(optarg, &comps[ncomp])))
+            if ((st = gl_companion_parse(optarg, &comps[ncompanions])))
                 return cli_fail(cli, st);
-            ncomp++;
+            ncompanions++;
             break;
         default: return cli_usage(cli, "unknown option '%s'", argv[optind - 1]);
         }
@@ -106,7 +106,7 @@ int cmd_inject(gl_cli *cli, int argc, char **argv)
     const char *cube_path = argv[optind];
     {
         const char *names[] = {"--angles", "--psf", "--out", "--companion"};
-        const void *vals[] = {angles_path, psf_path, out_path, ncomp ? names : NULL};
+        const void *vals[] = {angles_path, psf_path, out_path, ncompanions ? names : NULL};
         if (cli_missing(cli, 4, names, vals))
             return 1;
     }
@@ -153,13 +153,13 @@ int cmd_inject(gl_cli *cli, int argc, char **argv)
         (st = gl_outset_add(outs, out_path, &cli->prov, &tmp_cube)) ||
         (st = gl_outset_add(outs, planted, &cli->prov, &tmp_csv)))
         goto cleanup;
-    if ((st = gl_inject_companions(cube, angles, north, psf, comps, ncomp, spectrum)))
+    if ((st = gl_inject_companions(cube, angles, north, psf, comps, ncompanions, spectrum)))
         goto cleanup;
 
     gl_header_set_dbl(cube->header, "GLPSFSC", psf_scale, "PSF scale used for the fake companions");
     gl_header_set_dbl(cube->header, "GLNORTH", north, "[deg] north offset used");
-    gl_header_set_int(cube->header, "GLNFAKE", ncomp, "fake companions planted");
-    for (int k = 0; k < ncomp; k++) {
+    gl_header_set_int(cube->header, "GLNFAKE", ncompanions, "fake companions planted");
+    for (int k = 0; k < ncompanions; k++) {
         char line[128];
         snprintf(line, sizeof line, "fake companion %d: sep %.4f px, PA %.4f deg, contrast %.6g",
                  k + 1, comps[k].sep_px, comps[k].pa_deg, comps[k].contrast);
@@ -171,7 +171,7 @@ int cmd_inject(gl_cli *cli, int argc, char **argv)
     {
         double sep[MAX_COMPANIONS], pa[MAX_COMPANIONS], con[MAX_COMPANIONS], flux[MAX_COMPANIONS];
         double x0[MAX_COMPANIONS], y0[MAX_COMPANIONS], idx[MAX_COMPANIONS];
-        for (int k = 0; k < ncomp; k++) {
+        for (int k = 0; k < ncompanions; k++) {
             idx[k] = k + 1;
             sep[k] = comps[k].sep_px;
             pa[k] = comps[k].pa_deg;
@@ -182,14 +182,14 @@ int cmd_inject(gl_cli *cli, int argc, char **argv)
         const char *names[] = {"companion", "sep_px",   "pa_deg",  "contrast",
                                "flux",      "x_frame1", "y_frame1"};
         const double *cols[] = {idx, sep, pa, con, flux, x0, y0};
-        gl_table t = {7, ncomp, names, NULL, cols, NULL};
+        gl_table t = {7, ncompanions, names, NULL, cols, NULL};
         if ((st = gl_table_write_csv(tmp_csv, &t)))
             goto cleanup;
     }
     if ((st = gl_outset_commit(outs)))
         goto cleanup;
-    gl_log(GL_LOG_INFO, "planted %d companion%s into %s; list in %s", ncomp, ncomp > 1 ? "s" : "",
-           out_path, planted);
+    gl_log(GL_LOG_INFO, "planted %d companion%s into %s; list in %s", ncompanions,
+           ncompanions > 1 ? "s" : "", out_path, planted);
 
 cleanup:
     gl_outset_free(outs);

@@ -29,7 +29,7 @@ static const char help[] =
     "  --step PX              separation step (default FWHM/2)\n"
     "  --min-separation PX    first separation (default max(FWHM, mask + FWHM/2))\n"
     "  --max-separation PX    last separation (default: where apertures still fit)\n"
-    "  --branches N           runs with fake companions (default 2)\n"
+    "  --fake-runs N          runs with fake companions (default 2)\n"
     "  --fake-level X         fake flux in units of the local aperture noise (default 10)\n"
     "  --exclude-adjacent     leave out the two apertures next to the test aperture\n"
     "  --pixscale MAS         pixel scale for the arcsec axis (default: from the WCS)\n"
@@ -46,7 +46,7 @@ enum {
     OPT_STEP,
     OPT_RMIN,
     OPT_RMAX,
-    OPT_BRANCHES,
+    OPT_FAKE_RUNS,
     OPT_FAKE_LEVEL,
     OPT_EXCLUDE,
     OPT_PIXSCALE,
@@ -77,10 +77,10 @@ static int parse_limits_option(gl_cli *cli, int c, const char *arg, gl_limits_pa
         return cli_parse_double(cli, "--min-separation", arg, 0.1, 1e5, &lp->r_min_px) ? -1 : 1;
     case OPT_RMAX:
         return cli_parse_double(cli, "--max-separation", arg, 0.1, 1e5, &lp->r_max_px) ? -1 : 1;
-    case OPT_BRANCHES:
-        if (cli_parse_long(cli, "--branches", arg, 1, 64, &n))
+    case OPT_FAKE_RUNS:
+        if (cli_parse_long(cli, "--fake-runs", arg, 1, 64, &n))
             return -1;
-        lp->branches = (int)n;
+        lp->fake_runs = (int)n;
         return 1;
     case OPT_FAKE_LEVEL:
         return cli_parse_double(cli, "--fake-level", arg, 0.1, 1e4, &lp->fake_level) ? -1 : 1;
@@ -160,7 +160,7 @@ static gl_status write_fakes(const char *csv, const gl_limits_result *r)
     names[0] = "sep_px";
     names[1] = "pa_deg";
     names[2] = "contrast";
-    names[3] = "branch";
+    names[3] = "run";
     for (int k = 0; k < r->nplanes; k++) {
         snprintf(pn[k], sizeof pn[k], "throughput_plane%d", k + 1);
         names[4 + k] = pn[k];
@@ -172,7 +172,7 @@ static gl_status write_fakes(const char *csv, const gl_limits_result *r)
         buf[j] = f->sep_px;
         buf[(size_t)r->nfakes + (size_t)j] = f->pa_deg;
         buf[2 * (size_t)r->nfakes + (size_t)j] = f->contrast;
-        buf[3 * (size_t)r->nfakes + (size_t)j] = f->branch + 1;
+        buf[3 * (size_t)r->nfakes + (size_t)j] = f->run + 1;
         for (int k = 0; k < r->nplanes; k++)
             buf[(size_t)(4 + k) * (size_t)r->nfakes + (size_t)j] = f->throughput[k];
     }
@@ -197,7 +197,7 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
                                          {"step", required_argument, 0, OPT_STEP},
                                          {"min-separation", required_argument, 0, OPT_RMIN},
                                          {"max-separation", required_argument, 0, OPT_RMAX},
-                                         {"branches", required_argument, 0, OPT_BRANCHES},
+                                         {"fake-runs", required_argument, 0, OPT_FAKE_RUNS},
                                          {"fake-level", required_argument, 0, OPT_FAKE_LEVEL},
                                          {"exclude-adjacent", no_argument, 0, OPT_EXCLUDE},
                                          {"pixscale", required_argument, 0, OPT_PIXSCALE},
@@ -323,7 +323,7 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
     if (modes_text[0])
         gl_header_set_str(keys, "GLMODES", modes_text, "KL mode counts, one per plane");
     gl_header_set_dbl(keys, "GLMASK", setup.p.mask_radius, "[pix] inner mask radius");
-    gl_header_set_int(keys, "GLBRANCH", lp.branches, "subtraction runs with fake companions");
+    gl_header_set_int(keys, "GLFKRUNS", lp.fake_runs, "subtraction runs with fake companions");
     gl_header_set_int(keys, "GLNFAKE", res.nfakes, "fake companions planted");
     gl_header_set_dbl(keys, "GLFAKELV", lp.fake_level, "fake flux / local aperture noise");
     gl_header_set_str(keys, "GLTHRU", "injection-recovery, linear in sep",
@@ -351,7 +351,7 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
                  gl_subtract_method_name(setup.p.method), modes_text[0] ? ", modes " : "",
                  modes_text[0] ? modes_text : "", setup.p.fwhm, setup.p.mask_radius);
         snprintf(n3, sizeof n3, "throughput from %d fakes in %d runs at %g x noise; PSF scale %g",
-                 res.nfakes, lp.branches, lp.fake_level, psf_scale);
+                 res.nfakes, lp.fake_runs, lp.fake_level, psf_scale);
         snprintf(n4, sizeof n4, "plane 1 of %d; star flux = scaled off-axis PSF total",
                  res.nplanes);
         gl_limits_plot plot = {res.n,

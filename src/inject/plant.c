@@ -58,7 +58,7 @@ gl_status gl_companion_parse(const char *text, gl_companion *out)
 }
 
 gl_status gl_inject_companions(gl_cube *cube, const double *angles_deg, double north_offset_deg,
-                               const gl_psf_model *psf, const gl_companion *comps, int ncomp,
+                               const gl_psf_model *psf, const gl_companion *comps, int ncompanions,
                                const double *spectrum)
 {
     long nx = cube->nx, ny = cube->ny, nchan = cube->nchan, nframe = cube->nframe;
@@ -66,7 +66,7 @@ gl_status gl_inject_companions(gl_cube *cube, const double *angles_deg, double n
         return gl_error_set(GL_ERR_INTERNAL, "PSF model prepared for another frame size");
     /* every companion must stay on the image in every frame: check first so
      * that a refusal leaves the cube untouched */
-    for (int k = 0; k < ncomp; k++)
+    for (int k = 0; k < ncompanions; k++)
         for (long f = 0; f < nframe; f++) {
             double x, y;
             gl_companion_position(&comps[k], angles_deg[f], north_offset_deg, nx, ny, &x, &y);
@@ -76,14 +76,14 @@ gl_status gl_inject_companions(gl_cube *cube, const double *angles_deg, double n
                                     "%ldx%ld image in frame %ld",
                                     k + 1, comps[k].sep_px, comps[k].pa_deg, nx, ny, f + 1);
         }
-    if (ncomp == 0)
+    if (ncompanions == 0)
         return GL_OK;
 
     int nthreads = omp_get_max_threads();
     gl_geom_plan *plan = NULL;
     gl_geom_work **work = gl_calloc((size_t)nthreads, sizeof *work);
     gl_geom_stamp **stamps = gl_calloc((size_t)nchan, sizeof *stamps);
-    double *args = gl_malloc((size_t)nthreads * 3 * (size_t)ncomp * sizeof *args);
+    double *args = gl_malloc((size_t)nthreads * 3 * (size_t)ncompanions * sizeof *args);
     gl_status st = GL_OK;
     size_t fn = (size_t)nx * (size_t)ny;
     if (!work || !stamps || !args) {
@@ -103,8 +103,9 @@ gl_status gl_inject_companions(gl_cube *cube, const double *angles_deg, double n
 #pragma omp parallel for schedule(static)
     for (long f = 0; f < nframe; f++) {
         int t = omp_get_thread_num();
-        double *dx = args + (size_t)t * 3 * (size_t)ncomp, *dy = dx + ncomp, *wt = dy + ncomp;
-        for (int k = 0; k < ncomp; k++) {
+        double *dx = args + (size_t)t * 3 * (size_t)ncompanions, *dy = dx + ncompanions,
+               *wt = dy + ncompanions;
+        for (int k = 0; k < ncompanions; k++) {
             double x, y;
             gl_companion_position(&comps[k], angles_deg[f], north_offset_deg, nx, ny, &x, &y);
             dx[k] = x - (double)(nx / 2);
@@ -112,9 +113,9 @@ gl_status gl_inject_companions(gl_cube *cube, const double *angles_deg, double n
         }
         for (long c = 0; c < nchan; c++) {
             double sc = spectrum ? spectrum[c] : 1.0;
-            for (int k = 0; k < ncomp; k++)
+            for (int k = 0; k < ncompanions; k++)
                 wt[k] = comps[k].contrast * sc;
-            gl_geom_stamp_add(plan, work[t], stamps[c], ncomp, dx, dy, wt,
+            gl_geom_stamp_add(plan, work[t], stamps[c], ncompanions, dx, dy, wt,
                               gl_cube_plane(cube, c, f));
         }
         long now;

@@ -5,10 +5,10 @@
  * measured by planting fake companions and running the user's own
  * subtraction again.
  *
- * Throughput: the fakes are planted in `branches` separate runs, one fake per
- * FWHM of separation, consecutive separations going to different branches
- * (so within a run fakes are `branches` FWHM apart radially) and turning by
- * the golden angle in position angle, the branches spread evenly in angle.
+ * Throughput: the fakes are planted in `fake_runs` separate runs, one fake
+ * per FWHM of separation, consecutive separations going to different runs
+ * (so within a run fakes are `fake_runs` FWHM apart radially) and turning by
+ * the golden angle in position angle, the runs spread evenly in angle.
  * What survives is the aperture sum in (run with fakes) - (run without), so
  * the noise of the image itself cancels and only the fakes' own processing
  * remains; divided by contrast x PSF aperture flux it is the throughput at
@@ -28,7 +28,7 @@ void gl_limits_params_init(gl_limits_params *p)
     memset(p, 0, sizeof *p);
     p->sigma = 5;
     p->completeness = 0.95;
-    p->branches = 2;
+    p->fake_runs = 2;
     p->fake_level = 10;
 }
 
@@ -107,9 +107,9 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
 
     long nx = cube->nx, ny = cube->ny;
     double fwhm = sp->fwhm, diam = fwhm, cx = (double)(nx / 2), cy = (double)(ny / 2);
-    if (!(lp->sigma > 0) || !(lp->completeness > 0 && lp->completeness < 1) || lp->branches < 1 ||
-        lp->branches > 64 || !(lp->fake_level > 0) || lp->step_px < 0)
-        return gl_error_set(GL_ERR_USAGE, "limits: threshold, completeness (0-1), branches "
+    if (!(lp->sigma > 0) || !(lp->completeness > 0 && lp->completeness < 1) || lp->fake_runs < 1 ||
+        lp->fake_runs > 64 || !(lp->fake_level > 0) || lp->step_px < 0)
+        return gl_error_set(GL_ERR_USAGE, "limits: threshold, completeness (0-1), fake runs "
                                           "(1-64), fake level (> 0) or step out of range");
     if (!(fwhm > 0))
         return gl_error_set(GL_ERR_USAGE, "--fwhm must be positive");
@@ -160,7 +160,7 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
     }
 
     /* the subtraction as the user asked for it */
-    gl_progress("limits", 0, 1 + lp->branches);
+    gl_progress("limits", 0, 1 + lp->fake_runs);
     if ((st = gl_subtract_run(cube, angles, refs, &sp1, &base)))
         goto cleanup;
     int np = (int)base.image->nframe;
@@ -203,7 +203,7 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
     }
 
     /* fakes: one per FWHM of separation, consecutive ones in different
-     * branches, golden-angle steps in position angle */
+     * runs, golden-angle steps in position angle */
     long nf = (long)floor((r1 - r0) / fwhm + 1e-9) + 1;
     r.fakes = gl_calloc((size_t)nf, sizeof *r.fakes);
     comps = gl_calloc((size_t)nf, sizeof *comps);
@@ -216,9 +216,9 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
     for (long j = 0; j < nf; j++) {
         gl_limits_fake *f = &r.fakes[r.nfakes];
         f->sep_px = r0 + fwhm * (double)j;
-        f->branch = (int)(j % lp->branches);
+        f->run = (int)(j % lp->fake_runs);
         f->pa_deg =
-            fmod(lp->pa0_deg + 360.0 * f->branch / lp->branches + 137.50776 * (double)j, 360.0);
+            fmod(lp->pa0_deg + 360.0 * f->run / lp->fake_runs + 137.50776 * (double)j, 360.0);
         /* brightness from the first plane's noise at that separation */
         double sig = interp(r.sep_px, r.noise, n, f->sep_px);
         if (!(sig > 0))
@@ -226,10 +226,10 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
         f->contrast = lp->fake_level * sig / F;
         r.nfakes++;
     }
-    for (int b = 0; b < lp->branches; b++) {
+    for (int b = 0; b < lp->fake_runs; b++) {
         int nc = 0;
         for (int j = 0; j < r.nfakes; j++)
-            if (r.fakes[j].branch == b)
+            if (r.fakes[j].run == b)
                 comps[nc++] =
                     (gl_companion){r.fakes[j].sep_px, r.fakes[j].pa_deg, r.fakes[j].contrast};
         if (nc == 0)
@@ -247,7 +247,7 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
             goto cleanup;
         for (int j = 0; j < r.nfakes; j++) {
             gl_limits_fake *f = &r.fakes[j];
-            if (f->branch != b)
+            if (f->run != b)
                 continue;
             double t = f->pa_deg * M_PI / 180;
             double x = cx - f->sep_px * sin(t), y = cy + f->sep_px * cos(t);
@@ -260,7 +260,7 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
                 f->throughput[k] = ok1 && ok0 ? (s1 - s0) / (f->contrast * F) : NAN;
             }
         }
-        gl_progress("limits", 2 + b, 1 + lp->branches);
+        gl_progress("limits", 2 + b, 1 + lp->fake_runs);
     }
 
     /* throughput on the grid, and the contrasts */
@@ -291,7 +291,7 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
                 r.contrast_cq[j] = dq * scale;
         }
     }
-    gl_progress("limits", 1 + lp->branches, 1 + lp->branches);
+    gl_progress("limits", 1 + lp->fake_runs, 1 + lp->fake_runs);
     long usable = 0, low = 0;
     for (long i = 0; i < n; i++) {
         usable += isfinite(r.contrast_c50[i]);

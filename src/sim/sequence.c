@@ -75,7 +75,7 @@ static void draw_laws(const gl_sim_params *p, gsl_rng *r, drift *laws)
 }
 
 /* Computes one frame (all channels) into job->out. */
-static gl_status frame_compute(const sim_ctx *x, frame_job *job)
+static gl_status compute_one_frame(const sim_ctx *x, frame_job *job)
 {
     const gl_sim_params *p = x->p;
     const sim_optics *o = &x->optics;
@@ -191,7 +191,7 @@ static gl_status sequence_compute(const sim_ctx *x, int stream, const drift *law
             continue;
         frame_job job = {stream, i, (double)i * p->cadence_s,       laws, companions, 1, p->noise,
                          1,      1, cube->data + (size_t)i * fsize, 0,    0};
-        gl_status fs = frame_compute(x, &job);
+        gl_status fs = compute_one_frame(x, &job);
         if (fs != GL_OK) {
 #pragma omp critical(sim_fail)
             {
@@ -342,7 +342,7 @@ gl_status gl_sim_run(const gl_sim_params *p, gl_sim_result **out)
     /* the off-axis PSF: same static and quasi-static state as frame 0, its
      * own AO screens, no mask, no jitter, no spots, no noise */
     frame_job pj = {SIM_STREAM_PSF, 0, 0.0, laws, 0, 0, 0, 0, 0, r->psf->data, 0, 0};
-    if ((st = frame_compute(&x, &pj)) != GL_OK)
+    if ((st = compute_one_frame(&x, &pj)) != GL_OK)
         goto cleanup;
     gl_progress("simulate", ++done, total);
     if ((st = sequence_compute(&x, SIM_STREAM_FRAME, laws, 1, r->cube, r->star_x, r->star_y, &done,
