@@ -85,6 +85,10 @@ gl_status cli_read_input(gl_cli *cli, const char *path, int min_naxis, gl_cube *
 gl_status cli_read_cube_angles(gl_cli *cli, const char *cube_path, const char *angles_path,
                                gl_cube **cube, double **angles);
 
+/* Re-records the library's last message as "PATH: message" (unless it
+ * already starts with path) so that it names the file; returns st. */
+gl_status cli_error_in_file(const char *path, gl_status st);
+
 /* Registers the product PREFIX SUFFIX in outs: the name is written into
  * path[size] (refused with GL_ERR_USAGE when it does not fit) and *tmp gets
  * the temporary name to write to. */

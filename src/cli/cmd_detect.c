@@ -51,11 +51,7 @@ enum {
 /* Prefixes the library's last message with the input file name. */
 static int fail_file(const gl_cli *cli, const char *path, gl_status st)
 {
-    char msg[1024];
-    snprintf(msg, sizeof msg, "%s", gl_error_message());
-    if (strncmp(msg, path, strlen(path)) != 0)
-        gl_error_set(st, "%s: %s", path, msg);
-    return cli_fail(cli, st);
+    return cli_fail(cli, cli_error_in_file(path, st));
 }
 
 int cmd_detect(gl_cli *cli, int argc, char **argv)

@@ -286,11 +286,8 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
                "rings are sized by --fwhm",
                setup.p.fwhm, psf_path, psf->fwhm_px[0]);
     if ((st = gl_limits_compute(cube, angles, refs, &setup.p, psf, &lp, &res))) {
-        if (st == GL_ERR_INPUT) {
-            char msg[1024];
-            snprintf(msg, sizeof msg, "%s", gl_error_message());
-            gl_error_set(st, "%s: %s", cube_path, msg);
-        }
+        if (st == GL_ERR_INPUT)
+            cli_error_in_file(cube_path, st);
         goto cleanup;
     }
     /* logged after the checks in gl_limits_compute, so that a refused run

@@ -141,6 +141,15 @@ gl_status cli_read_cube_angles(gl_cli *cli, const char *cube_path, const char *a
     return GL_OK;
 }
 
+gl_status cli_error_in_file(const char *path, gl_status st)
+{
+    char msg[1024];
+    snprintf(msg, sizeof msg, "%s", gl_error_message());
+    if (strncmp(msg, path, strlen(path)) != 0)
+        gl_error_set(st, "%s: %s", path, msg);
+    return st;
+}
+
 gl_status cli_add_product(gl_cli *cli, gl_outset *outs, const char *prefix, const char *suffix,
                           char *path, size_t size, const char **tmp)
 {

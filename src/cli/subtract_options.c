@@ -221,8 +221,7 @@ gl_status cli_subtract_prepare(gl_cli *cli, cli_subtract_setup *s, const char *c
     gl_status st = GL_OK;
     *refs_out = NULL;
     if (s->refs_path) {
-        if ((st = gl_fits_read_cube(s->refs_path, 3, &refs)) ||
-            (st = gl_provenance_add_input(&cli->prov, s->refs_path)))
+        if ((st = cli_read_input(cli, s->refs_path, 3, &refs)))
             goto cleanup;
         if (refs->nx != cube->nx || refs->ny != cube->ny || refs->nchan != cube->nchan) {
             st = gl_error_set(GL_ERR_INPUT,
@@ -274,11 +273,5 @@ gl_status cli_subtract_run(const cli_subtract_setup *s, const char *cube_path, c
                            const double *angles, const gl_cube *refs, gl_subtract_result *res)
 {
     gl_status st = gl_subtract_run(cube, angles, refs, &s->p, res);
-    if (st == GL_ERR_INPUT) {
-        /* name the file the message is about */
-        char msg[1024];
-        snprintf(msg, sizeof msg, "%s", gl_error_message());
-        gl_error_set(st, "%s: %s", cube_path, msg);
-    }
-    return st;
+    return st == GL_ERR_INPUT ? cli_error_in_file(cube_path, st) : st;
 }
