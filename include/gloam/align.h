@@ -224,6 +224,7 @@ typedef struct gl_align_result {
     long nbad_static, nbad_transient;
 } gl_align_result;
 
+/* Frees a result and everything it owns; NULL is a no-op. */
 GL_API void gl_align_result_free(gl_align_result *r);
 
 /* Runs the step on cube, which serves as the working copy: its pixels are

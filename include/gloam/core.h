@@ -80,6 +80,7 @@ GL_API void gl_log(gl_log_level level, const char *fmt, ...) __attribute__((form
  * the end of a task. Calls come from one thread at a time. */
 typedef void (*gl_progress_fn)(const char *task, long done, long total, void *user);
 
+/* Installs the progress sink (NULL: progress is not reported). */
 GL_API void gl_progress_set_handler(gl_progress_fn fn, void *user);
 /* Reports progress; cheap when no handler is installed. Thread-safe: calls
  * from several threads are serialised. */
@@ -103,8 +104,11 @@ GL_API void gl_malloc_fail_after(long countdown);
  * keywords and HISTORY lines, written after the carried cards. */
 typedef struct gl_header gl_header;
 
+/* An empty header; NULL when out of memory. */
 GL_API gl_header *gl_header_new(void);
+/* Frees a header; NULL is a no-op. */
 GL_API void gl_header_free(gl_header *h);
+/* A deep copy (an empty header for h == NULL); NULL when out of memory. */
 GL_API gl_header *gl_header_copy(const gl_header *h);
 /* Appends one raw card (up to 80 characters). */
 GL_API gl_status gl_header_add_card(gl_header *h, const char *card);

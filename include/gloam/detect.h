@@ -131,6 +131,7 @@ typedef struct gl_detect_params {
     double pixscale_mas;    /* mas/px; NaN: from the WCS when there is one */
 } gl_detect_params;
 
+/* Fills p with the defaults listed above (fwhm 0: the caller must set it). */
 GL_API void gl_detect_params_init(gl_detect_params *p);
 /* Checks the parameters against an nx x ny image: fwhm > 0, fwhm <= min(nx,
  * ny) / 4, diameter, radii and threshold sensible.

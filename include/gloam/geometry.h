@@ -61,8 +61,11 @@ GL_API gl_status gl_geom_scale(const gl_geom_plan *p, gl_geom_work *w, float *im
  * a plan made with GL_INTERP_FFT. */
 typedef struct gl_geom_stamp gl_geom_stamp;
 
+/* Transforms img (the plan's nx x ny) once, using w as scratch.
+ * Errors: GL_ERR_INTERNAL (plan not GL_INTERP_FFT), GL_ERR_NOMEM. */
 GL_API gl_status gl_geom_stamp_new(const gl_geom_plan *p, gl_geom_work *w, const float *img,
                                    gl_geom_stamp **out);
+/* Frees a stamp; NULL is a no-op. */
 GL_API void gl_geom_stamp_free(gl_geom_stamp *s);
 
 /* out (nx x ny) += sum over k of weight[k] x the stamp moved by (dx[k],

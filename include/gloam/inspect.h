@@ -29,6 +29,7 @@ typedef struct gl_inspect_params {
                               frame's by more than this; default 0.05 */
 } gl_inspect_params;
 
+/* Fills p with the defaults listed above. */
 GL_API void gl_inspect_params_init(gl_inspect_params *p);
 
 /* How saturated pixels were recognised. */

@@ -135,6 +135,8 @@ typedef struct gl_table {
     const gl_header *header; /* optional keywords for the FITS table HDU (NULL: none) */
 } gl_table;
 
+/* Write t to path (normally a temporary name from gl_outset_add); a failed
+ * write leaves no file. Errors: GL_ERR_IO (naming path), GL_ERR_NOMEM. */
 GL_API gl_status gl_table_write_csv(const char *path, const gl_table *t);
 GL_API gl_status gl_table_write_fits(const char *path, const gl_table *t, const char *extname,
                                      const gl_provenance *prov);

@@ -37,6 +37,7 @@ typedef struct gl_limits_params {
     int exclude_adjacent; /* leave out the two apertures next to the test one */
 } gl_limits_params;
 
+/* Fills p with the defaults listed above. */
 GL_API void gl_limits_params_init(gl_limits_params *p);
 
 /* One planted fake and what survived of it in each output plane. */
