@@ -89,9 +89,10 @@ gl_status cli_read_cube_angles(gl_cli *cli, const char *cube_path, const char *a
  * already starts with path) so that it names the file; returns st. */
 gl_status cli_error_in_file(const char *path, gl_status st);
 
-/* Registers the product PREFIX SUFFIX in outs: the name is written into
- * path[size] (refused with GL_ERR_USAGE when it does not fit) and *tmp gets
- * the temporary name to write to. */
+/* Registers the product PREFIX SUFFIX (an --out prefix, or "DIR" and
+ * "/NAME") in outs: the name is written into path[size] (refused with
+ * GL_ERR_USAGE when it does not fit) and *tmp gets the temporary name to
+ * write to. */
 gl_status cli_add_product(gl_cli *cli, gl_outset *outs, const char *prefix, const char *suffix,
                           char *path, size_t size, const char **tmp);
 

@@ -206,18 +206,16 @@ static gl_status write_products(gl_cli *cli, const char *dir, const gl_sim_param
     gl_status st;
     gl_outset *set = NULL;
     char path[6][4096];
-    const char *names[6] = {"cube.fits", "angles.txt", "psf.fits",
-                            "truth.csv", "frames.csv", "refs.fits"};
+    const char *names[6] = {"/cube.fits", "/angles.txt", "/psf.fits",
+                            "/truth.csv", "/frames.csv", "/refs.fits"};
     const char *tmp[6] = {0};
     int nout = p->refs ? 6 : 5;
     double *idx = NULL;
     if ((st = gl_outset_new(cli->overwrite, &set)) != GL_OK)
         return st;
-    for (int i = 0; i < nout; i++) {
-        snprintf(path[i], sizeof path[i], "%s/%s", dir, names[i]);
-        if ((st = gl_outset_add(set, path[i], &cli->prov, &tmp[i])) != GL_OK)
+    for (int i = 0; i < nout; i++)
+        if ((st = cli_add_product(cli, set, dir, names[i], path[i], sizeof path[i], &tmp[i])))
             goto cleanup;
-    }
     if ((st = gl_fits_write_cube(tmp[0], r->cube, &cli->prov)) != GL_OK)
         goto cleanup;
     if ((st = write_angles(tmp[1], r, cli)) != GL_OK)
@@ -401,12 +399,12 @@ int cmd_simulate(gl_cli *cli, int argc, char **argv)
             return cli_usage(cli, "%s: exists and is not a folder", dir);
         if ((st = gl_outset_new(cli->overwrite, &probe)) != GL_OK)
             return cli_fail(cli, st);
-        const char *names[] = {"cube.fits", "angles.txt", "psf.fits",
-                               "truth.csv", "frames.csv", "refs.fits"};
+        const char *names[] = {"/cube.fits", "/angles.txt", "/psf.fits",
+                               "/truth.csv", "/frames.csv", "/refs.fits"};
         for (int i = 0; i < (p.refs ? 6 : 5) && st == GL_OK; i++) {
-            char path[4096], *t;
-            snprintf(path, sizeof path, "%s/%s", dir, names[i]);
-            st = gl_outset_add(probe, path, &cli->prov, (const char **)&t);
+            char path[4096];
+            const char *t;
+            st = cli_add_product(cli, probe, dir, names[i], path, sizeof path, &t);
         }
         gl_outset_free(probe);
         if (st != GL_OK)

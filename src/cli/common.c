@@ -155,7 +155,8 @@ gl_status cli_add_product(gl_cli *cli, gl_outset *outs, const char *prefix, cons
 {
     int n = snprintf(path, size, "%s%s", prefix, suffix);
     if (n < 0 || (size_t)n >= size)
-        return gl_error_set(GL_ERR_USAGE, "--out: the prefix '%.60s...' is too long", prefix);
+        return gl_error_set(GL_ERR_USAGE, "%.60s...%s: the product name is too long", prefix,
+                            suffix);
     return gl_outset_add(outs, path, &cli->prov, tmp);
 }
 

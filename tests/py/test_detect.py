@@ -348,10 +348,10 @@ def test_existing_product_not_overwritten(tmp_path):
 
 def test_too_long_prefix_refused(tmp_path):
     # a prefix longer than the product-name buffer used to be cut short
-    # silently; now it is refused with one line naming --out
+    # silently; now it is refused with one line saying so
     path = write(tmp_path / "a.fits", np.random.default_rng(1).normal(0, 1, (40, 40)))
     res = gloam("detect", path, "--fwhm", 3, "--out", str(tmp_path / ("p" * 5000)), check=False)
     assert res.returncode == 1, res.stderr
     lines = res.stderr.strip().splitlines()
-    assert len(lines) == 1 and "--out" in lines[0], res.stderr
+    assert len(lines) == 1 and "too long" in lines[0], res.stderr
     assert sorted(os.listdir(tmp_path)) == ["a.fits"]
