@@ -47,32 +47,14 @@ void gl_align_result_free(gl_align_result *r)
 /* Channel means (NaN-aware) of every frame; aliases the cube for one channel. */
 static gl_status measurement_images(const gl_cube *c, float **out, int *owned)
 {
-    size_t npix = gl_cube_plane_size(c);
     if (c->nchan == 1) {
         *out = c->data;
         *owned = 0;
         return GL_OK;
     }
-    float *m = gl_malloc(npix * (size_t)c->nframe * sizeof *m);
-    if (!m)
-        return gl_error_nomem("measurement images");
-#pragma omp parallel for schedule(static)
-    for (long f = 0; f < c->nframe; f++)
-        for (size_t i = 0; i < npix; i++) {
-            double s = 0;
-            int k = 0;
-            for (long ch = 0; ch < c->nchan; ch++) {
-                float v = gl_cube_plane(c, ch, f)[i];
-                if (!isnan(v)) {
-                    s += v;
-                    k++;
-                }
-            }
-            m[(size_t)f * npix + i] = k ? (float)(s / k) : NAN;
-        }
-    *out = m;
-    *owned = 1;
-    return GL_OK;
+    gl_status st = gl_cube_channels_average(c, out);
+    *owned = st == GL_OK;
+    return st;
 }
 
 static gl_status check_params(const gl_cube *c, const gl_align_params *p)

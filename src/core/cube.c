@@ -1,9 +1,12 @@
 /*
- * cube.c -- allocation of the float32 image stack shared by every stage.
+ * cube.c -- allocation of the float32 image stack shared by every stage, and
+ * the NaN-aware mean over the wavelength channels of each frame that the
+ * align and subtract stages measure and subtract on.
  */
 #include "core/internal.h"
 
 #include <limits.h>
+#include <math.h>
 
 gl_status gl_cube_new(long nx, long ny, long nchan, long nframe, gl_cube **out)
 {
@@ -44,4 +47,29 @@ void gl_cube_free(gl_cube *c)
     gl_free(c->data);
     gl_header_free(c->header);
     gl_free(c);
+}
+
+gl_status gl_cube_channels_average(const gl_cube *c, float **out)
+{
+    size_t np = gl_cube_plane_size(c);
+    float *o = gl_malloc(sizeof(float) * np * (size_t)c->nframe);
+    *out = NULL;
+    if (!o)
+        return gl_error_nomem("channel average");
+#pragma omp parallel for schedule(static)
+    for (long f = 0; f < c->nframe; f++)
+        for (size_t j = 0; j < np; j++) {
+            double s = 0;
+            long n = 0;
+            for (long k = 0; k < c->nchan; k++) {
+                float v = gl_cube_plane(c, k, f)[j];
+                if (!isnan(v)) {
+                    s += v;
+                    n++;
+                }
+            }
+            o[(size_t)f * np + j] = n ? (float)(s / (double)n) : NAN;
+        }
+    *out = o;
+    return GL_OK;
 }

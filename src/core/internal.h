@@ -30,6 +30,12 @@ struct gl_header {
 /* 1 for keywords that describe the data layout and are never carried. */
 int gl_header_is_structural(const char *key);
 
+/* The mean over channels of each frame, NaN ignored (NaN where every channel
+ * is NaN): *out gets nframe planes of nx * ny (gl_malloc). Each pixel is
+ * summed by one thread in channel order, so any thread count gives the same
+ * result. Errors: GL_ERR_NOMEM. */
+gl_status gl_cube_channels_average(const gl_cube *c, float **out);
+
 /* Median of v[0..n-1] by Hoare's selection, in place (reorders v; no NaN
  * expected: callers drop them first); NaN when n <= 0. The float version
  * averages the two middle values of an even count in float. */

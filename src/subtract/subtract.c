@@ -9,6 +9,7 @@
  * library never prints: problems come back as a status and a one-line
  * message naming the parameter or the input at fault.
  */
+#include "core/internal.h"
 #include "subtract/combine.h"
 
 #include <math.h>
@@ -30,31 +31,6 @@ void gl_subtract_result_free(gl_subtract_result *r)
     gl_cube_free(r->residuals);
     gl_cube_free(r->raw_residuals);
     memset(r, 0, sizeof *r);
-}
-
-/* Averages the channels of each frame (NaN ignored) into nframe x npix. */
-static gl_status average_channels(const gl_cube *c, float **out)
-{
-    size_t np = gl_cube_plane_size(c);
-    float *o = gl_malloc(sizeof(float) * np * (size_t)c->nframe);
-    if (!o)
-        return gl_error_nomem("channel average");
-#pragma omp parallel for schedule(static)
-    for (long f = 0; f < c->nframe; f++)
-        for (size_t j = 0; j < np; j++) {
-            double s = 0;
-            long n = 0;
-            for (long k = 0; k < c->nchan; k++) {
-                float v = gl_cube_plane(c, k, f)[j];
-                if (!isnan(v)) {
-                    s += v;
-                    n++;
-                }
-            }
-            o[(size_t)f * np + j] = n ? (float)(s / (double)n) : NAN;
-        }
-    *out = o;
-    return GL_OK;
 }
 
 static gl_status record_params(gl_header *h, const gl_subtract_params *p, const sub_ctx *c,
@@ -179,7 +155,7 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
         c.sci = cube->data;
     else {
         st = p->sdi == GL_SDI_CHANNELS ? sub_sdi_frames(cube, p, c.r_in, c.r_out, &sci_owned)
-                                       : average_channels(cube, &sci_owned);
+                                       : gl_cube_channels_average(cube, &sci_owned);
         if (st)
             goto cleanup;
         c.sci = sci_owned;
@@ -213,7 +189,7 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
     if (refs && p->method != GL_SUBTRACT_NONE) {
         const float *ra = refs->data;
         if (refs->nchan > 1) {
-            st = average_channels(refs, &ref_avg);
+            st = gl_cube_channels_average(refs, &ref_avg);
             if (st)
                 goto cleanup;
             ra = ref_avg;
