@@ -326,6 +326,9 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
     gl_header_set_str(keys, "GLTHRU", "injection-recovery, linear in sep",
                       "throughput: (with - without fakes), interpolated");
     gl_header_set_bool(keys, "GLEXADJ", lp.exclude_adjacent, "adjacent apertures left out");
+    gl_header_add_history(keys, "caveat: a companion's own ADI self-subtraction wings are not in "
+                                "the completeness model; close to the star with little field "
+                                "rotation the curve is optimistic (docs/limits.md)");
     gl_header_add_history(keys, "contrast = t sigma sqrt(1+1/n2) / (throughput x PSF aperture "
                                 "flux); sigma = std of the aperture sums at the separation");
 
@@ -351,14 +354,16 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
                  res.nfakes, lp.fake_runs, lp.fake_level, psf_scale);
         snprintf(n4, sizeof n4, "plane 1 of %d; star flux = scaled off-axis PSF total",
                  res.nplanes);
+        const char *n5 = "innermost FWHM with little rotation: optimistic (self-subtraction "
+                         "wings not modelled)";
         gl_limits_plot plot = {res.n,
                                res.sep_px,
                                2,
                                {{res.contrast_c50, l1}, {res.contrast_cq, l2}},
                                pixscale > 0 ? pixscale : 0,
                                ttl,
-                               4,
-                               {n1, n2, n3, n4}};
+                               5,
+                               {n1, n2, n3, n4, n5}};
         if ((st = gl_limits_plot_write(t_png, t_svg, &plot)))
             goto cleanup;
     }
