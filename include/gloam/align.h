@@ -202,9 +202,10 @@ enum {
 /* Why a frame is not in the output. */
 typedef enum gl_frame_status {
     GL_FRAME_KEPT = 0,
-    GL_FRAME_NO_CENTRE = 1,  /* the centring failed on this frame */
-    GL_FRAME_FLUX = 2,       /* flux outlier */
-    GL_FRAME_CORRELATION = 3 /* low correlation with the median frame */
+    GL_FRAME_NO_CENTRE = 1,   /* the centring failed on this frame */
+    GL_FRAME_FLUX = 2,        /* flux outlier */
+    GL_FRAME_CORRELATION = 3, /* low correlation with the median frame */
+    GL_FRAME_JUMP = 4         /* centre far from all the others: a wrong feature */
 } gl_frame_status;
 
 /* Everything the step produced. */

@@ -255,8 +255,56 @@ static const char *status_word(int s)
     case GL_FRAME_NO_CENTRE: return "no-centre";
     case GL_FRAME_FLUX: return "flux";
     case GL_FRAME_CORRELATION: return "correlation";
+    case GL_FRAME_JUMP: return "centre-jump";
     default: return "?";
     }
+}
+
+/* A centre far from all the others is a feature taken for the star (a
+ * satellite spot, a bright speckle), not pointing jitter: the frame is
+ * rejected. Far means beyond max(3 FWHM, 5 x the robust spread of the centres
+ * (hypot of the per-axis robust sigmas; e^-25 for Gaussian jitter));
+ * pointing jitter of an AO system stays well inside that (common practice). */
+static gl_status reject_jumps(const gl_align_stack *s, const gl_align_params *p, const char *name,
+                              gl_align_result *r, long nf)
+{
+    double *v = gl_malloc(3 * (size_t)nf * sizeof *v);
+    if (!v)
+        return gl_error_nomem("centre check");
+    long m = 0;
+    for (long f = 0; f < nf; f++)
+        if (r->status[f] == GL_FRAME_KEPT) {
+            v[m] = r->x[f];
+            v[nf + m] = r->y[f];
+            m++;
+        }
+    if (m >= 5) {
+        double mx, sx, my, sy;
+        gl_stats_robust(v, (size_t)m, v + 2 * nf, &mx, &sx);
+        gl_stats_robust(v + nf, (size_t)m, v + 2 * nf, &my, &sy);
+        double fwhm = p->fwhm;
+        long px, py;
+        double peak;
+        if (!(fwhm > 0) && gl_image_peak(s->sharp, s->nx, s->ny, 2, &px, &py, &peak))
+            fwhm = gl_image_fwhm_estimate(s->sharp, s->nx, s->ny, px, py,
+                                          gl_image_median(s->sharp, s->nx, s->ny), 20);
+        if (!(fwhm > 0) || !isfinite(fwhm))
+            fwhm = 4;
+        double lim = GL_MAX(3 * fwhm, 5 * hypot(sx, sy));
+        for (long f = 0; f < nf; f++) {
+            double d = hypot(r->x[f] - mx, r->y[f] - my);
+            if (r->status[f] == GL_FRAME_KEPT && d > lim) {
+                r->status[f] = GL_FRAME_JUMP;
+                gl_log(GL_LOG_WARN,
+                       "%s: frame %ld rejected: its centre (%.2f, %.2f) lies %.1f px from the "
+                       "others' median (%.2f, %.2f): a satellite spot or another feature taken "
+                       "for the star",
+                       name, f, r->x[f], r->y[f], d, mx, my);
+            }
+        }
+    }
+    gl_free(v);
+    return GL_OK;
 }
 
 gl_status gl_align_run(gl_cube *cube, const double *angles, const char *name,
@@ -370,6 +418,8 @@ gl_status gl_align_run(gl_cube *cube, const double *angles, const char *name,
         goto cleanup;
     }
 
+    if ((st = reject_jumps(&stack, p, name, r, nf)))
+        goto cleanup;
     if ((st = shift_frames(cube, p, r->x, r->y, r->status)))
         goto cleanup;
     if (owned) {

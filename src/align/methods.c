@@ -171,7 +171,21 @@ static gl_status measure_register(const gl_align_stack *s, const gl_align_params
     size_t npix = (size_t)s->nx * (size_t)s->ny;
     const float *ref = s->sharp;
     gl_status st = GL_OK;
-    if (compact_star(ref, s->nx, s->ny, p, &fit)) {
+    int fitted = compact_star(ref, s->nx, s->ny, p, &fit);
+    if (fitted) {
+        /* a compact feature far from the frame's centre of symmetry is not
+         * the star (a satellite spot, a background source): use symmetry */
+        double sx, sy;
+        if (gl_align_symmetry_centre(ref, s->nx, s->ny, p->upsample, &sx, &sy) == GL_OK &&
+            hypot(fit.x - sx, fit.y - sy) > 3 * GL_MAX(fit.fwhm, 1.0)) {
+            gl_log(GL_LOG_WARN,
+                   "registration: the compact peak at (%.2f, %.2f) lies %.1f px from the "
+                   "frame's centre of symmetry (%.2f, %.2f); taking the symmetry centre",
+                   fit.x, fit.y, hypot(fit.x - sx, fit.y - sy), sx, sy);
+            fitted = 0;
+        }
+    }
+    if (fitted) {
         cx = fit.x;
         cy = fit.y;
         ecx = fit.err_x;

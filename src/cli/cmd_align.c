@@ -192,7 +192,7 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
             cadence = d;
             break;
         case OPT_ANGLES_OUT: angles_out = optarg; break;
-        default: return cli_usage(cli, "unknown option '%s'", argv[optind - 1]);
+        default: return cli_bad_option(cli, argv);
         }
     }
     if (optind != argc - 1)

@@ -115,7 +115,7 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
                 return 1;
             break;
         case OPT_EVERY: every = 1; break;
-        default: return cli_usage(cli, "unknown option '%s'", argv[optind - 1]);
+        default: return cli_bad_option(cli, argv);
         }
     }
     if (optind != argc - 1)

@@ -97,7 +97,7 @@ int cmd_inject(gl_cli *cli, int argc, char **argv)
                 return cli_fail(cli, st);
             ncompanions++;
             break;
-        default: return cli_usage(cli, "unknown option '%s'", argv[optind - 1]);
+        default: return cli_bad_option(cli, argv);
         }
     }
     if (optind != argc - 1)

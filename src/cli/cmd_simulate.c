@@ -375,7 +375,7 @@ int cmd_simulate(gl_cli *cli, int argc, char **argv)
         case O_TARGET: bad = copy_name(cli, "--target", optarg, p.target, sizeof p.target); break;
         case O_SITE: bad = copy_name(cli, "--site", optarg, p.site, sizeof p.site); break;
         case ':': return cli_usage(cli, "option %s needs a value", argv[optind - 1]);
-        default: return cli_usage(cli, "unknown option '%s'", argv[optind - 1]);
+        default: return cli_bad_option(cli, argv);
         }
         if (bad)
             return 1;

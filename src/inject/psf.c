@@ -190,6 +190,13 @@ gl_status gl_psf_model_new(const gl_cube *psf, const char *name, long nx, long n
         double fwhm = profile_fwhm(plane, pw, ph, cx, cy);
         light_centre(plane, pw, ph, &cx, &cy, isfinite(fwhm) ? GL_MAX(fwhm, 1.5) : 2.0);
         fwhm = profile_fwhm(plane, pw, ph, cx, cy);
+        if (!isfinite(fwhm)) {
+            st = gl_error_set(GL_ERR_INPUT,
+                              "%s: no PSF-like peak: the light around the brightest pixel never "
+                              "falls to half of it (noise, or not a PSF image?)",
+                              name);
+            goto cleanup;
+        }
         if (c == 0) {
             m->centre_x = cx;
             m->centre_y = cy;

@@ -129,9 +129,9 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
                             r1, diam, nx, ny, edge);
     if (r0 > r1)
         return gl_error_set(GL_ERR_USAGE,
-                            "no separation fits between %.1f px (mask + FWHM/2) and %.1f px (frame "
-                            "edge); lower --mask-radius or --fwhm",
-                            r0, r1);
+                            "no separation fits between %.1f px (%s) and %.1f px (%s)", r0,
+                            lp->r_min_px > 0 ? "--min-separation" : "mask + FWHM/2, the first", r1,
+                            lp->r_max_px > 0 ? "--max-separation" : "frame edge, the last");
     long n = (long)floor((r1 - r0) / step + 1e-9) + 1;
 
     if ((st = gl_detect_aperture_plan_new(diam / 2, &ap)))

@@ -113,6 +113,10 @@ def test_bad_inputs(tmp_path):
     comp = ["--companion", "10:0:1e-3"]
     fits.PrimaryHDU(np.zeros((9, 9), np.float32)).writeto(tmp_path / "dark.fits")
     assert "no positive signal" in bad(tmp_path, *comp, psf=tmp_path / "dark.fits")
+    # noise around a level is not a PSF: its profile never falls to half the peak
+    noise = 100 + np.random.default_rng(3).normal(0, 5, (21, 21))
+    fits.PrimaryHDU(noise.astype(np.float32)).writeto(tmp_path / "noise.fits")
+    assert "no PSF-like peak" in bad(tmp_path, *comp, psf=tmp_path / "noise.fits")
     fits.PrimaryHDU(np.ones((60, 60), np.float32)).writeto(tmp_path / "big.fits")
     assert "larger than" in bad(tmp_path, *comp, psf=tmp_path / "big.fits")
     assert "psf-scale" in bad(tmp_path, *comp, "--psf-scale", "0")
