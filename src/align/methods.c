@@ -393,9 +393,9 @@ gl_centre_method gl_centre_auto(const gl_align_stack *s, const gl_align_params *
         }
         if (weakest > 0.02 * (peak - bg)) {
             snprintf(reason, size,
-                     "four satellite spots found in the registered median frame, as bright "
-                     "as %.0f%% of its brightest feature",
-                     100 * weakest / (peak - bg));
+                     "four satellite spots in the registered median frame (faintest %.3g above "
+                     "the background; brightest 3x3 feature %.3g)",
+                     weakest, peak - bg);
             return GL_CENTRE_SPOTS;
         }
     }

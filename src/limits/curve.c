@@ -202,6 +202,18 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
         }
     }
 
+    {
+        long noisy = 0;
+        for (long i = 0; i < n; i++)
+            noisy += r.noise[i] > 0;
+        if (noisy == 0) {
+            st = gl_error_set(GL_ERR_INPUT,
+                              "the subtracted image has no noise at any separation (a constant "
+                              "or empty cube?): no limit can be set");
+            goto cleanup;
+        }
+    }
+
     /* fakes: one per FWHM of separation, consecutive ones in different
      * runs, golden-angle steps in position angle */
     long nf = (long)floor((r1 - r0) / fwhm + 1e-9) + 1;
