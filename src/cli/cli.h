@@ -58,6 +58,11 @@ int cli_fail(const gl_cli *cli, gl_status st);
 /* Prints "gloam CMD: <message>" plus a hint to --help; returns 1. */
 int cli_usage(const gl_cli *cli, const char *fmt, ...) __attribute__((format(printf, 2, 3)));
 
+/* The one positional argument left after getopt_long (`what` names it in
+ * messages: "the input cube"); NULL after printing a usage message when it
+ * is missing or followed by another. */
+const char *cli_positional(const gl_cli *cli, int argc, char **argv, const char *what);
+
 /* Checks required options: names[i] is missing when values[i] is NULL.
  * Prints "--a, --b are needed" naming only the missing ones and returns 1;
  * returns 0 when all are there. */

@@ -195,9 +195,9 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
         default: return cli_bad_option(cli, argv);
         }
     }
-    if (optind != argc - 1)
-        return cli_usage(cli, "expected one input cube");
-    const char *in = argv[optind];
+    const char *in = cli_positional(cli, argc, argv, "the input cube");
+    if (!in)
+        return 1;
     if (!out)
         return cli_usage(cli, "--out is required");
     if (angles_in && from_header)

@@ -118,13 +118,15 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
         default: return cli_bad_option(cli, argv);
         }
     }
-    if (optind != argc - 1)
-        return cli_usage(cli, "one input image expected (RESULT.fits)");
-    if (!(par.fwhm > 0))
-        return cli_usage(cli, "--fwhm PX is required");
-    if (!prefix || !*prefix)
-        return cli_usage(cli, "--out PREFIX is required");
-    const char *input = argv[optind];
+    const char *input = cli_positional(cli, argc, argv, "the input image (RESULT.fits)");
+    if (!input)
+        return 1;
+    {
+        const char *names[] = {"--fwhm", "--out"};
+        const void *vals[] = {par.fwhm > 0 ? names : NULL, prefix && *prefix ? prefix : NULL};
+        if (cli_missing(cli, 2, names, vals))
+            return 1;
+    }
     cli_start(cli);
 
     int rc = 0;

@@ -160,20 +160,17 @@ int cmd_inspect(gl_cli *cli, int argc, char **argv)
             p.fwhm_given = 1;
             break;
         case OPT_JSON: json = 1; break;
-        default:
-            if (optopt)
-                return cli_usage(cli, "option -%c is unknown or lacks its value", optopt);
-            return cli_usage(cli, "option '%s' is unknown or lacks its value", argv[optind - 1]);
+        default: return cli_bad_option(cli, argv);
         }
     }
-    if (optind != argc - 1)
-        return cli_usage(cli, optind >= argc ? "give one cube to inspect"
-                                             : "give exactly one cube to inspect");
+    const char *in = cli_positional(cli, argc, argv, "the cube to inspect");
+    if (!in)
+        return 1;
     cli_start(cli);
 
     gl_inspect_report *r = NULL;
     char *text = NULL;
-    gl_status st = gl_inspect_report_new(argv[optind], angles, &p, &r);
+    gl_status st = gl_inspect_report_new(in, angles, &p, &r);
     if (st)
         return cli_fail(cli, st);
     if (json) {

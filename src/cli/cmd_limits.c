@@ -237,10 +237,9 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
         default: return cli_bad_option(cli, argv);
         }
     }
-    if (optind != argc - 1)
-        return cli_usage(cli,
-                         optind >= argc ? "the input cube is missing" : "expected one input cube");
-    const char *cube_path = argv[optind];
+    const char *cube_path = cli_positional(cli, argc, argv, "the input cube");
+    if (!cube_path)
+        return 1;
     {
         const char *names[] = {"--angles", "--psf", "--fwhm", "--out"};
         const void *vals[] = {angles_path, psf_path, setup.have_fwhm ? names : NULL, prefix};

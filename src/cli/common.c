@@ -32,6 +32,17 @@ int cli_usage(const gl_cli *cli, const char *fmt, ...)
     return 1;
 }
 
+const char *cli_positional(const gl_cli *cli, int argc, char **argv, const char *what)
+{
+    if (optind >= argc)
+        cli_usage(cli, "%s is missing", what);
+    else if (optind < argc - 1)
+        cli_usage(cli, "expected one %s, got '%s' too", what, argv[optind + 1]);
+    else
+        return argv[optind];
+    return NULL;
+}
+
 int cli_missing(const gl_cli *cli, int n, const char *const *names, const void *const *values)
 {
     char list[512] = "";
