@@ -37,7 +37,7 @@ const char *cli_positional(const gl_cli *cli, int argc, char **argv, const char 
     if (optind >= argc)
         cli_usage(cli, "%s is missing", what);
     else if (optind < argc - 1)
-        cli_usage(cli, "expected one %s, got '%s' too", what, argv[optind + 1]);
+        cli_usage(cli, "%s is given more than once: '%s' is one too many", what, argv[optind + 1]);
     else
         return argv[optind];
     return NULL;
