@@ -42,10 +42,14 @@ echo "planted in the simulation ($frames/truth.csv):"
 cut -d, -f1-3 "$frames/truth.csv" | sed 's/,/\t/g'
 
 echo
-echo "== 6. contrast curve calibrated with fake companions"
+echo "== 6. contrast curve calibrated with fake companions, and the candidates' contrast"
 "$gloam" limits "$cube" --angles "$angles" --psf "$frames/psf.fits" \
   --fwhm "$fwhm" --mask-radius 6 --method annular --gap 0.75 --modes 5 \
+  --candidates "$out/klip.candidates.csv" \
   --out "$out/klip5" --overwrite
+
+echo "contrast of the candidates ($out/klip5.companions.csv), against the planted values above:"
+cut -d, -f1,4,6,10,11 "$out/klip5.companions.csv" | sed 's/,/\t/g'
 
 echo
 echo "products in $out/: aligned.fits, starpos.csv, klip.fits (north-up, one plane per mode count), klip.snr.fits"

@@ -138,6 +138,24 @@ typedef struct gl_table {
 /* Write t to path (normally a temporary name from gl_outset_add); a failed
  * write leaves no file. Errors: GL_ERR_IO (naming path), GL_ERR_NOMEM. */
 GL_API gl_status gl_table_write_csv(const char *path, const gl_table *t);
+
+/* A CSV table read back: one header line of column names, then rows of
+ * numbers (an empty or non-numeric field reads as NaN). data is row-major,
+ * nrows x ncols. Free with gl_csv_free. */
+typedef struct gl_csv {
+    int ncols;
+    long nrows;
+    char **names;
+    double *data;
+} gl_csv;
+
+/* Reads a CSV file written by gloam (or any with that layout).
+ * Errors: GL_ERR_IO, GL_ERR_INPUT (no header line, a row with another number
+ * of fields, naming the line). */
+GL_API gl_status gl_csv_read(const char *path, gl_csv **out);
+GL_API void gl_csv_free(gl_csv *t);
+/* Index of a column by name, or -1. */
+GL_API int gl_csv_column(const gl_csv *t, const char *name);
 GL_API gl_status gl_table_write_fits(const char *path, const gl_table *t, const char *extname,
                                      const gl_provenance *prov);
 

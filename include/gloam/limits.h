@@ -35,6 +35,8 @@ typedef struct gl_limits_params {
     double fake_level;    /* fake flux in units of the local aperture noise (default 10) */
     double pa0_deg;       /* position angle of the first fake (default 0) */
     int exclude_adjacent; /* leave out the two apertures next to the test one */
+    int navoid;           /* known sources the fakes keep 2 FWHM away from */
+    const double *avoid_sep_px, *avoid_pa_deg; /* navoid each, not owned */
 } gl_limits_params;
 
 /* Fills p with the defaults listed above. */
@@ -67,6 +69,7 @@ typedef struct gl_limits_result {
     int nfakes;
     gl_limits_fake *fakes;
     gl_cube *image; /* the subtraction without fakes (north-up) */
+    double fwhm;    /* px, the aperture diameter */
 } gl_limits_result;
 
 /* Computes the curves.
@@ -86,6 +89,20 @@ GL_API gl_status gl_limits_compute(const gl_cube *cube, const double *angles, co
                                    const gl_subtract_params *sp, const gl_psf_model *psf,
                                    const gl_limits_params *lp, gl_limits_result *out);
 GL_API void gl_limits_result_free(gl_limits_result *r);
+
+/* Throughput-corrected aperture photometry of a source in one plane of the
+ * curves' image: flux = 1-FWHM aperture sum at (sep, pa) (north-up,
+ * conventions.md); noise = std of the aperture sums at that separation;
+ * contrast = flux / (throughput x F), contrast_err = noise / (throughput x F)
+ * (statistical only: the throughput's own error is not included). */
+typedef struct gl_limits_photometry {
+    double flux, noise, throughput, contrast, contrast_err;
+} gl_limits_photometry;
+
+/* Errors: GL_ERR_USAGE (plane out of range, separation outside the curve,
+ * aperture off the image or on missing data). */
+GL_API gl_status gl_limits_photometry_at(const gl_limits_result *r, int plane, double sep_px,
+                                         double pa_deg, gl_limits_photometry *out);
 
 /* A contrast-curve figure: curves against separation, with notes (the
  * assumptions) printed on the figure. */

@@ -34,6 +34,9 @@ static const char help[] =
     "  --exclude-adjacent     leave out the two apertures next to the test aperture\n"
     "  --pixscale MAS         pixel scale for the arcsec axis (default: from the WCS)\n"
     "  --title TEXT           title of the figure (default: OBJECT, or the file name)\n"
+    "  --candidates FILE      a candidates CSV (gloam detect; columns sep_px, pa_deg): fakes\n"
+    "                         keep 2 FWHM away from them, and PREFIX.companions.csv gives\n"
+    "                         their throughput-corrected contrast in every plane\n"
     "subtraction options:\n";
 
 enum {
@@ -50,7 +53,8 @@ enum {
     OPT_FAKE_LEVEL,
     OPT_EXCLUDE,
     OPT_PIXSCALE,
-    OPT_TITLE
+    OPT_TITLE,
+    OPT_CANDIDATES
 };
 
 static int parse_limits_option(gl_cli *cli, int c, const char *arg, gl_limits_params *lp,
@@ -186,6 +190,52 @@ cleanup:
     return st;
 }
 
+/* Throughput-corrected photometry of the candidates, one row per candidate
+ * and plane. */
+static gl_status write_companions(const char *csv, const gl_limits_result *r, const double *sep,
+                                  const double *pa, int n, double pixscale)
+{
+    enum { NC = 13 };
+    long rows = (long)n * r->nplanes;
+    double *buf = gl_calloc((size_t)(rows ? rows : 1) * NC, sizeof *buf);
+    if (!buf)
+        return gl_error_nomem("companions table");
+    const char *names[NC] = {
+        "candidate", "plane",      "modes",    "sep_px",       "sep_arcsec", "pa_deg",       "flux",
+        "noise",     "throughput", "contrast", "contrast_err", "delta_mag",  "delta_mag_err"};
+    const double *cols[NC];
+    for (int c = 0; c < NC; c++)
+        cols[c] = buf + (size_t)c * (size_t)rows;
+    for (int i = 0; i < n; i++)
+        for (int k = 0; k < r->nplanes; k++) {
+            size_t j = (size_t)i * (size_t)r->nplanes + (size_t)k;
+            gl_limits_photometry ph;
+            int ok = gl_limits_photometry_at(r, k, sep[i], pa[i], &ph) == GL_OK;
+            if (!ok)
+                gl_log(GL_LOG_WARN, "candidate %d (%.2f px, %.1f deg), plane %d: %s", i + 1, sep[i],
+                       pa[i], k + 1, gl_error_message());
+            double v[NC] = {i + 1,
+                            k + 1,
+                            (double)r->modes[k],
+                            sep[i],
+                            pixscale > 0 ? sep[i] * pixscale / 1000 : NAN,
+                            pa[i],
+                            ok ? ph.flux : NAN,
+                            ok ? ph.noise : NAN,
+                            ok ? ph.throughput : NAN,
+                            ok ? ph.contrast : NAN,
+                            ok ? ph.contrast_err : NAN,
+                            ok ? -2.5 * log10(ph.contrast) : NAN,
+                            ok ? 2.5 / log(10.0) * ph.contrast_err / ph.contrast : NAN};
+            for (int c = 0; c < NC; c++)
+                buf[(size_t)c * (size_t)rows + j] = isfinite(v[c]) ? v[c] : NAN;
+        }
+    gl_table t = {NC, rows, names, NULL, cols, NULL};
+    gl_status st = gl_table_write_csv(csv, &t);
+    gl_free(buf);
+    return st;
+}
+
 int cmd_limits(gl_cli *cli, int argc, char **argv)
 {
     static const struct option opts[] = {{"angles", required_argument, 0, OPT_ANGLES},
@@ -202,10 +252,12 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
                                          {"exclude-adjacent", no_argument, 0, OPT_EXCLUDE},
                                          {"pixscale", required_argument, 0, OPT_PIXSCALE},
                                          {"title", required_argument, 0, OPT_TITLE},
+                                         {"candidates", required_argument, 0, OPT_CANDIDATES},
                                          CLI_SUBTRACT_OPTIONS,
                                          CLI_COMMON_OPTIONS,
                                          {0, 0, 0, 0}};
-    const char *angles_path = NULL, *psf_path = NULL, *prefix = NULL, *title = NULL;
+    const char *angles_path = NULL, *psf_path = NULL, *prefix = NULL, *title = NULL,
+               *cand_path = NULL;
     cli_subtract_setup setup;
     cli_subtract_setup_init(&setup);
     gl_limits_params lp;
@@ -234,6 +286,7 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
         case OPT_PSF: psf_path = optarg; break;
         case OPT_OUT: prefix = optarg; break;
         case OPT_TITLE: title = optarg; break;
+        case OPT_CANDIDATES: cand_path = optarg; break;
         default: return cli_bad_option(cli, argv);
         }
     }
@@ -259,8 +312,10 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
     double *angles = NULL;
     gl_limits_result res = {0};
     gl_status st;
-    char p_csv[4096], p_fits[4096], p_png[4096], p_svg[4096], p_fakes[4096];
-    const char *t_csv, *t_fits, *t_png, *t_svg, *t_fakes;
+    gl_csv *cands = NULL;
+    double *cand_sep = NULL, *cand_pa = NULL;
+    char p_csv[4096], p_fits[4096], p_png[4096], p_svg[4096], p_fakes[4096], p_comp[4096];
+    const char *t_csv, *t_fits, *t_png, *t_svg, *t_fakes, *t_comp = NULL;
 
     if ((st = cli_read_cube_angles(cli, cube_path, angles_path, &cube, &angles)) ||
         (st = cli_read_input(cli, psf_path, 2, &psfc)) ||
@@ -274,6 +329,39 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
         (st = cli_add_product(cli, outs, prefix, ".limits.svg", p_svg, sizeof p_svg, &t_svg)) ||
         (st = cli_add_product(cli, outs, prefix, ".fakes.csv", p_fakes, sizeof p_fakes, &t_fakes)))
         goto cleanup;
+    if (cand_path) {
+        if ((st = gl_csv_read(cand_path, &cands)) ||
+            (st = gl_provenance_add_input(&cli->prov, cand_path)) ||
+            (st = cli_add_product(cli, outs, prefix, ".companions.csv", p_comp, sizeof p_comp,
+                                  &t_comp)))
+            goto cleanup;
+        int cs = gl_csv_column(cands, "sep_px"), cp = gl_csv_column(cands, "pa_deg");
+        if (cs < 0 || cp < 0) {
+            st = gl_error_set(GL_ERR_INPUT,
+                              "%s: no sep_px and pa_deg columns (a gloam detect "
+                              "candidates table is expected)",
+                              cand_path);
+            goto cleanup;
+        }
+        cand_sep = gl_calloc((size_t)cands->nrows + 1, sizeof *cand_sep);
+        cand_pa = gl_calloc((size_t)cands->nrows + 1, sizeof *cand_pa);
+        if (!cand_sep || !cand_pa) {
+            st = gl_error_nomem("candidates");
+            goto cleanup;
+        }
+        for (long i = 0; i < cands->nrows; i++) {
+            cand_sep[i] = cands->data[i * cands->ncols + cs];
+            cand_pa[i] = cands->data[i * cands->ncols + cp];
+            if (!isfinite(cand_sep[i]) || !isfinite(cand_pa[i])) {
+                st = gl_error_set(GL_ERR_INPUT, "%s: row %ld has no sep_px or pa_deg", cand_path,
+                                  i + 1);
+                goto cleanup;
+            }
+        }
+        lp.navoid = (int)cands->nrows;
+        lp.avoid_sep_px = cand_sep;
+        lp.avoid_pa_deg = cand_pa;
+    }
 
     gl_obsinfo info;
     gl_obsinfo_from_header(cube->header, &info);
@@ -332,7 +420,8 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
                                 "flux); sigma = std of the aperture sums at the separation");
 
     if ((st = write_tables(t_csv, t_fits, &res, pixscale, lp.completeness, keys, &cli->prov)) ||
-        (st = write_fakes(t_fakes, &res)))
+        (st = write_fakes(t_fakes, &res)) ||
+        (t_comp && (st = write_companions(t_comp, &res, cand_sep, cand_pa, lp.navoid, pixscale))))
         goto cleanup;
 
     {
@@ -378,6 +467,9 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
 
 cleanup:
     gl_outset_free(outs);
+    gl_csv_free(cands);
+    gl_free(cand_sep);
+    gl_free(cand_pa);
     gl_limits_result_free(&res);
     gl_psf_model_free(psf);
     gl_header_free(keys);

@@ -93,3 +93,114 @@ gl_status gl_table_write_fits(const char *path, const gl_table *t, const char *e
     gl_free(tunit);
     return gl_fits_finish(f, path, "cannot write the table", status);
 }
+
+/* ---- reading ------------------------------------------------------------ */
+
+void gl_csv_free(gl_csv *t)
+{
+    if (!t)
+        return;
+    for (int c = 0; t->names && c < t->ncols; c++)
+        gl_free(t->names[c]);
+    gl_free(t->names);
+    gl_free(t->data);
+    gl_free(t);
+}
+
+int gl_csv_column(const gl_csv *t, const char *name)
+{
+    for (int c = 0; c < t->ncols; c++)
+        if (strcmp(t->names[c], name) == 0)
+            return c;
+    return -1;
+}
+
+/* Splits line in place at commas (the trailing newline removed); returns the
+ * number of fields, at most max. */
+static int split_fields(char *line, char **fields, int max)
+{
+    line[strcspn(line, "\r\n")] = '\0';
+    int n = 0;
+    char *p = line;
+    while (n < max) {
+        fields[n++] = p;
+        char *comma = strchr(p, ',');
+        if (!comma)
+            break;
+        *comma = '\0';
+        p = comma + 1;
+    }
+    return n;
+}
+
+gl_status gl_csv_read(const char *path, gl_csv **out)
+{
+    enum { MAXCOLS = 256 };
+    *out = NULL;
+    FILE *fp = fopen(path, "r");
+    if (!fp)
+        return gl_error_set(GL_ERR_IO, "%s: cannot open (%s)", path, strerror(errno));
+    gl_status st = GL_OK;
+    char *line = NULL, *fields[MAXCOLS];
+    size_t cap = 0;
+    long lineno = 1, rowcap = 64;
+    gl_csv *t = gl_calloc(1, sizeof *t);
+    if (!t) {
+        st = gl_error_nomem("table");
+        goto cleanup;
+    }
+    if (getline(&line, &cap, fp) < 0) {
+        st = gl_error_set(GL_ERR_INPUT, "%s: empty, no header line of column names", path);
+        goto cleanup;
+    }
+    t->ncols = split_fields(line, fields, MAXCOLS);
+    t->names = gl_calloc((size_t)t->ncols, sizeof *t->names);
+    t->data = gl_malloc((size_t)rowcap * (size_t)t->ncols * sizeof *t->data);
+    if (!t->names || !t->data) {
+        st = gl_error_nomem("table");
+        goto cleanup;
+    }
+    for (int c = 0; c < t->ncols; c++) {
+        size_t len = strlen(fields[c]) + 1;
+        if (!(t->names[c] = gl_malloc(len))) {
+            st = gl_error_nomem("table");
+            goto cleanup;
+        }
+        memcpy(t->names[c], fields[c], len);
+    }
+    while (getline(&line, &cap, fp) >= 0) {
+        lineno++;
+        if (line[strspn(line, " \t\r\n")] == '\0')
+            continue;
+        int n = split_fields(line, fields, MAXCOLS);
+        if (n != t->ncols) {
+            st = gl_error_set(GL_ERR_INPUT, "%s: line %ld has %d fields, the header %d", path,
+                              lineno, n, t->ncols);
+            goto cleanup;
+        }
+        if (t->nrows == rowcap) {
+            double *d = gl_malloc((size_t)rowcap * 2 * (size_t)t->ncols * sizeof *d);
+            if (!d) {
+                st = gl_error_nomem("table");
+                goto cleanup;
+            }
+            memcpy(d, t->data, (size_t)rowcap * (size_t)t->ncols * sizeof *d);
+            gl_free(t->data);
+            t->data = d;
+            rowcap *= 2;
+        }
+        for (int c = 0; c < n; c++) {
+            char *end;
+            double v = strtod(fields[c], &end);
+            t->data[t->nrows * t->ncols + c] = (end == fields[c] || *end) ? NAN : v;
+        }
+        t->nrows++;
+    }
+    *out = t;
+    t = NULL;
+cleanup:
+    free(line);
+    gl_csv_free(t);
+    fclose(fp);
+    return st;
+}

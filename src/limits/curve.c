@@ -231,6 +231,20 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
         f->run = (int)(j % lp->fake_runs);
         f->pa_deg =
             fmod(lp->pa0_deg + 360.0 * f->run / lp->fake_runs + 137.50776 * (double)j, 360.0);
+        /* keep clear of known sources: turn by 30 degree steps */
+        for (int turn = 0; turn < 12; turn++) {
+            int clear = 1;
+            for (int a = 0; a < lp->navoid; a++) {
+                double d = 2 * sin(0.5 * (f->pa_deg - lp->avoid_pa_deg[a]) * M_PI / 180);
+                double dx = f->sep_px - lp->avoid_sep_px[a];
+                /* distance between the two points at (sep, pa) */
+                double dist2 = dx * dx + f->sep_px * lp->avoid_sep_px[a] * d * d;
+                clear &= dist2 > 4 * fwhm * fwhm;
+            }
+            if (clear)
+                break;
+            f->pa_deg = fmod(f->pa_deg + 30.0, 360.0);
+        }
         /* brightness from the first plane's noise at that separation */
         double sig = interp(r.sep_px, r.noise, n, f->sep_px);
         if (!(sig > 0))
@@ -322,6 +336,7 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
                "%ld of %ld separations have a throughput below 1%% and no contrast (plane 1)", low,
                n);
     r.image = base.image;
+    r.fwhm = fwhm;
     base.image = NULL;
     *out = r;
     memset(&r, 0, sizeof r);
@@ -339,5 +354,48 @@ cleanup:
     gl_free(sums);
     gl_free(fr);
     gl_free(ft);
+    return st;
+}
+
+gl_status gl_limits_photometry_at(const gl_limits_result *r, int plane, double sep_px,
+                                  double pa_deg, gl_limits_photometry *out)
+{
+    memset(out, 0, sizeof *out);
+    if (plane < 0 || plane >= r->nplanes || !r->image)
+        return gl_error_set(GL_ERR_USAGE, "plane %d: the curves have %d", plane + 1, r->nplanes);
+    if (!(sep_px >= r->sep_px[0] && sep_px <= r->sep_px[r->n - 1]))
+        return gl_error_set(GL_ERR_USAGE,
+                            "separation %.2f px is outside the curve (%.2f to %.2f px)", sep_px,
+                            r->sep_px[0], r->sep_px[r->n - 1]);
+    long nx = r->image->nx, ny = r->image->ny;
+    const double *noise = r->noise + (size_t)plane * (size_t)r->n;
+    const double *thr = r->throughput + (size_t)plane * (size_t)r->n;
+    gl_aperture_plan *ap = NULL;
+    gl_status st = gl_detect_aperture_plan_new(r->fwhm / 2, &ap);
+    if (st)
+        return st;
+    double *work = gl_malloc(gl_detect_aperture_worksize(ap) * sizeof *work);
+    if (!work) {
+        gl_detect_aperture_plan_free(ap);
+        return gl_error_nomem("photometry");
+    }
+    double t = pa_deg * M_PI / 180, flux;
+    double x = (double)(nx / 2) - sep_px * sin(t), y = (double)(ny / 2) + sep_px * cos(t);
+    if (!gl_detect_aperture_sum(ap, gl_cube_plane(r->image, 0, plane), nx, ny, x, y, work, &flux,
+                                NULL))
+        st = gl_error_set(GL_ERR_USAGE,
+                          "separation %.2f px, PA %.2f deg: the aperture touches the edge or "
+                          "missing data",
+                          sep_px, pa_deg);
+    if (!st) {
+        out->flux = flux;
+        out->noise = interp(r->sep_px, noise, r->n, sep_px);
+        out->throughput = interp(r->sep_px, thr, r->n, sep_px);
+        double denom = out->throughput * r->psf_aperture_flux;
+        out->contrast = denom > 0 ? flux / denom : NAN;
+        out->contrast_err = denom > 0 ? out->noise / denom : NAN;
+    }
+    gl_free(work);
+    gl_detect_aperture_plan_free(ap);
     return st;
 }

@@ -540,3 +540,48 @@ def test_threads_and_products(tmp_path):
     root = ET.parse(tmp_path / "t1.limits.svg").getroot()
     assert root.tag.endswith("svg")
     assert float(root.get("width").rstrip("pt")) == pytest.approx(900)
+
+
+# ---- companions: throughput-corrected contrast of a detected source ---------
+
+def test_candidate_contrast_recovers_the_planted_one(tmp_path):
+    """A companion planted (analytic Gaussian, docs/conventions.md placement)
+    at a known contrast in white noise is detected, and `limits --candidates`
+    gives back its contrast within its stated statistical error (3 sigma);
+    the fakes keep more than 2 FWHM away from it. The planted value is the
+    outside reference (known injection)."""
+    rng = np.random.default_rng(11)
+    n, nf = 64, 30
+    angles = np.linspace(0, 120, nf)
+    comp = (18.0, 70.0, 0.3)  # sep px, pa deg, contrast: a bright, clear source
+    cube = plant(rng.normal(0, 1, (nf, n, n)), angles, [comp], FWHM, PSF_AMP)
+    write_cube(tmp_path / "cube.fits", cube)
+    write_angles(tmp_path / "angles.txt", angles)
+    write_psf(tmp_path / "psf.fits")
+    common = ["--angles", tmp_path / "angles.txt", "--fwhm", FWHM, "--method", "median"]
+    ok("subtract", tmp_path / "cube.fits", *common, "--out", tmp_path / "sub.fits")
+    ok("detect", tmp_path / "sub.fits", "--fwhm", FWHM, "--out", tmp_path / "det")
+    det = table(tmp_path / "det.candidates.csv")
+    assert abs(det["sep_px"][0] - comp[0]) < 0.3
+    ok("limits", tmp_path / "cube.fits", *common, "--psf", tmp_path / "psf.fits",
+       "--candidates", tmp_path / "det.candidates.csv", "--out", tmp_path / "lim")
+    c = table(tmp_path / "lim.companions.csv")
+    first = c["candidate"] == 1
+    est, err = c["contrast"][first][0], c["contrast_err"][first][0]
+    assert err > 0 and abs(est - comp[2]) < 3 * err, (est, err)
+    assert abs(est - comp[2]) / comp[2] < 0.1
+    f = table(tmp_path / "lim.fakes.csv")
+    x0, y0 = north_up_xy(det["sep_px"][0], det["pa_deg"][0], n)
+    xs, ys = north_up_xy(f["sep_px"], f["pa_deg"], n)
+    assert np.min(np.hypot(xs - x0, ys - y0)) > 2 * FWHM
+
+
+def test_candidates_table_without_positions_is_refused(tmp_path):
+    cube, angles, psf = noise_inputs(tmp_path)
+    (tmp_path / "c.csv").write_text("a,b\n1,2\n")
+    before = sorted(p.name for p in tmp_path.iterdir())
+    r = run("limits", cube, "--angles", angles, "--psf", psf, "--fwhm", FWHM, "--method",
+            "median", "--candidates", tmp_path / "c.csv", "--out", tmp_path / "lim")
+    assert r.returncode == 1 and "no sep_px and pa_deg columns" in r.stderr
+    assert len(r.stderr.strip().splitlines()) == 1
+    assert sorted(p.name for p in tmp_path.iterdir()) == before
