@@ -6,13 +6,13 @@ set -euo pipefail
 gloam=${1:-build/src/cli/gloam}
 out=${2:-demo-run}
 frames=demo-frames
-fwhm=4.1        # the PSF's FWHM in pixels (demo-frames/README.md)
+fwhm=4.1        # the PSF's FWHM in pixels, as step 1 measures it on psf.fits
 mkdir -p "$out"
 # the candidate columns worth reading on a terminal
 brief() { cut -d, -f1,4,6,10,11,12 "$1" | sed 's/,/\t/g'; }
 
 echo "== 1. what the sequence holds"
-"$gloam" inspect "$frames/cube.fits" --angles "$frames/angles.txt" --fwhm "$fwhm"
+"$gloam" inspect "$frames/cube.fits" --angles "$frames/angles.txt" --psf "$frames/psf.fits"
 
 echo
 echo "== 2. star centring (method chosen from the data) and angles from the headers"

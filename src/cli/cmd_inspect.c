@@ -7,13 +7,14 @@
  */
 #include "cli/cli.h"
 
+#include <cjson/cJSON.h>
 #include <math.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
 
 static const char help[] =
-    "usage: gloam inspect CUBE [--angles FILE] [--fwhm PX] [--json]\n\n"
+    "usage: gloam inspect CUBE [--angles FILE] [--fwhm PX | --psf PSF.fits] [--json]\n\n"
     "Reports what a science cube holds: HDU, shape, BITPIX and scaling, NaN\n"
     "fraction, saturated pixels, per-frame flux and background (median and\n"
     "1.4826*MAD far from the star), outlier frames, field rotation, and the\n"
@@ -21,9 +22,12 @@ static const char help[] =
     "options:\n"
     "  --angles FILE      parallactic angles (degrees, one a line, or 1-D FITS)\n"
     "  --fwhm PX          PSF FWHM for the rotation in FWHM (default: 4 px, assumed)\n"
+    "  --psf FILE         the off-axis PSF: its FWHM (azimuthal profile), centre and\n"
+    "                     flux are measured and reported; the FWHM then replaces the\n"
+    "                     assumed one (the value to give later commands as --fwhm)\n"
     "  --json             print the full report as one JSON object\n";
 
-enum { OPT_ANGLES = CLI_OPT_FIRST_COMMAND_OPTION, OPT_FWHM, OPT_JSON };
+enum { OPT_ANGLES = CLI_OPT_FIRST_COMMAND_OPTION, OPT_FWHM, OPT_JSON, OPT_PSF };
 
 static void print_range(const char *name, const gl_inspect_range *rg)
 {
@@ -94,7 +98,7 @@ static void print_text(const gl_inspect_report *r)
         printf("\nangles      %s: %ld, from %.4f to %.4f deg\n", r->angles_path, r->nangles,
                r->angle_first_deg, r->angle_last_deg);
         printf("rotation    %.4f deg in all; FWHM %.3g px%s\n", r->rotation_deg, r->fwhm_px,
-               r->fwhm_assumed ? " (assumed, not measured: give --fwhm)" : "");
+               r->fwhm_assumed ? " (assumed, not measured: give --fwhm or --psf)" : "");
         printf("  separation    arc of the rotation\n");
         for (int k = 0; k < r->nseps; k++)
             printf("  %6.1f px  %5.1f FWHM  %8.3f FWHM\n", r->sep_px[k], r->sep_px[k] / r->fwhm_px,
@@ -136,11 +140,12 @@ int cmd_inspect(gl_cli *cli, int argc, char **argv)
     static const struct option opts[] = {{"angles", required_argument, 0, OPT_ANGLES},
                                          {"fwhm", required_argument, 0, OPT_FWHM},
                                          {"json", no_argument, 0, OPT_JSON},
+                                         {"psf", required_argument, 0, OPT_PSF},
                                          CLI_COMMON_OPTIONS,
                                          {0, 0, 0, 0}};
     gl_inspect_params p;
     gl_inspect_params_init(&p);
-    const char *angles = NULL;
+    const char *angles = NULL, *psf_path = NULL;
     int json = 0, c, exit_now = 0;
     opterr = 0;
     optind = 1;
@@ -160,6 +165,7 @@ int cmd_inspect(gl_cli *cli, int argc, char **argv)
             p.fwhm_given = 1;
             break;
         case OPT_JSON: json = 1; break;
+        case OPT_PSF: psf_path = optarg; break;
         default: return cli_bad_option(cli, argv);
         }
     }
@@ -169,18 +175,57 @@ int cmd_inspect(gl_cli *cli, int argc, char **argv)
     cli_start(cli);
 
     gl_inspect_report *r = NULL;
+    gl_psf_model *psf = NULL;
     char *text = NULL;
-    gl_status st = gl_inspect_report_new(in, angles, &p, &r);
-    if (st)
+    gl_status st = GL_OK;
+    if (psf_path) {
+        /* the PSF measured on its own grid, with the code inject and limits use */
+        gl_cube *pc = NULL;
+        st = cli_read_input(cli, psf_path, 2, &pc);
+        if (!st)
+            st = gl_psf_model_new(pc, psf_path, pc->nx, pc->ny, 1, 1.0, &psf);
+        gl_cube_free(pc);
+        if (st)
+            return cli_fail(cli, st);
+        if (!p.fwhm_given) {
+            p.fwhm_px = psf->fwhm_px[0];
+            p.fwhm_given = 1;
+        }
+    }
+    st = gl_inspect_report_new(in, angles, &p, &r);
+    if (st) {
+        gl_psf_model_free(psf);
         return cli_fail(cli, st);
+    }
     if (json) {
         st = gl_inspect_report_json(r, &text);
-        if (!st)
-            printf("%s\n", text);
+        cJSON *root = st ? NULL : cJSON_Parse(text);
+        if (root && psf) {
+            cJSON *o = cJSON_AddObjectToObject(root, "psf");
+            cJSON_AddStringToObject(o, "file", psf_path);
+            cJSON_AddNumberToObject(o, "fwhm_px", psf->fwhm_px[0]);
+            cJSON_AddNumberToObject(o, "centre_x", psf->centre_x);
+            cJSON_AddNumberToObject(o, "centre_y", psf->centre_y);
+            cJSON_AddNumberToObject(o, "total_flux", psf->flux[0]);
+            cJSON_AddNumberToObject(o, "peak", psf->peak[0]);
+        }
+        char *out = root ? cJSON_Print(root) : NULL;
+        if (out)
+            printf("%s\n", out);
+        else if (!st)
+            st = gl_error_set(GL_ERR_NOMEM, "out of memory (JSON report)");
+        cJSON_free(out);
+        cJSON_Delete(root);
         free(text);
     } else {
         print_text(r);
+        if (psf)
+            printf("PSF         %s: FWHM %.3f px (azimuthal profile), centre (%.3f, %.3f),\n"
+                   "            total flux %.6g, peak %.6g (with --psf-scale 1)\n",
+                   psf_path, psf->fwhm_px[0], psf->centre_x, psf->centre_y, psf->flux[0],
+                   psf->peak[0]);
     }
+    gl_psf_model_free(psf);
     gl_inspect_report_free(r);
     if (st)
         return cli_fail(cli, st);

@@ -18,8 +18,7 @@ import pytest
 from astropy.io import fits
 from scipy.stats import median_abs_deviation
 
-GLOAM = os.environ.get("GLOAM", "")
-pytestmark = pytest.mark.skipif(not GLOAM, reason="GLOAM not set")
+GLOAM = os.environ["GLOAM"]
 
 rng = np.random.default_rng(77)
 
@@ -286,3 +285,21 @@ def test_bad_unknown_option(good):
 def test_good_still_works(good):
     r = run("good.fits", "--angles", "four.txt", cwd=good)
     assert r.returncode == 0 and r.stderr == ""
+
+
+def test_psf_fwhm_measured(tmp_path):
+    """--psf measures the PSF: an analytic Gaussian has FWHM = 2 sqrt(2 ln 2)
+    sigma (2% is the accuracy of the interpolated azimuthal profile) and its
+    centre where it was drawn; the FWHM then replaces the assumed 4 px."""
+    sigma, x0, y0 = 2.1, 15.3, 16.6
+    y, x = np.mgrid[0:33, 0:31].astype(float)
+    psf = 500 * np.exp(-0.5 * ((x - x0) ** 2 + (y - y0) ** 2) / sigma**2)
+    fits.PrimaryHDU(psf.astype(np.float32)).writeto(tmp_path / "psf.fits")
+    fits.PrimaryHDU(make_cube()).writeto(tmp_path / "cube.fits")
+    rep = inspect_json(str(tmp_path / "cube.fits"), "--psf", str(tmp_path / "psf.fits"))
+    fwhm = 2 * np.sqrt(2 * np.log(2)) * sigma
+    assert abs(rep["psf"]["fwhm_px"] / fwhm - 1) < 0.02
+    assert abs(rep["psf"]["centre_x"] - x0) < 0.01 and abs(rep["psf"]["centre_y"] - y0) < 0.01
+    assert abs(rep["psf"]["total_flux"] / psf.sum() - 1) < 1e-6
+    r = run(str(tmp_path / "cube.fits"), "--psf", str(tmp_path / "psf.fits"))
+    assert r.returncode == 0 and "assumed" not in r.stdout and "FWHM" in r.stdout
