@@ -20,6 +20,7 @@ typedef struct gl_cli {
     char cmdline[4096];
     char program[64];
     gl_provenance prov;
+    int parsing; /* set by cli_next_option once getopt has been reset */
 } gl_cli;
 
 /* Option codes shared by every command (above the range of short options). */
@@ -47,6 +48,23 @@ enum {
     "  --quiet            only errors on stderr\n"                                                 \
     "  --verbose          debugging detail on stderr\n"                                            \
     "  --help             this text\n"
+
+/* Steps through the command line with getopt_long, handling the common
+ * options itself. Returns 1 with *code set to the next command option (optarg
+ * holds its value), 0 after the last option, CLI_EXIT_FAIL when the command
+ * must exit 1 (a common option's bad value, message printed) and
+ * CLI_EXIT_OK when it must exit 0 (--help printed). The first call resets
+ * getopt. Usage:
+ *     while ((k = cli_next_option(cli, argc, argv, opts, help, &c)) > 0)
+ *         switch (c) { ... }
+ *     if (k < 0) return cli_exit_status(k); */
+enum { CLI_EXIT_FAIL = -1, CLI_EXIT_OK = -2 };
+int cli_next_option(gl_cli *cli, int argc, char **argv, const struct option *opts,
+                    const char *help_text, int *code);
+static inline int cli_exit_status(int k)
+{
+    return k == CLI_EXIT_OK ? 0 : 1;
+}
 
 /* Handles a common option; returns 1 when handled, 0 when not common,
  * -1 on a bad value (message printed). help_text is printed for --help, after

@@ -117,17 +117,9 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
     int from_header = 0;
     double cadence = 0, d;
     long n;
-    int c, exit_now = 0;
-    optind = 1;
-    opterr = 0;
-    while ((c = getopt_long(argc, argv, "", opts, NULL)) != -1) {
-        int h = cli_common_option(cli, c, optarg, help, &exit_now);
-        if (h < 0)
-            return 1;
-        if (exit_now)
-            return 0;
-        if (h)
-            continue;
+    int c;
+    int k;
+    while ((k = cli_next_option(cli, argc, argv, opts, help, &c)) > 0) {
         switch (c) {
         case OPT_OUT: out = optarg; break;
         case OPT_TABLE: table = optarg; break;
@@ -195,6 +187,8 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
         default: return cli_bad_option(cli, argv);
         }
     }
+    if (k < 0)
+        return cli_exit_status(k);
     const char *in = cli_positional(cli, argc, argv, "the input cube");
     if (!in)
         return 1;

@@ -72,17 +72,9 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
     gl_detect_params_init(&par);
     const char *prefix = NULL;
     long plane = 1;
-    int every = 0, exit_now = 0, c;
-    optind = 1;
-    opterr = 0;
-    while ((c = getopt_long(argc, argv, "", opts, NULL)) != -1) {
-        int r = cli_common_option(cli, c, optarg, help, &exit_now);
-        if (r < 0)
-            return 1;
-        if (exit_now)
-            return 0;
-        if (r)
-            continue;
+    int every = 0, c;
+    int k;
+    while ((k = cli_next_option(cli, argc, argv, opts, help, &c)) > 0) {
         switch (c) {
         case OPT_FWHM:
             if (cli_parse_double(cli, "--fwhm", optarg, GL_FWHM_MIN_PX, 1e4, &par.fwhm))
@@ -118,6 +110,8 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
         default: return cli_bad_option(cli, argv);
         }
     }
+    if (k < 0)
+        return cli_exit_status(k);
     const char *input = cli_positional(cli, argc, argv, "the input image (RESULT.fits)");
     if (!input)
         return 1;

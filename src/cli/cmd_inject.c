@@ -61,20 +61,12 @@ int cmd_inject(gl_cli *cli, int argc, char **argv)
                                          {0, 0, 0, 0}};
     const char *angles_path = NULL, *psf_path = NULL, *out_path = NULL, *spectrum_text = NULL;
     gl_companion comps[MAX_COMPANIONS];
-    int ncompanions = 0, exit_now = 0, c;
+    int ncompanions = 0, c;
     double psf_scale = 1, north = 0;
     gl_status st;
 
-    opterr = 0;
-    optind = 1;
-    while ((c = getopt_long(argc, argv, "", opts, NULL)) != -1) {
-        int r = cli_common_option(cli, c, optarg, help, &exit_now);
-        if (r < 0)
-            return 1;
-        if (exit_now)
-            return 0;
-        if (r)
-            continue;
+    int k;
+    while ((k = cli_next_option(cli, argc, argv, opts, help, &c)) > 0) {
         switch (c) {
         case OPT_ANGLES: angles_path = optarg; break;
         case OPT_PSF: psf_path = optarg; break;
@@ -100,6 +92,8 @@ int cmd_inject(gl_cli *cli, int argc, char **argv)
         default: return cli_bad_option(cli, argv);
         }
     }
+    if (k < 0)
+        return cli_exit_status(k);
     const char *cube_path = cli_positional(cli, argc, argv, "the input cube");
     if (!cube_path)
         return 1;

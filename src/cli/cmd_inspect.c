@@ -146,17 +146,9 @@ int cmd_inspect(gl_cli *cli, int argc, char **argv)
     gl_inspect_params p;
     gl_inspect_params_init(&p);
     const char *angles = NULL, *psf_path = NULL;
-    int json = 0, c, exit_now = 0;
-    opterr = 0;
-    optind = 1;
-    while ((c = getopt_long(argc, argv, "", opts, NULL)) != -1) {
-        int h = cli_common_option(cli, c, optarg, help, &exit_now);
-        if (h < 0)
-            return 1;
-        if (exit_now)
-            return 0;
-        if (h)
-            continue;
+    int json = 0, c;
+    int k;
+    while ((k = cli_next_option(cli, argc, argv, opts, help, &c)) > 0) {
         switch (c) {
         case OPT_ANGLES: angles = optarg; break;
         case OPT_FWHM:
@@ -169,6 +161,8 @@ int cmd_inspect(gl_cli *cli, int argc, char **argv)
         default: return cli_bad_option(cli, argv);
         }
     }
+    if (k < 0)
+        return cli_exit_status(k);
     const char *in = cli_positional(cli, argc, argv, "the cube to inspect");
     if (!in)
         return 1;

@@ -274,17 +274,9 @@ int cmd_simulate(gl_cli *cli, int argc, char **argv)
     gl_sim_params p;
     gl_sim_params_init(&p);
     long n;
-    int c, exit_now = 0;
-    opterr = 0;
-    optind = 1;
-    while ((c = getopt_long(argc, argv, ":", options, NULL)) != -1) {
-        int r = cli_common_option(cli, c, optarg, help, &exit_now);
-        if (r < 0)
-            return 1;
-        if (exit_now)
-            return 0;
-        if (r > 0)
-            continue;
+    int c;
+    int k;
+    while ((k = cli_next_option(cli, argc, argv, options, help, &c)) > 0) {
         int bad = 0;
         switch (c) {
         case O_FRAMES: bad = cli_parse_long(cli, "--frames", optarg, 1, 100000, &p.nframes); break;
@@ -374,12 +366,13 @@ int cmd_simulate(gl_cli *cli, int argc, char **argv)
         case O_DATE: bad = copy_name(cli, "--date", optarg, p.date_obs, sizeof p.date_obs); break;
         case O_TARGET: bad = copy_name(cli, "--target", optarg, p.target, sizeof p.target); break;
         case O_SITE: bad = copy_name(cli, "--site", optarg, p.site, sizeof p.site); break;
-        case ':': return cli_usage(cli, "option %s needs a value", argv[optind - 1]);
         default: return cli_bad_option(cli, argv);
         }
         if (bad)
             return 1;
     }
+    if (k < 0)
+        return cli_exit_status(k);
     if (optind != argc - 1)
         return cli_usage(cli,
                          optind >= argc ? "missing output folder DIR"

@@ -40,20 +40,13 @@ int cmd_subtract(gl_cli *cli, int argc, char **argv)
     cli_subtract_setup setup;
     cli_subtract_setup_init(&setup);
     gl_subtract_params *pp = &setup.p;
-    int exit_now = 0, c;
+    int c;
     char full_help[8192];
     snprintf(full_help, sizeof full_help, "%s%s", help, cli_subtract_help);
 
-    opterr = 0;
-    optind = 1;
-    while ((c = getopt_long(argc, argv, "", opts, NULL)) != -1) {
-        int r = cli_common_option(cli, c, optarg, full_help, &exit_now);
-        if (r < 0)
-            return 1;
-        if (exit_now)
-            return 0;
-        if (r)
-            continue;
+    int k;
+    while ((k = cli_next_option(cli, argc, argv, opts, full_help, &c)) > 0) {
+        int r;
         r = cli_subtract_option(cli, c, optarg, &setup);
         if (r < 0)
             return 1;
@@ -67,6 +60,8 @@ int cmd_subtract(gl_cli *cli, int argc, char **argv)
         default: return cli_bad_option(cli, argv);
         }
     }
+    if (k < 0)
+        return cli_exit_status(k);
     const char *cube_path = cli_positional(cli, argc, argv, "the input cube");
     if (!cube_path)
         return 1;

@@ -32,6 +32,30 @@ int cli_usage(const gl_cli *cli, const char *fmt, ...)
     return 1;
 }
 
+int cli_next_option(gl_cli *cli, int argc, char **argv, const struct option *opts,
+                    const char *help_text, int *code)
+{
+    if (!cli->parsing) {
+        cli->parsing = 1;
+        opterr = 0;
+        optind = 1;
+    }
+    int c;
+    while ((c = getopt_long(argc, argv, "", opts, NULL)) != -1) {
+        int exit_now = 0;
+        int r = cli_common_option(cli, c, optarg, help_text, &exit_now);
+        if (r < 0)
+            return CLI_EXIT_FAIL;
+        if (exit_now)
+            return CLI_EXIT_OK;
+        if (!r) {
+            *code = c;
+            return 1;
+        }
+    }
+    return 0;
+}
+
 const char *cli_positional(const gl_cli *cli, int argc, char **argv, const char *what)
 {
     if (optind >= argc)
