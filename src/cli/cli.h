@@ -119,6 +119,13 @@ gl_status cli_error_in_file(const char *path, gl_status st);
 gl_status cli_add_product(gl_cli *cli, gl_outset *outs, const char *prefix, const char *suffix,
                           char *path, size_t size, const char **tmp);
 
+/* Notes on stderr, once per run and spelling, that an old option spelling
+ * or value (`old`, e.g. "--upsample" or "--method gaussian") still works for
+ * this release but is replaced by `now` (e.g. "--precision"); quiet with
+ * --quiet. Every renamed option goes through this one note, so the
+ * transition table in docs/names.md and the messages agree. */
+void cli_deprecated(const gl_cli *cli, const char *old, const char *now);
+
 /* Applies --threads and installs the log and progress printers. */
 void cli_start(gl_cli *cli);
 

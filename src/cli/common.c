@@ -195,6 +195,22 @@ gl_status cli_add_product(gl_cli *cli, gl_outset *outs, const char *prefix, cons
     return gl_outset_add(outs, path, &cli->prov, tmp);
 }
 
+void cli_deprecated(const gl_cli *cli, const char *old, const char *now)
+{
+    static char said[16][64];
+    static int nsaid;
+    for (int i = 0; i < nsaid; i++)
+        if (strcmp(said[i], old) == 0)
+            return;
+    if (nsaid < 16)
+        snprintf(said[nsaid++], sizeof said[0], "%s", old);
+    if (!cli->quiet)
+        fprintf(stderr,
+                "gloam %s: note: %s is the old spelling of %s; it will be removed in the next "
+                "release\n",
+                cli->command, old, now);
+}
+
 /* ---- log and progress printers ---------------------------------------- */
 
 static void print_log(gl_log_level level, const char *msg, void *user)
