@@ -28,6 +28,7 @@ struct gl_geom_work {
     fftwf_complex *specb;   /* GL_GEOM_BATCH spectra of pad/2+1 */
     fftwf_complex *phase_x; /* nx/2+1: phase ramp along x for a 2-D shift */
     fftwf_complex *phase_y; /* ny */
+    double *ramp;           /* 8 x (pad/2+1): shear phase tables (rotate.c) */
 };
 
 /* Keys (1981) cubic convolution sample of img at (x, y); NaN when the point
@@ -42,11 +43,6 @@ void gl_geom_phase_ramp(fftwf_complex *ph, long m, long n, double d);
  * vectorise across transforms. Column batches start at multiples of it, which
  * keeps their alignment equal to the planning buffer's. */
 #define GL_GEOM_BATCH 8
-
-/* Shifts, periodically over the padded length, the GL_GEOM_BATCH spectra in
- * w->specb by d0 + k * dstep samples (k = 0..BATCH-1), including the 1/pad
- * normalisation of the inverse transform. */
-void gl_geom_batch_phase(const gl_geom_plan *p, gl_geom_work *w, double d0, double dstep);
 
 struct gl_geom_stamp {
     long nx, ny;

@@ -141,7 +141,9 @@ gl_status gl_geom_work_new(const gl_geom_plan *p, gl_geom_work **out)
         w->specb = gl_malloc((size_t)GL_GEOM_BATCH * (pad / 2 + 1) * sizeof(fftwf_complex));
         w->phase_x = gl_malloc((size_t)(p->nx / 2 + 1) * sizeof(fftwf_complex));
         w->phase_y = gl_malloc((size_t)p->ny * sizeof(fftwf_complex));
-        ok = ok && w->real2d && w->spec2d && w->padded && w->specb && w->phase_x && w->phase_y;
+        w->ramp = gl_malloc(8 * (pad / 2 + 1) * sizeof(double));
+        ok = ok && w->real2d && w->spec2d && w->padded && w->specb && w->phase_x && w->phase_y &&
+             w->ramp;
     }
     if (!ok) {
         gl_geom_work_free(w);
@@ -162,5 +164,6 @@ void gl_geom_work_free(gl_geom_work *w)
     gl_free(w->specb);
     gl_free(w->phase_x);
     gl_free(w->phase_y);
+    gl_free(w->ramp);
     gl_free(w);
 }

@@ -52,15 +52,71 @@ static long batch_start(long lo)
     return lo / GL_GEOM_BATCH * GL_GEOM_BATCH;
 }
 
+/* Phase tables of one shear in which line j (row or column) moves by
+ * s (j - C) samples, periodically over P: e_k = exp(-2 pi i k s / P) (one
+ * line further), e8_k = e_k^8 (one batch further) and b_k, the factor of the
+ * first line j0 including the 1/P of the inverse transform. The factors of
+ * later lines come by complex recurrence in double over at most P lines
+ * (rounding ~1e-14, far below float precision), vectorised over k. */
+static void shear_tables(long P, double s, long j0, double *ramp)
+{
+    long m = P / 2 + 1, C = P / 2;
+    double *er = ramp, *ei = er + m, *br = ei + m, *bi = br + m, *e8r = bi + m, *e8i = e8r + m;
+    for (long k = 0; k < m; k++) {
+        double a1 = -2 * M_PI * (double)k * s / (double)P;
+        er[k] = cos(a1);
+        ei[k] = sin(a1);
+        e8r[k] = cos(GL_GEOM_BATCH * a1);
+        e8i[k] = sin(GL_GEOM_BATCH * a1);
+        br[k] = cos(a1 * (double)(j0 - C)) / (double)P;
+        bi[k] = sin(a1 * (double)(j0 - C)) / (double)P;
+    }
+}
+
+/* Applies the phases to the GL_GEOM_BATCH spectra of w->specb for lines
+ * j0 .. j0 + BATCH - 1 (d0: the shift of line j0, s: its step), then moves
+ * the tables one batch on. An even length's Nyquist bin gets the real factor
+ * cos(pi d) / P, which keeps the spectrum Hermitian (see shift.c). */
+static void shear_batch(long P, double d0, double s, double *ramp, fftwf_complex *spec)
+{
+    long m = P / 2 + 1, kend = P % 2 == 0 ? m - 1 : m;
+    double *er = ramp, *ei = er + m, *br = ei + m, *bi = br + m, *e8r = bi + m, *e8i = e8r + m;
+    double *pr = ramp + 6 * m, *pi = pr + m;
+    memcpy(pr, br, (size_t)m * sizeof *pr);
+    memcpy(pi, bi, (size_t)m * sizeof *pi);
+    for (int b = 0; b < GL_GEOM_BATCH; b++) {
+        float *z = spec[(size_t)b * (size_t)m];
+        for (long k = 0; k < kend; k++) {
+            double re = z[2 * k], im = z[2 * k + 1];
+            z[2 * k] = (float)(re * pr[k] - im * pi[k]);
+            z[2 * k + 1] = (float)(re * pi[k] + im * pr[k]);
+            double t = pr[k] * er[k] - pi[k] * ei[k];
+            pi[k] = pr[k] * ei[k] + pi[k] * er[k];
+            pr[k] = t;
+        }
+        if (P % 2 == 0) {
+            double c = cos(M_PI * (d0 + s * b)) / (double)P;
+            z[2 * (m - 1)] = (float)(z[2 * (m - 1)] * c);
+            z[2 * (m - 1) + 1] = (float)(z[2 * (m - 1) + 1] * c);
+        }
+    }
+    for (long k = 0; k < m; k++) {
+        double t = br[k] * e8r[k] - bi[k] * e8i[k];
+        bi[k] = br[k] * e8i[k] + bi[k] * e8r[k];
+        br[k] = t;
+    }
+}
+
 /* x-shear: row j moves by a (j - C); rows lo..hi hold all the content (the
  * shear of an empty row is empty, so batches may run past hi). */
 static void shear_rows(const gl_geom_plan *p, gl_geom_work *w, double a, long lo, long hi)
 {
-    long P = p->pad, C = P / 2;
-    for (long j0 = batch_start(lo); j0 <= hi; j0 += GL_GEOM_BATCH) {
+    long P = p->pad, C = P / 2, j0 = batch_start(lo);
+    shear_tables(P, a, j0, w->ramp);
+    for (; j0 <= hi; j0 += GL_GEOM_BATCH) {
         float *rows = w->padded + j0 * P;
         fftwf_execute_dft_r2c(p->rows_fwd, rows, w->specb);
-        gl_geom_batch_phase(p, w, a * (double)(j0 - C), a);
+        shear_batch(P, a * (double)(j0 - C), a, w->ramp, w->specb);
         fftwf_execute_dft_c2r(p->rows_inv, w->specb, rows);
     }
 }
@@ -68,11 +124,12 @@ static void shear_rows(const gl_geom_plan *p, gl_geom_work *w, double a, long lo
 /* y-shear: column i moves by b (i - C). */
 static void shear_cols(const gl_geom_plan *p, gl_geom_work *w, double b, long lo, long hi)
 {
-    long C = p->pad / 2;
-    for (long i0 = batch_start(lo); i0 <= hi; i0 += GL_GEOM_BATCH) {
+    long P = p->pad, C = P / 2, i0 = batch_start(lo);
+    shear_tables(P, b, i0, w->ramp);
+    for (; i0 <= hi; i0 += GL_GEOM_BATCH) {
         float *cols = w->padded + i0;
         fftwf_execute_dft_r2c(p->cols_fwd, cols, w->specb);
-        gl_geom_batch_phase(p, w, b * (double)(i0 - C), b);
+        shear_batch(P, b * (double)(i0 - C), b, w->ramp, w->specb);
         fftwf_execute_dft_c2r(p->cols_inv, w->specb, cols);
     }
 }
@@ -91,30 +148,19 @@ static void rotate_fft(const gl_geom_plan *p, gl_geom_work *w, float *img, doubl
     int k = (int)(((quarter % 4) + 4) % 4);
 
     memset(w->padded, 0, (size_t)P * (size_t)P * sizeof *w->padded);
-    for (long y = 0; y < ny; y++)
+    /* exact counter-clockwise quarter turn: (u, v) -> (ru, rv) = (cu u + su v, ...) */
+    static const int rot[4][4] = {{1, 0, 0, 1}, {0, -1, 1, 0}, {-1, 0, 0, -1}, {0, 1, -1, 0}};
+    const int *R = rot[k];
+    for (long y = 0; y < ny; y++) {
+        const float *src = w->copy + y * nx;
+        long v = y - cy;
         for (long x = 0; x < nx; x++) {
-            long u = x - cx, v = y - cy, ru, rv;
-            switch (k) { /* exact counter-clockwise quarter turns */
-            case 0:
-                ru = u;
-                rv = v;
-                break;
-            case 1:
-                ru = -v;
-                rv = u;
-                break;
-            case 2:
-                ru = -u;
-                rv = -v;
-                break;
-            default:
-                ru = v;
-                rv = -u;
-                break;
-            }
-            float val = w->copy[y * nx + x];
+            long u = x - cx;
+            long ru = R[0] * u + R[1] * v, rv = R[2] * u + R[3] * v;
+            float val = src[x];
             w->padded[(C + rv) * P + (C + ru)] = isnan(val) ? 0.0f : val;
         }
+    }
     if (phi != 0) {
         double a = -tan(phi / 2), b = sin(phi);
         long h = (nx > ny ? nx : ny) / 2 + 2;
@@ -122,7 +168,11 @@ static void rotate_fft(const gl_geom_plan *p, gl_geom_work *w, float *img, doubl
         long h2 = (long)ceil((double)h + fabs(b) * (double)h1) + 2;
         shear_rows(p, w, a, clamp_index(C - h, P), clamp_index(C + h, P));
         shear_cols(p, w, b, clamp_index(C - h1, P), clamp_index(C + h1, P));
-        shear_rows(p, w, a, clamp_index(C - h2, P), clamp_index(C + h2, P));
+        /* the last shear moves rows independently: only the rows of the
+         * output window are needed (the batch around them is shifted whole) */
+        long lo = C - h2 > C - cy ? C - h2 : C - cy,
+             hi = C + h2 < C - cy + ny - 1 ? C + h2 : C - cy + ny - 1;
+        shear_rows(p, w, a, clamp_index(lo, P), clamp_index(hi, P));
     }
     for (long y = 0; y < ny; y++)
         memcpy(img + y * nx, w->padded + (C + y - cy) * P + (C - cx), (size_t)nx * sizeof *img);

@@ -32,44 +32,6 @@ void gl_geom_phase_ramp(fftwf_complex *ph, long m, long n, double d)
     }
 }
 
-void gl_geom_batch_phase(const gl_geom_plan *p, gl_geom_work *w, double d0, double dstep)
-{
-    enum { B = GL_GEOM_BATCH };
-    long n = p->pad, m = n / 2 + 1;
-    /* phase factors exp(-2 pi i k d / n) by complex recurrence in double,
-     * the BATCH transforms side by side so the chains run in parallel (one
-     * sincos per transform instead of one per frequency; the rounding grows
-     * like k * 1e-16, far below float precision) */
-    double wr[B], wi[B], w1r[B], w1i[B];
-    for (int b = 0; b < B; b++) {
-        double a = -2 * M_PI * (d0 + dstep * b) / (double)n;
-        w1r[b] = cos(a);
-        w1i[b] = sin(a);
-        wr[b] = 1.0 / (double)n;
-        wi[b] = 0;
-    }
-    long kend = n % 2 == 0 ? m - 1 : m; /* an even length's Nyquist bin apart */
-    for (long k = 0; k < kend; k++) {
-        for (int b = 0; b < B; b++) {
-            float *z = w->specb[(size_t)b * (size_t)m + (size_t)k];
-            double re = z[0], im = z[1];
-            z[0] = (float)(re * wr[b] - im * wi[b]);
-            z[1] = (float)(re * wi[b] + im * wr[b]);
-            double t = wr[b] * w1r[b] - wi[b] * w1i[b];
-            wi[b] = wr[b] * w1i[b] + wi[b] * w1r[b];
-            wr[b] = t;
-        }
-    }
-    if (n % 2 == 0)
-        for (int b = 0; b < B; b++) {
-            /* real factor keeps the spectrum Hermitian (see the file comment) */
-            float *z = w->specb[(size_t)b * (size_t)m + (size_t)(m - 1)];
-            double c = cos(M_PI * (d0 + dstep * b)) / (double)n;
-            z[0] = (float)(z[0] * c);
-            z[1] = (float)(z[1] * c);
-        }
-}
-
 /* NaN where the nearest source pixel of (x, y) - (dx, dy) is outside or NaN. */
 static void mask_shifted(const float *src, float *img, long nx, long ny, double dx, double dy)
 {
