@@ -4,6 +4,10 @@
  */
 #include "gloam/gloam.h"
 #include "check.h"
+#include "core/internal.h"
+
+#include <math.h>
+#include <stdlib.h>
 
 #include <string.h>
 
@@ -84,8 +88,48 @@ static void test_cube(void)
     gl_malloc_fail_after(0);
 }
 
+static int cmp_float(const void *a, const void *b)
+{
+    float x = *(const float *)a, y = *(const float *)b;
+    return x < y ? -1 : x > y;
+}
+
+/* The float median (radix selection) against the definition: sort with qsort
+ * (C library) and take the middle value or the mean of the two middle ones.
+ * Sizes 1..401 odd and even, random values of both signs over many binades,
+ * heavy duplicates, signed zeros. */
+static void test_median_float(void)
+{
+    srand(7);
+    int bad = 0;
+    float *v = malloc(1000 * sizeof *v), *s = malloc(1000 * sizeof *s);
+    for (int trial = 0; trial < 600; trial++) {
+        long n = 1 + trial % 401;
+        for (long i = 0; i < n; i++) {
+            double u = rand() / (double)RAND_MAX - 0.5;
+            switch (trial % 4) {
+            case 0: v[i] = (float)u; break;
+            case 1: v[i] = (float)(u * pow(10.0, rand() % 12 - 6)); break;
+            case 2: v[i] = (float)(rand() % 5 - 2); break; /* duplicates */
+            default: v[i] = (rand() % 3) ? 0.0f : -0.0f;   /* signed zeros */
+            }
+        }
+        memcpy(s, v, (size_t)n * sizeof *s);
+        qsort(s, (size_t)n, sizeof *s, cmp_float);
+        float ref = n % 2 ? s[n / 2] : 0.5f * (s[n / 2 - 1] + s[n / 2]);
+        float got = gl_stats_median_inplace_float(v, n);
+        if (got != ref)
+            bad++;
+    }
+    CHECK(bad == 0, "float median equals the sorted definition (%d of 600 differ)", bad);
+    CHECK(isnan(gl_stats_median_inplace_float(v, 0)), "median of nothing is NaN");
+    free(v);
+    free(s);
+}
+
 int main(void)
 {
+    test_median_float();
     test_errors();
     test_header();
     test_header_malformed_cards();

@@ -36,9 +36,11 @@ int gl_header_is_structural(const char *key);
  * result. Errors: GL_ERR_NOMEM. */
 gl_status gl_cube_channels_average(const gl_cube *c, float **out);
 
-/* Median of v[0..n-1] by Hoare's selection, in place (reorders v; no NaN
- * expected: callers drop them first); NaN when n <= 0. The float version
- * averages the two middle values of an even count in float. */
+/* Median of v[0..n-1] (no NaN expected: callers drop them first); NaN when
+ * n <= 0. The double version selects by Hoare's method and reorders v; the
+ * float version (the hot per-pixel medians of subtract) selects by radix on
+ * the float bits and leaves v overwritten (scratch). Both are exact; the
+ * float one averages the two middle values of an even count in float. */
 double gl_stats_median_inplace(double *v, long n);
 float gl_stats_median_inplace_float(float *v, long n);
 

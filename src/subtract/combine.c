@@ -23,6 +23,8 @@
 #include <omp.h>
 #include <string.h>
 
+#define COMBINE_BLOCK 16
+
 gl_status sub_sink_new(const sub_ctx *c, gl_cube *image, gl_cube *resid, gl_cube *raw,
                        sub_sink **out)
 {
@@ -40,7 +42,7 @@ gl_status sub_sink_new(const sub_ctx *c, gl_cube *image, gl_cube *resid, gl_cube
     if (st)
         goto fail;
     s->works = gl_calloc((size_t)s->nth, sizeof *s->works);
-    s->scratch = gl_malloc(sizeof(float) * (size_t)s->nth * (size_t)c->nframe);
+    s->scratch = gl_malloc(sizeof(float) * (size_t)s->nth * COMBINE_BLOCK * (size_t)c->nframe);
     s->fstat = gl_calloc((size_t)c->nframe, sizeof *s->fstat);
     double rmax = hypot((double)c->nx, (double)c->ny);
     s->nring = (long)ceil(rmax / c->p->fwhm) + 1;
@@ -154,29 +156,42 @@ gl_status sub_sink_put(void *sink, int mode_index, float *resid)
                    resid + (size_t)i * plane, sizeof(float) * plane);
 
     float *out = s->image->data + (size_t)mode_index * plane;
+    if (p->combine == GL_COMBINE_MEDIAN) {
+        /* blocks of COMBINE_BLOCK pixels: each frame's run of the block is
+         * read once (a cache line) into the block's per-pixel stacks */
+        long nb = (c->npix + COMBINE_BLOCK - 1) / COMBINE_BLOCK;
+#pragma omp parallel for schedule(static)
+        for (long b = 0; b < nb; b++) {
+            float *buf =
+                s->scratch + (size_t)omp_get_thread_num() * COMBINE_BLOCK * (size_t)c->nframe;
+            long j0 = b * COMBINE_BLOCK, nj = GL_SUB_MIN(COMBINE_BLOCK, c->npix - j0), n = 0;
+            for (long i = 0; i < c->nframe; i++) {
+                if (!c->usable[i])
+                    continue;
+                const float *r = resid + (size_t)i * plane + (size_t)j0;
+                for (long q = 0; q < nj; q++)
+                    buf[(size_t)q * (size_t)c->nframe + (size_t)n] = r[q];
+                n++;
+            }
+            for (long q = 0; q < nj; q++)
+                out[j0 + q] = sub_nanmedian(buf + (size_t)q * (size_t)c->nframe, n);
+        }
+        return GL_OK;
+    }
 #pragma omp parallel for schedule(static)
     for (long j = 0; j < c->npix; j++) {
-        float *buf = s->scratch + (size_t)omp_get_thread_num() * (size_t)c->nframe;
-        long n = 0;
-        if (p->combine == GL_COMBINE_MEDIAN) {
-            for (long i = 0; i < c->nframe; i++)
-                if (c->usable[i])
-                    buf[n++] = resid[(size_t)i * plane + (size_t)j];
-            out[j] = sub_nanmedian(buf, n);
-        } else {
-            double sw = 0, swx = 0;
-            for (long i = 0; i < c->nframe; i++) {
-                float v = resid[(size_t)i * plane + (size_t)j];
-                if (!c->usable[i] || isnan(v))
-                    continue;
-                double w = p->combine == GL_COMBINE_WEIGHTED
-                               ? s->weights[(size_t)i * (size_t)s->nring + (size_t)s->ring[j]]
-                               : 1.0;
-                sw += w;
-                swx += w * v;
-            }
-            out[j] = sw > 0 ? (float)(swx / sw) : NAN;
+        double sw = 0, swx = 0;
+        for (long i = 0; i < c->nframe; i++) {
+            float v = resid[(size_t)i * plane + (size_t)j];
+            if (!c->usable[i] || isnan(v))
+                continue;
+            double w = p->combine == GL_COMBINE_WEIGHTED
+                           ? s->weights[(size_t)i * (size_t)s->nring + (size_t)s->ring[j]]
+                           : 1.0;
+            sw += w;
+            swx += w * v;
         }
+        out[j] = sw > 0 ? (float)(swx / sw) : NAN;
     }
     return GL_OK;
 }

@@ -15,7 +15,7 @@ typedef struct sub_sink {
     int nth;
     gl_geom_plan *plan;
     gl_geom_work **works; /* one per thread */
-    float *scratch;       /* nth x nframe */
+    float *scratch;       /* nth x COMBINE_BLOCK x nframe (median stacks) */
     double *wscratch;     /* nth x 3 x nring */
     gl_status *fstat;     /* per frame rotation status */
     long nring;
