@@ -1,5 +1,6 @@
 """libgloam as a package for other programs: install, pkg-config, the
-shared library's version and exported symbols.
+shared library's version and exported symbols, the man pages and the bash
+completion.
 
 References: pkg-config (freedesktop.org) is the outside reader of the
 installed gloam.pc; the ELF dynamic section (SONAME) and symbol table are
@@ -8,6 +9,7 @@ computes through the shared library are checked against numpy's median and
 scipy.stats.median_abs_deviation(scale="normal") (Hampel 1974).
 """
 import os
+import re
 import shutil
 import subprocess
 from pathlib import Path
@@ -96,3 +98,56 @@ def test_shared_library_is_versioned_and_exports_only_the_api(installed):
     # symbol (.gomp_critical_user_NAME); it is the compiler's, not our API
     stray = [n for n in names if not n.startswith(("gl_", ".gomp_critical_user_"))]
     assert not stray, f"exported symbols outside the gl_ API: {stray[:10]}"
+
+
+def commands(gloam):
+    out = subprocess.run([gloam, "--help"], capture_output=True, text=True).stdout
+    block = out.split("commands:")[1].split("\n\n")[0]
+    return [line.split()[0] for line in block.strip().splitlines()]
+
+
+def help_options(gloam, cmd):
+    out = subprocess.run([gloam, cmd, "--help"], capture_output=True, text=True).stdout
+    return sorted(set(re.findall(r"(?<![\w-])--[a-z][a-z0-9-]*", out)))
+
+
+def test_a_man_page_per_command_renders_cleanly_and_lists_every_option(installed):
+    """groff (GNU troff, -ww: all warnings) is the outside reader of the pages."""
+    if not shutil.which("groff"):
+        pytest.skip("groff is not installed")
+    dest, _ = installed
+    gloam = os.environ["GLOAM"]
+    cmds = commands(gloam)
+    assert "subtract" in cmds and "limits" in cmds
+    pages = {p.name: p for p in dest.rglob("man1/*.1")}
+    assert sorted(pages) == sorted(["gloam.1"] + [f"gloam-{c}.1" for c in cmds]), \
+        "src/cli/meson.build's gloam_commands differs from gloam --help"
+    for name, page in pages.items():
+        r = subprocess.run(["groff", "-man", "-ww", "-z", str(page)], capture_output=True, text=True)
+        assert r.returncode == 0 and r.stderr == "", f"{name}: {r.stderr}"
+    for c in cmds:
+        text = subprocess.run(["groff", "-man", "-Tutf8", "-P-cbou", str(pages[f"gloam-{c}.1"])],
+                              capture_output=True, text=True, env=dict(os.environ, MANWIDTH="200")).stdout
+        text = text.replace("\u2010", "-").replace("\u2212", "-")
+        missing = [o for o in help_options(gloam, c) if o not in text]
+        assert not missing, f"gloam-{c}.1 lacks {missing}"
+
+
+def test_bash_completion_offers_commands_and_options(installed, tmp_path):
+    """bash's own programmable completion runs the installed script."""
+    dest, _ = installed
+    script = next(dest.rglob("bash-completion/completions/gloam"))
+    gloam = os.environ["GLOAM"]
+    probe = tmp_path / "probe.sh"
+    probe.write_text(f"""shopt -s extglob
+source {script}
+COMP_WORDS=({gloam} sub); COMP_CWORD=1; _gloam; echo "${{COMPREPLY[*]}}"
+COMP_WORDS=({gloam} subtract cube.fits --mo); COMP_CWORD=3; _gloam; echo "${{COMPREPLY[*]}}"
+COMP_WORDS=({gloam} detect --); COMP_CWORD=2; _gloam; echo "${{COMPREPLY[*]}}"
+""")
+    r = subprocess.run(["bash", "--norc", str(probe)], capture_output=True, text=True)
+    assert r.returncode == 0, r.stderr
+    first, second, third = r.stdout.splitlines()
+    assert first.split() == ["subtract"]
+    assert "--modes" in second.split()
+    assert sorted(third.split()) == help_options(gloam, "detect")
