@@ -246,3 +246,133 @@ cleanup:
     }
     return st;
 }
+
+/* ---- reading a cube piece by piece (the streamed subtraction) ---------- */
+
+struct gl_fits_stream {
+    fitsfile *f;
+    char *path;
+    long nx, ny, nchan, nframe;
+    gl_header *header;
+    unsigned char *nulls; /* one plane of null flags */
+};
+
+gl_status gl_fits_stream_open(const char *path, gl_fits_stream **out)
+{
+    gl_fits_stream *s = NULL;
+    gl_status st;
+    *out = NULL;
+    s = gl_calloc(1, sizeof *s);
+    if (!s)
+        return gl_error_nomem("FITS stream");
+    if ((st = open_readonly(path, &s->f)))
+        goto fail;
+    int hdu = 0, naxis = 0, bitpix = 0;
+    long naxes[8] = {0};
+    if ((st = find_image_hdu(s->f, path, &hdu, &naxis, naxes, &bitpix)))
+        goto fail;
+    while (naxis > 4 && naxes[naxis - 1] == 1)
+        naxis--;
+    if (naxis < 3 || naxis > 4) {
+        st = gl_error_set(GL_ERR_INPUT,
+                          "%s: HDU %d is a %d-D image; a 3-D cube (x, y, frame) is "
+                          "needed",
+                          path, hdu, naxis);
+        goto fail;
+    }
+    for (int i = 0; i < naxis; i++)
+        if (naxes[i] < 1) {
+            st = gl_error_set(GL_ERR_INPUT, "%s: HDU %d: axis %d is empty", path, hdu, i + 1);
+            goto fail;
+        }
+    s->nx = naxes[0];
+    s->ny = naxes[1];
+    s->nchan = naxis == 4 ? naxes[2] : 1;
+    s->nframe = naxis == 4 ? naxes[3] : naxes[2];
+    s->header = gl_header_new();
+    s->path = gl_malloc(strlen(path) + 1);
+    s->nulls = gl_malloc((size_t)s->nx * (size_t)s->ny);
+    if (!s->header || !s->path || !s->nulls) {
+        st = gl_error_nomem("FITS stream");
+        goto fail;
+    }
+    memcpy(s->path, path, strlen(path) + 1);
+    if ((st = read_cards(s->f, path, s->header)))
+        goto fail;
+    *out = s;
+    return GL_OK;
+fail:
+    gl_fits_stream_close(s);
+    return st;
+}
+
+void gl_fits_stream_close(gl_fits_stream *s)
+{
+    if (!s)
+        return;
+    if (s->f) {
+        int s2 = 0;
+        fits_close_file(s->f, &s2);
+    }
+    gl_header_free(s->header);
+    gl_free(s->nulls);
+    gl_free(s->path);
+    gl_free(s);
+}
+
+void gl_fits_stream_shape(const gl_fits_stream *s, long *nx, long *ny, long *nchan, long *nframe)
+{
+    *nx = s->nx;
+    *ny = s->ny;
+    *nchan = s->nchan;
+    *nframe = s->nframe;
+}
+
+const gl_header *gl_fits_stream_header(const gl_fits_stream *s)
+{
+    return s->header;
+}
+
+/* n pixels from pixel index first (0-based, over the whole cube) into dst,
+ * null pixels as NaN (as gl_fits_read_cube reads them). */
+static gl_status stream_read(gl_fits_stream *s, size_t first, size_t n, float *dst)
+{
+    int status = 0, anynul = 0;
+    if (fits_read_imgnull(s->f, TFLOAT, (LONGLONG)first + 1, (LONGLONG)n, dst, (char *)s->nulls,
+                          &anynul, &status))
+        return gl_fits_error(GL_ERR_IO, s->path, "cannot read the image data", status);
+    if (anynul)
+        for (size_t i = 0; i < n; i++)
+            if (s->nulls[i])
+                dst[i] = NAN;
+    return GL_OK;
+}
+
+gl_status gl_fits_stream_frames(gl_fits_stream *s, long f0, long nf, float *dst)
+{
+    size_t plane = (size_t)s->nx * (size_t)s->ny;
+    if (s->nchan != 1 || f0 < 0 || nf < 0 || f0 + nf > s->nframe)
+        return gl_error_set(GL_ERR_INTERNAL, "%s: frames %ld..%ld asked of %ld", s->path, f0,
+                            f0 + nf - 1, s->nframe);
+    for (long i = 0; i < nf; i++) {
+        gl_status st = stream_read(s, (size_t)(f0 + i) * plane, plane, dst + (size_t)i * plane);
+        if (st)
+            return st;
+    }
+    return GL_OK;
+}
+
+gl_status gl_fits_stream_rows(gl_fits_stream *s, long y0, long nrows, float *dst)
+{
+    size_t plane = (size_t)s->nx * (size_t)s->ny, run = (size_t)nrows * (size_t)s->nx;
+    if (s->nchan != 1 || y0 < 0 || nrows < 0 || y0 + nrows > s->ny)
+        return gl_error_set(GL_ERR_INTERNAL, "%s: rows %ld..%ld asked of %ld", s->path, y0,
+                            y0 + nrows - 1, s->ny);
+    for (long i = 0; i < s->nframe; i++) {
+        gl_status st = stream_read(s, (size_t)i * plane + (size_t)y0 * (size_t)s->nx, run,
+                                   dst + (size_t)i * run);
+        if (st)
+            return st;
+    }
+    return GL_OK;
+}

@@ -33,4 +33,19 @@ int gl_fits_write_provenance(fitsfile *f, const gl_provenance *prov, int *status
 struct wcsprm;
 gl_status gl_header_wcs_parse(const gl_header *h, int *nwcs, struct wcsprm **wcs);
 
+/* A cube read piece by piece (fits_read.c), for data larger than memory:
+ * the image HDU, BITPIX conversion, scaling and null handling of
+ * gl_fits_read_cube, so every pixel comes back exactly as that reads it.
+ * Open: GL_ERR_IO / GL_ERR_INPUT as gl_fits_read_cube (3-D or 4-D only).
+ * frames: nf whole frames from f0 into dst (nf x ny x nx; 3-D cubes only).
+ * rows: rows y0 .. y0 + nrows - 1 of every frame into dst (frame after
+ * frame, each nrows x nx; 3-D cubes only). Read errors: GL_ERR_IO. */
+typedef struct gl_fits_stream gl_fits_stream;
+gl_status gl_fits_stream_open(const char *path, gl_fits_stream **out);
+void gl_fits_stream_close(gl_fits_stream *s);
+void gl_fits_stream_shape(const gl_fits_stream *s, long *nx, long *ny, long *nchan, long *nframe);
+const gl_header *gl_fits_stream_header(const gl_fits_stream *s);
+gl_status gl_fits_stream_frames(gl_fits_stream *s, long f0, long nf, float *dst);
+gl_status gl_fits_stream_rows(gl_fits_stream *s, long y0, long nrows, float *dst);
+
 #endif

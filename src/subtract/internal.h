@@ -80,6 +80,15 @@ void sub_centre(float *X, long nrow, long ncol, gl_centring mode, const unsigned
  * repeat the call. GL_ERR_NOMEM. */
 size_t sub_covariance_work_size(void);
 gl_status sub_covariance(const float *X, long n, long ncol, double *C, double *work);
+/* The pieces of sub_covariance, for data fed chunk by chunk (stream.c): the
+ * upper tiles of C get X X^T of one column chunk X (n x w, row stride ldx;
+ * w <= sub_covariance_chunk_width()), stored when first, else added; work
+ * as above (not NULL). Fed the same chunks in the same order, the result is
+ * bit-identical to sub_covariance's. Then mirror the upper triangle. */
+void sub_covariance_chunk(const float *X, long ldx, long n, long w, int first, double *C,
+                          double *work);
+void sub_covariance_mirror(double *C, long n);
+long sub_covariance_chunk_width(void);
 
 /* C (m x n) = beta C + alpha A B with A (m x k), B (k x n), row-major, lda,
  * ldb, ldc row strides; transB transposes B (then B is n x k). Tiled over
@@ -101,6 +110,10 @@ typedef struct sub_basis {
  * X (LAPACKE_sgesdd). GL_ERR_USAGE when kmax > nrow; GL_ERR_NUMERIC when the
  * solver fails. */
 gl_status sub_basis_build(const float *X, long nrow, long ncol, long kmax, sub_basis *b);
+/* The eigen step of sub_basis_build from the covariance A (nrow x nrow, full
+ * symmetric; destroyed): b->eigval and b->rank set (b->eigval allocated by the
+ * caller), and Vs (kmax x nrow) = Lambda^-1/2 V^T, so that Z = Vs X. */
+gl_status sub_basis_from_cov(double *A, long nrow, long kmax, sub_basis *b, float *Vs);
 void sub_basis_free(sub_basis *b);
 
 /* Per-target KLIP weights (annular and spectral libraries). Given the full
