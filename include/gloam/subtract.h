@@ -123,6 +123,29 @@ typedef struct gl_subtract_result {
  *        failure). On failure *out holds nothing. */
 GL_API gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cube *refs,
                                  const gl_subtract_params *params, gl_subtract_result *out);
+/* Peak memory, bytes, that gl_subtract_run is expected to need for a cube of
+ * this shape with these params (the cube, the residual buffer, the region
+ * matrix or the store of every mode count, the covariance, residual cubes
+ * when asked for): what decides between it and gl_subtract_run_streamed. */
+GL_API double gl_subtract_memory_estimate(long nx, long ny, long nchan, long nframe,
+                                          const gl_subtract_params *p);
+
+/* Runs the subtraction of the 3-D cube in the FITS file `path` without
+ * holding it in memory, within about memory_limit bytes (src/subtract/
+ * stream.c): the file is read several times, in blocks of frames and in
+ * chunks of rows of every frame. Methods pca and median, any combination,
+ * no reference cube, no residual cubes. The median combination keeps the
+ * derotated residuals in a temporary file in $TMPDIR (or /tmp), nplanes x
+ * nframes x frame size floats, removed at once from the folder; its medians
+ * are exact. Results equal gl_subtract_run's (bit for bit when blocks of 128
+ * frames fit, else to float rounding of the projections).
+ * Errors: those of gl_subtract_run and of reading the file; GL_ERR_USAGE for
+ * an unsupported method or option, or a limit too small (the message gives
+ * the least that works); GL_ERR_IO when the temporary file fails. */
+GL_API gl_status gl_subtract_run_streamed(const char *path, const double *angles,
+                                          const gl_subtract_params *p, double memory_limit,
+                                          gl_subtract_result *out);
+
 /* Frees what a result holds (not the struct itself); NULL members are fine. */
 GL_API void gl_subtract_result_free(gl_subtract_result *r);
 

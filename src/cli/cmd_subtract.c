@@ -82,12 +82,33 @@ int cmd_subtract(gl_cli *cli, int argc, char **argv)
     const char *tmp_out = NULL, *tmp_resid = NULL, *tmp_raw = NULL;
     gl_status st;
 
-    if ((st = cli_read_cube_angles(cli, cube_path, angles_path, &cube, &angles)))
-        goto cleanup;
-    if ((st = cli_subtract_prepare(cli, &setup, cube_path, cube, &refs)))
-        goto cleanup;
     pp->keep_residuals = resid_path != NULL;
     pp->keep_raw_residuals = raw_path != NULL;
+    double limit = 0;
+    int streamed = cli_subtract_needs_stream(&setup, cube_path, &limit);
+    if (streamed) {
+        /* larger than the memory limit: read from the file in blocks */
+        gl_fits_info info;
+        long n = 0;
+        if ((st = gl_fits_image_info(cube_path, &info)))
+            goto cleanup;
+        if (setup.refs_path || pp->sdi == GL_SDI_CHANNELS) {
+            st = gl_error_set(GL_ERR_USAGE,
+                              "%s: the cube does not fit in --memory-limit %.0f MB, and the "
+                              "streamed path takes no --refs or --sdi",
+                              cube_path, limit / 1e6);
+            goto cleanup;
+        }
+        if ((st = gl_angles_read(angles_path, info.naxes[info.naxis >= 4 ? 3 : 2], &angles, &n)) ||
+            (st = gl_provenance_add_input(&cli->prov, cube_path)) ||
+            (st = gl_provenance_add_input(&cli->prov, angles_path)))
+            goto cleanup;
+    } else {
+        if ((st = cli_read_cube_angles(cli, cube_path, angles_path, &cube, &angles)))
+            goto cleanup;
+        if ((st = cli_subtract_prepare(cli, &setup, cube_path, cube, &refs)))
+            goto cleanup;
+    }
 
     if ((st = gl_outset_new(cli->overwrite, &outs)) ||
         (st = gl_outset_add(outs, out_path, &cli->prov, &tmp_out)) ||
@@ -95,7 +116,11 @@ int cmd_subtract(gl_cli *cli, int argc, char **argv)
         (raw_path && (st = gl_outset_add(outs, raw_path, &cli->prov, &tmp_raw))))
         goto cleanup;
 
-    if ((st = cli_subtract_run(&setup, cube_path, cube, angles, refs, &res)))
+    if (streamed)
+        st = gl_subtract_run_streamed(cube_path, angles, pp, limit, &res);
+    else
+        st = cli_subtract_run(&setup, cube_path, cube, angles, refs, &res);
+    if (st)
         goto cleanup;
     if ((st = gl_fits_write_cube(tmp_out, res.image, &cli->prov)) ||
         (tmp_resid && (st = gl_fits_write_cube(tmp_resid, res.residuals, &cli->prov))) ||

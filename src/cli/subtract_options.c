@@ -12,6 +12,7 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <unistd.h>
 
 const char cli_subtract_help[] =
     "  --fwhm PX              PSF full width at half maximum, pixels (> 0)\n"
@@ -39,7 +40,10 @@ const char cli_subtract_help[] =
     "  --refs-best N          keep the N reference frames best correlated with the science\n"
     "  --sdi                  spectral step for 4-D cubes before the ADI step (ASDI)\n"
     "  --wavelengths L1,...   one wavelength per channel (default: the header's WAVE axis)\n"
-    "  --sdi-modes K          KL modes of the spectral step (default 1)\n";
+    "  --sdi-modes K          KL modes of the spectral step (default 1)\n"
+    "  --memory-limit SIZE    memory to stay within, bytes or with K, M, G (default: half of\n"
+    "                         the machine's memory); a cube that needs more is read from its\n"
+    "                         file in blocks (methods pca and median; docs/subtract.md)\n";
 
 void cli_subtract_setup_init(cli_subtract_setup *s)
 {
@@ -94,6 +98,48 @@ static int header_wavelengths(const gl_header *h, long nchan, double *w, int max
     for (long k = 0; k < nchan; k++)
         w[k] = crval + ((double)(k + 1) - crpix) * cdelt;
     return (int)nchan;
+}
+
+/* --memory-limit SIZE: bytes, or a number with K, M, G or T (powers of
+ * 1024; a trailing B or iB is accepted). At least 1 MiB. */
+static int parse_memory_limit(gl_cli *cli, const char *text, double *out)
+{
+    char *end;
+    errno = 0;
+    double v = strtod(text, &end);
+    double scale = 1;
+    const char *units = "KMGT";
+    const char *u = *end ? strchr(units, *end == 'k' ? 'K' : *end) : NULL;
+    if (*end && u) {
+        scale = pow(1024.0, (double)(u - units + 1));
+        end++;
+        if (strcmp(end, "B") == 0 || strcmp(end, "iB") == 0)
+            end += strlen(end);
+    } else if (strcmp(end, "B") == 0)
+        end++;
+    if (end == text || *end || errno || !isfinite(v) || v * scale < 1048576.0) {
+        cli_usage(cli, "--memory-limit: '%s' is not a size like 4G, 512M or 1048576 (at least 1M)",
+                  text);
+        return -1;
+    }
+    *out = v * scale;
+    return 1;
+}
+
+int cli_subtract_needs_stream(const cli_subtract_setup *s, const char *cube_path, double *limit)
+{
+    *limit = s->memory_limit;
+    if (!(*limit > 0)) {
+        long pages = sysconf(_SC_PHYS_PAGES), size = sysconf(_SC_PAGE_SIZE);
+        *limit = pages > 0 && size > 0 ? 0.5 * (double)pages * (double)size : 4e9;
+    }
+    gl_fits_info info;
+    if (gl_fits_image_info(cube_path, &info) || info.naxis < 3)
+        return 0;
+    long nx = info.naxes[0], ny = info.naxes[1];
+    long nchan = info.naxis >= 4 ? info.naxes[2] : 1;
+    long nframe = info.naxis >= 4 ? info.naxes[3] : info.naxes[2];
+    return gl_subtract_memory_estimate(nx, ny, nchan, nframe, &s->p) > *limit;
 }
 
 int cli_subtract_option(gl_cli *cli, int code, const char *optarg, cli_subtract_setup *s)
@@ -200,6 +246,7 @@ int cli_subtract_option(gl_cli *cli, int code, const char *optarg, cli_subtract_
         return cli_parse_long(cli, "--refs-best", optarg, 1, 1000000, &p.refs_best) ? -1 : 1;
     case CLI_OPT_SDI_MODES:
         return cli_parse_long(cli, "--sdi-modes", optarg, 1, 1000, &p.sdi_modes) ? -1 : 1;
+    case CLI_OPT_MEMORY_LIMIT: return parse_memory_limit(cli, optarg, &s->memory_limit);
     default: return 0;
     }
 #undef p

@@ -27,7 +27,8 @@ enum {
     CLI_OPT_REFS_BEST,
     CLI_OPT_SDI,
     CLI_OPT_WAVES,
-    CLI_OPT_SDI_MODES
+    CLI_OPT_SDI_MODES,
+    CLI_OPT_MEMORY_LIMIT
 };
 
 #define CLI_SUBTRACT_OPTIONS                                                                       \
@@ -50,6 +51,7 @@ enum {
         {"refs-best", required_argument, 0, CLI_OPT_REFS_BEST},                                    \
         {"sdi", no_argument, 0, CLI_OPT_SDI},                                                      \
         {"wavelengths", required_argument, 0, CLI_OPT_WAVES},                                      \
+        {"memory-limit", required_argument, 0, CLI_OPT_MEMORY_LIMIT},                              \
     {                                                                                              \
         "sdi-modes", required_argument, 0, CLI_OPT_SDI_MODES                                       \
     }
@@ -63,6 +65,7 @@ typedef struct cli_subtract_setup {
     const char *refs_path;
     const char *waves_text;
     double waves[256];
+    double memory_limit; /* bytes; 0: the default (half the machine's memory) */
 } cli_subtract_setup;
 
 void cli_subtract_setup_init(cli_subtract_setup *s);
@@ -76,6 +79,11 @@ int cli_subtract_check(const gl_cli *cli, const cli_subtract_setup *s);
  * provenance), checks its size, resolves the wavelengths for --sdi. */
 gl_status cli_subtract_prepare(gl_cli *cli, cli_subtract_setup *s, const char *cube_path,
                                const gl_cube *cube, gl_cube **refs);
+/* The memory limit in force (--memory-limit, else half the machine's
+ * physical memory) and whether the cube in cube_path needs the streamed path
+ * under it (1), fits in memory (0), or cannot be told (0: the in-memory
+ * reader then reports the file's problem). */
+int cli_subtract_needs_stream(const cli_subtract_setup *s, const char *cube_path, double *limit);
 /* gl_subtract_run, with messages about the data naming cube_path. */
 gl_status cli_subtract_run(const cli_subtract_setup *s, const char *cube_path, const gl_cube *cube,
                            const double *angles, const gl_cube *refs, gl_subtract_result *res);

@@ -88,8 +88,7 @@ void sub_sink_free(sub_sink *s)
     gl_free(s);
 }
 
-/* Inverse residual variance per frame and ring (0 where undefined). */
-static void ring_weights(sub_sink *s, const float *resid)
+void sub_sink_weights(sub_sink *s, const float *resid)
 {
     const sub_ctx *c = s->c;
     long nr = s->nring;
@@ -120,6 +119,25 @@ static void ring_weights(sub_sink *s, const float *resid)
     }
 }
 
+gl_status sub_sink_derotate(sub_sink *s, float *resid)
+{
+    const sub_ctx *c = s->c;
+    size_t plane = (size_t)c->npix;
+#pragma omp parallel for schedule(static)
+    for (long i = 0; i < c->nframe; i++) {
+        s->fstat[i] = GL_OK;
+        if (!c->usable[i])
+            continue;
+        double ang = -(c->angles[i] + c->p->north_offset);
+        s->fstat[i] =
+            gl_geom_rotate(s->plan, s->works[omp_get_thread_num()], resid + (size_t)i * plane, ang);
+    }
+    for (long i = 0; i < c->nframe; i++)
+        if (s->fstat[i])
+            return gl_error_set(s->fstat[i], "derotation of frame %ld failed", i);
+    return GL_OK;
+}
+
 gl_status sub_sink_put(void *sink, int mode_index, float *resid)
 {
     sub_sink *s = sink;
@@ -135,20 +153,10 @@ gl_status sub_sink_put(void *sink, int mode_index, float *resid)
                    resid + (size_t)i * plane, sizeof(float) * plane);
     }
     if (p->combine == GL_COMBINE_WEIGHTED)
-        ring_weights(s, resid);
-
-#pragma omp parallel for schedule(static)
-    for (long i = 0; i < c->nframe; i++) {
-        s->fstat[i] = GL_OK;
-        if (!c->usable[i])
-            continue;
-        double ang = -(c->angles[i] + p->north_offset);
-        s->fstat[i] =
-            gl_geom_rotate(s->plan, s->works[omp_get_thread_num()], resid + (size_t)i * plane, ang);
-    }
-    for (long i = 0; i < c->nframe; i++)
-        if (s->fstat[i])
-            return gl_error_set(s->fstat[i], "derotation of frame %ld failed", i);
+        sub_sink_weights(s, resid);
+    gl_status st = sub_sink_derotate(s, resid);
+    if (st)
+        return st;
 
     if (s->resid)
         for (long i = 0; i < c->nframe; i++)

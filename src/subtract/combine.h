@@ -27,6 +27,11 @@ typedef struct sub_sink {
 gl_status sub_sink_new(const sub_ctx *c, gl_cube *image, gl_cube *resid, gl_cube *raw,
                        sub_sink **out);
 void sub_sink_free(sub_sink *s);
+/* Inverse residual variance per frame of s->c and ring (0 where undefined)
+ * into s->weights, from resid before derotation. */
+void sub_sink_weights(sub_sink *s, const float *resid);
+/* Derotates the usable frames of resid (s->c->nframe planes) in place. */
+gl_status sub_sink_derotate(sub_sink *s, float *resid);
 /* The sub_sink_fn: derotates resid in place and fills plane mode_index. */
 gl_status sub_sink_put(void *sink, int mode_index, float *resid);
 

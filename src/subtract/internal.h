@@ -153,6 +153,12 @@ gl_status sub_sdi_frames(const gl_cube *cube, const gl_subtract_params *p, doubl
  * WCS is not simple. Never fails on a bad WCS (it is then dropped, noted). */
 gl_status sub_wcs_north_up(gl_header *h, long nx, long ny);
 
+/* ---- product header (subtract.c) ---------------------------------------- */
+
+/* Records every parameter of the run (GLS* keys, HISTORY) in h. */
+gl_status sub_record_params(gl_header *h, const gl_subtract_params *p, const sub_ctx *c,
+                            int nplanes, int uses_modes);
+
 /* ---- helpers ---------------------------------------------------------- */
 
 /* Median of n floats, ignoring NaN (reorders buf); NaN when none finite. */

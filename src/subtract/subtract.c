@@ -33,7 +33,7 @@ void gl_subtract_result_free(gl_subtract_result *r)
     memset(r, 0, sizeof *r);
 }
 
-static gl_status record_params(gl_header *h, const gl_subtract_params *p, const sub_ctx *c,
+gl_status sub_record_params(gl_header *h, const gl_subtract_params *p, const sub_ctx *c,
                                int nplanes, int uses_modes)
 {
     gl_status st = GL_OK;
@@ -288,7 +288,7 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
     }
     st = sub_wcs_north_up(res.image->header, nx, ny);
     if (!st)
-        st = record_params(res.image->header, p, &c, nplanes, method->uses_modes);
+        st = sub_record_params(res.image->header, p, &c, nplanes, method->uses_modes);
     for (int k = 0; !st && k < 2; k++) {
         gl_cube *rc = k ? res.raw_residuals : res.residuals;
         if (!rc)
@@ -299,7 +299,7 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
         if (!rc->header)
             st = gl_error_nomem("residual header");
         else if (k)
-            st = record_params(rc->header, p, &c, nplanes, method->uses_modes);
+            st = sub_record_params(rc->header, p, &c, nplanes, method->uses_modes);
     }
     if (st)
         goto cleanup;
