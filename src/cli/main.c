@@ -37,6 +37,24 @@ static void print_help(FILE *out)
                  "Exit status: 0 success, 1 bad input or usage, 2 internal failure.\n");
 }
 
+/* --verbose: the process's peak resident memory (VmHWM of /proc/self/status,
+ * Linux; nothing elsewhere), what the benchmarks and the memory-limit test
+ * read. */
+static void print_peak_memory(const gl_cli *cli)
+{
+    FILE *f = fopen("/proc/self/status", "r");
+    char line[256];
+    long kb = -1;
+    while (f && fgets(line, sizeof line, f))
+        if (sscanf(line, "VmHWM: %ld kB", &kb) == 1)
+            break;
+    if (f)
+        fclose(f);
+    if (kb >= 0)
+        fprintf(stderr, "gloam %s: peak memory %.1f MB (VmHWM %ld kB)\n", cli->command,
+                (double)kb / 1024.0, kb);
+}
+
 int main(int argc, char **argv)
 {
     if (argc < 2) {
@@ -68,7 +86,10 @@ int main(int argc, char **argv)
             pos += (size_t)snprintf(cli.cmdline + pos, sizeof cli.cmdline - pos, "%s%s",
                                     a ? " " : "", a ? argv[a] : "gloam");
         cli.prov.command = cli.cmdline;
-        return commands[i].run(&cli, argc - 1, argv + 1);
+        int rc = commands[i].run(&cli, argc - 1, argv + 1);
+        if (cli.verbose)
+            print_peak_memory(&cli);
+        return rc;
     }
     fprintf(stderr, "gloam: unknown command '%s' (see gloam --help)\n", argv[1]);
     return 1;

@@ -34,7 +34,7 @@ void gl_subtract_result_free(gl_subtract_result *r)
 }
 
 gl_status sub_record_params(gl_header *h, const gl_subtract_params *p, const sub_ctx *c,
-                               int nplanes, int uses_modes)
+                            int nplanes, int uses_modes)
 {
     gl_status st = GL_OK;
     char key[32], text[160];
