@@ -194,7 +194,9 @@ static void test_target_weights(void)
     sub_eig_work *w = NULL;
     float W[2 * 12];
     CHECK(sub_eig_work_new(n, 5, &w) == GL_OK, "eigen workspace");
-    CHECK(sub_target_weights(C, n, lib, nlib, t, ks, 2, w, W) == GL_OK, "weights");
+    long kused = 0;
+    CHECK(sub_target_weights(C, n, ncol, lib, nlib, t, ks, 2, w, W, &kused) == GL_OK, "weights");
+    CHECK(kused == 5, "all 5 modes used");
     sub_basis b;
     CHECK(sub_basis_build(L, nlib, ncol, 5, &b) == GL_OK, "library basis");
     for (int q = 0; q < 2; q++) {

@@ -108,13 +108,18 @@ void sub_basis_free(sub_basis *b);
  * nlib rows), the target row t and ascending mode counts, writes for each
  * count k the nall weights w with projection(x_t) = sum_l w_l x_l onto the
  * first k KL modes of the library (Soummer et al. 2012 eqs. 4-8 written in
- * the library's row space). Workspace from sub_eig_work_new. Returns
+ * the library's row space). ncol is the number of pixels C was summed over
+ * (it sets the level below which an eigenvalue is zero). *kused (may be
+ * NULL) receives the modes really used: the largest count, capped at the
+ * library size and at the modes with a non-zero eigenvalue. Workspace from
+ * sub_eig_work_new. Returns
  * GL_ERR_NUMERIC when the eigensolver fails. */
 typedef struct sub_eig_work sub_eig_work;
 gl_status sub_eig_work_new(long maxlib, long kmax, sub_eig_work **out);
 void sub_eig_work_free(sub_eig_work *w);
-gl_status sub_target_weights(const double *C, long nall, const long *lib, long nlib, long t,
-                             const long *kcounts, int nk, sub_eig_work *w, float *weights);
+gl_status sub_target_weights(const double *C, long nall, long ncol, const long *lib, long nlib,
+                             long t, const long *kcounts, int nk, sub_eig_work *w, float *weights,
+                             long *kused);
 
 /* ---- reference frames (refs.c) ------------------------------------------ */
 

@@ -199,8 +199,8 @@ static gl_status annular_run(const sub_ctx *c)
                         continue;
                     }
                     long nlib = piece_library(c, t, rmid, w->lib);
-                    gl_status e =
-                        sub_target_weights(C, nall, w->lib, nlib, t, sorted, nk, w->eig, Wt);
+                    gl_status e = sub_target_weights(C, nall, npr, w->lib, nlib, t, sorted, nk,
+                                                     w->eig, Wt, NULL);
                     if (e)
                         tst[tid] = e;
                     for (int q = 0; q < nk; q++)

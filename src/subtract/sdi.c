@@ -123,7 +123,7 @@ gl_status sub_sdi_frames(const gl_cube *cube, const gl_subtract_params *p, doubl
             for (long k = 0; k < nc; k++)
                 if (k != t)
                     w->lib[nlib++] = k;
-            e = sub_target_weights(w->C, nc, w->lib, nlib, t, &kk, 1, w->eig, w->W);
+            e = sub_target_weights(w->C, nc, npr, w->lib, nlib, t, &kk, 1, w->eig, w->W, NULL);
             float *ch = w->chans + (size_t)t * np;
             /* residual of channel t inside the region; NaN elsewhere */
             for (long j = 0; j < npr && !e; j++) {
