@@ -20,7 +20,8 @@ typedef struct gl_cli {
     char cmdline[4096];
     char program[64];
     gl_provenance prov;
-    int parsing; /* set by cli_next_option once getopt has been reset */
+    int parsing;        /* set by cli_next_option once getopt has been reset */
+    int rotation_sense; /* --rotation-sense: 0 not given, +1 counter-clockwise, -1 clockwise */
 } gl_cli;
 
 /* Option codes shared by every command (above the range of short options). */
@@ -30,8 +31,21 @@ enum {
     CLI_OPT_VERBOSE,
     CLI_OPT_THREADS,
     CLI_OPT_HELP,
+    CLI_OPT_ROTATION_SENSE,
     CLI_OPT_FIRST_COMMAND_OPTION = 1100
 };
+
+/* --rotation-sense, for every command that reads an angle list (subtract,
+ * limits, inject): handled by cli_common_option, applied in one place,
+ * cli_read_cube_angles. */
+#define CLI_ANGLE_OPTION                                                                           \
+    {                                                                                              \
+        "rotation-sense", required_argument, 0, CLI_OPT_ROTATION_SENSE                             \
+    }
+#define CLI_ANGLE_HELP                                                                             \
+    "  --rotation-sense WAY   which way the sky turns on the detector as the angle grows:\n"       \
+    "                         counter-clockwise (default; or the input header's GLROTSNS)\n"       \
+    "                         | clockwise (the angles are then used with the opposite sign)\n"
 
 #define CLI_COMMON_OPTIONS                                                                         \
     {"overwrite", no_argument, 0, CLI_OPT_OVERWRITE}, {"quiet", no_argument, 0, CLI_OPT_QUIET},    \
@@ -104,9 +118,20 @@ gl_status cli_read_input(gl_cli *cli, const char *path, int min_naxis, gl_cube *
 
 /* Reads the science cube (3-D or 4-D) and its angle list (one angle per
  * frame), recording both in the provenance. On failure the message names the
- * file at fault; the caller frees whatever is not NULL. */
+ * file at fault; the caller frees whatever is not NULL.
+ * The rotation sense (--rotation-sense, else the cube header's GLROTSNS,
+ * else counter-clockwise) is applied here and only here: with clockwise the
+ * angles are negated, so that everything downstream (subtraction,
+ * derotation, fake companions) keeps the convention of docs/conventions.md;
+ * the sense is recorded as GLROTSNS in the cube's header, which products
+ * copy. */
 gl_status cli_read_cube_angles(gl_cli *cli, const char *cube_path, const char *angles_path,
                                gl_cube **cube, double **angles);
+
+/* The rotation-sense step of cli_read_cube_angles, for a cube and angle list
+ * read another way. */
+gl_status cli_apply_rotation_sense(const gl_cli *cli, gl_cube *cube, const char *angles_path,
+                                   double *angles, long n);
 
 /* Re-records the library's last message as "PATH: message" (unless it
  * already starts with path) so that it names the file; returns st. */

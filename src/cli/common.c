@@ -144,6 +144,16 @@ int cli_common_option(gl_cli *cli, int code, const char *arg, const char *help_t
             return -1;
         cli->threads = (int)n;
         return 1;
+    case CLI_OPT_ROTATION_SENSE:
+        if (strcmp(arg, "counter-clockwise") == 0)
+            cli->rotation_sense = 1;
+        else if (strcmp(arg, "clockwise") == 0)
+            cli->rotation_sense = -1;
+        else {
+            cli_usage(cli, "--rotation-sense: '%s' is not counter-clockwise or clockwise", arg);
+            return -1;
+        }
+        return 1;
     case CLI_OPT_HELP:
         fputs(help_text, stdout);
         fputs(CLI_COMMON_HELP, stdout);
@@ -173,7 +183,31 @@ gl_status cli_read_cube_angles(gl_cli *cli, const char *cube_path, const char *a
         (st = gl_angles_read(angles_path, (*cube)->nframe, angles, &n)) ||
         (st = gl_provenance_add_input(&cli->prov, angles_path)))
         return st;
-    return GL_OK;
+    return cli_apply_rotation_sense(cli, *cube, angles_path, *angles, n);
+}
+
+gl_status cli_apply_rotation_sense(const gl_cli *cli, gl_cube *cube, const char *angles_path,
+                                   double *angles, long n)
+{
+    char hs[72] = "";
+    int sense = cli->rotation_sense, from_header = 0;
+    if (!sense && gl_header_get_str(cube->header, "GLROTSNS", hs, sizeof hs)) {
+        sense = strcmp(hs, "clockwise") == 0 ? -1 : 1;
+        from_header = 1;
+    }
+    if (!sense)
+        sense = 1;
+    if (sense < 0) {
+        for (long i = 0; i < n; i++)
+            angles[i] = -angles[i];
+        gl_log(GL_LOG_INFO,
+               "%s: the sky turns clockwise as these angles grow (%s): they are used with the "
+               "opposite sign",
+               angles_path, from_header ? "GLROTSNS of the cube" : "--rotation-sense clockwise");
+    }
+    return gl_header_set_str(cube->header, "GLROTSNS",
+                             sense < 0 ? "clockwise" : "counter-clockwise",
+                             "sky turn on the detector as the angle grows");
 }
 
 gl_status cli_error_in_file(const char *path, gl_status st)
