@@ -250,6 +250,14 @@ void cli_deprecated(const gl_cli *cli, const char *old, const char *now)
 static void print_log(gl_log_level level, const char *msg, void *user)
 {
     const gl_cli *cli = user;
+    /* a command that runs a step several times (limits: the subtraction
+     * with and without fakes) says each thing once */
+    static char said[8][512];
+    static int nsaid;
+    for (int i = 0; i < nsaid && i < 8; i++)
+        if (strncmp(said[i], msg, sizeof said[i] - 1) == 0)
+            return;
+    snprintf(said[nsaid++ % 8], sizeof said[0], "%s", msg);
     const char *tag = level == GL_LOG_ERROR ? "error: " : level == GL_LOG_WARN ? "warning: " : "";
     fprintf(stderr, "gloam %s: %s%s\n", cli->command, tag, msg);
 }
