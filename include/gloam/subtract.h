@@ -114,6 +114,7 @@ typedef struct gl_subtract_params {
     long sdi_modes;  /* KL modes of the spectral step (default 1) */
     int nwave;       /* number of wavelengths given (0: none) */
     const double *wavelengths; /* one per channel, any unit (SDI), not owned */
+    const char *angles_name;   /* the angle list's file, named in messages (NULL: "the angles") */
     int keep_residuals;        /* also return the derotated residual cube */
     int keep_raw_residuals;    /* also return the residual cube before derotation */
 } gl_subtract_params;

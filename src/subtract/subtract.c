@@ -196,7 +196,8 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
                             nf);
     for (long i = 0; i < nf; i++)
         if (!isfinite(angles[i]))
-            return gl_error_set(GL_ERR_INPUT, "angle of frame %ld is not finite", i);
+            return gl_error_set(GL_ERR_USAGE, "%s: angle of frame %ld is not finite",
+                                p->angles_name ? p->angles_name : "the angles", i);
     if (refs && (refs->nx != nx || refs->ny != ny))
         return gl_error_set(GL_ERR_INPUT,
                             "reference cube is %ld x %ld px but the science cube is %ld x %ld px",
@@ -326,9 +327,9 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
         double span = hi - lo;
         if (!(span > 1e-6)) {
             st = gl_error_set(GL_ERR_USAGE,
-                              "the parallactic angles do not change (zero field rotation): "
+                              "%s: the parallactic angles do not change (zero field rotation): "
                               "method %s needs field rotation (or --refs for RDI)",
-                              method->name);
+                              p->angles_name ? p->angles_name : "the angles", method->name);
             goto cleanup;
         }
         double rmid = 0.5 * (c.r_in + c.r_out);

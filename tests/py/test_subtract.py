@@ -459,7 +459,7 @@ def test_threads_identical(tmp_path, opts):
 
 BAD = [
     ("modes", ["--modes", "31"], "--modes"),
-    ("zero-rotation", ["ZERO"], "rotation"),
+    ("zero-rotation", ["ZERO"], "zero.txt: the parallactic angles do not change"),
     ("gap", ["--method", "klip-rings", "--gap", "40"], "--gap"),
     ("refs-size", ["--refs", "SMALL"], "small.fits"),
     ("fwhm-zero", ["--fwhm", "0"], "--fwhm"),
