@@ -15,9 +15,17 @@ static const char help[] =
     "Finds the star in every frame and shifts it to pixel (nx/2, ny/2).\n\n"
     "  --out FILE            aligned cube (required)\n"
     "  --table FILE          star-position table (CSV): frame,x,y,x_err,y_err,method,...\n"
-    "  --method M            auto (default), gaussian, moffat, register, spots, symmetry\n"
+    "  --method M            what the centre is measured on:\n"
+    "                          auto (default): chosen from the data; a method that\n"
+    "                            loses most frames hands over to the next one\n"
+    "                          core: a profile fitted to the star's core (--profile)\n"
+    "                          halo: the centre of symmetry of the halo (coronagraph)\n"
+    "                          spots: the crossing of four satellite spots\n"
+    "                          reference: registration to a reference frame\n"
+    "  --profile P           core profile: gaussian (default) or moffat\n"
+    "  --precision PX        sub-pixel precision of registration and halo symmetry,\n"
+    "                        pixels (default 0.01)\n"
     "  --interp I            shift interpolator: fft (default) or cubic\n"
-    "  --upsample N          registration resolution 1/N pixel (default 100)\n"
     "  --fwhm PX             star FWHM guess for the profile fits (default: estimated)\n"
     "  --stamp PX            half-size of the profile-fit stamp (default: 2 FWHM)\n"
     "  --spot-search PX      search radius around the median-frame spots (default 5)\n"
@@ -43,6 +51,8 @@ enum {
     OPT_METHOD,
     OPT_INTERP,
     OPT_UPSAMPLE,
+    OPT_PROFILE,
+    OPT_PRECISION,
     OPT_FWHM,
     OPT_STAMP,
     OPT_SPOT_SEARCH,
@@ -89,6 +99,40 @@ static gl_status write_map(const char *path, const float *map, long nx, long ny,
     return st;
 }
 
+/* --method NAME, with the first release's names still accepted (a note
+ * each): gaussian and moffat are the core method with that profile,
+ * register is reference, symmetry is halo (docs/names.md). */
+static int parse_method(const gl_cli *cli, const char *name, gl_align_params *p, int *profile_given)
+{
+    static const struct {
+        const char *old, *now;
+        gl_centre_method m;
+        int profile; /* -1: unchanged */
+    } renamed[] = {
+        {"gaussian", "--method core --profile gaussian", GL_CENTRE_CORE, GL_PROFILE_GAUSSIAN},
+        {"moffat", "--method core --profile moffat", GL_CENTRE_CORE, GL_PROFILE_MOFFAT},
+        {"register", "--method reference", GL_CENTRE_REFERENCE, -1},
+        {"symmetry", "--method halo", GL_CENTRE_HALO, -1},
+    };
+    for (size_t i = 0; i < sizeof renamed / sizeof renamed[0]; i++)
+        if (strcmp(name, renamed[i].old) == 0) {
+            char old[64];
+            snprintf(old, sizeof old, "--method %s", name);
+            cli_deprecated(cli, old, renamed[i].now);
+            p->method = renamed[i].m;
+            if (renamed[i].profile >= 0) {
+                p->profile = (gl_profile_kind)renamed[i].profile;
+                *profile_given = 1;
+            }
+            return 0;
+        }
+    int m = gl_centre_method_from_name(name);
+    if (m == -2)
+        return cli_usage(cli, "--method: '%s' is not auto, core, halo, spots or reference", name);
+    p->method = (gl_centre_method)m;
+    return 0;
+}
+
 int cmd_align(gl_cli *cli, int argc, char **argv)
 {
     static const struct option opts[] = {{"out", required_argument, 0, OPT_OUT},
@@ -96,6 +140,8 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
                                          {"method", required_argument, 0, OPT_METHOD},
                                          {"interp", required_argument, 0, OPT_INTERP},
                                          {"upsample", required_argument, 0, OPT_UPSAMPLE},
+                                         {"profile", required_argument, 0, OPT_PROFILE},
+                                         {"precision", required_argument, 0, OPT_PRECISION},
                                          {"fwhm", required_argument, 0, OPT_FWHM},
                                          {"stamp", required_argument, 0, OPT_STAMP},
                                          {"spot-search", required_argument, 0, OPT_SPOT_SEARCH},
@@ -114,7 +160,7 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
     gl_align_params p;
     gl_align_params_init(&p);
     const char *out = NULL, *table = NULL, *map_path = NULL, *angles_in = NULL, *angles_out = NULL;
-    int from_header = 0;
+    int from_header = 0, profile_given = 0;
     double cadence = 0, d;
     long n;
     int c;
@@ -123,13 +169,23 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
         switch (c) {
         case OPT_OUT: out = optarg; break;
         case OPT_TABLE: table = optarg; break;
-        case OPT_METHOD: {
-            int m = gl_centre_method_from_name(optarg);
-            if (m == -2)
-                return cli_usage(cli, "--method: unknown method '%s'", optarg);
-            p.method = (gl_centre_method)m;
+        case OPT_METHOD:
+            if (parse_method(cli, optarg, &p, &profile_given))
+                return 1;
             break;
-        }
+        case OPT_PROFILE:
+            if (strcmp(optarg, "gaussian") == 0)
+                p.profile = GL_PROFILE_GAUSSIAN;
+            else if (strcmp(optarg, "moffat") == 0)
+                p.profile = GL_PROFILE_MOFFAT;
+            else
+                return cli_usage(cli, "--profile: '%s' is neither gaussian nor moffat", optarg);
+            profile_given = 1;
+            break;
+        case OPT_PRECISION:
+            if (cli_parse_double(cli, "--precision", optarg, 0.001, 1, &p.precision))
+                return 1;
+            break;
         case OPT_INTERP: {
             int i = gl_interp_from_name(optarg);
             if (i < 0)
@@ -137,10 +193,11 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
             p.interp = (gl_interp)i;
             break;
         }
-        case OPT_UPSAMPLE:
+        case OPT_UPSAMPLE: /* the old spelling: precision 1/N px */
+            cli_deprecated(cli, "--upsample", "--precision (--upsample N = --precision 1/N)");
             if (cli_parse_long(cli, "--upsample", optarg, 1, 1000, &n))
                 return 1;
-            p.upsample = (int)n;
+            p.precision = 1.0 / (double)n;
             break;
         case OPT_FWHM:
             if (cli_parse_double(cli, "--fwhm", optarg, GL_FWHM_MIN_PX, 1000, &p.fwhm))
@@ -189,6 +246,9 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
     }
     if (k < 0)
         return cli_exit_status(k);
+    if (profile_given && p.method != GL_CENTRE_CORE && p.method != GL_CENTRE_AUTO)
+        return cli_usage(cli, "--profile applies to --method core (or auto), not %s",
+                         gl_centre_method_name(p.method));
     const char *in = cli_positional(cli, argc, argv, "the input cube");
     if (!in)
         return 1;
