@@ -20,7 +20,8 @@ typedef struct gl_cli {
     char cmdline[4096];
     char program[64];
     gl_provenance prov;
-    int parsing; /* set by cli_next_option once getopt has been reset */
+    int parsing;              /* set by cli_next_option once getopt has been reset */
+    char angles_source[1024]; /* where cli_read_cube_angles found the angles ("" before) */
 } gl_cli;
 
 /* Option codes shared by every command (above the range of short options). */
@@ -71,7 +72,9 @@ static inline int cli_exit_status(int k)
  * which the caller returns with *exit_now set. */
 int cli_common_option(gl_cli *cli, int code, const char *arg, const char *help_text, int *exit_now);
 
-/* Prints "gloam CMD: <library message>" and returns the exit code. */
+/* Prints "gloam CMD: <library message>" and returns the exit code. A
+ * message about the parallactic angles that does not name a file gets the
+ * angles' source (cli->angles_source) in front. */
 int cli_fail(const gl_cli *cli, gl_status st);
 /* Prints "gloam CMD: <message>" plus a hint to --help; returns 1. */
 int cli_usage(const gl_cli *cli, const char *fmt, ...) __attribute__((format(printf, 2, 3)));
@@ -103,10 +106,39 @@ int cli_parse_double(const gl_cli *cli, const char *opt, const char *arg, double
 gl_status cli_read_input(gl_cli *cli, const char *path, int min_naxis, gl_cube **cube);
 
 /* Reads the science cube (3-D or 4-D) and its angle list (one angle per
- * frame), recording both in the provenance. On failure the message names the
- * file at fault; the caller frees whatever is not NULL. */
+ * frame), recording both in the provenance. angles_path NULL (no --angles):
+ * the cube's own angle table (the ANGLES extension gloam align and inject
+ * write), an error naming the cube when it has none. The source is logged
+ * and kept in cli->angles_source; angles that look like radians get a
+ * warning naming it (gl_angles_look_like_radians), and so does a list
+ * without rotation. On failure the message names the file at fault; the
+ * caller frees whatever is not NULL. */
 gl_status cli_read_cube_angles(gl_cli *cli, const char *cube_path, const char *angles_path,
                                gl_cube **cube, double **angles);
+
+/* Warns (naming source) about an angle list without rotation or one that
+ * looks like radians; used wherever angles are read. */
+void cli_check_angles(const char *source, const double *angles, long n);
+
+/* --fwhm: a width in pixels, or "auto" (CLI_FWHM_AUTO), resolved by
+ * cli_resolve_fwhm once the inputs are read. */
+#define CLI_FWHM_AUTO (-1.0)
+/* Parses a --fwhm value: "auto" gives CLI_FWHM_AUTO, else a number in
+ * [GL_FWHM_MIN_PX, 1e4]. Prints a message and returns -1 on a bad value. */
+int cli_parse_fwhm(const gl_cli *cli, const char *arg, double *out);
+/* Settles the FWHM (pixels) a command uses, and logs the value and where it
+ * came from. *fwhm > 0: given with --fwhm, kept. CLI_FWHM_AUTO or 0 (not
+ * given): measured on psf_path when given (the PSF's azimuthal profile, the
+ * code behind inspect --psf), else read from the header h of product_path
+ * where a previous step recorded it (GLSFWHM from subtract, GLFWHM).
+ * Errors: GL_ERR_USAGE when neither is there (naming the file), the PSF's
+ * reading errors. */
+gl_status cli_resolve_fwhm(gl_cli *cli, double *fwhm, const char *psf_path, const gl_header *h,
+                           const char *product_path);
+/* The off-axis PSF measured on its own grid (one channel, scale 1): FWHM,
+ * centre, flux; recorded in the provenance. Shared by inspect and
+ * cli_resolve_fwhm. */
+gl_status cli_psf_measure(gl_cli *cli, const char *psf_path, gl_psf_model **out);
 
 /* Re-records the library's last message as "PATH: message" (unless it
  * already starts with path) so that it names the file; returns st. */

@@ -26,7 +26,8 @@ static const char help[] =
     "  --precision PX        sub-pixel precision of registration and halo symmetry,\n"
     "                        pixels (default 0.01)\n"
     "  --interp I            shift interpolator: fft (default) or cubic\n"
-    "  --fwhm PX             star FWHM guess for the profile fits (default: estimated)\n"
+    "  --fwhm PX|auto        star FWHM guess for the profile fits (default and auto:\n"
+    "                        estimated from the data)\n"
     "  --stamp PX            half-size of the profile-fit stamp (default: 2 FWHM)\n"
     "  --spot-search PX      search radius around the median-frame spots (default 5)\n"
     "  --spot-radius PX      expected distance of the satellite spots from the star\n"
@@ -37,13 +38,16 @@ static const char help[] =
     "                        median frame is an outlier by SIGMA\n"
     "  --crop PX             output frames of PX x PX pixels around the star\n"
     "  --bin N               average N consecutive kept frames (angles averaged)\n"
-    "  --angles FILE         parallactic angles of the input frames\n"
+    "  --angles FILE         parallactic angles of the input frames (default: the\n"
+    "                        input's ANGLES table, if any); the angles of the output\n"
+    "                        frames are stored in ALIGNED.fits (an ANGLES table that\n"
+    "                        subtract, limits, inject and inspect read)\n"
     "  --angles-from-header  compute them from the header (DATE-OBS/MJD-OBS, EXPTIME,\n"
     "                        RA, DEC, site); per-frame starts from a binary-table\n"
     "                        extension with a column MJD when present\n"
     "  --frame-cadence S     seconds between frame starts (default: header CADENCE,\n"
     "                        else EXPTIME)\n"
-    "  --angles-out FILE     angles of the output frames (needed with angles)\n";
+    "  --angles-out FILE     also write the output frames' angles as a text file\n";
 
 enum {
     OPT_OUT = CLI_OPT_FIRST_COMMAND_OPTION,
@@ -200,8 +204,10 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
             p.precision = 1.0 / (double)n;
             break;
         case OPT_FWHM:
-            if (cli_parse_double(cli, "--fwhm", optarg, GL_FWHM_MIN_PX, 1000, &p.fwhm))
+            if (cli_parse_fwhm(cli, optarg, &p.fwhm))
                 return 1;
+            if (p.fwhm < 0) /* auto: estimated from the data, as without --fwhm */
+                p.fwhm = 0;
             break;
         case OPT_STAMP:
             if (cli_parse_long(cli, "--stamp", optarg, 2, 500, &n))
@@ -256,9 +262,6 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
         return cli_usage(cli, "--out is required");
     if (angles_in && from_header)
         return cli_usage(cli, "--angles and --angles-from-header exclude each other");
-    if ((angles_in || from_header) && !angles_out)
-        return cli_usage(cli, "angles given: --angles-out is needed (frames may be rejected or "
-                              "binned)");
     if (angles_out && !angles_in && !from_header)
         return cli_usage(cli, "--angles-out needs --angles or --angles-from-header");
     if (map_path && p.badpix_sigma <= 0)
@@ -281,7 +284,18 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
         if ((st = gl_provenance_add_input(&cli->prov, angles_in)) ||
             (st = gl_angles_read(angles_in, cube->nframe, &angles, &nang)))
             goto done;
-    } else if (from_header) {
+        cli_check_angles(angles_in, angles, nang);
+    } else if (!from_header) {
+        /* the input's own angle table, when it has one */
+        if ((st = gl_angles_table_read(in, cube->nframe, &angles, &nang)))
+            goto done;
+        if (angles) {
+            char src[1100];
+            snprintf(src, sizeof src, "%s[%s]", in, GL_ANGLES_EXTNAME);
+            gl_log(GL_LOG_INFO, "angles: %ld from the %s table of %s", nang, GL_ANGLES_EXTNAME, in);
+            cli_check_angles(src, angles, nang);
+        }
+    } else {
         if ((st = gl_align_frame_times_read(in, cube->nframe, &mjd)))
             goto done;
         gl_frame_times times = {mjd, cadence};
@@ -318,9 +332,11 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
     if (!angles && r->nout != r->nframe)
         gl_log(GL_LOG_WARN,
                "%ld input frames became %ld output frames: an angle list of the input no "
-               "longer matches (give it with --angles and --angles-out)",
+               "longer matches (give it with --angles: the output then carries the angles "
+               "of its frames)",
                r->nframe, r->nout);
-    if ((st = gl_fits_write_cube(t_out, r->aligned, &cli->prov)))
+    if ((st = gl_fits_write_cube(t_out, r->aligned, &cli->prov)) ||
+        (r->angles_out && (st = gl_angles_table_append(t_out, r->angles_out, r->nout))))
         goto done;
     if (t_table && (st = gl_align_table_write_csv(t_table, r, angles)))
         goto done;

@@ -9,14 +9,16 @@
 #include <string.h>
 
 static const char help[] =
-    "usage: gloam inject CUBE --angles FILE --psf PSF.fits --companion SEP_PX:PA_DEG:CONTRAST...\n"
+    "usage: gloam inject CUBE [--angles FILE] --psf PSF.fits --companion "
+    "SEP_PX:PA_DEG:CONTRAST...\n"
     "                    --out CUBE2.fits [options]\n\n"
     "Plants fake companions: the off-axis PSF times --psf-scale (its total flux is the\n"
     "star's flux per frame) times the contrast, moved with sub-pixel accuracy to where a\n"
     "source at that separation and sky position angle sits in each frame. Writes\n"
     "CUBE2.fits and the planted list CUBE2.planted.csv.\n\n"
     "options:\n"
-    "  --angles FILE          parallactic angles (deg), one per frame\n"
+    "  --angles FILE          parallactic angles (deg), one per frame (default: the\n"
+    "                         cube's ANGLES table, written by gloam align)\n"
     "  --psf FILE             unsaturated off-axis PSF (2-D, or 3-D/4-D per channel)\n"
     "  --companion S:PA:C     separation (px), position angle (deg), contrast; repeatable;\n"
     "                         a negative contrast removes a known companion\n"
@@ -98,9 +100,9 @@ int cmd_inject(gl_cli *cli, int argc, char **argv)
     if (!cube_path)
         return 1;
     {
-        const char *names[] = {"--angles", "--psf", "--out", "--companion"};
-        const void *vals[] = {angles_path, psf_path, out_path, ncompanions ? names : NULL};
-        if (cli_missing(cli, 4, names, vals))
+        const char *names[] = {"--psf", "--out", "--companion"};
+        const void *vals[] = {psf_path, out_path, ncompanions ? names : NULL};
+        if (cli_missing(cli, 3, names, vals))
             return 1;
     }
     cli_start(cli);
@@ -158,7 +160,8 @@ int cmd_inject(gl_cli *cli, int argc, char **argv)
                  k + 1, comps[k].sep_px, comps[k].pa_deg, comps[k].contrast);
         gl_header_add_history(cube->header, line);
     }
-    if ((st = gl_fits_write_cube(tmp_cube, cube, &cli->prov)))
+    if ((st = gl_fits_write_cube(tmp_cube, cube, &cli->prov)) ||
+        (st = gl_angles_table_append(tmp_cube, angles, cube->nframe)))
         goto cleanup;
 
     {

@@ -14,7 +14,8 @@
 #include <string.h>
 
 const char cli_subtract_help[] =
-    "  --fwhm PX              PSF full width at half maximum, pixels (> 0)\n"
+    "  --fwhm PX|auto         PSF full width at half maximum, pixels; auto: measured on\n"
+    "                         --psf, or recorded in the input's header\n"
     "  --method NAME          median | pca | annular | none (default pca)\n"
     "                           median: frame minus the median frame (classical ADI)\n"
     "                           pca: full-frame KLIP, one basis for every mode count\n"
@@ -108,13 +109,8 @@ int cli_subtract_option(gl_cli *cli, int code, const char *optarg, cli_subtract_
     case CLI_OPT_MEDFIT: p.median_fit = 1; return 1;
     case CLI_OPT_SDI: p.sdi = GL_SDI_CHANNELS; return 1;
     case CLI_OPT_FWHM:
-        if (cli_parse_double(cli, "--fwhm", optarg, -INFINITY, INFINITY, &p.fwhm))
+        if (cli_parse_fwhm(cli, optarg, &p.fwhm)) /* auto: cli_resolve_fwhm */
             return -1;
-        if (!(p.fwhm >= GL_FWHM_MIN_PX) || p.fwhm > 1e4) {
-            cli_usage(cli, "--fwhm must be the PSF's FWHM in pixels, at least 0.5 (got %s)",
-                      optarg);
-            return -1;
-        }
         s->have_fwhm = 1;
         return 1;
     case CLI_OPT_METHOD: {

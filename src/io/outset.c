@@ -177,6 +177,9 @@ gl_status gl_provenance_add_input(gl_provenance *p, const char *path)
 {
     if (p->ninputs >= 16)
         return GL_OK;
+    for (int i = 0; i < p->ninputs; i++)
+        if (strcmp(p->inputs[i], path) == 0) /* read twice: listed once */
+            return GL_OK;
     unsigned long crc = 0;
     gl_status st = gl_file_crc32(path, &crc);
     if (st)
