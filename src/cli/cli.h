@@ -110,14 +110,13 @@ gl_status cli_read_input(gl_cli *cli, const char *path, int min_naxis, gl_cube *
  * the cube's own angle table (the ANGLES extension gloam align and inject
  * write), an error naming the cube when it has none. The source is logged
  * and kept in cli->angles_source; angles that look like radians get a
- * warning naming it (gl_angles_look_like_radians), and so does a list
- * without rotation. On failure the message names the file at fault; the
+ * warning naming it (gl_angles_look_like_radians). On failure the message names the file at fault; the
  * caller frees whatever is not NULL. */
 gl_status cli_read_cube_angles(gl_cli *cli, const char *cube_path, const char *angles_path,
                                gl_cube **cube, double **angles);
 
-/* Warns (naming source) about an angle list without rotation or one that
- * looks like radians; used wherever angles are read. */
+/* Warns (naming source) about an angle list that looks like radians; used
+ * wherever angles are read. */
 void cli_check_angles(const char *source, const double *angles, long n);
 
 /* --fwhm: a width in pixels, or "auto" (CLI_FWHM_AUTO), resolved by
@@ -144,10 +143,27 @@ gl_status cli_psf_measure(gl_cli *cli, const char *psf_path, gl_psf_model **out)
  * already starts with path) so that it names the file; returns st. */
 gl_status cli_error_in_file(const char *path, gl_status st);
 
+/* The one --out rule (docs/conventions.md, "Where products go"):
+ *  - file commands (align, subtract, inject) take a file name; PREFIX
+ *    commands (detect, limits) take a prefix to which each product's suffix
+ *    is appended; simulate takes a folder (created if missing);
+ *  - --out naming a folder (an existing one, or a name ending in '/') puts
+ *    the products inside it, named after the input file without its FITS
+ *    extension: `align raw/night.fits --out red/` writes
+ *    red/night.aligned.fits, `detect night.subtracted.fits --out red/`
+ *    writes red/night.subtracted.snr.fits, ...;
+ *  - a folder that does not exist is an error naming it (gl_outset_add).
+ * cli_output_name applies it to a file command's --out: out itself, or
+ * DIR/STEM SUFFIX in buf (SUFFIX e.g. ".aligned.fits"); NULL after a usage
+ * message when the name does not fit. */
+const char *cli_output_name(const gl_cli *cli, const char *out, const char *input,
+                            const char *suffix, char *buf, size_t size);
+
 /* Registers the product PREFIX SUFFIX (an --out prefix, or "DIR" and
  * "/NAME") in outs: the name is written into path[size] (refused with
  * GL_ERR_USAGE when it does not fit) and *tmp gets the temporary name to
- * write to. */
+ * write to. A PREFIX that names a folder gives DIR/STEM SUFFIX, STEM from
+ * the first input of the provenance (cli_output_name's rule). */
 gl_status cli_add_product(gl_cli *cli, gl_outset *outs, const char *prefix, const char *suffix,
                           char *path, size_t size, const char **tmp);
 

@@ -260,6 +260,9 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
         return 1;
     if (!out)
         return cli_usage(cli, "--out is required");
+    char out_buf[4096];
+    if (!(out = cli_output_name(cli, out, in, ".aligned.fits", out_buf, sizeof out_buf)))
+        return 1;
     if (angles_in && from_header)
         return cli_usage(cli, "--angles and --angles-from-header exclude each other");
     if (angles_out && !angles_in && !from_header)

@@ -105,6 +105,10 @@ int cmd_inject(gl_cli *cli, int argc, char **argv)
         if (cli_missing(cli, 3, names, vals))
             return 1;
     }
+    char out_buf[4096];
+    if (!(out_path =
+              cli_output_name(cli, out_path, cube_path, ".injected.fits", out_buf, sizeof out_buf)))
+        return 1;
     cli_start(cli);
 
     gl_cube *cube = NULL, *psfc = NULL;
@@ -140,14 +144,14 @@ int cmd_inject(gl_cli *cli, int argc, char **argv)
     }
     if ((st = gl_psf_model_new(psfc, psf_path, cube->nx, cube->ny, cube->nchan, psf_scale, &psf)))
         goto cleanup;
-    gl_log(GL_LOG_INFO, "PSF centre (%.3f, %.3f) in %s, FWHM %.2f px, star flux %.6g per frame",
-           psf->centre_x, psf->centre_y, psf_path, psf->fwhm_px[0], psf->flux[0]);
 
     planted_name(out_path, planted, sizeof planted);
     if ((st = gl_outset_new(cli->overwrite, &outs)) ||
         (st = gl_outset_add(outs, out_path, &cli->prov, &tmp_cube)) ||
         (st = gl_outset_add(outs, planted, &cli->prov, &tmp_csv)))
         goto cleanup;
+    gl_log(GL_LOG_INFO, "PSF centre (%.3f, %.3f) in %s, FWHM %.2f px, star flux %.6g per frame",
+           psf->centre_x, psf->centre_y, psf_path, psf->fwhm_px[0], psf->flux[0]);
     if ((st = gl_inject_companions(cube, angles, north, psf, comps, ncompanions, spectrum)))
         goto cleanup;
 

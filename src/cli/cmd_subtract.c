@@ -74,6 +74,10 @@ int cmd_subtract(gl_cli *cli, int argc, char **argv)
     }
     if (cli_subtract_check(cli, &setup))
         return 1;
+    char out_buf[4096]; /* --out DIR/: DIR/STEM.subtracted.fits (cli_output_name) */
+    if (!(out_path = cli_output_name(cli, out_path, cube_path, ".subtracted.fits", out_buf,
+                                     sizeof out_buf)))
+        return 1;
     cli_start(cli);
 
     gl_cube *cube = NULL, *refs = NULL;

@@ -12,11 +12,13 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <sys/stat.h>
 #include <time.h>
 #include <unistd.h>
 
 int cli_fail(const gl_cli *cli, gl_status st)
 {
+    gl_outset_error_names(st); /* name products, never their temporary names */
     const char *msg = gl_error_message();
     if (cli->angles_source[0] && strstr(msg, "parallactic angles") &&
         !strstr(msg, cli->angles_source))
@@ -200,11 +202,9 @@ gl_status cli_read_cube_angles(gl_cli *cli, const char *cube_path, const char *a
 
 void cli_check_angles(const char *source, const double *angles, long n)
 {
-    if (gl_angles_constant(angles, n)) {
-        if (n > 1)
-            gl_log(GL_LOG_WARN, "%s: the %ld angles are all %.6g deg: no field rotation", source, n,
-                   angles[0]);
-    } else if (gl_angles_look_like_radians(angles, n)) {
+    /* a list without rotation is refused where rotation is needed (subtract,
+     * limits), with cli_fail naming the source; inject and RDI need none */
+    if (!gl_angles_constant(angles, n) && gl_angles_look_like_radians(angles, n)) {
         double lo = angles[0], hi = angles[0];
         for (long i = 1; i < n; i++) {
             lo = angles[i] < lo ? angles[i] : lo;
@@ -291,10 +291,67 @@ gl_status cli_error_in_file(const char *path, gl_status st)
     return st;
 }
 
+/* 1 when an --out value names a folder: an existing one, or any name
+ * ending in '/'. */
+static int names_folder(const char *out)
+{
+    struct stat sb;
+    size_t n = strlen(out);
+    return n > 0 && (out[n - 1] == '/' || (stat(out, &sb) == 0 && S_ISDIR(sb.st_mode)));
+}
+
+/* The file name of path without its folder and its FITS extension
+ * (".fits", ".fit", ".fts", optionally compressed ".gz"/".fz"). */
+static void input_stem(const char *path, char *stem, size_t size)
+{
+    const char *base = strrchr(path, '/');
+    base = base ? base + 1 : path;
+    snprintf(stem, size, "%s", base);
+    static const char *const ext[] = {".gz", ".fz", ".fits", ".fit", ".fts"};
+    for (size_t k = 0; k < sizeof ext / sizeof ext[0]; k++) {
+        size_t n = strlen(stem), e = strlen(ext[k]);
+        if (n > e && strcmp(stem + n - e, ext[k]) == 0)
+            stem[n - e] = '\0';
+    }
+    if (!stem[0])
+        snprintf(stem, size, "gloam");
+}
+
+/* DIR + '/' (unless there) + stem of input + suffix into buf; 0 when it
+ * does not fit. */
+static int inside_folder(const char *dir, const char *input, const char *suffix, char *buf,
+                         size_t size)
+{
+    char stem[1024];
+    input_stem(input ? input : "", stem, sizeof stem);
+    size_t n = strlen(dir);
+    int k = snprintf(buf, size, "%s%s%s%s", dir, n && dir[n - 1] == '/' ? "" : "/", stem, suffix);
+    return k >= 0 && (size_t)k < size;
+}
+
+const char *cli_output_name(const gl_cli *cli, const char *out, const char *input,
+                            const char *suffix, char *buf, size_t size)
+{
+    if (!out || !names_folder(out))
+        return out;
+    if (!inside_folder(out, input, suffix, buf, size)) {
+        cli_usage(cli, "--out %.60s...: the product name is too long", out);
+        return NULL;
+    }
+    return buf;
+}
+
 gl_status cli_add_product(gl_cli *cli, gl_outset *outs, const char *prefix, const char *suffix,
                           char *path, size_t size, const char **tmp)
 {
-    int n = snprintf(path, size, "%s%s", prefix, suffix);
+    int n;
+    if (suffix[0] != '/' && names_folder(prefix)) /* PREFIX a folder: DIR/STEM.suffix */
+        n = inside_folder(prefix, cli->prov.ninputs ? cli->prov.inputs[0] : NULL, suffix, path,
+                          size)
+                ? (int)strlen(path)
+                : -1;
+    else
+        n = snprintf(path, size, "%s%s", prefix, suffix);
     if (n < 0 || (size_t)n >= size)
         return gl_error_set(GL_ERR_USAGE, "%.60s...%s: the product name is too long", prefix,
                             suffix);

@@ -238,7 +238,11 @@ int gl_angles_look_like_radians(const double *a, long n)
         amax = GL_MAX(amax, fabs(a[i]));
     }
     double spread = hi - lo;
-    return amax <= 2 * M_PI + 1e-9 && spread >= GL_ANGLES_RADIAN_MIN_SPREAD && spread <= 2 * M_PI;
+    int whole = 1; /* every angle a whole number: degrees, written by hand */
+    for (long i = 0; i < n && whole; i++)
+        whole = a[i] == floor(a[i]);
+    return !whole && amax <= 2 * M_PI + 1e-9 && spread >= GL_ANGLES_RADIAN_MIN_SPREAD &&
+           spread <= 2 * M_PI;
 }
 
 int gl_angles_constant(const double *a, long n)
