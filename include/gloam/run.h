@@ -1,0 +1,84 @@
+/*
+ * run.h -- whole reductions: the plan file, the run folder and its ledger of
+ * finished steps, the machine-readable summary and the HTML report.
+ *
+ * A plan is an INI file (read with libinih): sections [run], [inputs],
+ * [steps], one section per step ([inspect], [align], [subtract], [detect],
+ * [limits], [vet]) whose keys are that command's long options without the
+ * leading "--", and, for surveys, [target NAME] sections holding a target's
+ * inputs and per-target overrides written "step.key = value". Comments start
+ * with '#' or ';'. `gloam run --example` prints a commented plan.
+ */
+#ifndef GLOAM_RUN_H
+#define GLOAM_RUN_H
+
+#include "gloam/core.h"
+
+#include <stddef.h>
+
+#ifdef __cplusplus
+extern "C" {
+#endif
+
+/* ---- the plan ------------------------------------------------------------ */
+
+typedef struct gl_plan gl_plan;
+
+/* One key of a plan as a step sees it: the effective value for a target
+ * (the target's override when there is one, else the step section's) and
+ * where it was written, for messages ("PLAN:LINE"). */
+typedef struct gl_plan_item {
+    const char *key;
+    const char *value;
+    int line;
+} gl_plan_item;
+
+/* Reads the plan at path.
+ * Given:    path, an INI file.
+ * Returned: *out, the plan (free with gl_plan_free), NULL on failure.
+ * Function return value: GL_OK; GL_ERR_IO (cannot be read); GL_ERR_INPUT
+ *   ("PLAN:LINE: ..." for a line that is not INI, a section of unknown name,
+ *   a key given twice in one section, a value that is empty); GL_ERR_NOMEM. */
+GL_API gl_status gl_plan_read(const char *path, gl_plan **out);
+/* The same from text in memory; name stands for the file in messages. */
+GL_API gl_status gl_plan_parse(const char *text, const char *name, gl_plan **out);
+GL_API void gl_plan_free(gl_plan *p);
+
+/* The file name the plan was read from. */
+GL_API const char *gl_plan_name(const gl_plan *p);
+
+/* Targets, in the order the plan lists them: one per [target NAME] section;
+ * a plan without any holds one target, named by [run] name (else "target").
+ * Returns the count; name(i) for 0 <= i < count. */
+GL_API int gl_plan_target_count(const gl_plan *p);
+GL_API const char *gl_plan_target_name(const gl_plan *p, int i);
+
+/* The effective value of section.key for target (NULL target: the plan's
+ * defaults). For section "inputs" a target's own plain key wins
+ * ([target X] cube = ...); for other sections its "section.key" override.
+ * Returns NULL when the key is not set. *line (may be NULL) gets the line.
+ * Marks the key as used. */
+GL_API const char *gl_plan_value(gl_plan *p, const char *target, const char *section,
+                                 const char *key, int *line);
+
+/* The effective keys of a step section for a target, in the order of the
+ * plan (defaults first, then overrides of keys the section does not set).
+ * Returns the count written into items[0..max-1] (the values stay owned by
+ * the plan) and marks them used; -1 with GL_ERR_USAGE recorded when more
+ * than max. */
+GL_API int gl_plan_items(gl_plan *p, const char *target, const char *section, gl_plan_item *items,
+                         int max);
+
+/* Fails with "PLAN:LINE: key is not used by gloam run" naming the first key
+ * nothing asked for (a misspelt option) and GL_ERR_INPUT; GL_OK when every
+ * key was used. */
+GL_API gl_status gl_plan_check_used(const gl_plan *p);
+
+/* Resolves a path written in the plan: relative paths are relative to the
+ * plan file's folder. Writes into out[size]; GL_ERR_USAGE when it does not fit. */
+GL_API gl_status gl_plan_path(const gl_plan *p, const char *value, char *out, size_t size);
+
+#ifdef __cplusplus
+}
+#endif
+#endif
