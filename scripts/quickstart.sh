@@ -16,7 +16,8 @@ packages=(build-essential meson ninja-build pkg-config
           liberfa-dev libgsl-dev libcairo2-dev libcjson-dev zlib1g-dev libinih-dev)
 if [ "$what" = test ]; then
   packages+=(fitsverify clang-format python3-pytest python3-numpy python3-scipy
-             python3-astropy python3-photutils python3-skimage python3-astroplan)
+             python3-astropy python3-photutils python3-skimage python3-astroplan
+             chromium)
 fi
 missing=()
 for p in "${packages[@]}"; do

@@ -78,6 +78,41 @@ GL_API gl_status gl_plan_check_used(const gl_plan *p);
  * plan file's folder. Writes into out[size]; GL_ERR_USAGE when it does not fit. */
 GL_API gl_status gl_plan_path(const gl_plan *p, const char *value, char *out, size_t size);
 
+/* ---- the HTML report ---------------------------------------------------- */
+
+/* A self-contained HTML page built piece by piece: every image is embedded
+ * (base64 data URIs), styles are inline, nothing is fetched, so the page
+ * works offline and can be mailed as one file. Text is HTML-escaped. */
+typedef struct gl_report gl_report;
+
+/* Starts a page titled title (escaped). Returns GL_ERR_NOMEM on failure. */
+GL_API gl_status gl_report_new(const char *title, gl_report **out);
+GL_API void gl_report_free(gl_report *r);
+/* A section heading. */
+GL_API gl_status gl_report_section(gl_report *r, const char *heading);
+/* A paragraph of plain text. */
+GL_API gl_status gl_report_text(gl_report *r, const char *text);
+/* A boxed caution: an assumption or a limit the reader must not miss. */
+GL_API gl_status gl_report_caution(gl_report *r, const char *text);
+/* A two-column list of names and values. */
+GL_API gl_status gl_report_facts(gl_report *r, const char *const *names, const char *const *values,
+                                 int n);
+/* The PNG file at path, embedded, with a caption. GL_ERR_IO/GL_ERR_INPUT
+ * naming the file when it cannot be read or is not a PNG. */
+GL_API gl_status gl_report_image(gl_report *r, const char *path, const char *caption);
+/* The CSV table at path (one header line, then rows; quoted fields allowed),
+ * at most max_rows rows shown (the count of the rest is said), with a
+ * caption. GL_ERR_IO/GL_ERR_INPUT naming the file. */
+GL_API gl_status gl_report_table(gl_report *r, const char *path, const char *caption,
+                                 long max_rows);
+/* A link to another page (relative href), for survey pages. */
+GL_API gl_status gl_report_link(gl_report *r, const char *href, const char *text);
+/* Writes the page to path (the caller chooses a temporary name; see
+ * gl_outset). GL_ERR_IO naming the file. */
+GL_API gl_status gl_report_write(const gl_report *r, const char *path);
+/* The page so far (NUL-terminated; valid until the next call on r). */
+GL_API const char *gl_report_html(gl_report *r);
+
 #ifdef __cplusplus
 }
 #endif
