@@ -6,11 +6,16 @@
  * step's default), keys nobody used, paths relative to the plan, and the
  * errors that name the plan's line. The same plans are read with Python's
  * configparser in tests/py/test_run.py (the outside reader of the format).
+ * The ledger of a run folder: a step is current only with the same options,
+ * inputs and intact products (CRC-32 by zlib).
  */
 #include "gloam/gloam.h"
 #include "check.h"
 
+#include <stdio.h>
+#include <stdlib.h>
 #include <string.h>
+#include <unistd.h>
 
 static const char survey[] = "# a survey\n"
                              "[run]\n"
@@ -143,11 +148,81 @@ static void test_allocation_failures(void)
     }
 }
 
+static void write_file(const char *path, const char *text)
+{
+    FILE *f = fopen(path, "w");
+    if (f) {
+        fputs(text, f);
+        fclose(f);
+    }
+}
+
+static void test_ledger(void)
+{
+    char dir[] = "/tmp/gloam-ledger-XXXXXX";
+    if (!mkdtemp(dir)) {
+        CHECK(0, "mkdtemp");
+        return;
+    }
+    char in[256], prod[256], led[256];
+    snprintf(in, sizeof in, "%s/cube.fits", dir);
+    snprintf(prod, sizeof prod, "%s/result.fits", dir);
+    snprintf(led, sizeof led, "%s/ledger.json", dir);
+    write_file(in, "input bytes");
+    write_file(prod, "product bytes");
+    const char *ins[] = {in}, *prods[] = {prod};
+
+    gl_ledger *l = NULL;
+    CHECK(gl_ledger_open(dir, &l) == GL_OK && l, "a new folder has an empty ledger");
+    if (!l)
+        return;
+    CHECK(!gl_ledger_is_current(l, "subtract", "modes=5", ins, 1), "nothing done yet");
+    CHECK(gl_ledger_record(l, "subtract", "modes=5", ins, 1, prods, 1, 1.5) == GL_OK, "record");
+    CHECK(gl_ledger_is_current(l, "subtract", "modes=5", ins, 1), "done, same options");
+    CHECK(!gl_ledger_is_current(l, "subtract", "modes=10", ins, 1), "other options rerun");
+    CHECK(!gl_ledger_is_current(l, "subtract", "modes=5", ins, 0), "other inputs rerun");
+    CHECK(gl_ledger_save(l) == GL_OK, "save");
+    gl_ledger_free(l);
+
+    l = NULL;
+    CHECK(gl_ledger_open(dir, &l) == GL_OK && l, "reopen");
+    if (!l)
+        return;
+    CHECK(gl_ledger_is_current(l, "subtract", "modes=5", ins, 1), "kept across runs");
+    write_file(in, "input bytes, edited");
+    CHECK(!gl_ledger_is_current(l, "subtract", "modes=5", ins, 1), "an edited input reruns");
+    write_file(in, "input bytes");
+    CHECK(gl_ledger_is_current(l, "subtract", "modes=5", ins, 1), "restored bytes: current");
+    write_file(prod, "product bytes, damaged");
+    CHECK(!gl_ledger_is_current(l, "subtract", "modes=5", ins, 1), "a changed product reruns");
+    write_file(prod, "product bytes");
+    remove(prod);
+    CHECK(!gl_ledger_is_current(l, "subtract", "modes=5", ins, 1), "a missing product reruns");
+    write_file(prod, "product bytes");
+    gl_ledger_forget(l, "subtract");
+    CHECK(!gl_ledger_is_current(l, "subtract", "modes=5", ins, 1), "forgotten (--force)");
+    const char *missing[] = {"/nonexistent/x.fits"};
+    CHECK(gl_ledger_record(l, "detect", "", missing, 1, prods, 1, 0) == GL_ERR_IO,
+          "an unreadable input is an error when recording");
+    gl_ledger_free(l);
+
+    write_file(led, "{ not json");
+    l = (gl_ledger *)1;
+    CHECK(gl_ledger_open(dir, &l) == GL_ERR_INPUT && l == NULL, "a damaged ledger is refused");
+    CHECK(strstr(gl_error_message(), "ledger.json") != NULL, "names it: %s", gl_error_message());
+    remove(led);
+    remove(in);
+    remove(prod);
+    rmdir(dir);
+    gl_ledger_free(NULL);
+}
+
 int main(void)
 {
     test_targets_and_overrides();
     test_single_target();
     test_errors();
     test_allocation_failures();
+    test_ledger();
     CHECK_DONE();
 }

@@ -78,6 +78,34 @@ GL_API gl_status gl_plan_check_used(const gl_plan *p);
  * plan file's folder. Writes into out[size]; GL_ERR_USAGE when it does not fit. */
 GL_API gl_status gl_plan_path(const gl_plan *p, const char *value, char *out, size_t size);
 
+/* ---- the ledger of a run folder ------------------------------------------ */
+
+/* What a run folder remembers of its finished steps (RUN/ledger.json): for
+ * each step the options it ran with, the CRC-32 of every input and every
+ * product, and its duration. A step is current, and is not run again, when
+ * its options and inputs are unchanged and its products are still there
+ * with the checksums it left; a changed product of an earlier step changes
+ * the inputs of the later ones, so they run again too. */
+typedef struct gl_ledger gl_ledger;
+
+/* Opens the ledger of folder (an empty one when the folder has none).
+ * GL_ERR_INPUT naming the file when it exists but is not a ledger. */
+GL_API gl_status gl_ledger_open(const char *folder, gl_ledger **out);
+GL_API void gl_ledger_free(gl_ledger *l);
+/* 1 when step finished with exactly these options and inputs and its
+ * products are intact; 0 otherwise (also when a file cannot be read). */
+GL_API int gl_ledger_is_current(const gl_ledger *l, const char *step, const char *options,
+                                const char *const *inputs, int ninputs);
+/* Records step as finished (replacing an earlier record), checksumming the
+ * inputs and products now. GL_ERR_IO naming a file that cannot be read. */
+GL_API gl_status gl_ledger_record(gl_ledger *l, const char *step, const char *options,
+                                  const char *const *inputs, int ninputs,
+                                  const char *const *products, int nproducts, double seconds);
+/* Forgets step (so that it runs again). */
+GL_API void gl_ledger_forget(gl_ledger *l, const char *step);
+/* Writes the ledger back (a temporary file renamed into place). */
+GL_API gl_status gl_ledger_save(const gl_ledger *l);
+
 /* ---- the HTML report ---------------------------------------------------- */
 
 /* A self-contained HTML page built piece by piece: every image is embedded
