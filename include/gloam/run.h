@@ -106,6 +106,76 @@ GL_API void gl_ledger_forget(gl_ledger *l, const char *step);
 /* Writes the ledger back (a temporary file renamed into place). */
 GL_API gl_status gl_ledger_save(const gl_ledger *l);
 
+/* ---- running one target ------------------------------------------------- */
+
+/* The steps of a reduction, in pipeline order. */
+typedef enum gl_step {
+    GL_STEP_INSPECT,
+    GL_STEP_ALIGN,
+    GL_STEP_SUBTRACT,
+    GL_STEP_DETECT,
+    GL_STEP_LIMITS,
+    GL_STEP_VET,
+    GL_NSTEPS
+} gl_step;
+
+/* "inspect", "align", ...; NULL out of range. */
+GL_API const char *gl_step_name(gl_step s);
+/* The step of that name, or -1. */
+GL_API int gl_step_from_name(const char *name);
+
+/* Runs one command of a step: argv[0] is "gloam", argv[1] the command, the
+ * rest its arguments, exactly as on a command line. stdout_path receives
+ * the command's standard output, log_path its messages (both appended).
+ * Returns the command's exit status (0, 1 or 2). The command-line program
+ * supplies this (it dispatches to the same code as the single commands). */
+typedef int (*gl_run_exec_fn)(void *user, int argc, char **argv, const char *stdout_path,
+                              const char *log_path);
+
+typedef struct gl_run_params {
+    /* set by the user */
+    const char *folder;   /* the run folder; created when missing */
+    int force[GL_NSTEPS]; /* nonzero: run the step even when it is current */
+    int dry_run;          /* print each step's command line, run nothing */
+    gl_run_exec_fn exec;  /* runs one command (required unless dry_run) */
+    void *exec_user;
+} gl_run_params;
+
+GL_API void gl_run_params_init(gl_run_params *p);
+
+/* What happened to each step of a target's run. */
+typedef enum gl_step_state {
+    GL_STEP_NOT_ASKED, /* not in the plan's steps */
+    GL_STEP_RAN,
+    GL_STEP_CURRENT,      /* finished before with the same inputs and options: not run again */
+    GL_STEP_NOT_POSSIBLE, /* asked, but the data do not allow it (no PSF, no candidate) */
+    GL_STEP_FAILED,
+    GL_STEP_NOT_REACHED /* after a failed step */
+} gl_step_state;
+
+typedef struct gl_run_outcome {
+    gl_step_state state[GL_NSTEPS];
+    double seconds[GL_NSTEPS];
+    int exit_status;   /* of the failed step; 0 when none failed */
+    char message[512]; /* the failed step's last message, or why a step was not possible */
+} gl_run_outcome;
+
+/* Runs the plan's steps for target into rp->folder: each step's command
+ * line is composed from the plan (inputs, the step's section and the
+ * target's overrides) and the products of the steps before it, is skipped
+ * when the ledger says it is current, and is run through rp->exec. Then
+ * writes RUN/summary.json and RUN/report.html. Every key of the plan that
+ * no step used is an error before anything runs (see gl_plan_check_used).
+ * Function return value: GL_OK when every asked step ran or was current
+ * (out says which); GL_ERR_INPUT naming the plan's line for a bad plan;
+ * GL_ERR_IO for the folder; the failed step's status otherwise (out->message
+ * holds its last message). */
+GL_API gl_status gl_run_target(gl_plan *plan, const char *target, const gl_run_params *rp,
+                               gl_run_outcome *out);
+
+/* A commented example plan (static text). */
+GL_API const char *gl_run_example_plan(void);
+
 /* ---- the HTML report ---------------------------------------------------- */
 
 /* A self-contained HTML page built piece by piece: every image is embedded

@@ -11,7 +11,7 @@
 
 #include "gloam/io.h"
 
-#include <cJSON.h>
+#include <cjson/cJSON.h>
 #include <errno.h>
 #include <stdio.h>
 #include <stdlib.h>

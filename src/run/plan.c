@@ -48,7 +48,7 @@ typedef struct parse_state {
     gl_plan *plan;
     const char *text; /* the remaining text of the plan */
     int line;         /* the line the reader returned last */
-    gl_status st;    /* the first error, and its line and message */
+    gl_status st;     /* the first error, and its line and message */
     int error_line;
     char error[1024];
 } parse_state;
