@@ -659,9 +659,12 @@ static gl_status run_step(gl_step s, run_cmd *c, const gl_run_params *rp, const 
                step_names[s]);
         return GL_OK;
     }
-    /* the products in a run folder are the run's own: a rerun replaces them */
-    if (add_arg(c, "--overwrite"))
-        return GL_ERR_USAGE;
+    /* the products in a run folder are the run's own: a rerun replaces them.
+     * The command gets a copy of its argument list, which getopt permutes. */
+    char *args[RUN_MAX_ARGS + 2];
+    memcpy(args, c->argv, sizeof(char *) * (size_t)c->argc);
+    args[c->argc] = "--overwrite";
+    args[c->argc + 1] = NULL;
     time_t wall = time(NULL);
     char stamp[32];
     strftime(stamp, sizeof stamp, "%Y-%m-%dT%H:%M:%SZ", gmtime(&wall));
@@ -669,9 +672,7 @@ static gl_status run_step(gl_step s, run_cmd *c, const gl_run_params *rp, const 
     if (c->stdout_path)
         remove(c->stdout_path);
     double t0 = now_s();
-    int rc = rp->exec(rp->exec_user, c->argc, c->argv, c->stdout_path, f->log);
-    c->argc -= 1; /* --overwrite is not an option of the step */
-    c->argv[c->argc] = NULL;
+    int rc = rp->exec(rp->exec_user, c->argc + 1, args, c->stdout_path, f->log);
     out->seconds[s] = now_s() - t0;
     if (rc != 0) {
         out->state[s] = GL_STEP_FAILED;
@@ -725,7 +726,8 @@ gl_status gl_run_target(gl_plan *plan, const char *target, const gl_run_params *
         if ((st = run_files_init(g, rp->folder)) || (st = compose(plan, name, g, scratch, 0, tmp)))
             goto cleanup;
     }
-    if ((st = compose(plan, target, f, a, 1, cmds)) || (st = gl_plan_check_used(plan)))
+    if ((st = compose(plan, target, f, a, 1, cmds)) || (st = gl_plan_check_used(plan)) ||
+        (rp->exec && (st = check_options(plan, target, rp, cmds))))
         goto cleanup;
     if (rp->dry_run) {
         static char line[1 << 15];
@@ -742,8 +744,8 @@ gl_status gl_run_target(gl_plan *plan, const char *target, const gl_run_params *
         }
         goto cleanup;
     }
-    if ((st = check_options(plan, target, rp, cmds)) || (st = check_folder(f)) ||
-        (st = make_folder(f->folder)) || (st = gl_ledger_open(f->folder, &led)))
+    if ((st = check_folder(f)) || (st = make_folder(f->folder)) ||
+        (st = gl_ledger_open(f->folder, &led)))
         goto cleanup;
     int nasked = 0, done = 0;
     for (int s = 0; s < GL_NSTEPS; s++)

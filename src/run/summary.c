@@ -203,7 +203,7 @@ gl_status run_summary_write(const run_files *f, const char *target, const char *
         cJSON_AddStringToObject(o, "state", state_name(out->state[s]));
         cJSON_AddNumberToObject(o, "seconds", out->seconds[s]);
         total += out->seconds[s];
-        if (cmds[s].argc > 0) {
+        if (cmds[s].argc > 0 && cmds[s].asked) {
             cJSON *a = cJSON_AddArrayToObject(o, "command");
             for (int i = 0; i < cmds[s].argc; i++)
                 cJSON_AddItemToArray(a, cJSON_CreateString(cmds[s].argv[i]));

@@ -164,3 +164,176 @@ def test_the_browser_check_sees_a_broken_page(tmp_path):
     dom, console = open_in_chromium(bad, tmp_path)
     assert 'data-images="0/1"' in dom
     assert any("no_such" in line for line in console)
+
+
+# ---- gloam run -----------------------------------------------------------------
+
+GLOAM = os.environ["GLOAM"]
+STEPS = ("inspect", "align", "subtract", "detect", "limits")
+
+
+def gloam(*args, **kw):
+    return subprocess.run([GLOAM, *map(str, args)], capture_output=True, text=True, **kw)
+
+
+@pytest.fixture(scope="module")
+def sequence(tmp_path_factory):
+    """A small simulated sequence with one companion (gloam simulate's truth)."""
+    d = tmp_path_factory.mktemp("seq")
+    r = gloam("simulate", d / "sim", "--frames", 24, "--size", 64, "--seed", 5, "--companion",
+              "14:60:3e-3")
+    assert r.returncode == 0, r.stderr
+    return d
+
+
+def write_plan(d, name="plan.ini", extra="", steps=STEPS, modes="3,6"):
+    text = f"""# a plan for the tests
+[run]
+name = Tarn-12
+[inputs]
+cube = sim/cube.fits
+angles = sim/angles.txt
+psf = sim/psf.fits
+[steps]
+run = {", ".join(steps)}
+[subtract]
+method = pca
+modes = {modes}   ; two planes
+mask-radius = 4
+[detect]
+mask-radius = 4
+[limits]
+fake-runs = 1
+{extra}"""
+    (d / name).write_text(text)
+    return d / name
+
+
+def test_example_plan_reads_the_same_with_configparser(tmp_path):
+    import configparser
+    r = gloam("run", "--example")
+    assert r.returncode == 0
+    (tmp_path / "p.ini").write_text(r.stdout)
+    cp = configparser.ConfigParser(inline_comment_prefixes=(";", "#"))
+    cp.read(tmp_path / "p.ini")
+    assert cp["inputs"]["cube"] == "demo-frames/cube.fits"
+    assert set(cp.sections()) >= {"run", "inputs", "steps", "align", "subtract", "detect", "limits"}
+    # gloam's reading of the same file: every [subtract] key reaches the
+    # subtract step's command line with configparser's value
+    src = Path(os.environ["GLOAM_SOURCE"])
+    (tmp_path / "demo-frames").symlink_to(src / "demo-frames")
+    dry = gloam("run", tmp_path / "p.ini", "--dry-run")
+    assert dry.returncode == 0, dry.stderr
+    line = next(x for x in dry.stderr.splitlines() if " gloam subtract " in x)
+    for key, value in cp["subtract"].items():
+        assert f"--{key} {value}" in line, (key, value, line)
+
+
+def test_run_writes_the_folder_and_a_second_run_skips_every_step(sequence, tmp_path):
+    plan = write_plan(sequence)
+    out = tmp_path / "run"
+    r = gloam("run", plan, "--out", out)
+    assert r.returncode == 0, r.stderr
+    for name in ("inspect.json", "aligned.fits", "star-positions.csv", "result.fits",
+                 "detect.snr.fits", "detect.candidates.csv", "limits.limits.csv",
+                 "limits.limits.png", "summary.json", "report.html", "log.txt", "ledger.json"):
+        assert (out / name).exists(), name
+    import json
+    s = json.loads((out / "summary.json").read_text())
+    assert s["target"] == "Tarn-12"
+    assert [s["steps"][k]["state"] for k in STEPS] == ["ran"] * 5
+    assert s["steps"]["vet"]["state"] == "not asked"
+    assert s["steps"]["subtract"]["command"][:3] == ["gloam", "subtract", str(out / "aligned.fits")]
+    # the detections are those of the candidate table, and the companion is among them
+    rows = list(csv.DictReader((out / "detect.candidates.csv").open()))
+    assert len(s["detections"]) == len(rows)
+    assert any(abs(float(d["sep_px"]) - 14) < 1 for d in s["detections"])
+    # contrast at fixed separations interpolates the table (numpy.interp, plane 1)
+    import numpy as np
+    t = np.genfromtxt(out / "limits.limits.csv", delimiter=",", names=True)
+    t = t[t["plane"] == 1]
+    for e in s["contrast"]["at_fwhm"]:
+        want = np.interp(e["sep_px"], t["sep_px"], t["contrast_c50"], left=np.nan, right=np.nan)
+        if e["contrast_c50"] is None:
+            assert np.isnan(want)
+        else:
+            assert e["contrast_c50"] == pytest.approx(want, rel=1e-9)
+    # the field rotation of the angles (numpy)
+    ang = np.loadtxt(out / "angles.txt")
+    assert s["field_rotation_deg"] == pytest.approx(abs(ang[-1] - ang[0]), abs=1e-6)
+
+    before = {p.name: p.read_bytes() for p in out.iterdir() if p.suffix in (".fits", ".csv")}
+    r2 = gloam("run", plan, "--out", out)
+    assert r2.returncode == 0, r2.stderr
+    assert r2.stderr.count("not run again") == 5
+    s2 = json.loads((out / "summary.json").read_text())
+    assert [s2["steps"][k]["state"] for k in STEPS] == ["unchanged"] * 5
+    after = {p.name: p.read_bytes() for p in out.iterdir() if p.suffix in (".fits", ".csv")}
+    assert before == after
+
+    # a changed option reruns its step; later steps rerun only if their inputs changed
+    write_plan(sequence, modes="3,5")
+    r3 = gloam("run", plan, "--out", out)
+    assert r3.returncode == 0, r3.stderr
+    s3 = json.loads((out / "summary.json").read_text())
+    assert [s3["steps"][k]["state"] for k in STEPS] == ["unchanged", "unchanged", "ran", "ran", "ran"]
+    # --force reruns a step that is current
+    r4 = gloam("run", plan, "--out", out, "--force", "align")
+    s4 = json.loads((out / "summary.json").read_text())
+    assert r4.returncode == 0 and s4["steps"]["align"]["state"] == "ran"
+    write_plan(sequence)
+
+
+def test_run_report_renders_in_chromium(sequence, tmp_path):
+    plan = write_plan(sequence)
+    out = tmp_path / "run"
+    r = gloam("run", plan, "--out", out)
+    assert r.returncode == 0, r.stderr
+    page = (out / "report.html").read_text()
+    p = Collector()
+    p.feed(page)
+    assert p.stack == []
+    assert len(p.imgs) >= 4  # residual, S/N map, contrast curve, star positions
+    assert "Tarn-12" in p.title
+    dom, console = open_in_chromium(out / "report.html", tmp_path)
+    assert f'data-images="{len(p.imgs)}/{len(p.imgs)}"' in dom
+    assert console == [], console
+
+
+def test_bad_plans_are_refused_before_anything_runs(sequence, tmp_path):
+    cases = [
+        ("[subtract]\nmodez = 5\n", "'modez' in [subtract] is not an option of gloam subtract"),
+        ("[detect]\nthreshold = 5\n[detect_]\nx = 1\n", "unknown section [detect_]"),
+        ("[inputs]\nbogus = 1\n", "'bogus' in [inputs] is not used by gloam"),
+    ]
+    for extra, message in cases:
+        plan = write_plan(sequence, name="bad.ini", extra=extra)
+        out = tmp_path / "never"
+        r = gloam("run", plan, "--out", out)
+        assert r.returncode == 1, (extra, r.stderr)
+        assert "bad.ini:" in r.stderr and message in r.stderr, r.stderr
+        assert len(r.stderr.strip().splitlines()) == 1
+        assert not out.exists()
+    (sequence / "missing.ini").write_text("[inputs]\ncube = nowhere.fits\nangles = sim/angles.txt\n")
+    r = gloam("run", sequence / "missing.ini", "--out", tmp_path / "never")
+    assert r.returncode == 1 and "missing.ini:2: cube = nowhere.fits: cannot read" in r.stderr
+    # a folder that is not a run folder is not written into
+    busy = tmp_path / "busy"
+    busy.mkdir()
+    (busy / "thesis.tex").write_text("keep me")
+    r = gloam("run", write_plan(sequence), "--out", busy)
+    assert r.returncode == 1 and "not a gloam run folder" in r.stderr
+    assert [p.name for p in busy.iterdir()] == ["thesis.tex"]
+
+
+def test_a_failed_step_is_reported_and_the_run_stops(sequence, tmp_path):
+    plan = write_plan(sequence, name="fail.ini", extra="[align]\ncrop = 100000\n")
+    out = tmp_path / "run"
+    r = gloam("run", plan, "--out", out)
+    assert r.returncode == 1
+    assert "step align failed" in r.stderr and "log.txt" in r.stderr
+    import json
+    s = json.loads((out / "summary.json").read_text())
+    assert s["steps"]["align"]["state"] == "failed"
+    assert s["steps"]["subtract"]["state"] == "not reached"
+    assert not (out / "result.fits").exists()
