@@ -210,5 +210,11 @@ int cmd_simulate(gl_cli *cli, int argc, char **argv);
 int cmd_subtract(gl_cli *cli, int argc, char **argv);
 int cmd_detect(gl_cli *cli, int argc, char **argv);
 int cmd_limits(gl_cli *cli, int argc, char **argv);
+int cmd_run(gl_cli *cli, int argc, char **argv);
+
+/* Runs `gloam COMMAND ...` in this process (argv[0] is the program, argv[1]
+ * the command), as main() does; returns the exit status. Used by `gloam
+ * run` so that a step writes exactly what the single command writes. */
+int cli_run_command(int argc, char **argv);
 
 #endif
