@@ -198,6 +198,34 @@ cleanup:
     return st;
 }
 
+gl_status gl_fits_read_header(const char *path, gl_header **out)
+{
+    fitsfile *f = NULL;
+    gl_header *h = NULL;
+    gl_status st;
+    *out = NULL;
+    int hdu = 0, naxis = 0, bitpix = 0;
+    long naxes[8] = {0};
+    if ((st = open_readonly(path, &f)) ||
+        (st = find_image_hdu(f, path, &hdu, &naxis, naxes, &bitpix)))
+        goto cleanup;
+    if (!(h = gl_header_new())) {
+        st = gl_error_nomem("header");
+        goto cleanup;
+    }
+    if ((st = read_cards(f, path, h)))
+        goto cleanup;
+    *out = h;
+    h = NULL;
+cleanup:
+    gl_header_free(h);
+    if (f) {
+        int s2 = 0;
+        fits_close_file(f, &s2);
+    }
+    return st;
+}
+
 gl_status gl_fits_image_info(const char *path, gl_fits_info *info)
 {
     fitsfile *f = NULL;

@@ -175,8 +175,8 @@ static void chunk_centred(const stream_run *r, const float *buf, long y0, long n
 /* Passes 1 and 2 of PCA: the region's centred columns, chunk by chunk of
  * sub_covariance_chunk_width() columns, to the covariance (Vs == NULL) or to
  * the modes Z = Vs X (kmax rows). */
-static gl_status pass_columns(stream_run *r, float *buf, float *X, double *C, const float *Vs,
-                              long kmax, float *Z)
+static gl_status pass_columns(stream_run *r, float *buf, float *X, double *C, const double *Vs,
+                              long kmax, float *Z, double *zwork)
 {
     long W = sub_covariance_chunk_width(), npr = r->reg.npix;
     long jr = 0, c0 = 0; /* next region pixel, start of the current chunk */
@@ -201,7 +201,7 @@ static gl_status pass_columns(stream_run *r, float *buf, float *X, double *C, co
                 if (!Vs)
                     sub_covariance_chunk(X, W, r->nf, w, c0 == 0, C, r->covwork);
                 else
-                    sub_gemm(kmax, w, r->nf, 1.0f, Vs, r->nf, X, W, 0, 0.0f, Z + c0, npr);
+                    sub_basis_rows_chunk(Vs, kmax, X, W, r->nf, w, Z + c0, npr, zwork);
                 c0 = jr;
             }
         }
@@ -512,7 +512,8 @@ gl_status gl_subtract_run_streamed(const char *path, const double *angles,
     stream_run r = {0};
     unsigned char *usable = NULL;
     double *C = NULL;
-    float *Vs = NULL, *Z = NULL, *X = NULL, *buf = NULL, *raw = NULL, *M = NULL, *work = NULL;
+    double *Vs = NULL, *zwork = NULL;
+    float *Z = NULL, *X = NULL, *buf = NULL, *raw = NULL, *M = NULL, *work = NULL;
     float *coef = NULL;
     sub_basis basis = {0};
     sub_sink *sink = NULL;
@@ -525,7 +526,12 @@ gl_status gl_subtract_run_streamed(const char *path, const double *angles,
     if (p->method != GL_SUBTRACT_PCA && p->method != GL_SUBTRACT_MEDIAN)
         return gl_error_set(GL_ERR_USAGE,
                             "%s: the cube does not fit in --memory-limit %.0f MB, and only "
-                            "--method pca and median run streamed from the file",
+                            "--method klip-frame and median-frame run streamed from the file",
+                            path, memory_limit / 1e6);
+    if (p->method == GL_SUBTRACT_PCA && p->basis_frames != GL_BASIS_ALL)
+        return gl_error_set(GL_ERR_USAGE,
+                            "%s: the cube does not fit in --memory-limit %.0f MB; the streamed "
+                            "path builds one basis from all frames (--basis-frames all)",
                             path, memory_limit / 1e6);
     if (p->keep_residuals || p->keep_raw_residuals)
         return gl_error_set(GL_ERR_USAGE,
@@ -563,7 +569,7 @@ gl_status gl_subtract_run_streamed(const char *path, const double *angles,
     r.c.npix = r.npix;
     r.c.nframe = r.nf;
     r.c.angles = angles;
-    r.c.r_in = p->mask_radius;
+    r.c.r_in = p->mask_radius >= 0 ? p->mask_radius : 0.0; /* automatic: 0 for these methods */
     r.c.r_out = p->outer_radius > 0 ? GL_SUB_MIN(p->outer_radius, rmax) : rmax;
     if (r.c.r_in >= r.c.r_out) {
         st = gl_error_set(GL_ERR_USAGE,
@@ -587,8 +593,9 @@ gl_status gl_subtract_run_streamed(const char *path, const double *angles,
     if (p->combine != GL_COMBINE_MEDIAN)
         fixed += 4.0 * r.nplanes * plane; /* two double sums per plane */
     if (p->method == GL_SUBTRACT_PCA)
-        fixed += 16.0 * nf * nf + 4.0 * kmax * (nf + (double)r.reg.npix) + 4.0 * nf +
-                 8.0 * (double)sub_covariance_work_size() +
+        fixed += 16.0 * nf * nf + 8.0 * kmax * nf + 4.0 * kmax * (double)r.reg.npix + 4.0 * nf +
+                 8.0 * GL_SUB_MAX((double)sub_basis_rows_work_size(r.nf, kmax),
+                                  (double)sub_covariance_work_size()) +
                  4.0 * nf * (double)sub_covariance_chunk_width() + 4.0 * (double)r.reg.npix;
     /* derotation work per thread: the padded square (4 frames) and 3 more */
     fixed += nth * 7.0 * plane + 4.0 * nth * COMBINE_STACKS * nf;
@@ -674,7 +681,7 @@ gl_status gl_subtract_run_streamed(const char *path, const double *angles,
         long W = sub_covariance_chunk_width();
         C = gl_malloc(sizeof(double) * (size_t)r.nf * (size_t)r.nf);
         X = gl_malloc(sizeof(float) * (size_t)r.nf * (size_t)W);
-        Vs = gl_malloc(sizeof(float) * (size_t)kmax * (size_t)r.nf);
+        Vs = gl_malloc(sizeof(double) * (size_t)kmax * (size_t)r.nf);
         r.covwork = gl_malloc(sizeof(double) * sub_covariance_work_size());
         buf = gl_malloc(sizeof(float) * (size_t)r.nf * (size_t)r.rows * (size_t)r.nx);
         if (p->centring == GL_CENTRE_TEMPORAL)
@@ -685,10 +692,12 @@ gl_status gl_subtract_run_streamed(const char *path, const double *angles,
             st = gl_error_nomem("streamed PCA");
             goto cleanup;
         }
-        if ((st = pass_columns(&r, buf, X, C, NULL, 0, NULL)))
+        if ((st = pass_columns(&r, buf, X, C, NULL, 0, NULL, NULL)))
             goto cleanup;
         sub_covariance_mirror(C, r.nf);
-        if ((st = sub_basis_from_cov(C, r.nf, kmax, &basis, Vs)))
+        gl_free(r.covwork); /* pass 2 needs its own work instead */
+        r.covwork = NULL;
+        if ((st = sub_basis_from_cov(C, r.nf, r.reg.npix, kmax, &basis, Vs)))
             goto cleanup;
         if (basis.rank < kmax)
             gl_log(GL_LOG_WARN,
@@ -697,12 +706,15 @@ gl_status gl_subtract_run_streamed(const char *path, const double *angles,
         gl_free(C);
         C = NULL;
         Z = gl_malloc(sizeof(float) * (size_t)kmax * (size_t)r.reg.npix);
-        if (!Z) {
+        zwork = gl_malloc(sizeof(double) * sub_basis_rows_work_size(r.nf, kmax));
+        if (!Z || !zwork) {
             st = gl_error_nomem("KL modes");
             goto cleanup;
         }
-        if ((st = pass_columns(&r, buf, X, NULL, Vs, kmax, Z)))
+        if ((st = pass_columns(&r, buf, X, NULL, Vs, kmax, Z, zwork)))
             goto cleanup;
+        gl_free(zwork);
+        zwork = NULL;
         gl_free(buf);
         buf = NULL;
         gl_free(X);
@@ -751,8 +763,8 @@ gl_status gl_subtract_run_streamed(const char *path, const double *angles,
         goto cleanup;
     }
     if ((st = sub_wcs_north_up(res.image->header, r.nx, r.ny)) ||
-        (st = sub_record_params(res.image->header, p, &r.c, r.nplanes,
-                                p->method == GL_SUBTRACT_PCA)) ||
+        (st = sub_record_params(res.image->header, p, &r.c, r.nplanes, p->method == GL_SUBTRACT_PCA,
+                                &res)) ||
         (st = gl_header_add_history(res.image->header,
                                     "streamed from the file in blocks (--memory-limit)")))
         goto cleanup;
@@ -774,6 +786,7 @@ cleanup:
     gl_free(usable);
     gl_free(C);
     gl_free(Vs);
+    gl_free(zwork);
     gl_free(Z);
     gl_free(X);
     gl_free(buf);

@@ -70,7 +70,7 @@ def inputs(tmp_path_factory):
     fits.PrimaryHDU(tiny).writeto(d / "tiny.fits")
     np.savetxt(d / "tiny.txt", angles[:12])
     code, err, base = run_rss("subtract", d / "tiny.fits", "--angles", d / "tiny.txt", "--fwhm",
-                              3, "--out", d / "tiny.out.fits", "--method", "pca", "--modes", 2)
+                              3, "--out", d / "tiny.out.fits", "--method", "klip-frame", "--modes", 2)
     assert code == 0, err
     return d, cube.nbytes, base
 
@@ -86,9 +86,9 @@ def subtract(d, out, opts, limit=None, cube="cube.fits"):
 
 
 @pytest.mark.parametrize("opts,exact,tol", [
-    (["--method", "median", "--combine", "median"], True, 0),
-    (["--method", "pca", "--modes", "3,8", "--combine", "median"], False, 1e-3),
-    (["--method", "pca", "--modes", "3,8", "--combine", "mean"], False, 1e-5),
+    (["--method", "median-frame", "--combine", "median"], True, 0),
+    (["--method", "klip-frame", "--modes", "3,8", "--combine", "median"], False, 1e-3),
+    (["--method", "klip-frame", "--modes", "3,8", "--combine", "mean"], False, 1e-5),
 ])
 def test_quarter_limit_same_result(inputs, opts, exact, tol):
     d, size, base = inputs
@@ -113,11 +113,11 @@ def test_quarter_limit_same_result(inputs, opts, exact, tol):
 
 @pytest.mark.parametrize("opts,limit,exact", [
     # enough for blocks of 128 frames, less than the in-memory estimate
-    (["--method", "pca", "--modes", "3,8", "--combine", "median"], 40, True),
-    (["--method", "pca", "--modes", "4", "--centre", "temporal", "--combine", "weighted"], 40,
+    (["--method", "klip-frame", "--modes", "3,8", "--combine", "median"], 40, True),
+    (["--method", "klip-frame", "--modes", "4", "--remove-mean", "each-pixel", "--combine", "weighted"], 40,
      True),
-    (["--method", "median", "--median-fit", "--combine", "weighted"], 12, True),
-    (["--method", "pca", "--modes", "4", "--centre", "temporal", "--combine", "mean"], 12, False),
+    (["--method", "median-frame", "--median-fit", "--combine", "weighted"], 12, True),
+    (["--method", "klip-frame", "--modes", "4", "--remove-mean", "each-pixel", "--combine", "mean"], 12, False),
 ])
 def test_streamed_variants(inputs, opts, limit, exact):
     d, _, _ = inputs
@@ -133,7 +133,7 @@ def test_streamed_variants(inputs, opts, limit, exact):
 @pytest.mark.parametrize("opts,word", [
     (["--memory-limit", "2M"], "too small"),
     (["--memory-limit", "lots"], "--memory-limit"),
-    (["--memory-limit", "4M", "--method", "annular", "--modes", "3"], "pca and median"),
+    (["--memory-limit", "4M", "--method", "klip-rings", "--modes", "3"], "klip-frame and median-frame"),
     (["--memory-limit", "4M", "--residuals", "RES"], "residual cubes"),
 ])
 def test_bad_limits(inputs, opts, word):
