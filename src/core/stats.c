@@ -136,7 +136,8 @@ static inline float key_float(uint32_t k)
  * Exact, O(n) whatever the input (duplicates included), and free of the
  * mispredicted branches of a comparison partition, which dominate Hoare's
  * selection on a few hundred values (the per-pixel stacks of a sequence). */
-static uint32_t radix_select(uint32_t *K, long n, long k, uint32_t *next)
+__attribute__((target_clones("avx2", "default"))) static uint32_t
+radix_select(uint32_t *K, long n, long k, uint32_t *next)
 {
     uint32_t above = UINT32_MAX;
     for (int shift = 24; shift >= 0 && n > 1; shift -= 8) {
