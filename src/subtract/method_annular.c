@@ -187,7 +187,11 @@ gl_status sub_klip_local(const sub_ctx *c, double width, int nsect, double gap_p
             if (st)
                 goto cleanup;
 
-#pragma omp parallel for schedule(static)
+                /* dynamic: blocks cost unequal eigensolves and the cores are
+                 * shared; each block's outputs come from its own inputs alone
+                 * (the thread's workspace is overwritten), so any thread gives
+                 * the same bits */
+#pragma omp parallel for schedule(dynamic, 1)
             for (long b = 0; b < ntb; b++) {
                 int tid = omp_get_thread_num();
                 thread_ws *w = &ws[tid];
