@@ -15,5 +15,6 @@
 #include "gloam/sim.h"
 #include "gloam/detect.h"
 #include "gloam/align.h"
+#include "gloam/vet.h"
 
 #endif

@@ -137,5 +137,6 @@ int cmd_simulate(gl_cli *cli, int argc, char **argv);
 int cmd_subtract(gl_cli *cli, int argc, char **argv);
 int cmd_detect(gl_cli *cli, int argc, char **argv);
 int cmd_limits(gl_cli *cli, int argc, char **argv);
+int cmd_vet(gl_cli *cli, int argc, char **argv);
 
 #endif
