@@ -24,12 +24,12 @@
  * error given by the caller.
  *
  * Tests (each with a value, what a planet would give, pass/fail, or "not
- * possible with these data"): S/N stability across mode counts and across the
- * two halves of the sequence; the shape of the residual against the forward
- * model; sky-fixed motion (angles negated, angles scrambled); radial motion
- * with wavelength for 4-D cubes; the background-star track of ERFA against
- * measured offsets at several epochs. They reduce, and do not remove, the
- * chance of a false claim.
+ * possible with these data"): S/N against the threshold; S/N stability across
+ * mode counts and across the two halves of the sequence, against what the
+ * injection-recovery fakes (planets by construction) give; the shape of the residual against the
+ * forward model; sky-fixed motion (angles negated, angles scrambled); radial motion with wavelength
+ * for 4-D cubes; the background-star track of ERFA against measured offsets at several epochs. They
+ * reduce, and do not remove, the chance of a false claim.
  */
 #ifndef GLOAM_VET_H
 #define GLOAM_VET_H
@@ -63,14 +63,15 @@ GL_API void gl_vet_params_init(gl_vet_params *p);
 
 /* The tests, in table order. */
 typedef enum gl_vet_test_id {
-    GL_VET_TEST_MODES = 0,     /* lowest S/N over the mode counts */
-    GL_VET_TEST_HALVES = 1,    /* lower S/N of the two halves of the sequence */
-    GL_VET_TEST_SHAPE = 2,     /* correlation of the residual with the forward model */
-    GL_VET_TEST_NEGATED = 3,   /* S/N with the angles negated */
-    GL_VET_TEST_SCRAMBLED = 4, /* S/N with the angles in a scrambled order */
-    GL_VET_TEST_SPECTRAL = 5,  /* radial drift with wavelength, px per unit lambda/mean */
-    GL_VET_TEST_EPOCHS = 6,    /* chi2 of the background track minus that of common motion */
-    GL_VET_NTESTS = 7
+    GL_VET_TEST_SNR = 0,       /* S/N at the fit against the threshold of --threshold sigma */
+    GL_VET_TEST_MODES = 1,     /* S/N over the mode counts, minus what the fakes give */
+    GL_VET_TEST_HALVES = 2,    /* S/N in the two halves of the sequence, minus the fakes' */
+    GL_VET_TEST_SHAPE = 3,     /* correlation of the residual with the forward model */
+    GL_VET_TEST_NEGATED = 4,   /* S/N with the angles negated, minus the fakes' */
+    GL_VET_TEST_SCRAMBLED = 5, /* S/N with the angles in a scrambled order, minus the fakes' */
+    GL_VET_TEST_SPECTRAL = 6,  /* radial drift with wavelength, px per unit lambda/mean */
+    GL_VET_TEST_EPOCHS = 7,    /* chi2 of the background track minus that of common motion */
+    GL_VET_NTESTS = 8
 } gl_vet_test_id;
 
 typedef struct gl_vet_test {
@@ -82,7 +83,7 @@ typedef struct gl_vet_test {
     char note[200];
 } gl_vet_test;
 
-/* Name of a test ("modes", "halves", "shape", "negated", "scrambled",
+/* Name of a test ("snr", "modes", "halves", "shape", "negated", "scrambled",
  * "spectral", "epochs") and a one-line description of its pass rule. */
 GL_API const char *gl_vet_test_name(gl_vet_test_id id);
 GL_API const char *gl_vet_test_rule(gl_vet_test_id id);
@@ -151,6 +152,9 @@ typedef struct gl_vet_result {
     long modes[GL_SUBTRACT_MAX_MODES];
     double snr_modes[GL_SUBTRACT_MAX_MODES];
     double snr_half[2], snr_negated, snr_scrambled;
+    /* the same S/N for a planet: medians over the injection-recovery fakes */
+    double fake_snr_modes[GL_SUBTRACT_MAX_MODES];
+    double fake_snr_half[2], fake_snr_negated, fake_snr_scrambled;
     gl_vet_test tests[GL_VET_NTESTS];
     int npossible, npassed;
     /* stamps around the fitted position (stamp_n x stamp_n, north-up):

@@ -406,6 +406,14 @@ static gl_status write_regions(const char *path, const gl_vet_result *r, long n,
     return GL_OK;
 }
 
+/* Re-records the library's message as "FILE: row N: message". */
+static void row_error(const char *path, long row, gl_status st)
+{
+    char msg[1024];
+    snprintf(msg, sizeof msg, "%s", gl_error_message());
+    gl_error_set(st, "%s: row %ld: %s", path, row + 1, msg);
+}
+
 int cmd_vet(gl_cli *cli, int argc, char **argv)
 {
     static const struct option opts[] = {{"angles", required_argument, 0, OPT_ANGLES},
@@ -507,7 +515,7 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
         goto cleanup;
     for (long i = 0; i < ncand; i++)
         if ((st = gl_vet_check_position(cube->nx, cube->ny, &setup.p, &o.vp, sep[i], pa[i]))) {
-            gl_error_set(st, "%s: row %ld: %s", cand_path, i + 1, gl_error_message());
+            row_error(cand_path, i, st);
             goto cleanup;
         }
     if (star_table) {
@@ -587,7 +595,7 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
                                    epochs_path ? &o.star : NULL, epochs_path ? &ep : NULL,
                                    &res[i]))) {
             if (st == GL_ERR_INPUT || st == GL_ERR_USAGE)
-                gl_error_set(st, "%s: row %ld: %s", cand_path, i + 1, gl_error_message());
+                row_error(cand_path, i, st);
             goto cleanup;
         }
         const gl_vet_result *v = &res[i];

@@ -140,12 +140,15 @@ gl_status gl_vet_candidate(const gl_cube *cube, const double *angles, const gl_c
         (st = vet_problem_new(cube, angles, refs, sp, psf, vp, sep0, &p)))
         goto cleanup;
 
-    /* the start: detect's position, throughput-corrected aperture flux */
-    double x0, y0;
-    vet_xy(p, sep0, pa0, &x0, &y0);
+    /* the start: the brightest pixel near detect's position (found as the
+     * fakes of the error estimate are), throughput-corrected aperture flux */
+    double x0, y0, tx, ty;
+    vet_xy(p, sep0, pa0, &tx, &ty);
     if ((st = vet_subtract(p, p->crop, angles, p->refs, &p->sp, NULL, 0, &img)))
         goto cleanup;
     const float *im = gl_cube_plane(img, 0, 0);
+    vet_peak(p, im, tx, ty, &x0, &y0);
+    vet_seppa(p, x0, y0, &sep0, &pa0);
     double f0 = vet_aperture(p, im, x0, y0);
     if (!(f0 > 0)) {
         st = gl_error_set(GL_ERR_INPUT,
@@ -165,6 +168,8 @@ gl_status gl_vet_candidate(const gl_cube *cube, const double *angles, const gl_c
         goto cleanup;
     out->start_sep = sep0;
     out->start_pa = pa0;
+    if ((st = gl_vet_check_position(cube->nx, cube->ny, sp, vp, sep0, pa0)))
+        goto cleanup;
     out->start_contrast = f0 / (out->throughput * p->psf_apflux);
 
     /* the fit */
@@ -204,12 +209,15 @@ gl_status gl_vet_candidate(const gl_cube *cube, const double *angles, const gl_c
     double x, y;
     vet_xy(p, fit.sep, fit.pa, &x, &y);
     out->snr = vet_snr(p, im, x, y);
+    vet_stats data;
+    if ((st = vet_plan_make(p, vp, fit.sep)) || (st = vet_stats_run(p, p->crop, x, y, &data)))
+        goto cleanup;
 
     if ((st = vet_errors_run(p, vp, &fit, sigma * sigma, out->throughput, out)))
         goto cleanup;
     double centre = vp->centre_err_px;
     combine_errors(vp, centre, out);
-    if ((st = vet_tests_run(p, vp, sp, im, model, rs, out)))
+    if ((st = vet_tests_run(p, vp, sp, &data, im, model, rs, out)))
         goto cleanup;
     if ((st = vet_epochs_test(star, epochs, vp->mjd_obs, out)))
         goto cleanup;

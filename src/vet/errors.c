@@ -10,7 +10,9 @@
  * self-subtraction and the fit's own bias at that separation; it assumes the
  * noise at other angles of the annulus is like the noise at the candidate.
  * The star-centring, north-offset and pixel-scale errors are added in
- * quadrature by the caller.
+ * quadrature by the caller. The fakes are planets by construction: the
+ * statistics of the tests are computed for each (vet_stats_run), and their
+ * medians are what the tests expect of a planet.
  */
 #include "core/internal.h"
 #include "vet/internal.h"
@@ -27,7 +29,8 @@ gl_status vet_errors_run(vet_problem *p, const gl_vet_params *vp, const vet_fit 
     r->sep_err_fit = r->pa_err_fit = r->contrast_err_fit = NAN;
     /* fakes 2 FWHM apart and from the candidate */
     long nmax = (long)floor(2 * M_PI * fit->sep / (2 * p->fwhm)) - 1;
-    long n = GL_MIN((long)vp->error_fakes, nmax);
+    long n = GL_MIN(GL_MIN((long)vp->error_fakes, nmax), VET_MAX_FAKES);
+    p->nfake_stats = 0;
     if (vp->error_fakes == 0)
         return GL_OK;
     if (n < 2) {
@@ -66,6 +69,11 @@ gl_status vet_errors_run(vet_problem *p, const gl_vet_params *vp, const vet_fit 
         vet_fit rec;
         if ((st = vet_fit_run(p, with, sep0, pa0, c0, sigma2, vp->max_evals, &rec)))
             goto cleanup;
+        double rx, ry;
+        vet_xy(p, rec.sep, rec.pa, &rx, &ry);
+        if ((st = vet_stats_run(p, with, rx, ry, &p->fake_stats[p->nfake_stats])))
+            goto cleanup;
+        p->nfake_stats++;
         double dpa = fmod(rec.pa - fake.pa_deg + 540, 360) - 180;
         s_sep += (rec.sep - fake.sep_px) * (rec.sep - fake.sep_px);
         s_pa += dpa * dpa;

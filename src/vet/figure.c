@@ -186,15 +186,14 @@ static void draw(cairo_t *cr, const gl_vet_result *r, const char *title)
         snprintf(mlbuf[k], sizeof mlbuf[k], "%ld", r->modes[k]);
         ml[k] = mlbuf[k];
     }
-    const gl_vet_test *tm = &r->tests[GL_VET_TEST_MODES];
     if (nm > 0)
-        points(cr, 60, 360, 250, 170, nm, r->snr_modes, NULL, ml, tm->limit,
-               "S/N per mode count (dashed: threshold)");
+        points(cr, 60, 360, 250, 170, nm, r->snr_modes, r->fake_snr_modes, ml,
+               r->tests[GL_VET_TEST_SNR].limit,
+               "S/N per mode count (bar: fakes; dashed: threshold)");
     /* halves and wrong angles */
     double v[5] = {r->snr, r->snr_half[0], r->snr_half[1], r->snr_negated, r->snr_scrambled};
-    double e[5] = {NAN, r->tests[GL_VET_TEST_HALVES].expected,
-                   r->tests[GL_VET_TEST_HALVES].expected, r->tests[GL_VET_TEST_NEGATED].expected,
-                   r->tests[GL_VET_TEST_SCRAMBLED].expected};
+    double e[5] = {NAN, r->fake_snr_half[0], r->fake_snr_half[1], r->fake_snr_negated,
+                   r->fake_snr_scrambled};
     const char *hl[5] = {"all", "half 1", "half 2", "negated", "scrambled"};
     for (int k = 1; k < 5; k++)
         if (!r->tests[k == 1 || k == 2 ? GL_VET_TEST_HALVES
@@ -212,7 +211,7 @@ static void draw(cairo_t *cr, const gl_vet_result *r, const char *title)
     text(cr, tx, ty, buf, 0);
     ty += 22;
     cairo_set_font_size(cr, 11);
-    for (int k = 0; k < GL_VET_NTESTS; k++, ty += 34) {
+    for (int k = 0; k < GL_VET_NTESTS; k++, ty += 31) {
         const gl_vet_test *t = &r->tests[k];
         rgb(cr, !t->possible ? 0x8a8a8a : t->passed ? PASS : FAIL);
         snprintf(buf, sizeof buf, "%-9s %s", gl_vet_test_name((gl_vet_test_id)k),

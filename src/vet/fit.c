@@ -48,6 +48,7 @@ void vet_problem_free(vet_problem *p)
     gl_psf_model_free(p->psf);
     gl_detect_aperture_plan_free(p->ap);
     gl_free(p->work_d);
+    gl_free(p->plan.negated);
     gl_free(p);
 }
 
@@ -283,6 +284,8 @@ gl_status vet_throughput(vet_problem *p, const gl_cube *base, const float *img, 
     vet_xy(p, fake.sep_px, fake.pa_deg, &x, &y);
     double a = vet_aperture(p, gl_cube_plane(with, 0, 0), x, y), b = vet_aperture(p, img, x, y);
     *throughput = (a - b) / (fake.contrast * p->psf_apflux);
+    gl_log(GL_LOG_DEBUG, "vet: throughput fake at %.2f px, %.1f deg: %.4g - %.4g over %.4g", sep,
+           fake.pa_deg, a, b, fake.contrast * p->psf_apflux);
     gl_cube_free(with);
     if (!(*throughput > 0.02))
         return gl_error_set(GL_ERR_INPUT,

@@ -12,6 +12,28 @@
 /* The data cropped to the square around the annulus of one candidate, with
  * what every evaluation reuses: the cropped cube, reference cube and PSF, an
  * aperture plan, the annulus-limited subtraction parameters and scratch. */
+/* The S/N of a source at one place under the test configurations: every
+ * mode count, each half of the sequence, negated and scrambled angles (NaN
+ * where a configuration is not possible). */
+typedef struct vet_stats {
+    int nmodes;
+    double modes[GL_SUBTRACT_MAX_MODES];
+    double half[2];
+    double negated, scrambled;
+} vet_stats;
+
+/* What the configurations are, decided once per candidate (tests.c). */
+typedef struct vet_plan {
+    gl_subtract_params modes_sp; /* every mode count (nmodes 0: not possible) */
+    gl_subtract_params half_sp;  /* the first mode count, clipped to a half */
+    int halves_ok;
+    double *negated, *scrambled;         /* nframe angles each (owned by the problem) */
+    double frac_negated, frac_scrambled; /* frames that still overlap */
+    char why_modes[200], why_halves[200];
+} vet_plan;
+
+#define VET_MAX_FAKES 64
+
 typedef struct vet_problem {
     long nx, ny, nchan, nframe; /* the crop; star at (nx/2, ny/2) */
     double cx, cy;
@@ -31,6 +53,9 @@ typedef struct vet_problem {
     double psf_apflux; /* 1-FWHM aperture sum of the scaled PSF */
     double merit_r;    /* merit aperture radius, px */
     int nevals;
+    vet_plan plan;
+    int nfake_stats; /* the fakes' statistics (errors.c) */
+    vet_stats fake_stats[VET_MAX_FAKES];
 } vet_problem;
 
 gl_status vet_problem_new(const gl_cube *cube, const double *angles, const gl_cube *refs,
@@ -85,9 +110,15 @@ gl_status vet_throughput(vet_problem *p, const gl_cube *base, const float *img, 
 gl_status vet_errors_run(vet_problem *p, const gl_vet_params *vp, const vet_fit *fit, double sigma2,
                          double throughput, gl_vet_result *r);
 
+/* Decides the test configurations for a source at sep (tests.c). */
+gl_status vet_plan_make(vet_problem *p, const gl_vet_params *vp, double sep);
+/* The S/N of a source at (x, y) of cube under every configuration. */
+gl_status vet_stats_run(vet_problem *p, const gl_cube *cube, double x, double y, vet_stats *s);
+
 /* The speckle-or-planet tests of gl_vet_candidate (tests.c). */
 gl_status vet_tests_run(vet_problem *p, const gl_vet_params *vp, const gl_subtract_params *sp,
-                        const float *img, const float *model, const float *resid, gl_vet_result *r);
+                        const vet_stats *data, const float *img, const float *model,
+                        const float *resid, gl_vet_result *r);
 
 /* The multi-epoch test (epochs.c): the given epochs plus this one (when
  * mjd_now is finite); not possible without star or epochs. */
