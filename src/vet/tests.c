@@ -7,7 +7,7 @@
  * for them exactly as for the candidate; their median is the expectation.
  * The pass rules are ours (stated in docs/vet.md); a t value (Mawet et al.
  * 2014, ApJ 792, 97) has unit variance under noise, which sets the allowance
- * max(2, 2 x the fakes' spread) below.
+ * max(3, 3 x the fakes' spread) below (3 sigma, one-sided).
  *  - snr: the S/N at the fit reaches the t threshold of the chosen sigma at
  *    its degrees of freedom (a detection at all);
  *  - modes: at every mode count the S/N stays within the allowance below the
@@ -41,11 +41,11 @@ static const char *names[GL_VET_NTESTS] = {"snr",     "modes",     "halves",   "
                                            "negated", "scrambled", "spectral", "epochs"};
 static const char *rules[GL_VET_NTESTS] = {
     "S/N at the fit >= the t threshold of --threshold sigma",
-    "min over mode counts of (S/N - fakes' S/N) >= -max(2, 2 spread)",
-    "min over the halves of (S/N - fakes' S/N) >= -max(2, 2 spread)",
+    "min over mode counts of (S/N - fakes' S/N) >= -max(3, 3 spread)",
+    "min over the halves of (S/N - fakes' S/N) >= -max(3, 3 spread)",
     "correlation with the forward model >= median - 3 spread of model+noise draws",
-    "S/N with negated angles - fakes' <= max(2, 2 spread)",
-    "S/N with scrambled angles - fakes' <= max(2, 2 spread)",
+    "S/N with negated angles - fakes' <= max(3, 3 spread)",
+    "S/N with scrambled angles - fakes' <= max(3, 3 spread)",
     "|d sep / d(lambda/mean)| < sep / 2 (a speckle gives sep)",
     "background track rejected (p < 0.0027) and common motion not (p >= 0.0027)"};
 
@@ -212,7 +212,7 @@ static int fakes_expect(const vet_problem *p, int which, int index, double *medi
         return n;
     double sig;
     gl_stats_robust(v, (size_t)n, w, median, &sig);
-    *allow = GL_MAX(2.0, 2 * sig);
+    *allow = GL_MAX(3.0, 3 * sig);
     return n;
 }
 
