@@ -16,5 +16,6 @@
 #include "gloam/detect.h"
 #include "gloam/align.h"
 #include "gloam/vet.h"
+#include "gloam/run.h"
 
 #endif
