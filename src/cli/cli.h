@@ -210,6 +210,7 @@ int cmd_simulate(gl_cli *cli, int argc, char **argv);
 int cmd_subtract(gl_cli *cli, int argc, char **argv);
 int cmd_detect(gl_cli *cli, int argc, char **argv);
 int cmd_limits(gl_cli *cli, int argc, char **argv);
+int cmd_vet(gl_cli *cli, int argc, char **argv);
 int cmd_run(gl_cli *cli, int argc, char **argv);
 
 /* Runs `gloam COMMAND ...` in this process (argv[0] is the program, argv[1]

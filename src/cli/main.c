@@ -22,6 +22,7 @@ static const command commands[] = {
     {"detect", cmd_detect, "S/N and false-alarm maps, candidate point sources"},
     {"inject", cmd_inject, "plant fake companions into a sequence"},
     {"limits", cmd_limits, "contrast curves calibrated by fake companions"},
+    {"vet", cmd_vet, "characterise candidates (negative companion fit, errors) and test them"},
     {"run", cmd_run, "a whole reduction from a plan: run folder, summary, HTML report"},
     {NULL, NULL, NULL},
 };
