@@ -20,8 +20,8 @@ typedef struct gl_cli {
     char cmdline[4096];
     char program[64];
     gl_provenance prov;
-    int parsing;              /* set by cli_next_option once getopt has been reset */
-    int rotation_sense;       /* --rotation-sense: 0 not given, +1 counter-clockwise, -1 clockwise */
+    int parsing;        /* set by cli_next_option once getopt has been reset */
+    int rotation_sense; /* --rotation-sense: 0 not given, +1 counter-clockwise, -1 clockwise */
     char angles_source[1024]; /* where cli_read_cube_angles found the angles ("" before) */
 } gl_cli;
 
@@ -211,6 +211,13 @@ int cmd_subtract(gl_cli *cli, int argc, char **argv);
 int cmd_detect(gl_cli *cli, int argc, char **argv);
 int cmd_limits(gl_cli *cli, int argc, char **argv);
 int cmd_run(gl_cli *cli, int argc, char **argv);
+int cmd_survey(gl_cli *cli, int argc, char **argv);
+
+/* The gl_run_exec_fn of run and survey (cmd_run.c): runs a gloam command in
+ * this process with its stdout and stderr sent to files; user is the
+ * gl_cli of run or survey, whose printers are put back afterwards. */
+int cli_exec_in_process(void *user, int argc, char **argv, const char *stdout_path,
+                        const char *log_path);
 
 /* Runs `gloam COMMAND ...` in this process (argv[0] is the program, argv[1]
  * the command), as main() does; returns the exit status. Used by `gloam

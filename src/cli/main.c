@@ -23,6 +23,7 @@ static const command commands[] = {
     {"inject", cmd_inject, "plant fake companions into a sequence"},
     {"limits", cmd_limits, "contrast curves calibrated by fake companions"},
     {"run", cmd_run, "a whole reduction from a plan: run folder, summary, HTML report"},
+    {"survey", cmd_survey, "every target of a plan, in parallel under mpirun"},
     {NULL, NULL, NULL},
 };
 
