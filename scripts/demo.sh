@@ -55,3 +55,8 @@ echo
 echo "products in $out/: aligned.fits, starpos.csv, klip.fits (north-up, one plane per mode count), klip.snr.fits"
 echo "and klip.snr.png (S/N maps), klip.candidates.csv, klip5.limits.csv/.png/.svg"
 echo "(contrast curve; the real companions in the field raise the noise at 16 and 31 px)"
+
+echo
+echo "== 8. the whole reduction again from one plan (demo-frames/plan.ini): run folder, summary, report"
+"$gloam" run "$frames/plan.ini" --out "$out/run"
+echo "open $out/run/report.html; a second 'gloam run' skips every unchanged step"

@@ -22,7 +22,9 @@ static const command commands[] = {
     {"detect", cmd_detect, "S/N and false-alarm maps, candidate point sources"},
     {"inject", cmd_inject, "plant fake companions into a sequence"},
     {"limits", cmd_limits, "contrast curves calibrated by fake companions"},
+    {"vet", cmd_vet, "characterise candidates (negative companion fit, errors) and test them"},
     {"run", cmd_run, "a whole reduction from a plan: run folder, summary, HTML report"},
+    {"survey", cmd_survey, "every target of a plan, in parallel under mpirun"},
     {NULL, NULL, NULL},
 };
 
