@@ -73,10 +73,10 @@ def main():
             cpu["numpy"].append(cpu_self() - c)
             for g in o.gloam:
                 t, c = time.perf_counter(), cpu_children()
-                r = subprocess.run([g, "subtract", path, "--angles",
+                r = subprocess.run([str(a) for a in [g, "subtract", path, "--angles",
                                     os.path.join(tmp, f"{case}.txt"), "--fwhm", sb.FWHM, "--out",
                                     os.path.join(tmp, f"{case}.out.fits"), *map(str, opts),
-                                    "--threads", str(o.threads), "--overwrite", "--quiet"],
+                                    "--threads", o.threads, "--overwrite", "--quiet"]],
                                    capture_output=True, text=True)
                 if r.returncode:
                     sys.exit(r.stderr)
