@@ -585,8 +585,12 @@ gl_status gl_subtract_run_streamed(const char *path, const double *angles,
     if (p->method != GL_SUBTRACT_PCA)
         kmax = 0;
 
-    /* memory: the fixed part, then blocks and chunks from what is left */
-    int nth = sub_max_threads();
+    /* memory: the fixed part, then blocks and chunks from what is left. The
+     * budget counts one thread's work space, so that block and chunk sizes,
+     * and with them the last bits of the projections, do not depend on the
+     * thread count; each further thread adds its derotation and covariance
+     * work (docs/subtract.md) */
+    int nth = 1;
     double plane = 4.0 * (double)r.npix, nf = (double)r.nf;
     /* output planes, ring maps and median frame (3 planes), region list */
     double fixed = (r.nplanes + 3) * plane + 8.0 * (double)r.reg.npix;
@@ -595,7 +599,7 @@ gl_status gl_subtract_run_streamed(const char *path, const double *angles,
     if (p->method == GL_SUBTRACT_PCA)
         fixed += 16.0 * nf * nf + 8.0 * kmax * nf + 4.0 * kmax * (double)r.reg.npix + 4.0 * nf +
                  8.0 * GL_SUB_MAX((double)sub_basis_rows_work_size(r.nf, kmax),
-                                  (double)sub_covariance_work_size()) +
+                                  (double)sub_covariance_work_size() / sub_max_threads()) +
                  4.0 * nf * (double)sub_covariance_chunk_width() + 4.0 * (double)r.reg.npix;
     /* derotation work per thread: the padded square (4 frames) and 3 more */
     fixed += nth * 7.0 * plane + 4.0 * nth * COMBINE_STACKS * nf;

@@ -75,9 +75,9 @@ def inputs(tmp_path_factory):
     return d, cube.nbytes, base
 
 
-def subtract(d, out, opts, limit=None, cube="cube.fits"):
+def subtract(d, out, opts, limit=None, cube="cube.fits", threads=1):
     args = ["subtract", d / cube, "--angles", d / "angles.txt", "--fwhm", 3,
-            "--mask-radius", 4, "--out", d / out, "--threads", 1, *opts]
+            "--mask-radius", 4, "--out", d / out, "--threads", threads, *opts]
     if limit:
         args += ["--memory-limit", f"{int(limit)}"]
     code, err, rss = run_rss(*args, "--overwrite")
@@ -128,6 +128,15 @@ def test_streamed_variants(inputs, opts, limit, exact):
         assert np.array_equal(ref, got, equal_nan=True)
     else:
         assert np.nanmax(np.abs(ref - got)) <= 1e-5 * np.nanstd(ref)
+
+
+def test_streamed_threads_identical(inputs):
+    """Block sizes are chosen for one thread: 1 and 2 threads, same bits."""
+    d, _, _ = inputs
+    opts = ["--method", "klip-frame", "--modes", "3,8", "--combine", "mean"]
+    one, _, _ = subtract(d, "t1.fits", opts, 12 * 2**20, cube="small.fits")
+    two, _, _ = subtract(d, "t2.fits", opts, 12 * 2**20, cube="small.fits", threads=2)
+    assert np.array_equal(one, two, equal_nan=True)
 
 
 @pytest.mark.parametrize("opts,word", [
