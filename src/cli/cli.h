@@ -110,8 +110,8 @@ gl_status cli_read_input(gl_cli *cli, const char *path, int min_naxis, gl_cube *
  * the cube's own angle table (the ANGLES extension gloam align and inject
  * write), an error naming the cube when it has none. The source is logged
  * and kept in cli->angles_source; angles that look like radians get a
- * warning naming it (gl_angles_look_like_radians). On failure the message names the file at fault; the
- * caller frees whatever is not NULL. */
+ * warning naming it (gl_angles_look_like_radians). On failure the message names the file at fault;
+ * the caller frees whatever is not NULL. */
 gl_status cli_read_cube_angles(gl_cli *cli, const char *cube_path, const char *angles_path,
                                gl_cube **cube, double **angles);
 
