@@ -26,14 +26,14 @@ angles="$out/angles.txt"
 echo
 echo "== 3. classical ADI (median frame subtracted), for comparison"
 "$gloam" subtract "$cube" --angles "$angles" --fwhm "$fwhm" \
-  --mask-radius 6 --method median --out "$out/adi.fits" --overwrite
+  --mask-radius 6 --method median-frame --out "$out/adi.fits" --overwrite
 # no --fwhm: detect reads the FWHM that subtract recorded in adi.fits
 "$gloam" detect "$out/adi.fits" --mask-radius 6 --out "$out/adi" --overwrite
 
 echo
-echo "== 4. annular KLIP: 5, 10 and 20 modes, references rotated by at least 0.75 FWHM"
+echo "== 4. KLIP ring by ring: 5, 10 and 20 modes, references where the sky turned by at least 0.75 FWHM"
 "$gloam" subtract "$cube" --angles "$angles" --fwhm "$fwhm" \
-  --mask-radius 6 --method annular --gap 0.75 --modes 5,10,20 --out "$out/klip.fits" --overwrite
+  --mask-radius 6 --method klip-rings --gap 0.75 --modes 5,10,20 --out "$out/klip.fits" --overwrite
 
 echo
 echo "== 5. detection in the 5-mode image (5 sigma, small-sample statistics)"
@@ -47,7 +47,7 @@ cut -d, -f1-3 "$frames/truth.csv" | sed 's/,/\t/g'
 echo
 echo "== 6. contrast curve calibrated with fake companions, and the candidates' contrast"
 "$gloam" limits "$cube" --angles "$angles" --psf "$frames/psf.fits" \
-  --fwhm "$fwhm" --mask-radius 6 --method annular --gap 0.75 --modes 5 \
+  --fwhm "$fwhm" --mask-radius 6 --method klip-rings --gap 0.75 --modes 5 \
   --candidates "$out/klip.candidates.csv" \
   --out "$out/klip5" --overwrite
 

@@ -196,6 +196,12 @@ GL_API gl_status gl_csv_read(const char *path, gl_csv **out);
 GL_API void gl_csv_free(gl_csv *t);
 /* Index of a column by name, or -1. */
 GL_API int gl_csv_column(const gl_csv *t, const char *name);
+/* Reads the first table extension of a FITS file into the same structure
+ * (numeric scalar columns; others, and nulls, read as NaN).
+ * Errors: GL_ERR_IO, GL_ERR_INPUT (not FITS, no table extension). */
+GL_API gl_status gl_table_read_fits(const char *path, gl_csv **out);
+/* A table as CSV or as a FITS table (by the file's first bytes, "SIMPLE"). */
+GL_API gl_status gl_table_read(const char *path, gl_csv **out);
 GL_API gl_status gl_table_write_fits(const char *path, const gl_table *t, const char *extname,
                                      const gl_provenance *prov);
 

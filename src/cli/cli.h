@@ -20,7 +20,8 @@ typedef struct gl_cli {
     char cmdline[4096];
     char program[64];
     gl_provenance prov;
-    int parsing;              /* set by cli_next_option once getopt has been reset */
+    int parsing;        /* set by cli_next_option once getopt has been reset */
+    int rotation_sense; /* --rotation-sense: 0 not given, +1 counter-clockwise, -1 clockwise */
     char angles_source[1024]; /* where cli_read_cube_angles found the angles ("" before) */
 } gl_cli;
 
@@ -31,8 +32,21 @@ enum {
     CLI_OPT_VERBOSE,
     CLI_OPT_THREADS,
     CLI_OPT_HELP,
+    CLI_OPT_ROTATION_SENSE,
     CLI_OPT_FIRST_COMMAND_OPTION = 1100
 };
+
+/* --rotation-sense, for every command that reads an angle list (subtract,
+ * limits, inject): handled by cli_common_option, applied in one place,
+ * cli_read_cube_angles. */
+#define CLI_ANGLE_OPTION                                                                           \
+    {                                                                                              \
+        "rotation-sense", required_argument, 0, CLI_OPT_ROTATION_SENSE                             \
+    }
+#define CLI_ANGLE_HELP                                                                             \
+    "  --rotation-sense WAY   which way the sky turns on the detector as the angle grows:\n"       \
+    "                         counter-clockwise (default; or the input header's GLROTSNS)\n"       \
+    "                         | clockwise (the angles are then used with the opposite sign)\n"
 
 #define CLI_COMMON_OPTIONS                                                                         \
     {"overwrite", no_argument, 0, CLI_OPT_OVERWRITE}, {"quiet", no_argument, 0, CLI_OPT_QUIET},    \
@@ -110,10 +124,21 @@ gl_status cli_read_input(gl_cli *cli, const char *path, int min_naxis, gl_cube *
  * the cube's own angle table (the ANGLES extension gloam align and inject
  * write), an error naming the cube when it has none. The source is logged
  * and kept in cli->angles_source; angles that look like radians get a
- * warning naming it (gl_angles_look_like_radians). On failure the message names the file at fault;
- * the caller frees whatever is not NULL. */
+ * warning naming it (gl_angles_look_like_radians). On failure the message
+ * names the file at fault; the caller frees whatever is not NULL.
+ * The rotation sense (--rotation-sense, else the cube header's GLROTSNS,
+ * else counter-clockwise) is applied here and only here: with clockwise the
+ * angles are negated, so that everything downstream (subtraction,
+ * derotation, fake companions) keeps the convention of docs/conventions.md;
+ * the sense is recorded as GLROTSNS in the cube's header, which products
+ * copy. */
 gl_status cli_read_cube_angles(gl_cli *cli, const char *cube_path, const char *angles_path,
                                gl_cube **cube, double **angles);
+
+/* The rotation-sense step of cli_read_cube_angles, for a cube and angle list
+ * read another way; source names the angles in the log. */
+gl_status cli_apply_rotation_sense(const gl_cli *cli, gl_cube *cube, const char *source,
+                                   double *angles, long n);
 
 /* Warns (naming source) about an angle list that looks like radians; used
  * wherever angles are read. */
@@ -185,5 +210,12 @@ int cmd_simulate(gl_cli *cli, int argc, char **argv);
 int cmd_subtract(gl_cli *cli, int argc, char **argv);
 int cmd_detect(gl_cli *cli, int argc, char **argv);
 int cmd_limits(gl_cli *cli, int argc, char **argv);
+int cmd_vet(gl_cli *cli, int argc, char **argv);
+int cmd_run(gl_cli *cli, int argc, char **argv);
+
+/* Runs `gloam COMMAND ...` in this process (argv[0] is the program, argv[1]
+ * the command), as main() does; returns the exit status. Used by `gloam
+ * run` so that a step writes exactly what the single command writes. */
+int cli_run_command(int argc, char **argv);
 
 #endif

@@ -25,7 +25,8 @@ static const char help[] =
     "  --out FILE             the cube with companions\n"
     "  --psf-scale F          multiplies the PSF to the science exposure (default 1)\n"
     "  --north-offset DEG     true north offset of the detector (default 0)\n"
-    "  --spectrum F1,F2,...   per-channel contrast multipliers for 4-D cubes (default flat)\n";
+    "  --spectrum F1,F2,...   per-channel contrast multipliers for 4-D cubes (default "
+    "flat)\n" CLI_ANGLE_HELP;
 
 enum {
     OPT_ANGLES = CLI_OPT_FIRST_COMMAND_OPTION,
@@ -59,6 +60,7 @@ int cmd_inject(gl_cli *cli, int argc, char **argv)
                                          {"psf-scale", required_argument, 0, OPT_SCALE},
                                          {"north-offset", required_argument, 0, OPT_NORTH},
                                          {"spectrum", required_argument, 0, OPT_SPECTRUM},
+                                         CLI_ANGLE_OPTION,
                                          CLI_COMMON_OPTIONS,
                                          {0, 0, 0, 0}};
     const char *angles_path = NULL, *psf_path = NULL, *out_path = NULL, *spectrum_text = NULL;

@@ -363,6 +363,7 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
         lp.avoid_pa_deg = cand_pa;
     }
 
+    setup.p.angles_name = angles_path;
     gl_obsinfo info;
     gl_obsinfo_from_header(cube->header, &info);
     if (!(pixscale > 0) && info.pixscale_mas > 0)
@@ -406,7 +407,15 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
                       "subtraction method");
     if (modes_text[0])
         gl_header_set_str(keys, "GLMODES", modes_text, "KL mode counts, one per plane");
-    gl_header_set_dbl(keys, "GLMASK", setup.p.mask_radius, "[pix] inner mask radius");
+    gl_header_set_dbl(keys, "GLMASK",
+                      gl_subtract_inner_radius(&setup.p, angles, cube->nframe,
+                                               refs ? refs->nframe : 0, cube->nx, cube->ny),
+                      "[pix] inner mask radius");
+    {
+        char sense[72];
+        if (gl_header_get_str(cube->header, "GLROTSNS", sense, sizeof sense))
+            gl_header_set_str(keys, "GLROTSNS", sense, "sky turn on the detector as angle grows");
+    }
     gl_header_set_int(keys, "GLFKRUNS", lp.fake_runs, "subtraction runs with fake companions");
     gl_header_set_int(keys, "GLNFAKE", res.nfakes, "fake companions planted");
     gl_header_set_dbl(keys, "GLFAKELV", lp.fake_level, "fake flux / local aperture noise");

@@ -1,6 +1,6 @@
 /*
  * cmd_subtract.c -- `gloam subtract`: starlight subtraction (classical ADI,
- * full-frame and annular KLIP, RDI, SDI/ASDI), derotation to north-up and
+ * KLIP over the whole region or ring by ring, RDI, SDI/ASDI), derotation to north-up and
  * combination. Parses options into gl_subtract_params and calls
  * gl_subtract_run; writes the image (one plane per mode count) and, when
  * asked, the residual cubes, all or nothing.
@@ -17,7 +17,7 @@ static const char help[] =
     "usage: gloam subtract CUBE --angles FILE --fwhm PX --out RESULT.fits [options]\n\n"
     "Removes the star's speckle halo, derotates the residuals to north-up (east left)\n"
     "and combines them. RESULT.fits holds one plane per mode count, in the order given\n"
-    "(one plane for --method median or none).\n\n"
+    "(one plane for --method median-frame or derotate-only).\n\n"
     "options:\n"
     "  --angles FILE          parallactic angles (deg), one per frame (default: the\n"
     "                         cube's ANGLES table, written by gloam align)\n"
@@ -92,6 +92,7 @@ int cmd_subtract(gl_cli *cli, int argc, char **argv)
         goto cleanup;
     if ((st = cli_subtract_prepare(cli, &setup, cube_path, cube, &refs)))
         goto cleanup;
+    pp->angles_name = angles_path;
     pp->keep_residuals = resid_path != NULL;
     pp->keep_raw_residuals = raw_path != NULL;
 
@@ -108,10 +109,10 @@ int cmd_subtract(gl_cli *cli, int argc, char **argv)
         (tmp_raw && (st = gl_fits_write_cube(tmp_raw, res.raw_residuals, &cli->prov))) ||
         (st = gl_outset_commit(outs)))
         goto cleanup;
-    gl_log(GL_LOG_INFO, "%s: %s subtraction of %ld frames%s, %ld plane%s", out_path,
-           gl_subtract_method_name(pp->method), res.nframes_used,
+    gl_log(GL_LOG_INFO, "%s: %s subtraction of %ld frames%s, %ld plane%s, from %.1f px out",
+           out_path, gl_subtract_method_name(pp->method), res.nframes_used,
            res.nrefs_used ? " with reference frames" : "", res.image->nframe,
-           res.image->nframe > 1 ? "s" : "");
+           res.image->nframe > 1 ? "s" : "", res.inner_radius);
 
 cleanup:
     gl_outset_free(outs);

@@ -151,6 +151,16 @@ int cli_common_option(gl_cli *cli, int code, const char *arg, const char *help_t
             return -1;
         cli->threads = (int)n;
         return 1;
+    case CLI_OPT_ROTATION_SENSE:
+        if (strcmp(arg, "counter-clockwise") == 0)
+            cli->rotation_sense = 1;
+        else if (strcmp(arg, "clockwise") == 0)
+            cli->rotation_sense = -1;
+        else {
+            cli_usage(cli, "--rotation-sense: '%s' is not counter-clockwise or clockwise", arg);
+            return -1;
+        }
+        return 1;
     case CLI_OPT_HELP:
         fputs(help_text, stdout);
         fputs(CLI_COMMON_HELP, stdout);
@@ -197,7 +207,31 @@ gl_status cli_read_cube_angles(gl_cli *cli, const char *cube_path, const char *a
                GL_ANGLES_EXTNAME, cube_path);
     }
     cli_check_angles(cli->angles_source, *angles, n);
-    return GL_OK;
+    return cli_apply_rotation_sense(cli, *cube, cli->angles_source, *angles, n);
+}
+
+gl_status cli_apply_rotation_sense(const gl_cli *cli, gl_cube *cube, const char *source,
+                                   double *angles, long n)
+{
+    char hs[72] = "";
+    int sense = cli->rotation_sense, from_header = 0;
+    if (!sense && gl_header_get_str(cube->header, "GLROTSNS", hs, sizeof hs)) {
+        sense = strcmp(hs, "clockwise") == 0 ? -1 : 1;
+        from_header = 1;
+    }
+    if (!sense)
+        sense = 1;
+    if (sense < 0) {
+        for (long i = 0; i < n; i++)
+            angles[i] = -angles[i];
+        gl_log(GL_LOG_INFO,
+               "%s: the sky turns clockwise as these angles grow (%s): they are used with the "
+               "opposite sign",
+               source, from_header ? "GLROTSNS of the cube" : "--rotation-sense clockwise");
+    }
+    return gl_header_set_str(cube->header, "GLROTSNS",
+                             sense < 0 ? "clockwise" : "counter-clockwise",
+                             "sky turn on the detector as the angle grows");
 }
 
 void cli_check_angles(const char *source, const double *angles, long n)
@@ -379,6 +413,14 @@ void cli_deprecated(const gl_cli *cli, const char *old, const char *now)
 static void print_log(gl_log_level level, const char *msg, void *user)
 {
     const gl_cli *cli = user;
+    /* a command that runs a step several times (limits: the subtraction
+     * with and without fakes) says each thing once */
+    static char said[8][512];
+    static int nsaid;
+    for (int i = 0; i < nsaid && i < 8; i++)
+        if (strncmp(said[i], msg, sizeof said[i] - 1) == 0)
+            return;
+    snprintf(said[nsaid++ % 8], sizeof said[0], "%s", msg);
     const char *tag = level == GL_LOG_ERROR ? "error: " : level == GL_LOG_WARN ? "warning: " : "";
     fprintf(stderr, "gloam %s: %s%s\n", cli->command, tag, msg);
 }

@@ -1,7 +1,7 @@
 /*
- * table.c -- writing result tables: CSV (one header line of column names,
+ * table.c -- result tables: CSV (one header line of column names,
  * numbers at full double precision) and the same columns as a FITS binary
- * table extension through cfitsio.
+ * table extension through cfitsio; reading both back (gl_csv).
  */
 #include "core/internal.h"
 #include "io/internal.h"
@@ -203,4 +203,97 @@ cleanup:
     gl_csv_free(t);
     fclose(fp);
     return st;
+}
+
+gl_status gl_table_read_fits(const char *path, gl_csv **out)
+{
+    fitsfile *f = NULL;
+    int status = 0, hdutype = 0, ncols = 0;
+    long nrows = 0;
+    gl_status st = GL_OK;
+    gl_csv *t = NULL;
+    *out = NULL;
+    if (fits_open_diskfile(&f, path, READONLY, &status))
+        return gl_fits_error(GL_ERR_IO, path, "cannot open", status);
+    /* the first binary or ASCII table extension */
+    for (int h = 2;; h++) {
+        if (fits_movabs_hdu(f, h, &hdutype, &status)) {
+            st = gl_error_set(GL_ERR_INPUT, "%s: no table extension", path);
+            goto cleanup;
+        }
+        if (hdutype == BINARY_TBL || hdutype == ASCII_TBL)
+            break;
+    }
+    fits_get_num_rows(f, &nrows, &status);
+    fits_get_num_cols(f, &ncols, &status);
+    if (status) {
+        st = gl_fits_error(GL_ERR_INPUT, path, "cannot read the table layout", status);
+        goto cleanup;
+    }
+    if (!(t = gl_calloc(1, sizeof *t)) ||
+        !(t->names = gl_calloc((size_t)ncols, sizeof *t->names)) ||
+        !(t->data = gl_calloc((size_t)(nrows ? nrows : 1) * (size_t)ncols, sizeof *t->data))) {
+        st = gl_error_nomem("table");
+        goto cleanup;
+    }
+    t->ncols = ncols;
+    t->nrows = nrows;
+    double *col = gl_malloc((size_t)(nrows ? nrows : 1) * sizeof *col);
+    if (!col) {
+        st = gl_error_nomem("table");
+        goto cleanup;
+    }
+    for (int c = 0; c < ncols && !st; c++) {
+        char key[16], name[72] = "";
+        int typecode = 0;
+        long repeat = 0, width = 0;
+        snprintf(key, sizeof key, "TTYPE%d", c + 1);
+        fits_read_key(f, TSTRING, key, name, NULL, &status);
+        status = 0;
+        size_t len = strlen(name) + 1;
+        if (!(t->names[c] = gl_malloc(len))) {
+            st = gl_error_nomem("table");
+            break;
+        }
+        memcpy(t->names[c], name, len);
+        fits_get_coltype(f, c + 1, &typecode, &repeat, &width, &status);
+        /* numeric scalar columns only; others read as NaN */
+        if (!status && typecode != TSTRING && repeat == 1 && nrows > 0) {
+            double nul = NAN;
+            int anynul = 0;
+            fits_read_col(f, TDOUBLE, c + 1, 1, 1, nrows, &nul, col, &anynul, &status);
+        } else {
+            for (long r = 0; r < nrows; r++)
+                col[r] = NAN;
+        }
+        if (status) {
+            st = gl_fits_error(GL_ERR_INPUT, path, "cannot read a column", status);
+            break;
+        }
+        for (long r = 0; r < nrows; r++)
+            t->data[r * ncols + c] = col[r];
+    }
+    gl_free(col);
+    if (!st) {
+        *out = t;
+        t = NULL;
+    }
+cleanup:
+    gl_csv_free(t);
+    status = 0;
+    fits_close_file(f, &status);
+    return st;
+}
+
+gl_status gl_table_read(const char *path, gl_csv **out)
+{
+    FILE *fp = fopen(path, "rb");
+    char head[6] = "";
+    if (!fp)
+        return gl_error_set(GL_ERR_IO, "%s: cannot open (%s)", path, strerror(errno));
+    size_t n = fread(head, 1, 6, fp);
+    fclose(fp);
+    if (n == 6 && memcmp(head, "SIMPLE", 6) == 0)
+        return gl_table_read_fits(path, out);
+    return gl_csv_read(path, out);
 }

@@ -151,9 +151,9 @@ def subtracted(path):
 # ---- 1. the curve on white noise equals the analytic value ------------------
 
 CASES = [
-    ("median", [], []),
-    ("pca", ["--modes", "3,8"], []),
-    ("median", ["--mask-radius", "5"], ["--exclude-adjacent"]),
+    ("median-frame", [], []),
+    ("klip-frame", ["--modes", "3,8"], []),
+    ("median-frame", ["--mask-radius", "5"], ["--exclude-adjacent"]),
 ]
 
 
@@ -228,7 +228,7 @@ def test_completeness_columns_match_scipy_nct(tmp_path):
     f / (sigma sqrt(1 + 1/n2)). scipy.stats.nct.sf gives the completeness;
     scipy.optimize.brentq inverts it for delta at 50% and at 90%."""
     c, a, p = noise_inputs(tmp_path, seed=12)
-    ok("limits", c, "--angles", a, "--psf", p, "--fwhm", FWHM, "--method", "median",
+    ok("limits", c, "--angles", a, "--psf", p, "--fwhm", FWHM, "--method", "median-frame",
        "--threshold", 4, "--completeness", 0.9, "--out", tmp_path / "l", "--quiet")
     t = table(tmp_path / "l.limits.csv")
     assert "contrast_c90" in t and "delta_mag_c90" in t
@@ -276,7 +276,7 @@ def sim(tmp_path_factory):
     return d, fwhm, amp, angles
 
 
-@pytest.mark.parametrize("method,opts", [("median", []), ("pca", ["--modes", "3,8"])])
+@pytest.mark.parametrize("method,opts", [("median-frame", []), ("klip-frame", ["--modes", "3,8"])])
 def test_throughput_matches_numpy_injection(sim, tmp_path, method, opts):
     d, fwhm, amp, angles = sim
     cube = fits.getdata(d / "s" / "cube.fits").astype(float)
@@ -362,7 +362,7 @@ def test_calibration_by_planted_companions(tmp_path):
     p = tmp_path / "psf.fits"
     write_psf(p)
     cube_path = tmp_path / "cube.fits"
-    common = ["--angles", a, "--fwhm", FWHM, "--method", "median"]
+    common = ["--angles", a, "--fwhm", FWHM, "--method", "median-frame"]
     grid = ["--min-separation", CAL_SEPS[0], "--step", CAL_SEPS[1] - CAL_SEPS[0],
             "--max-separation", CAL_SEPS[-1]]
 
@@ -454,7 +454,7 @@ def test_calibration_by_planted_companions(tmp_path):
 def bad_case(tmp, *extra, psf=None, angles=None):
     c, a, p = noise_inputs(tmp, seed=3, n=48, nf=20)
     args = ["limits", c, "--angles", angles or a, "--psf", psf or p, "--fwhm", FWHM,
-            "--method", "median", "--out", tmp / "o", *extra]
+            "--method", "median-frame", "--out", tmp / "o", *extra]
     before = {q.name: hashlib.sha256(q.read_bytes()).hexdigest() for q in tmp.iterdir()}
     r = run(*args)
     after = {q.name: hashlib.sha256(q.read_bytes()).hexdigest() for q in tmp.iterdir()}
@@ -515,7 +515,7 @@ def test_bad_separation_range(tmp_path):
 
 def test_threads_and_products(tmp_path):
     c, a, p = noise_inputs(tmp_path, seed=5, n=48, nf=20)
-    common = ["limits", c, "--angles", a, "--psf", p, "--fwhm", FWHM, "--method", "pca",
+    common = ["limits", c, "--angles", a, "--psf", p, "--fwhm", FWHM, "--method", "klip-frame",
               "--modes", "2,4", "--quiet", "--pixscale", 12.25]
     ok(*common, "--threads", 1, "--out", tmp_path / "t1")
     ok(*common, "--threads", 2, "--out", tmp_path / "t2")
@@ -558,7 +558,7 @@ def test_candidate_contrast_recovers_the_planted_one(tmp_path):
     write_cube(tmp_path / "cube.fits", cube)
     write_angles(tmp_path / "angles.txt", angles)
     write_psf(tmp_path / "psf.fits")
-    common = ["--angles", tmp_path / "angles.txt", "--fwhm", FWHM, "--method", "median"]
+    common = ["--angles", tmp_path / "angles.txt", "--fwhm", FWHM, "--method", "median-frame"]
     ok("subtract", tmp_path / "cube.fits", *common, "--out", tmp_path / "sub.fits")
     ok("detect", tmp_path / "sub.fits", "--fwhm", FWHM, "--out", tmp_path / "det")
     det = table(tmp_path / "det.candidates.csv")
@@ -581,7 +581,7 @@ def test_candidates_table_without_positions_is_refused(tmp_path):
     (tmp_path / "c.csv").write_text("a,b\n1,2\n")
     before = sorted(p.name for p in tmp_path.iterdir())
     r = run("limits", cube, "--angles", angles, "--psf", psf, "--fwhm", FWHM, "--method",
-            "median", "--candidates", tmp_path / "c.csv", "--out", tmp_path / "lim")
+            "median-frame", "--candidates", tmp_path / "c.csv", "--out", tmp_path / "lim")
     assert r.returncode == 1 and "no sep_px and pa_deg columns" in r.stderr
     assert len(r.stderr.strip().splitlines()) == 1
     assert sorted(p.name for p in tmp_path.iterdir()) == before
