@@ -20,7 +20,8 @@ static const char help[] =
     "completeness (Jensen-Clem et al. 2018). Writes PREFIX.limits.csv, .limits.fits,\n"
     "PREFIX.limits.png, .limits.svg and PREFIX.fakes.csv.\n\n"
     "options:\n"
-    "  --angles FILE          parallactic angles (deg), one per frame\n"
+    "  --angles FILE          parallactic angles (deg), one per frame (default: the\n"
+    "                         cube's ANGLES table, written by gloam align)\n"
     "  --psf FILE             unsaturated off-axis PSF\n"
     "  --out PREFIX           prefix of the products\n"
     "  --psf-scale F          multiplies the PSF to the science exposure (default 1)\n"
@@ -291,9 +292,9 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
     if (!cube_path)
         return 1;
     {
-        const char *names[] = {"--angles", "--psf", "--fwhm", "--out"};
-        const void *vals[] = {angles_path, psf_path, setup.have_fwhm ? names : NULL, prefix};
-        if (cli_missing(cli, 4, names, vals))
+        const char *names[] = {"--psf", "--fwhm", "--out"}; /* angles: cli_read_cube_angles */
+        const void *vals[] = {psf_path, setup.have_fwhm ? names : NULL, prefix};
+        if (cli_missing(cli, 3, names, vals))
             return 1;
     }
     if (cli_subtract_check(cli, &setup))
@@ -315,6 +316,8 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
     const char *t_csv, *t_fits, *t_png, *t_svg, *t_fakes, *t_comp = NULL;
 
     if ((st = cli_read_cube_angles(cli, cube_path, angles_path, &cube, &angles)) ||
+        (st = cli_resolve_fwhm(cli, &setup.p.fwhm, setup.p.fwhm > 0 ? NULL : psf_path, cube->header,
+                               cube_path)) ||
         (st = cli_read_input(cli, psf_path, 2, &psfc)) ||
         (st = cli_subtract_prepare(cli, &setup, cube_path, cube, &refs)) ||
         (st = gl_psf_model_new(psfc, psf_path, cube->nx, cube->ny, cube->nchan, psf_scale, &psf)))

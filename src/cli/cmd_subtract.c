@@ -19,7 +19,8 @@ static const char help[] =
     "and combines them. RESULT.fits holds one plane per mode count, in the order given\n"
     "(one plane for --method median-frame or derotate-only).\n\n"
     "options:\n"
-    "  --angles FILE          parallactic angles (deg), one per frame\n"
+    "  --angles FILE          parallactic angles (deg), one per frame (default: the\n"
+    "                         cube's ANGLES table, written by gloam align)\n"
     "  --out FILE             the north-up product\n"
     "  --residuals FILE       also write the derotated residual cube\n"
     "  --raw-residuals FILE   also write the residuals before derotation\n"
@@ -66,12 +67,16 @@ int cmd_subtract(gl_cli *cli, int argc, char **argv)
     if (!cube_path)
         return 1;
     {
-        const char *names[] = {"--angles", "--fwhm", "--out"};
-        const void *vals[] = {angles_path, setup.have_fwhm ? names : NULL, out_path};
-        if (cli_missing(cli, 3, names, vals))
+        const char *names[] = {"--fwhm", "--out"}; /* angles: cli_read_cube_angles */
+        const void *vals[] = {setup.have_fwhm ? names : NULL, out_path};
+        if (cli_missing(cli, 2, names, vals))
             return 1;
     }
     if (cli_subtract_check(cli, &setup))
+        return 1;
+    char out_buf[4096]; /* --out DIR/: DIR/STEM.subtracted.fits (cli_output_name) */
+    if (!(out_path = cli_output_name(cli, out_path, cube_path, ".subtracted.fits", out_buf,
+                                     sizeof out_buf)))
         return 1;
     cli_start(cli);
 
@@ -82,7 +87,8 @@ int cmd_subtract(gl_cli *cli, int argc, char **argv)
     const char *tmp_out = NULL, *tmp_resid = NULL, *tmp_raw = NULL;
     gl_status st;
 
-    if ((st = cli_read_cube_angles(cli, cube_path, angles_path, &cube, &angles)))
+    if ((st = cli_read_cube_angles(cli, cube_path, angles_path, &cube, &angles)) ||
+        (st = cli_resolve_fwhm(cli, &pp->fwhm, NULL, cube->header, cube_path)))
         goto cleanup;
     if ((st = cli_subtract_prepare(cli, &setup, cube_path, cube, &refs)))
         goto cleanup;

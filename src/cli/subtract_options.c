@@ -14,7 +14,8 @@
 #include <string.h>
 
 const char cli_subtract_help[] =
-    "  --fwhm PX              PSF full width at half maximum, pixels (> 0)\n"
+    "  --fwhm PX|auto         PSF full width at half maximum, pixels; auto: measured on\n"
+    "                         --psf, or recorded in the input's header\n"
     "  --method NAME          how the star's light is modelled and removed (default klip-frame):\n"
     "                           median-frame: each frame minus the median of all frames\n"
     "                             (classical ADI)\n"
@@ -129,13 +130,8 @@ int cli_subtract_option(gl_cli *cli, int code, const char *optarg, cli_subtract_
     case CLI_OPT_SDI: cli_deprecated(cli, "--sdi", "--spectral-step"); /* fall through */
     case CLI_OPT_SPECTRAL: p.sdi = GL_SDI_CHANNELS; return 1;
     case CLI_OPT_FWHM:
-        if (cli_parse_double(cli, "--fwhm", optarg, -INFINITY, INFINITY, &p.fwhm))
+        if (cli_parse_fwhm(cli, optarg, &p.fwhm)) /* auto: cli_resolve_fwhm */
             return -1;
-        if (!(p.fwhm >= GL_FWHM_MIN_PX) || p.fwhm > 1e4) {
-            cli_usage(cli, "--fwhm must be the PSF's FWHM in pixels, at least 0.5 (got %s)",
-                      optarg);
-            return -1;
-        }
         s->have_fwhm = 1;
         return 1;
     case CLI_OPT_METHOD: {
