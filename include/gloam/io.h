@@ -177,6 +177,14 @@ typedef struct gl_table {
 
 /* Write t to path (normally a temporary name from gl_outset_add); a failed
  * write leaves no file. Errors: GL_ERR_IO (naming path), GL_ERR_NOMEM. */
+/* The same tables led by one column of text (label_name; labels holds
+ * t->nrows strings: a target's name, a status), quoted in CSV where
+ * RFC 4180 asks; in FITS a character column as wide as the longest label. */
+GL_API gl_status gl_table_write_csv_labelled(const char *path, const gl_table *t,
+                                             const char *label_name, const char *const *labels);
+GL_API gl_status gl_table_write_fits_labelled(const char *path, const gl_table *t,
+                                              const char *extname, const gl_provenance *prov,
+                                              const char *label_name, const char *const *labels);
 GL_API gl_status gl_table_write_csv(const char *path, const gl_table *t);
 
 /* A CSV table read back: one header line of column names, then rows of
@@ -196,6 +204,12 @@ GL_API gl_status gl_csv_read(const char *path, gl_csv **out);
 GL_API void gl_csv_free(gl_csv *t);
 /* Index of a column by name, or -1. */
 GL_API int gl_csv_column(const gl_csv *t, const char *name);
+/* Reads the first table extension of a FITS file into the same structure
+ * (numeric scalar columns; others, and nulls, read as NaN).
+ * Errors: GL_ERR_IO, GL_ERR_INPUT (not FITS, no table extension). */
+GL_API gl_status gl_table_read_fits(const char *path, gl_csv **out);
+/* A table as CSV or as a FITS table (by the file's first bytes, "SIMPLE"). */
+GL_API gl_status gl_table_read(const char *path, gl_csv **out);
 GL_API gl_status gl_table_write_fits(const char *path, const gl_table *t, const char *extname,
                                      const gl_provenance *prov);
 
