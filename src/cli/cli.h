@@ -214,6 +214,10 @@ int cmd_vet(gl_cli *cli, int argc, char **argv);
 int cmd_run(gl_cli *cli, int argc, char **argv);
 int cmd_survey(gl_cli *cli, int argc, char **argv);
 
+/* --force STEP of run and survey: sets force[step] (every step for "all");
+ * prints a message and returns -1 for an unknown step. */
+int cli_parse_force(const gl_cli *cli, const char *arg, int force[GL_NSTEPS]);
+
 /* The gl_run_exec_fn of run and survey (cmd_run.c): runs a gloam command in
  * this process with its stdout and stderr sent to files; user is the
  * gl_cli of run or survey, whose printers are put back afterwards. */

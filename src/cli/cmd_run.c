@@ -57,6 +57,23 @@ static void restore(int fd, int saved)
     }
 }
 
+int cli_parse_force(const gl_cli *cli, const char *arg, int force[GL_NSTEPS])
+{
+    int s = gl_step_from_name(arg);
+    if (strcmp(arg, "all") == 0) {
+        for (int i = 0; i < GL_NSTEPS; i++)
+            force[i] = 1;
+    } else if (s < 0) {
+        cli_usage(cli,
+                  "--force %s: not a step (inspect, align, subtract, detect, limits, vet, all)",
+                  arg);
+        return -1;
+    } else {
+        force[s] = 1;
+    }
+    return 0;
+}
+
 int cli_exec_in_process(void *user, int argc, char **argv, const char *stdout_path,
                         const char *log_path)
 {
@@ -92,21 +109,10 @@ int cmd_run(gl_cli *cli, int argc, char **argv)
         switch (c) {
         case OPT_OUT: rp.folder = optarg; break;
         case OPT_TARGET: target = optarg; break;
-        case OPT_FORCE: {
-            int s = gl_step_from_name(optarg);
-            if (strcmp(optarg, "all") == 0) {
-                for (int i = 0; i < GL_NSTEPS; i++)
-                    rp.force[i] = 1;
-            } else if (s < 0) {
-                return cli_usage(cli,
-                                 "--force %s: not a step (inspect, align, subtract, detect, "
-                                 "limits, vet, all)",
-                                 optarg);
-            } else {
-                rp.force[s] = 1;
-            }
+        case OPT_FORCE:
+            if (cli_parse_force(cli, optarg, rp.force))
+                return 1;
             break;
-        }
         case OPT_DRY: rp.dry_run = 1; break;
         case OPT_EXAMPLE: example = 1; break;
         default: return cli_bad_option(cli, argv);

@@ -64,21 +64,10 @@ int cmd_survey(gl_cli *cli, int argc, char **argv)
     while ((k = cli_next_option(cli, argc, argv, opts, help, &c)) > 0) {
         switch (c) {
         case OPT_OUT: sp.folder = optarg; break;
-        case OPT_FORCE: {
-            int s = gl_step_from_name(optarg);
-            if (strcmp(optarg, "all") == 0) {
-                for (int i = 0; i < GL_NSTEPS; i++)
-                    sp.run.force[i] = 1;
-            } else if (s < 0) {
-                return cli_usage(cli,
-                                 "--force %s: not a step (inspect, align, subtract, detect, "
-                                 "limits, vet, all)",
-                                 optarg);
-            } else {
-                sp.run.force[s] = 1;
-            }
+        case OPT_FORCE:
+            if (cli_parse_force(cli, optarg, sp.run.force))
+                return 1;
             break;
-        }
         default: return cli_bad_option(cli, argv);
         }
     }

@@ -55,15 +55,6 @@ typedef struct parse_state {
     char error[1024];
 } parse_state;
 
-static char *dup_str(const char *s)
-{
-    size_t n = strlen(s) + 1;
-    char *d = gl_malloc(n);
-    if (d)
-        memcpy(d, s, n);
-    return d;
-}
-
 /* An fgets over the text in memory that counts the lines it hands out. */
 static char *read_line(char *buf, int size, void *stream)
 {
@@ -109,7 +100,7 @@ static int add_target(gl_plan *p, const char *name)
     if (!t)
         return 0;
     p->targets = t;
-    if (!(p->targets[p->ntargets] = dup_str(name)))
+    if (!(p->targets[p->ntargets] = gl_strdup(name)))
         return 0;
     p->ntargets++;
     return 1;
@@ -167,10 +158,10 @@ static int on_pair(void *user, const char *section, const char *key, const char 
     plan_entry *e = &p->e[p->n];
     memset(e, 0, sizeof *e);
     e->line = ps->line;
-    e->section = dup_str(sec);
-    e->key = dup_str(key);
-    e->value = dup_str(value);
-    e->target = *target ? dup_str(target) : NULL;
+    e->section = gl_strdup(sec);
+    e->key = gl_strdup(key);
+    e->value = gl_strdup(value);
+    e->target = *target ? gl_strdup(target) : NULL;
     if (!e->section || !e->key || !e->value || (*target && !e->target) ||
         (*target && !add_target(p, target))) {
         gl_free(e->section);

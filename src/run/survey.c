@@ -45,25 +45,6 @@ void gl_survey_params_init(gl_survey_params *p)
     gl_run_params_init(&p->run);
 }
 
-static cJSON *read_json(const char *path)
-{
-    FILE *f = fopen(path, "rb");
-    if (!f)
-        return NULL;
-    cJSON *j = NULL;
-    if (fseek(f, 0, SEEK_END) == 0) {
-        long n = ftell(f);
-        char *t = n > 0 ? malloc((size_t)n + 1) : NULL;
-        if (t && fseek(f, 0, SEEK_SET) == 0 && fread(t, 1, (size_t)n, f) == (size_t)n) {
-            t[n] = '\0';
-            j = cJSON_Parse(t);
-        }
-        free(t);
-    }
-    fclose(f);
-    return j;
-}
-
 static double jnum(const cJSON *o, const char *path)
 {
     /* path: "a.b.c" through objects */
@@ -236,12 +217,7 @@ static gl_status contrast_figure(const char *path, const char *const *names, con
 #undef PX
 #undef PY
     cairo_destroy(cr);
-    cairo_status_t cs = cairo_surface_write_to_png(s, path);
-    cairo_surface_destroy(s);
-    if (cs != CAIRO_STATUS_SUCCESS)
-        return gl_error_set(GL_ERR_IO, "%s: cannot write the figure: %s", path,
-                            cairo_status_to_string(cs));
-    return GL_OK;
+    return run_png_finish(s, path);
 }
 
 /* ---- the survey products ----------------------------------------------- */
@@ -265,7 +241,7 @@ static gl_status write_products(gl_plan *plan, const gl_survey_params *sp, const
         char path[4400];
         labels[i] = gl_plan_target_name(plan, i);
         snprintf(path, sizeof path, "%s/%s/summary.json", sp->folder, labels[i]);
-        sums[i] = read_json(path);
+        sums[i] = run_read_json(path);
         all_arcsec &= sums[i] && isfinite(jnum(sums[i], "pixscale_mas"));
         double v[NCOL];
         table_row(sums[i], rec[i].status == 0, v);
