@@ -121,7 +121,7 @@ int cmd_subtract(gl_cli *cli, int argc, char **argv)
         if ((st = cli_subtract_prepare(cli, &setup, cube_path, cube, &refs)))
             goto cleanup;
     }
-    pp->angles_name = angles_path;
+    pp->angles_name = cli->angles_source;
 
     if ((st = gl_outset_new(cli->overwrite, &outs)) ||
         (st = gl_outset_add(outs, out_path, &cli->prov, &tmp_out)) ||
