@@ -170,12 +170,9 @@ static gl_status read_candidates(const char *path, long nx, long ny, double **se
                           path);
         goto cleanup;
     }
-    if (t->nrows == 0) {
-        st = gl_error_set(GL_ERR_INPUT, "%s: no candidates in the table", path);
-        goto cleanup;
-    }
-    *sep = gl_malloc((size_t)t->nrows * sizeof **sep);
-    *pa = gl_malloc((size_t)t->nrows * sizeof **pa);
+    /* an empty table is no error: the products say there was nothing */
+    *sep = gl_malloc((size_t)(t->nrows + 1) * sizeof **sep);
+    *pa = gl_malloc((size_t)(t->nrows + 1) * sizeof **pa);
     if (!*sep || !*pa) {
         st = gl_error_nomem("candidates");
         goto cleanup;
@@ -316,7 +313,7 @@ static gl_status write_table(const char *csv, const char *fits, const gl_vet_res
     char tn[4 * GL_VET_NTESTS][32];
     const char *names[NCOLS], *units[NCOLS];
     const double *cols[NCOLS];
-    double *buf = gl_calloc((size_t)n * NCOLS, sizeof *buf);
+    double *buf = gl_calloc((size_t)(n + 1) * NCOLS, sizeof *buf);
     if (!buf)
         return gl_error_nomem("vet table");
     for (int c = 0; c < NFIX; c++) {
@@ -560,11 +557,13 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
         (st = cli_add_product(cli, outs, prefix, ".vet.fits", p_fits, sizeof p_fits, &t_fits)) ||
         (st = cli_add_product(cli, outs, prefix, ".vet.reg", p_reg, sizeof p_reg, &t_reg)))
         goto cleanup;
-    p_png = gl_calloc((size_t)ncand, sizeof *p_png);
-    p_svg = gl_calloc((size_t)ncand, sizeof *p_svg);
-    t_png = gl_calloc((size_t)ncand, sizeof *t_png);
-    t_svg = gl_calloc((size_t)ncand, sizeof *t_svg);
-    res = gl_calloc((size_t)ncand, sizeof *res);
+    if (ncand == 0)
+        gl_log(GL_LOG_INFO, "no candidates in %s: the tables are written empty", cand_path);
+    p_png = gl_calloc((size_t)ncand + 1, sizeof *p_png);
+    p_svg = gl_calloc((size_t)ncand + 1, sizeof *p_svg);
+    t_png = gl_calloc((size_t)ncand + 1, sizeof *t_png);
+    t_svg = gl_calloc((size_t)ncand + 1, sizeof *t_svg);
+    res = gl_calloc((size_t)ncand + 1, sizeof *res);
     if (!p_png || !p_svg || !t_png || !t_svg || !res) {
         st = gl_error_nomem("vet products");
         goto cleanup;
@@ -660,7 +659,7 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
         (st = write_regions(t_reg, res, ncand, cube->nx, cube->ny)) ||
         (st = gl_outset_commit(outs)))
         goto cleanup;
-    gl_log(GL_LOG_INFO, "wrote %s (.fits, .reg) and %ld figure%s %s-N.png/.svg", p_csv, ncand,
+    gl_log(GL_LOG_INFO, "wrote %s (.fits, .reg) and %ld figure%s %s.vet-N.png/.svg", p_csv, ncand,
            ncand == 1 ? "" : "s", prefix);
 
 cleanup:
