@@ -20,8 +20,8 @@ typedef struct gl_cli {
     char cmdline[4096];
     char program[64];
     gl_provenance prov;
-    int parsing;              /* set by cli_next_option once getopt has been reset */
-    int rotation_sense;       /* --rotation-sense: 0 not given, +1 counter-clockwise, -1 clockwise */
+    int parsing;        /* set by cli_next_option once getopt has been reset */
+    int rotation_sense; /* --rotation-sense: 0 not given, +1 counter-clockwise, -1 clockwise */
     char angles_source[1024]; /* where cli_read_cube_angles found the angles ("" before) */
 } gl_cli;
 
