@@ -280,3 +280,33 @@ def test_bad_candidates(empty, tmp_path, name, text, what):
     assert len(lines) == 1 and cand in lines[0] and what in lines[0], r.stderr
     assert (sorted(os.listdir(d)), sorted(os.listdir(tmp_path))) == before
     assert not glob.glob(f"{tmp_path}/bad.*")
+
+
+def test_spectral_radial_motion(tmp_path):
+    """4-D cube (4 channels): a companion keeps its separation across the
+    band and passes; a source whose separation grows in proportion to the
+    wavelength (as a speckle's does, Sparks & Ford 2002, ApJ 578, 543), made
+    here by planting it channel by channel at sep x lambda / mean, fails."""
+    d = str(tmp_path)
+    waves = [1.5, 1.6, 1.7, 1.8]
+    ok("simulate", d, "--seed", 5, "--quiet", *SIM, "--wavelengths", ",".join(map(str, waves)),
+       "--companion", "15:230:1e-3")
+    r = vet(d, [(15.5, 228.5)], fakes=2)[0]
+    assert r["spectral_pass"] == 1 and abs(r["spectral_value"]) < 1.5, r
+    # the speckle-like source, on a companion-free 4-D sequence
+    e = f"{d}/e"
+    ok("simulate", e, "--seed", 6, "--quiet", *SIM, "--wavelengths", ",".join(map(str, waves)))
+    with fits.open(f"{e}/cube.fits") as h:
+        hdr, cube = h[0].header, h[0].data.astype(np.float32)  # (frame, chan, y, x)
+    psf = fits.getdata(f"{e}/psf.fits").astype(np.float32)
+    for c, w in enumerate(waves):
+        fits.PrimaryHDU(cube[:, c]).writeto(f"{e}/c{c}.fits", overwrite=True)
+        fits.PrimaryHDU(psf[c] if psf.ndim == 3 else psf).writeto(f"{e}/p{c}.fits",
+                                                                   overwrite=True)
+        sep = 15 * w / np.mean(waves)
+        ok("inject", f"{e}/c{c}.fits", "--angles", f"{e}/angles.txt", "--psf", f"{e}/p{c}.fits",
+           "--companion", f"{sep}:230:1e-3", "--out", f"{e}/i{c}.fits", "--quiet")
+        cube[:, c] = fits.getdata(f"{e}/i{c}.fits")
+    fits.PrimaryHDU(cube, header=hdr).writeto(f"{e}/cube.fits", overwrite=True)
+    r = vet(e, [(15.5, 228.5)], fakes=2)[0]
+    assert r["spectral_pass"] == 0 and r["spectral_value"] > 7, r
