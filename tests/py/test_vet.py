@@ -159,9 +159,15 @@ def test_products(recovered):
        f"{d}/s.fits", "--quiet")
     ok("detect", f"{d}/s.fits", "--fwhm", FWHM, "--mask-radius", 3, "--out", f"{d}/d",
        "--quiet")
+    # align's star table: per-frame errors of 0.3 px average to 0.3 / 4 over 16 frames
+    with open(f"{d}/starpos.csv", "w") as f:
+        f.write("frame,x,y,x_err,y_err\n")
+        for k in range(16):
+            f.write(f"{k},24,24,0.3,0.3\n")
     ok("vet", f"{d}/cube.fits", "--angles", f"{d}/angles.txt", "--psf", f"{d}/psf.fits", *SUB,
-       "--candidates", f"{d}/d.candidates.fits", "--error-fakes", 2,
-       "--pixscale", 12, "--quiet", "--threads", 1, "--out", f"{d}/p")
+       "--candidates", f"{d}/d.candidates.fits", "--error-fakes", 2, "--star-table",
+       f"{d}/starpos.csv", "--north-error", 0.2, "--pixscale", 12, "--pixscale-error", 0.05,
+       "--quiet", "--threads", 1, "--out", f"{d}/p")
     rows = read_csv(f"{d}/p.vet.csv")
     assert len(rows) >= 1
     r = rows[0]
@@ -172,6 +178,13 @@ def test_products(recovered):
     assert min(abs(r["sep_px"] - 9), abs(r["sep_px"] - 15)) < 0.5
     np.testing.assert_allclose(r["dra_mas"], r["sep_px"] * 12 * np.sin(np.radians(r["pa_deg"])))
     np.testing.assert_allclose(r["dmag"], -2.5 * np.log10(r["contrast"]))
+    # the error budget: quadrature sums (docs/vet.md)
+    c = 0.3 / 4
+    np.testing.assert_allclose(r["sep_err"], np.hypot(r["sep_err_fit"], c))
+    np.testing.assert_allclose(
+        r["pa_err"], np.sqrt(r["pa_err_fit"]**2 + np.degrees(c / r["sep_px"])**2 + 0.2**2))
+    np.testing.assert_allclose(r["sep_err_mas"], np.hypot(r["sep_err"] * 12, r["sep_px"] * 0.05))
+    np.testing.assert_allclose(r["dmag_err"], 2.5 / np.log(10) * r["contrast_err"] / r["contrast"])
     with fits.open(f"{d}/p.vet.fits") as h:
         t = h["VET"]
         assert t.columns["sep_px"].unit == "pix" and t.columns["dra_mas"].unit == "mas"
