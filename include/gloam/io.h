@@ -177,6 +177,14 @@ typedef struct gl_table {
 
 /* Write t to path (normally a temporary name from gl_outset_add); a failed
  * write leaves no file. Errors: GL_ERR_IO (naming path), GL_ERR_NOMEM. */
+/* The same tables led by one column of text (label_name; labels holds
+ * t->nrows strings: a target's name, a status), quoted in CSV where
+ * RFC 4180 asks; in FITS a character column as wide as the longest label. */
+GL_API gl_status gl_table_write_csv_labelled(const char *path, const gl_table *t,
+                                             const char *label_name, const char *const *labels);
+GL_API gl_status gl_table_write_fits_labelled(const char *path, const gl_table *t,
+                                              const char *extname, const gl_provenance *prov,
+                                              const char *label_name, const char *const *labels);
 GL_API gl_status gl_table_write_csv(const char *path, const gl_table *t);
 
 /* A CSV table read back: one header line of column names, then rows of

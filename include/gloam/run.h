@@ -74,6 +74,13 @@ GL_API int gl_plan_items(gl_plan *p, const char *target, const char *section, gl
  * key was used. */
 GL_API gl_status gl_plan_check_used(const gl_plan *p);
 
+/* A survey given as "[survey] folders = PATTERN" (a glob, relative to the
+ * plan): each matching folder becomes a target named after the folder,
+ * whose inputs are the [inputs] file names inside that folder. Does nothing
+ * without the key. GL_ERR_INPUT naming the line when nothing matches or a
+ * folder name repeats a target. */
+GL_API gl_status gl_plan_expand_folders(gl_plan *p);
+
 /* Resolves a path written in the plan: relative paths are relative to the
  * plan file's folder. Writes into out[size]; GL_ERR_USAGE when it does not fit. */
 GL_API gl_status gl_plan_path(const gl_plan *p, const char *value, char *out, size_t size);
@@ -175,6 +182,36 @@ GL_API gl_status gl_run_target(gl_plan *plan, const char *target, const gl_run_p
 
 /* A commented example plan (static text). */
 GL_API const char *gl_run_example_plan(void);
+
+/* ---- surveys: many targets ---------------------------------------------- */
+
+/* Combines buf (n bytes) element by element with the same buffer of every
+ * other process of the survey, keeping the largest byte, so that every
+ * process ends with all of them (an MPI_Allreduce with MPI_MAX on bytes).
+ * Returns 0 on success. */
+typedef int (*gl_survey_share_fn)(void *user, unsigned char *buf, size_t n);
+
+typedef struct gl_survey_params {
+    /* set by the user */
+    const char *folder;       /* the survey folder: one run folder per target inside */
+    int rank, size;           /* this process and the number of processes (0 and 1: serial) */
+    gl_survey_share_fn share; /* NULL when size is 1 */
+    void *share_user;
+    gl_run_params run; /* how each target is run; its folder is set per target */
+} gl_survey_params;
+
+GL_API void gl_survey_params_init(gl_survey_params *p);
+
+/* Runs every target of the plan, target i on process i mod size, each into
+ * FOLDER/NAME/ (gl_run_target); a failed target does not stop the others.
+ * Then process 0 writes the survey products: FOLDER/survey.csv and
+ * survey.fits (one row per target: state, frames, field rotation,
+ * detections, contrast at fixed separations), survey.html (linking each
+ * target's report) and contrast.png (every target's curve in one figure).
+ * *nfailed gets the number of failed targets (the same on every process).
+ * Function return value: GL_OK when the survey ran (even with failed
+ * targets); GL_ERR_INPUT/GL_ERR_USAGE for a bad plan or folder; GL_ERR_IO. */
+GL_API gl_status gl_survey_run(gl_plan *plan, const gl_survey_params *sp, int *nfailed);
 
 /* ---- the HTML report ---------------------------------------------------- */
 

@@ -463,11 +463,17 @@ gl_centre_method gl_centre_auto(const gl_align_stack *s, const gl_align_params *
     }
     gl_error_clear();
     if (!tried[GL_CENTRE_HALO]) {
-        snprintf(reason, size,
-                 "%sno unsaturated compact star%s: a saturated or coronagraphic image, centred "
-                 "frame by frame on the symmetry of its halo",
-                 spots_why,
-                 spots_why[0] || tried[GL_CENTRE_SPOTS] ? "" : " and no satellite spots");
+        if (tried[GL_CENTRE_CORE] || tried[GL_CENTRE_REFERENCE])
+            snprintf(reason, size,
+                     "%sthe star's core or the reference frame lost most frames: centred frame "
+                     "by frame on the symmetry of the halo",
+                     spots_why);
+        else
+            snprintf(reason, size,
+                     "%sno unsaturated compact star%s: a saturated or coronagraphic image, "
+                     "centred frame by frame on the symmetry of its halo",
+                     spots_why,
+                     spots_why[0] || tried[GL_CENTRE_SPOTS] ? "" : " and no satellite spots");
         return GL_CENTRE_HALO;
     }
     /* the last resort: registration to the reference works on any image */

@@ -212,6 +212,17 @@ int cmd_detect(gl_cli *cli, int argc, char **argv);
 int cmd_limits(gl_cli *cli, int argc, char **argv);
 int cmd_vet(gl_cli *cli, int argc, char **argv);
 int cmd_run(gl_cli *cli, int argc, char **argv);
+int cmd_survey(gl_cli *cli, int argc, char **argv);
+
+/* --force STEP of run and survey: sets force[step] (every step for "all");
+ * prints a message and returns -1 for an unknown step. */
+int cli_parse_force(const gl_cli *cli, const char *arg, int force[GL_NSTEPS]);
+
+/* The gl_run_exec_fn of run and survey (cmd_run.c): runs a gloam command in
+ * this process with its stdout and stderr sent to files; user is the
+ * gl_cli of run or survey, whose printers are put back afterwards. */
+int cli_exec_in_process(void *user, int argc, char **argv, const char *stdout_path,
+                        const char *log_path);
 
 /* Runs `gloam COMMAND ...` in this process (argv[0] is the program, argv[1]
  * the command), as main() does; returns the exit status. Used by `gloam

@@ -32,10 +32,6 @@ static const char help[] =
 
 enum { OPT_OUT = CLI_OPT_FIRST_COMMAND_OPTION, OPT_TARGET, OPT_FORCE, OPT_DRY, OPT_EXAMPLE };
 
-typedef struct exec_state {
-    gl_cli *run_cli;
-} exec_state;
-
 /* Points fd at path (appending), keeping the old descriptor in *saved. */
 static int redirect(int fd, const char *path, int *saved)
 {
@@ -61,10 +57,27 @@ static void restore(int fd, int saved)
     }
 }
 
-static int exec_command(void *user, int argc, char **argv, const char *stdout_path,
+int cli_parse_force(const gl_cli *cli, const char *arg, int force[GL_NSTEPS])
+{
+    int s = gl_step_from_name(arg);
+    if (strcmp(arg, "all") == 0) {
+        for (int i = 0; i < GL_NSTEPS; i++)
+            force[i] = 1;
+    } else if (s < 0) {
+        cli_usage(cli,
+                  "--force %s: not a step (inspect, align, subtract, detect, limits, vet, all)",
+                  arg);
+        return -1;
+    } else {
+        force[s] = 1;
+    }
+    return 0;
+}
+
+int cli_exec_in_process(void *user, int argc, char **argv, const char *stdout_path,
                         const char *log_path)
 {
-    exec_state *es = user;
+    gl_cli *run_cli = user;
     int out_saved = -1, err_saved = -1;
     if (redirect(1, stdout_path ? stdout_path : log_path, &out_saved) ||
         redirect(2, log_path, &err_saved)) {
@@ -75,7 +88,7 @@ static int exec_command(void *user, int argc, char **argv, const char *stdout_pa
     int rc = cli_run_command(argc, argv);
     restore(1, out_saved);
     restore(2, err_saved);
-    cli_start(es->run_cli); /* the step installed its own printers */
+    cli_start(run_cli); /* the step installed its own printers */
     return rc;
 }
 
@@ -96,21 +109,10 @@ int cmd_run(gl_cli *cli, int argc, char **argv)
         switch (c) {
         case OPT_OUT: rp.folder = optarg; break;
         case OPT_TARGET: target = optarg; break;
-        case OPT_FORCE: {
-            int s = gl_step_from_name(optarg);
-            if (strcmp(optarg, "all") == 0) {
-                for (int i = 0; i < GL_NSTEPS; i++)
-                    rp.force[i] = 1;
-            } else if (s < 0) {
-                return cli_usage(cli,
-                                 "--force %s: not a step (inspect, align, subtract, detect, "
-                                 "limits, vet, all)",
-                                 optarg);
-            } else {
-                rp.force[s] = 1;
-            }
+        case OPT_FORCE:
+            if (cli_parse_force(cli, optarg, rp.force))
+                return 1;
             break;
-        }
         case OPT_DRY: rp.dry_run = 1; break;
         case OPT_EXAMPLE: example = 1; break;
         default: return cli_bad_option(cli, argv);
@@ -157,9 +159,8 @@ int cmd_run(gl_cli *cli, int argc, char **argv)
             goto cleanup;
         }
     }
-    exec_state es = {cli};
-    rp.exec = exec_command;
-    rp.exec_user = &es;
+    rp.exec = cli_exec_in_process;
+    rp.exec_user = cli;
     gl_run_outcome out;
     st = gl_run_target(plan, target, &rp, &out);
     if (st) {

@@ -477,10 +477,10 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
     if (!cube_path)
         return 1;
     {
-        const char *names[] = {"--angles", "--psf", "--fwhm", "--candidates", "--out"};
-        const void *vals[] = {angles_path, psf_path, setup.have_fwhm ? names : NULL, cand_path,
-                              prefix};
-        if (cli_missing(cli, 5, names, vals))
+        /* angles: cli_read_cube_angles (the cube's ANGLES table without --angles) */
+        const char *names[] = {"--psf", "--fwhm", "--candidates", "--out"};
+        const void *vals[] = {psf_path, setup.have_fwhm ? names : NULL, cand_path, prefix};
+        if (cli_missing(cli, 4, names, vals))
             return 1;
     }
     if (cli_subtract_check(cli, &setup))
@@ -509,6 +509,8 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
     const char **t_png = NULL, **t_svg = NULL;
 
     if ((st = cli_read_cube_angles(cli, cube_path, angles_path, &cube, &angles)) ||
+        (st = cli_resolve_fwhm(cli, &setup.p.fwhm, setup.p.fwhm > 0 ? NULL : psf_path, cube->header,
+                               cube_path)) || /* --fwhm auto */
         (st = cli_read_input(cli, psf_path, 2, &psfc)) ||
         (st = cli_subtract_prepare(cli, &setup, cube_path, cube, &refs)) ||
         (st = gl_psf_model_new(psfc, psf_path, cube->nx, cube->ny, cube->nchan, o.psf_scale, &psf)))

@@ -24,6 +24,7 @@ static const command commands[] = {
     {"limits", cmd_limits, "contrast curves calibrated by fake companions"},
     {"vet", cmd_vet, "characterise candidates (negative companion fit, errors) and test them"},
     {"run", cmd_run, "a whole reduction from a plan: run folder, summary, HTML report"},
+    {"survey", cmd_survey, "every target of a plan, in parallel under mpirun"},
     {NULL, NULL, NULL},
 };
 

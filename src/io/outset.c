@@ -80,15 +80,6 @@ gl_status gl_outset_new(int overwrite, gl_outset **out)
     return GL_OK;
 }
 
-static char *dup_str(const char *s)
-{
-    size_t n = strlen(s) + 1;
-    char *d = gl_malloc(n);
-    if (d)
-        memcpy(d, s, n);
-    return d;
-}
-
 static int same_file(const char *a, const char *b)
 {
     struct stat sa, sb;
@@ -116,7 +107,7 @@ gl_status gl_outset_add(gl_outset *s, const char *path, const gl_provenance *pro
         if (!s->overwrite)
             return gl_error_set(GL_ERR_EXISTS, "%s: exists (use --overwrite to replace it)", path);
     }
-    char *copy = dup_str(path);
+    char *copy = gl_strdup(path);
     if (!copy)
         return gl_error_nomem("output path");
     char *dir = dirname(copy);
@@ -146,7 +137,7 @@ gl_status gl_outset_add(gl_outset *s, const char *path, const gl_provenance *pro
     }
     size_t len = strlen(path) + 64;
     char *tmp = gl_malloc(len);
-    char *p2 = dup_str(path);
+    char *p2 = gl_strdup(path);
     if (!tmp || !p2) {
         gl_free(tmp);
         gl_free(p2);

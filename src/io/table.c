@@ -1,7 +1,9 @@
 /*
  * table.c -- result tables: CSV (one header line of column names,
  * numbers at full double precision) and the same columns as a FITS binary
- * table extension through cfitsio; reading both back (gl_csv).
+ * table extension through cfitsio, optionally led by one column of text (a
+ * target's name, quoted in CSV as RFC 4180 says where needed); reading both
+ * back (gl_csv).
  */
 #include "core/internal.h"
 #include "io/internal.h"
@@ -23,16 +25,39 @@ static void print_double(FILE *fp, double v)
 
 gl_status gl_table_write_csv(const char *path, const gl_table *t)
 {
+    return gl_table_write_csv_labelled(path, t, NULL, NULL);
+}
+
+gl_status gl_table_write_csv_labelled(const char *path, const gl_table *t, const char *label_name,
+                                      const char *const *labels)
+{
     FILE *fp = fopen(path, "w");
     if (!fp)
         return gl_error_set(GL_ERR_IO, "%s: cannot create (%s)", path, strerror(errno));
+    const int lab = labels != NULL;
+    if (lab)
+        fprintf(fp, "%s", label_name);
     for (int c = 0; c < t->ncols; c++)
-        fprintf(fp, "%s%s", c ? "," : "", t->names[c]);
+        fprintf(fp, "%s%s", c || lab ? "," : "", t->names[c]);
     fputc('\n', fp);
     for (long r = 0; r < t->nrows; r++) {
+        if (lab) { /* RFC 4180: quoted when it holds a comma or a quote */
+            const char *s = labels[r] ? labels[r] : "";
+            if (strpbrk(s, ",\"\n")) {
+                fputc('"', fp);
+                for (const char *q = s; *q; q++) {
+                    if (*q == '"')
+                        fputc('"', fp);
+                    fputc(*q, fp);
+                }
+                fputc('"', fp);
+            } else {
+                fputs(s, fp);
+            }
+        }
         for (int c = 0; c < t->ncols; c++) {
             double v = t->cols[c][r];
-            if (c)
+            if (c || lab)
                 fputc(',', fp);
             /* integers print as integers; NaN (no value) as an empty field */
             if (isnan(v))
@@ -55,21 +80,40 @@ gl_status gl_table_write_csv(const char *path, const gl_table *t)
 gl_status gl_table_write_fits(const char *path, const gl_table *t, const char *extname,
                               const gl_provenance *prov)
 {
+    return gl_table_write_fits_labelled(path, t, extname, prov, NULL, NULL);
+}
+
+gl_status gl_table_write_fits_labelled(const char *path, const gl_table *t, const char *extname,
+                                       const gl_provenance *prov, const char *label_name,
+                                       const char *const *labels)
+{
     fitsfile *f = NULL;
     int status = 0;
-    char **ttype = gl_calloc((size_t)t->ncols, sizeof *ttype);
-    char **tform = gl_calloc((size_t)t->ncols, sizeof *tform);
-    char **tunit = gl_calloc((size_t)t->ncols, sizeof *tunit);
+    const int lab = labels != NULL, n = t->ncols + lab;
+    char **ttype = gl_calloc((size_t)n, sizeof *ttype);
+    char **tform = gl_calloc((size_t)n, sizeof *tform);
+    char **tunit = gl_calloc((size_t)n, sizeof *tunit);
+    char label_form[32];
     if (!ttype || !tform || !tunit) {
         gl_free(ttype);
         gl_free(tform);
         gl_free(tunit);
         return gl_error_nomem("table columns");
     }
+    if (lab) {
+        size_t w = 1;
+        for (long r = 0; r < t->nrows; r++)
+            if (labels[r] && strlen(labels[r]) > w)
+                w = strlen(labels[r]);
+        snprintf(label_form, sizeof label_form, "%zuA", w);
+        ttype[0] = (char *)label_name;
+        tform[0] = label_form;
+        tunit[0] = "";
+    }
     for (int c = 0; c < t->ncols; c++) {
-        ttype[c] = (char *)t->names[c];
-        tform[c] = "1D";
-        tunit[c] = (char *)((t->units && t->units[c]) ? t->units[c] : "");
+        ttype[c + lab] = (char *)t->names[c];
+        tform[c + lab] = "1D";
+        tunit[c + lab] = (char *)((t->units && t->units[c]) ? t->units[c] : "");
     }
     unlink(path);
     if (fits_create_diskfile(&f, path, &status)) {
@@ -81,10 +125,14 @@ gl_status gl_table_write_fits(const char *path, const gl_table *t, const char *e
     fits_create_img(f, FLOAT_IMG, 0, NULL, &status);
     gl_fits_write_provenance(f, prov, &status);
     fits_write_chksum(f, &status);
-    fits_create_tbl(f, BINARY_TBL, t->nrows, t->ncols, ttype, tform, tunit, extname, &status);
+    fits_create_tbl(f, BINARY_TBL, t->nrows, n, ttype, tform, tunit, extname, &status);
+    for (long r = 0; lab && r < t->nrows && !status; r++) {
+        char *s = (char *)(labels[r] ? labels[r] : "");
+        fits_write_col(f, TSTRING, 1, r + 1, 1, 1, &s, &status);
+    }
     for (int c = 0; c < t->ncols && !status; c++)
         if (t->nrows > 0)
-            fits_write_col(f, TDOUBLE, c + 1, 1, 1, t->nrows, (void *)t->cols[c], &status);
+            fits_write_col(f, TDOUBLE, c + 1 + lab, 1, 1, t->nrows, (void *)t->cols[c], &status);
     gl_fits_write_header(f, t->header, prov, &status);
     gl_fits_write_provenance(f, prov, &status);
     fits_write_chksum(f, &status);

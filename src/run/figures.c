@@ -34,7 +34,7 @@ static void diverging(double v, double *r, double *g, double *b)
     }
 }
 
-static gl_status finish_png(cairo_surface_t *s, const char *path)
+gl_status run_png_finish(cairo_surface_t *s, const char *path)
 {
     cairo_status_t cs = cairo_surface_write_to_png(s, path);
     cairo_surface_destroy(s);
@@ -44,49 +44,30 @@ static gl_status finish_png(cairo_surface_t *s, const char *path)
     return GL_OK;
 }
 
-gl_status run_figure_residual(const char *fits_path, const char *png_path)
+/* The robust noise (1.4826 MAD) of each 2-px ring about the star, so that
+ * the stretch shows a faint companion far out as well as near the star;
+ * rings with fewer than 8 values take the noise of the whole image. */
+static gl_status ring_noise(const gl_cube *c, double **out)
 {
-    gl_cube *c = NULL;
-    double *work = NULL;
-    gl_status st = gl_fits_read_cube(fits_path, 2, &c);
-    if (st)
-        return st;
     const long nx = c->nx, ny = c->ny;
     const size_t np = (size_t)nx * (size_t)ny;
-    work = malloc(sizeof *work * np);
-    if (!work) {
-        gl_cube_free(c);
-        return gl_error_nomem("residual figure");
-    }
-    /* the robust noise of each 2-px ring about the star, so that the
-     * stretch shows a faint companion far out as well as near the star */
     const double cxp = (double)(nx / 2), cyp = (double)(ny / 2);
     const int nbins = (int)(hypot((double)nx, (double)ny) / 4) + 2;
-    double *ring_sig = calloc((size_t)nbins, sizeof *ring_sig);
+    gl_status st = GL_OK;
+    double *sig_ring = calloc((size_t)nbins, sizeof *sig_ring);
     float *vals = malloc(sizeof *vals * np);
-    double *w2 = malloc(sizeof *w2 * np);
-    if (!ring_sig || !vals || !w2) {
-        free(ring_sig);
-        free(vals);
-        free(w2);
-        free(work);
-        gl_cube_free(c);
-        return gl_error_nomem("residual figure");
+    double *work = malloc(sizeof *work * np);
+    size_t *start = calloc((size_t)nbins + 1, sizeof *start);
+    *out = NULL;
+    if (!sig_ring || !vals || !work || !start) {
+        st = gl_error_nomem("residual figure");
+        goto cleanup;
     }
     double med, sig;
     size_t nfin = gl_stats_robust_float(c->data, np, work, &med, &sig);
     if (nfin == 0 || !(sig > 0))
         sig = 1;
-    /* pixels grouped by ring (a counting sort), then each ring's noise */
-    size_t *start = calloc((size_t)nbins + 1, sizeof *start);
-    if (!start) {
-        free(ring_sig);
-        free(vals);
-        free(w2);
-        free(work);
-        gl_cube_free(c);
-        return gl_error_nomem("residual figure");
-    }
+    /* pixels grouped by ring (a counting sort) */
     for (long y = 0; y < ny; y++)
         for (long x = 0; x < nx; x++)
             start[(int)(hypot((double)x - cxp, (double)y - cyp) / 2) + 1]++;
@@ -103,14 +84,30 @@ gl_status run_figure_residual(const char *fits_path, const char *png_path)
     for (int b = 0; b < nbins; b++) {
         size_t n = start[b + 1] - start[b];
         double m, sg;
-        ring_sig[b] =
-            (n >= 8 && gl_stats_robust_float(vals + start[b], n, w2, &m, &sg) >= 8 && sg > 0) ? sg
-                                                                                              : sig;
+        int ok = n >= 8 && gl_stats_robust_float(vals + start[b], n, work, &m, &sg) >= 8 && sg > 0;
+        sig_ring[b] = ok ? sg : sig;
     }
+    *out = sig_ring;
+    sig_ring = NULL;
+cleanup:
     free(start);
-    free(vals);
-    free(w2);
     free(work);
+    free(vals);
+    free(sig_ring);
+    return st;
+}
+
+gl_status run_figure_residual(const char *fits_path, const char *png_path)
+{
+    gl_cube *c = NULL;
+    double *ring_sig = NULL;
+    gl_status st = gl_fits_read_cube(fits_path, 2, &c);
+    if (st || (st = ring_noise(c, &ring_sig))) {
+        gl_cube_free(c);
+        return st;
+    }
+    const long nx = c->nx, ny = c->ny;
+    const double cxp = (double)(nx / 2), cyp = (double)(ny / 2);
     const int zoom = nx < 200 ? 3 : nx < 400 ? 2 : 1;
     const int W = (int)nx * zoom, H = (int)ny * zoom + 28;
     cairo_surface_t *s = cairo_image_surface_create(CAIRO_FORMAT_RGB24, W, H);
@@ -162,7 +159,7 @@ gl_status run_figure_residual(const char *fits_path, const char *png_path)
     cairo_show_text(cr, label);
     cairo_destroy(cr);
     gl_cube_free(c);
-    return finish_png(s, png_path);
+    return run_png_finish(s, png_path);
 }
 
 gl_status run_figure_star_positions(const char *csv_path, const char *png_path)
@@ -269,5 +266,5 @@ gl_status run_figure_star_positions(const char *csv_path, const char *png_path)
     cairo_show_text(cr, label);
     cairo_destroy(cr);
     gl_csv_free(t);
-    return finish_png(s, png_path);
+    return run_png_finish(s, png_path);
 }

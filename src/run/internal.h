@@ -7,6 +7,9 @@
 
 #include "gloam/run.h"
 
+#include <cairo.h>
+#include <cjson/cJSON.h>
+
 enum { RUN_MAX_ARGS = 160, RUN_MAX_FILES = 12 };
 
 /* One step's command line and the files it reads and leaves. */
@@ -48,6 +51,13 @@ gl_status run_report_write(const run_files *f, const char *target, const run_cmd
 /* Total field rotation of the angles the subtraction used, degrees (NaN
  * when unknown; see run_report.c). */
 double run_rotation_deg(const run_cmd *cmds);
+
+/* A JSON file parsed (cJSON; NULL when missing or not JSON; see summary.c). */
+cJSON *run_read_json(const char *path);
+
+/* Writes a cairo image surface as PNG and destroys it; GL_ERR_IO naming the
+ * file (see figures.c). */
+gl_status run_png_finish(cairo_surface_t *s, const char *path);
 
 /* The figures of the report (see figures.c). */
 gl_status run_figure_residual(const char *fits_path, const char *png_path);

@@ -18,7 +18,9 @@
 #include "core/internal.h"
 
 #include <errno.h>
+#include <glob.h>
 #include <ini.h>
+#include <limits.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -52,15 +54,6 @@ typedef struct parse_state {
     int error_line;
     char error[1024];
 } parse_state;
-
-static char *dup_str(const char *s)
-{
-    size_t n = strlen(s) + 1;
-    char *d = gl_malloc(n);
-    if (d)
-        memcpy(d, s, n);
-    return d;
-}
 
 /* An fgets over the text in memory that counts the lines it hands out. */
 static char *read_line(char *buf, int size, void *stream)
@@ -107,7 +100,7 @@ static int add_target(gl_plan *p, const char *name)
     if (!t)
         return 0;
     p->targets = t;
-    if (!(p->targets[p->ntargets] = dup_str(name)))
+    if (!(p->targets[p->ntargets] = gl_strdup(name)))
         return 0;
     p->ntargets++;
     return 1;
@@ -165,10 +158,10 @@ static int on_pair(void *user, const char *section, const char *key, const char 
     plan_entry *e = &p->e[p->n];
     memset(e, 0, sizeof *e);
     e->line = ps->line;
-    e->section = dup_str(sec);
-    e->key = dup_str(key);
-    e->value = dup_str(value);
-    e->target = *target ? dup_str(target) : NULL;
+    e->section = gl_strdup(sec);
+    e->key = gl_strdup(key);
+    e->value = gl_strdup(value);
+    e->target = *target ? gl_strdup(target) : NULL;
     if (!e->section || !e->key || !e->value || (*target && !e->target) ||
         (*target && !add_target(p, target))) {
         gl_free(e->section);
@@ -391,4 +384,62 @@ gl_status gl_plan_path(const gl_plan *p, const char *value, char *out, size_t si
     if (n < 0 || (size_t)n >= size)
         return gl_error_set(GL_ERR_USAGE, "%s: the path '%s' is too long", p->name, value);
     return GL_OK;
+}
+
+gl_status gl_plan_expand_folders(gl_plan *p)
+{
+    int line = 0;
+    const char *pattern = gl_plan_value(p, NULL, "survey", "folders", &line);
+    if (!pattern)
+        return GL_OK;
+    char full[4096];
+    gl_status st = gl_plan_path(p, pattern, full, sizeof full);
+    if (st)
+        return st;
+    glob_t g;
+    memset(&g, 0, sizeof g);
+    int r = glob(full, GLOB_ONLYDIR | GLOB_MARK, NULL, &g);
+    if (r == GLOB_NOMATCH || (r == 0 && g.gl_pathc == 0)) {
+        globfree(&g);
+        return gl_error_set(GL_ERR_INPUT, "%s:%d: folders = %s matches no folder", p->name, line,
+                            pattern);
+    }
+    if (r != 0) {
+        globfree(&g);
+        return gl_error_set(GL_ERR_IO, "%s:%d: folders = %s: cannot list the folders", p->name,
+                            line, pattern);
+    }
+    static const char *const keys[] = {"cube", "angles", "psf", "refs"};
+    for (size_t i = 0; i < g.gl_pathc && !st; i++) {
+        char dir[PATH_MAX], name[256];
+        if (!realpath(g.gl_pathv[i], dir)) {
+            st = gl_error_set(GL_ERR_IO, "%s: cannot resolve the folder", g.gl_pathv[i]);
+            break;
+        }
+        const char *base = strrchr(dir, '/');
+        snprintf(name, sizeof name, "%.255s", base ? base + 1 : dir);
+        parse_state ps = {p, "", line, GL_OK, 0, ""};
+        char section[300];
+        snprintf(section, sizeof section, "target %s", name);
+        for (size_t k = 0; k < sizeof keys / sizeof keys[0]; k++) {
+            int kl;
+            const char *v = gl_plan_value(p, NULL, "inputs", keys[k], &kl);
+            if (!v || (strcmp(keys[k], "angles") == 0 && strcmp(v, "header") == 0))
+                continue;
+            char value[PATH_MAX + 512];
+            snprintf(value, sizeof value, "%s/%s", dir, v);
+            /* the folder's own copy of the input: an entry of [target NAME] */
+            if (!on_pair(&ps, section, keys[k], value) && ps.st != GL_OK)
+                break;
+        }
+        if (ps.st != GL_OK)
+            st = gl_error_set(ps.st, "%s:%d: folders = %s: %s", p->name, line, pattern, ps.error);
+        else if (p->ntargets == 0 || strcmp(p->targets[p->ntargets - 1], name) != 0)
+            st = gl_error_set(GL_ERR_INPUT,
+                              "%s:%d: folders = %s: %s gives no input ([inputs] names the files "
+                              "each folder holds)",
+                              p->name, line, pattern, dir);
+    }
+    globfree(&g);
+    return st;
 }

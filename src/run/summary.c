@@ -35,7 +35,7 @@ static cJSON *num(double v)
     return isfinite(v) ? cJSON_CreateNumber(v) : cJSON_CreateNull();
 }
 
-static cJSON *read_json_file(const char *path)
+cJSON *run_read_json(const char *path)
 {
     FILE *f = fopen(path, "rb");
     if (!f)
@@ -114,30 +114,23 @@ static cJSON *contrast_at(const run_files *f)
     }
     cJSON_AddStringToObject(o, "note",
                             "plane 1 of the contrast table, linearly interpolated in separation");
-    cJSON *fw = cJSON_AddArrayToObject(o, "at_fwhm");
-    static const double mult[] = {2, 3, 5, 10, 20};
-    for (size_t i = 0; i < sizeof mult / sizeof mult[0] && f->fwhm > 0; i++) {
-        double s = mult[i] * f->fwhm;
-        cJSON *e = cJSON_CreateObject();
-        cJSON_AddNumberToObject(e, "sep_fwhm", mult[i]);
-        cJSON_AddItemToObject(e, "sep_px", num(s));
-        cJSON_AddItemToObject(e, "contrast_c50", num(at_sep(t, plane, sep, c50, s)));
-        if (cq >= 0)
-            cJSON_AddItemToObject(e, t->names[cq], num(at_sep(t, plane, sep, cq, s)));
-        cJSON_AddItemToArray(fw, e);
-    }
-    if (f->pixscale > 0) {
-        cJSON *as = cJSON_AddArrayToObject(o, "at_arcsec");
-        static const double arcsec[] = {0.1, 0.2, 0.3, 0.5, 1.0};
-        for (size_t i = 0; i < sizeof arcsec / sizeof arcsec[0]; i++) {
-            double s = arcsec[i] * 1000 / f->pixscale;
+    static const double mult[] = {2, 3, 5, 10, 20}, arcsec[] = {0.1, 0.2, 0.3, 0.5, 1.0};
+    for (int unit = 0; unit < 2; unit++) {
+        /* unit 0: multiples of the FWHM; 1: arcsec, with a pixel scale */
+        double per = unit ? (f->pixscale > 0 ? 1000 / f->pixscale : 0) : f->fwhm;
+        if (!(per > 0))
+            continue;
+        const double *at = unit ? arcsec : mult;
+        cJSON *arr = cJSON_AddArrayToObject(o, unit ? "at_arcsec" : "at_fwhm");
+        for (size_t i = 0; i < 5; i++) {
+            double s = at[i] * per;
             cJSON *e = cJSON_CreateObject();
-            cJSON_AddNumberToObject(e, "sep_arcsec", arcsec[i]);
+            cJSON_AddNumberToObject(e, unit ? "sep_arcsec" : "sep_fwhm", at[i]);
             cJSON_AddItemToObject(e, "sep_px", num(s));
             cJSON_AddItemToObject(e, "contrast_c50", num(at_sep(t, plane, sep, c50, s)));
             if (cq >= 0)
                 cJSON_AddItemToObject(e, t->names[cq], num(at_sep(t, plane, sep, cq, s)));
-            cJSON_AddItemToArray(as, e);
+            cJSON_AddItemToArray(arr, e);
         }
     }
     gl_csv_free(t);
@@ -216,7 +209,7 @@ gl_status run_summary_write(const run_files *f, const char *target, const char *
     }
     cJSON_AddNumberToObject(root, "seconds", total);
     cJSON *item;
-    if ((item = read_json_file(f->inspect_json)))
+    if ((item = run_read_json(f->inspect_json)))
         cJSON_AddItemToObject(root, "inspect", item);
     if ((item = frames_kept(f)))
         cJSON_AddItemToObject(root, "frames", item);

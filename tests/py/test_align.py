@@ -445,3 +445,20 @@ def test_old_spellings_still_work(tmp_path, old, new):
     assert np.array_equal(fits.getdata(tmp_path / "old.fits"), fits.getdata(tmp_path / "new.fits"),
                           equal_nan=True)
     assert open(tmp_path / "old.csv").read() == open(tmp_path / "new.csv").read()
+
+
+def test_every_method_losing_most_frames_stops(tmp_path):
+    """Six of ten frames hold no data: each automatic method in turn loses
+    them, is logged and handed over; when none keeps most frames, align stops
+    with one line naming the file and the losses, and writes nothing (issue
+    10: never exit 0 having dropped most of the data)."""
+    cube, _, _ = jitter_cube(48, 10, "gauss", 1.0, 1.0, 3)
+    cube[[1, 2, 4, 6, 7, 9]] = np.nan
+    write(tmp_path / "holes.fits", cube)
+    p = run(tmp_path / "holes.fits", "--out", tmp_path / "o.fits", ok=False)
+    assert p.returncode == 1
+    assert p.stderr.count("trying the next method") == 3, p.stderr
+    last = p.stderr.strip().splitlines()[-1]
+    assert "holes.fits" in last and "no centring method found the star in most frames" in last
+    assert "core lost 6 of 10" in last and "halo lost 6 of 10" in last
+    assert not (tmp_path / "o.fits").exists()

@@ -337,3 +337,131 @@ def test_a_failed_step_is_reported_and_the_run_stops(sequence, tmp_path):
     assert s["steps"]["align"]["state"] == "failed"
     assert s["steps"]["subtract"]["state"] == "not reached"
     assert not (out / "result.fits").exists()
+
+
+# ---- gloam survey ----------------------------------------------------------------
+
+SURVEY_PLAN = """[run]
+name = night-1
+[survey]
+folders = data/*
+[inputs]
+cube = cube.fits
+angles = angles.txt
+psf = psf.fits
+pixscale = 12.25
+[steps]
+run = inspect, align, subtract, detect, limits
+[subtract]
+method = pca
+modes = 3
+mask-radius = 4
+[detect]
+mask-radius = 4
+[limits]
+fake-runs = 1
+"""
+
+
+@pytest.fixture(scope="module")
+def survey(tmp_path_factory):
+    d = tmp_path_factory.mktemp("survey")
+    (d / "data").mkdir()
+    for seed, name in ((11, "Tarn-12"), (12, "Orlen-7")):
+        r = gloam("simulate", d / "data" / name, "--frames", 20, "--size", 64, "--seed", seed,
+                  "--companion", "14:60:3e-3")
+        assert r.returncode == 0, r.stderr
+    (d / "plan.ini").write_text(SURVEY_PLAN)
+    return d
+
+
+def fits_data(path):
+    from astropy.io import fits
+    with fits.open(path) as h:
+        return [hdu.data.copy() if hdu.data is not None else None for hdu in h]
+
+
+def same_products(a, b):
+    """Two run folders hold the same results: CSV tables byte for byte, FITS
+    data arrays equal (headers differ only in paths, dates and checksums)."""
+    import numpy as np
+    for p in sorted(a.iterdir()):
+        q = b / p.name
+        assert q.exists(), p.name
+        if p.suffix == ".csv":
+            assert p.read_bytes() == q.read_bytes(), p.name
+        elif p.suffix == ".fits":
+            for x, y in zip(fits_data(p), fits_data(q)):
+                if x is None:
+                    assert y is None
+                elif x.dtype.names:
+                    for col in x.dtype.names:
+                        assert np.array_equal(x[col], y[col], equal_nan=True), (p.name, col)
+                else:
+                    assert np.array_equal(x, y, equal_nan=True), p.name
+
+
+def test_survey_serial_writes_one_row_and_one_report_per_target(survey, tmp_path):
+    out = tmp_path / "S"
+    r = gloam("survey", survey / "plan.ini", "--out", out)
+    assert r.returncode == 0, r.stderr
+    rows = list(csv.DictReader((out / "survey.csv").open()))
+    assert [row["target"] for row in rows] == ["Orlen-7", "Tarn-12"]  # the folders, sorted
+    import json
+    from astropy.io import fits
+    for row in rows:
+        s = json.loads((out / row["target"] / "summary.json").read_text())
+        assert row["ok"] == "1"
+        assert float(row["field_rotation_deg"]) == pytest.approx(s["field_rotation_deg"], rel=1e-9)
+        for sep, col in ((0.2, "contrast_c50_0.2arcsec"), (0.5, "contrast_c50_0.5arcsec")):
+            c = next(e for e in s["contrast"]["at_arcsec"] if e["sep_arcsec"] == sep)
+            if c["contrast_c50"] is None:  # outside the contrast table: an empty field
+                assert row[col] == ""
+            else:
+                assert float(row[col]) == pytest.approx(c["contrast_c50"], rel=1e-9)
+        assert row["contrast_c50_0.2arcsec"] != ""  # 16 px: inside the 64-px frames
+    with fits.open(out / "survey.fits") as h:
+        t = h["SURVEY"].data
+        assert [x.strip() for x in t["target"]] == ["Orlen-7", "Tarn-12"]
+        assert h["SURVEY"].columns["field_rotation_deg"].unit == "deg"
+    page = (out / "survey.html").read_text()
+    assert 'href="Orlen-7/report.html"' in page and 'href="Tarn-12/report.html"' in page
+    dom, console = open_in_chromium(out / "survey.html", tmp_path)
+    assert 'data-images="1/1"' in dom and console == []
+
+
+def test_a_failed_target_does_not_stop_the_others(survey, tmp_path):
+    import shutil as sh
+    d = tmp_path / "copy"
+    sh.copytree(survey, d)
+    (d / "data" / "Broken-1").mkdir()
+    (d / "data" / "Broken-1" / "cube.fits").write_text("not FITS")
+    sh.copy(d / "data" / "Tarn-12" / "angles.txt", d / "data" / "Broken-1")
+    sh.copy(d / "data" / "Tarn-12" / "psf.fits", d / "data" / "Broken-1")
+    out = tmp_path / "S"
+    r = gloam("survey", d / "plan.ini", "--out", out)
+    assert r.returncode == 1
+    assert "target Broken-1 failed" in r.stderr
+    assert "3 targets, 1 failed" in r.stdout
+    rows = {row["target"]: row for row in csv.DictReader((out / "survey.csv").open())}
+    assert rows["Broken-1"]["ok"] == "0" and rows["Tarn-12"]["ok"] == "1" and rows["Orlen-7"]["ok"] == "1"
+    assert "Broken-1 FAILED" in (out / "survey.html").read_text()
+
+
+def test_survey_under_mpirun_equals_the_serial_survey(survey, tmp_path):
+    mpirun = shutil.which("mpirun")
+    if not mpirun:
+        pytest.skip("mpirun is not installed (Debian package openmpi-bin)")
+    if "has no MPI" in gloam("survey", "--help").stdout:
+        pytest.skip("this gloam was built without MPI (meson option mpi; libopenmpi-dev)")
+    serial, parallel = tmp_path / "serial", tmp_path / "mpi"
+    r = gloam("survey", survey / "plan.ini", "--out", serial)
+    assert r.returncode == 0, r.stderr
+    r = subprocess.run([mpirun, "--allow-run-as-root", "--oversubscribe", "-np", "2", GLOAM, "survey",
+                        str(survey / "plan.ini"), "--out", str(parallel)], capture_output=True,
+                       text=True, timeout=600)
+    assert r.returncode == 0, r.stdout + r.stderr
+    assert "[MPI]" in r.stdout
+    assert (serial / "survey.csv").read_bytes() == (parallel / "survey.csv").read_bytes()
+    for name in ("Orlen-7", "Tarn-12"):
+        same_products(serial / name, parallel / name)

@@ -136,6 +136,17 @@ def test_fwhm_auto(sim, aligned, tmp_path):
         assert np.array_equal(fits.getdata(tmp_path / f"{d}.snr.fits"),
                               fits.getdata(tmp_path / "d3.snr.fits"), equal_nan=True)
         assert fits.getheader(tmp_path / f"{d}.snr.fits")["GLDFWHM"] == 3.7
+    # vet takes the subtraction options too: --fwhm auto is measured on its
+    # --psf before anything else (whatever vet then makes of the candidates)
+    gloam("detect", tmp_path / "s.fits", "--out", tmp_path / "c", "--threshold", "3", "--quiet")
+    p = gloam("vet", aligned, "--psf", sim / "psf.fits", "--fwhm", "auto", "--candidates",
+              tmp_path / "c.candidates.csv", "--out", tmp_path / "v", "--modes", "3", ok=False)
+    assert f"FWHM {fwhm_psf:.3f} px, measured on" in p.stderr, p.stderr
+    # inspect --fwhm auto: from --psf, else the record
+    p = gloam("inspect", aligned, "--fwhm", "auto", "--psf", sim / "psf.fits")
+    assert f"FWHM {fwhm_psf:.3g} px" in p.stdout
+    p = gloam("inspect", tmp_path / "s.fits", "--fwhm", "auto")
+    assert "FWHM 3.700 px, recorded in" in p.stderr
     # nothing to take it from: one line naming the file
     p = gloam("subtract", aligned, "--fwhm", "auto", "--out", tmp_path / "x.fits", "--quiet",
               ok=False)
