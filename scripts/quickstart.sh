@@ -18,7 +18,7 @@ packages=(build-essential meson ninja-build pkg-config
 if [ "$what" = test ]; then
   packages+=(fitsverify clang-format python3-pytest python3-numpy python3-scipy
              python3-astropy python3-photutils python3-skimage python3-astroplan
-             chromium)
+             chromium poppler-utils)
 fi
 missing=()
 for p in "${packages[@]}"; do

@@ -128,7 +128,17 @@ typedef struct gl_provenance {
     int ninputs;
     const char *inputs[16];
     unsigned long crc32[16]; /* CRC-32 (zlib) of each input file's bytes */
+    /* what was observed, from the first science input (see
+     * gl_provenance_add_observation): written into every table product */
+    int has_obs;
+    gl_obsinfo obs;
 } gl_provenance;
+
+/* Records what was observed (OBJECT, TELESCOP, INSTRUME, FILTER, DATE-OBS,
+ * MJD-OBS, the pixel scale of the WCS) from the header of the first science
+ * input; later calls keep the first. FITS tables then carry these keywords
+ * (gl_table_write_fits), images carry them through their own header. */
+GL_API void gl_provenance_add_observation(gl_provenance *p, const gl_header *h);
 
 /* Adds an input file and its CRC-32 (silently ignores more than 16). */
 GL_API gl_status gl_provenance_add_input(gl_provenance *p, const char *path);

@@ -312,8 +312,9 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
     gl_status st;
     gl_csv *cands = NULL;
     double *cand_sep = NULL, *cand_pa = NULL;
-    char p_csv[4096], p_fits[4096], p_png[4096], p_svg[4096], p_fakes[4096], p_comp[4096];
-    const char *t_csv, *t_fits, *t_png, *t_svg, *t_fakes, *t_comp = NULL;
+    char p_csv[4096], p_fits[4096], p_png[4096], p_svg[4096], p_pdf[4096], p_fakes[4096],
+        p_comp[4096];
+    const char *t_csv, *t_fits, *t_png, *t_svg, *t_pdf, *t_fakes, *t_comp = NULL;
 
     if ((st = cli_read_cube_angles(cli, cube_path, angles_path, &cube, &angles)) ||
         (st = cli_resolve_fwhm(cli, &setup.p.fwhm, setup.p.fwhm > 0 ? NULL : psf_path, cube->header,
@@ -327,6 +328,7 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
         (st = cli_add_product(cli, outs, prefix, ".limits.fits", p_fits, sizeof p_fits, &t_fits)) ||
         (st = cli_add_product(cli, outs, prefix, ".limits.png", p_png, sizeof p_png, &t_png)) ||
         (st = cli_add_product(cli, outs, prefix, ".limits.svg", p_svg, sizeof p_svg, &t_svg)) ||
+        (st = cli_add_product(cli, outs, prefix, ".limits.pdf", p_pdf, sizeof p_pdf, &t_pdf)) ||
         (st = cli_add_product(cli, outs, prefix, ".fakes.csv", p_fakes, sizeof p_fakes, &t_fakes)))
         goto cleanup;
     if (cand_path) {
@@ -363,7 +365,7 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
         lp.avoid_pa_deg = cand_pa;
     }
 
-    setup.p.angles_name = angles_path;
+    setup.p.angles_name = cli->angles_source;
     gl_obsinfo info;
     gl_obsinfo_from_header(cube->header, &info);
     if (!(pixscale > 0) && info.pixscale_mas > 0)
@@ -453,15 +455,16 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
                  res.nplanes);
         const char *n5 = "innermost FWHM with little rotation: optimistic (self-subtraction "
                          "wings not modelled)";
-        gl_limits_plot plot = {res.n,
-                               res.sep_px,
-                               2,
-                               {{res.contrast_c50, l1}, {res.contrast_cq, l2}},
-                               pixscale > 0 ? pixscale : 0,
-                               ttl,
-                               5,
-                               {n1, n2, n3, n4, n5}};
-        if ((st = gl_limits_plot_write(t_png, t_svg, &plot)))
+        gl_limits_plot plot = {.n = res.n,
+                               .sep_px = res.sep_px,
+                               .ncurves = 2,
+                               .curves = {{res.contrast_c50, l1}, {res.contrast_cq, l2}},
+                               .pixscale_mas = pixscale > 0 ? pixscale : 0,
+                               .title = ttl,
+                               .nnotes = 5,
+                               .notes = {n1, n2, n3, n4, n5}};
+        if ((st = gl_limits_plot_write(t_png, t_svg, &plot)) ||
+            (st = gl_limits_plot_write_pdf(t_pdf, &plot)))
             goto cleanup;
     }
     if ((st = gl_outset_commit(outs)))

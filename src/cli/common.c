@@ -177,6 +177,8 @@ gl_status cli_read_input(gl_cli *cli, const char *path, int min_naxis, gl_cube *
         gl_cube_free(*cube);
         *cube = NULL;
     }
+    if (!st && min_naxis >= 3) /* a science cube, not a PSF: what was observed */
+        gl_provenance_add_observation(&cli->prov, (*cube)->header);
     return st;
 }
 

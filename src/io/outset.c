@@ -207,6 +207,14 @@ gl_status gl_file_crc32(const char *path, unsigned long *crc)
     return GL_OK;
 }
 
+void gl_provenance_add_observation(gl_provenance *p, const gl_header *h)
+{
+    if (p->has_obs || !h)
+        return;
+    gl_obsinfo_from_header(h, &p->obs);
+    p->has_obs = 1;
+}
+
 gl_status gl_provenance_add_input(gl_provenance *p, const char *path)
 {
     if (p->ninputs >= 16)

@@ -77,6 +77,32 @@ gl_status gl_table_write_csv_labelled(const char *path, const gl_table *t, const
     return GL_OK;
 }
 
+/* What was observed, so that a table read on its own says of what star,
+ * when, with which filter and at which pixel scale (FITS Standard 4.0
+ * keywords; the scale as GLPIXSC, mas per pixel). */
+static void write_observation(fitsfile *f, const gl_provenance *prov, int *status)
+{
+    if (!prov || !prov->has_obs)
+        return;
+    const gl_obsinfo *o = &prov->obs;
+    const struct {
+        const char *key, *value, *comment;
+    } text[] = {{"OBJECT", o->object, "observed object"},
+                {"TELESCOP", o->telescope, "telescope"},
+                {"INSTRUME", o->instrument, "instrument"},
+                {"FILTER", o->filter, "filter"},
+                {"DATE-OBS", o->date_obs, "start of the observation"}};
+    for (size_t i = 0; i < sizeof text / sizeof text[0]; i++)
+        if (text[i].value[0])
+            fits_update_key_str(f, text[i].key, text[i].value, text[i].comment, status);
+    if (isfinite(o->mjd_obs))
+        fits_update_key_dbl(f, "MJD-OBS", o->mjd_obs, -15, "MJD of the start of the observation",
+                            status);
+    if (isfinite(o->pixscale_mas))
+        fits_update_key_dbl(f, "GLPIXSC", o->pixscale_mas, -12, "pixel scale, mas (from the WCS)",
+                            status);
+}
+
 gl_status gl_table_write_fits(const char *path, const gl_table *t, const char *extname,
                               const gl_provenance *prov)
 {
@@ -135,6 +161,7 @@ gl_status gl_table_write_fits_labelled(const char *path, const gl_table *t, cons
             fits_write_col(f, TDOUBLE, c + 1 + lab, 1, 1, t->nrows, (void *)t->cols[c], &status);
     gl_fits_write_header(f, t->header, prov, &status);
     gl_fits_write_provenance(f, prov, &status);
+    write_observation(f, prov, &status);
     fits_write_chksum(f, &status);
     gl_free(ttype);
     gl_free(tform);
