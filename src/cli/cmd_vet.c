@@ -518,6 +518,12 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
     if ((st = read_candidates(cand_path, cube->nx, cube->ny, &sep, &pa, &ncand)) ||
         (st = gl_provenance_add_input(&cli->prov, cand_path)))
         goto cleanup;
+    /* the inner radius the subtraction will really use (klip-rings chooses
+     * it from the rotation when the mask is auto), so that the checks and the
+     * fit's annulus know the masked zone */
+    if (setup.p.mask_radius == GL_SUBTRACT_MASK_AUTO)
+        setup.p.mask_radius = gl_subtract_inner_radius(&setup.p, angles, cube->nframe,
+                                                       refs ? refs->nframe : 0, cube->nx, cube->ny);
     for (long i = 0; i < ncand; i++)
         if ((st = gl_vet_check_position(cube->nx, cube->ny, &setup.p, &o.vp, sep[i], pa[i]))) {
             row_error(cand_path, i, st);
