@@ -155,6 +155,7 @@ static gl_status add_section(gl_plan *plan, const char *target, const char *sect
 /* The inputs of a target: resolved paths (relative to the plan), or NULL. */
 typedef struct target_inputs {
     const char *cube, *angles, *psf, *refs, *psf_scale, *pixscale;
+    double wcs_pixscale; /* mas per pixel from the cube's WCS, NaN without */
     int angles_from_header;
     char fwhm[64];
 } target_inputs;
@@ -233,6 +234,17 @@ static gl_status read_inputs(gl_plan *plan, const char *target, arena *a, int ch
         return st;
     in->psf_scale = gl_plan_value(plan, target, "inputs", "psf-scale", NULL);
     in->pixscale = gl_plan_value(plan, target, "inputs", "pixscale", NULL);
+    in->wcs_pixscale = NAN;
+    if (check && !in->pixscale) { /* the scale of the cube's WCS, for the summary */
+        gl_header *h = NULL;
+        if (gl_fits_read_header(in->cube, &h) == GL_OK) {
+            gl_obsinfo info;
+            gl_obsinfo_from_header(h, &info);
+            in->wcs_pixscale = info.pixscale_mas;
+        }
+        gl_header_free(h);
+        gl_error_clear();
+    }
     return resolve_fwhm(plan, target, check, in);
 }
 
@@ -275,7 +287,8 @@ static gl_status compose(gl_plan *plan, const char *target, run_files *f, arena 
         (st = asked_steps(plan, target, &in, asked)))
         return st;
     f->fwhm = strtod(in.fwhm, NULL);
-    f->pixscale = in.pixscale ? strtod(in.pixscale, NULL) : 0;
+    f->pixscale =
+        in.pixscale ? strtod(in.pixscale, NULL) : (isfinite(in.wcs_pixscale) ? in.wcs_pixscale : 0);
     const char *cube = in.cube, *angles = in.angles;
 
 #define ARG(...)                                                                                   \
@@ -541,24 +554,17 @@ static double now_s(void)
     return (double)ts.tv_sec + 1e-9 * (double)ts.tv_nsec;
 }
 
-/* mkdir -p */
+/* Creates the run folder (its parent must exist, as for every product). */
 static gl_status make_folder(const char *path)
 {
-    char buf[4096];
-    snprintf(buf, sizeof buf, "%s", path);
-    for (char *p = buf + 1; *p; p++) {
-        if (*p != '/')
-            continue;
-        *p = '\0';
-        if (mkdir(buf, 0777) != 0 && errno != EEXIST)
-            return gl_error_set(GL_ERR_IO, "%s: cannot create the folder: %s", buf,
-                                strerror(errno));
-        *p = '/';
-    }
-    if (mkdir(buf, 0777) != 0 && errno != EEXIST)
-        return gl_error_set(GL_ERR_IO, "%s: cannot create the run folder: %s", buf,
-                            strerror(errno));
-    return GL_OK;
+    if (mkdir(path, 0777) == 0 || errno == EEXIST)
+        return GL_OK;
+    if (errno == ENOENT)
+        return gl_error_set(GL_ERR_IO,
+                            "%s: cannot create the run folder: its parent folder does "
+                            "not exist",
+                            path);
+    return gl_error_set(GL_ERR_IO, "%s: cannot create the run folder: %s", path, strerror(errno));
 }
 
 /* A folder is a run folder when it has a ledger, or is empty. */
@@ -744,8 +750,10 @@ gl_status gl_run_target(gl_plan *plan, const char *target, const gl_run_params *
         }
         goto cleanup;
     }
+    /* the ledger is written before the first step, so that a run that fails
+     * leaves a run folder that the next run (after a fix) takes up */
     if ((st = check_folder(f)) || (st = make_folder(f->folder)) ||
-        (st = gl_ledger_open(f->folder, &led)))
+        (st = gl_ledger_open(f->folder, &led)) || (st = gl_ledger_save(led)))
         goto cleanup;
     int nasked = 0, done = 0;
     for (int s = 0; s < GL_NSTEPS; s++)

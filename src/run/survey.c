@@ -161,7 +161,7 @@ static gl_status contrast_figure(const char *path, const char *const *names, con
     double lo = floor(log10(ymin)), hi = ceil(log10(ymax));
     if (hi <= lo)
         hi = lo + 1;
-    const int W = 760, H = 480, L = 70, R = 190, T = 24, B = 50;
+    const int W = 760, H = 480, L = 70, R = 190, T = 30, B = 50;
     cairo_surface_t *s = cairo_image_surface_create(CAIRO_FORMAT_RGB24, W, H);
     cairo_t *cr = cairo_create(s);
     cairo_set_source_rgb(cr, 1, 1, 1);
@@ -179,17 +179,41 @@ static gl_status contrast_figure(const char *path, const char *const *names, con
         char lab[32];
         snprintf(lab, sizeof lab, "1e%.0f", e);
         cairo_set_source_rgb(cr, 0.2, 0.2, 0.2);
-        cairo_move_to(cr, 8, PY(pow(10, e)) + 4);
+        cairo_move_to(cr, L - 36, PY(pow(10, e)) + 4);
         cairo_show_text(cr, lab);
     }
     cairo_set_source_rgb(cr, 0.4, 0.4, 0.4);
     cairo_rectangle(cr, L, T, W - L - R, H - T - B);
     cairo_stroke(cr);
+    /* separation ticks: 1, 2 or 5 times a power of ten, about six of them */
+    double raw = xmax / 6, p10 = pow(10, floor(log10(raw))), m = raw / p10;
+    double step = (m < 1.5 ? 1 : m < 3.5 ? 2 : m < 7.5 ? 5 : 10) * p10;
+    for (double x = 0; x <= xmax * (1 + 1e-9); x += step) {
+        char lab[32];
+        snprintf(lab, sizeof lab, "%g", x);
+        cairo_move_to(cr, PX(x), H - B);
+        cairo_line_to(cr, PX(x), H - B + 4);
+        cairo_stroke(cr);
+        cairo_move_to(cr, PX(x) - 8, H - B + 16);
+        cairo_show_text(cr, lab);
+    }
     char xl[96];
-    snprintf(xl, sizeof xl, "separation (%s), 0 .. %.3g; contrast at 50%% completeness",
-             arcsec ? "arcsec" : "px", xmax);
-    cairo_move_to(cr, L, H - 18);
+    snprintf(xl, sizeof xl, "separation (%s)", arcsec ? "arcsec" : "px");
+    cairo_move_to(cr, L + (W - L - R) / 2 - 40, H - 8);
     cairo_show_text(cr, xl);
+    cairo_save(cr);
+    cairo_move_to(cr, 18, T + (H - T - B) / 2 + 80);
+    cairo_rotate(cr, -M_PI / 2);
+    cairo_show_text(cr, "contrast (companion / star)");
+    cairo_restore(cr);
+    cairo_set_font_size(cr, 13);
+    cairo_move_to(cr, L, 16);
+    cairo_show_text(cr, "50%-completeness contrast of every target (plane 1; each at the "
+                        "threshold of its own report)");
+    cairo_set_font_size(cr, 12);
+    cairo_save(cr);
+    cairo_rectangle(cr, L, T, W - L - R, H - T - B);
+    cairo_clip(cr);
     /* a qualitative palette of our own, then repeated with dashes */
     static const double pal[][3] = {{0.18, 0.23, 0.27}, {0.75, 0.46, 0.16}, {0.20, 0.52, 0.50},
                                     {0.55, 0.24, 0.45}, {0.45, 0.55, 0.20}, {0.70, 0.22, 0.20}};
@@ -206,6 +230,14 @@ static gl_status contrast_figure(const char *path, const char *const *names, con
                 cairo_line_to(cr, PX(cv[i].x[k]), PY(cv[i].y[k]));
         }
         cairo_stroke(cr);
+    }
+    cairo_restore(cr); /* the legend, outside the plot */
+    for (int i = 0; i < n; i++) {
+        const double *c = pal[i % 6];
+        double dash[] = {6, 3};
+        cairo_set_dash(cr, dash, i / 6 % 2 ? 2 : 0, 0);
+        cairo_set_source_rgb(cr, c[0], c[1], c[2]);
+        cairo_set_line_width(cr, 1.8);
         cairo_move_to(cr, W - R + 12, T + 14 + 18 * i);
         cairo_line_to(cr, W - R + 36, T + 14 + 18 * i);
         cairo_stroke(cr);
