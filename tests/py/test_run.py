@@ -258,6 +258,16 @@ def test_run_writes_the_folder_and_a_second_run_skips_every_step(sequence, tmp_p
             assert np.isnan(want)
         else:
             assert e["contrast_c50"] == pytest.approx(want, rel=1e-9)
+    # the cube's WCS gives the pixel scale, so the contrast is also given in
+    # arcsec (astropy.wcs: proj_plane_pixel_scales of the simulated cube)
+    from astropy.io import fits as afits
+    from astropy.wcs import WCS
+    from astropy.wcs.utils import proj_plane_pixel_scales
+    w = WCS(afits.getheader(sequence / "sim" / "cube.fits")).celestial
+    scale = 3.6e6 * np.sqrt(np.prod(proj_plane_pixel_scales(w)))
+    assert s["pixscale_mas"] == pytest.approx(scale, rel=1e-9)
+    for e in s["contrast"]["at_arcsec"]:
+        assert e["sep_px"] == pytest.approx(e["sep_arcsec"] * 1000 / scale, rel=1e-9)
     # the field rotation of the angles (numpy)
     ang = np.loadtxt(out / "angles.txt")
     assert s["field_rotation_deg"] == pytest.approx(abs(ang[-1] - ang[0]), abs=1e-6)
@@ -337,6 +347,17 @@ def test_a_failed_step_is_reported_and_the_run_stops(sequence, tmp_path):
     assert s["steps"]["align"]["state"] == "failed"
     assert s["steps"]["subtract"]["state"] == "not reached"
     assert not (out / "result.fits").exists()
+    # fixed, the plan runs into the same folder; the finished step is kept
+    plan = write_plan(sequence, name="fail.ini")
+    r = gloam("run", plan, "--out", out)
+    assert r.returncode == 0, r.stderr
+    s = json.loads((out / "summary.json").read_text())
+    assert s["steps"]["inspect"]["state"] == "unchanged"
+    assert s["steps"]["align"]["state"] == "ran"
+    # like every product, a run folder needs its parent folder
+    r = gloam("run", plan, "--out", tmp_path / "no" / "such")
+    assert r.returncode == 1 and "its parent folder does not exist" in r.stderr
+    assert not (tmp_path / "no").exists()
 
 
 # ---- gloam survey ----------------------------------------------------------------
