@@ -60,7 +60,7 @@ enum {
     "common options:\n"                                                                            \
     "  --overwrite        replace existing products\n"                                             \
     "  --threads N        worker threads (results do not depend on N)\n"                           \
-    "  --quiet            only errors on stderr\n"                                                 \
+    "  --quiet            only warnings and errors on stderr\n"                                    \
     "  --verbose          debugging detail on stderr\n"                                            \
     "  --help             this text\n"
 
