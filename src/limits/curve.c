@@ -28,6 +28,7 @@
 #include "gloam/detect.h"
 #include "limits/internal.h"
 
+#include <gsl/gsl_errno.h>
 #include <math.h>
 #include <string.h>
 
@@ -428,26 +429,30 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
     }
 
     /* throughput and completeness on the grid, from the fakes around each
-     * separation */
-    for (int k = 0; k < np; k++)
-        for (long i = 0; i < n; i++) {
-            size_t j = (size_t)k * (size_t)n + (size_t)i;
-            limits_point pt = {.sep_px = r.sep_px[i],
-                               .fwhm = fwhm,
-                               .noise = r.noise[j],
-                               .tau = r.t_threshold[j],
-                               .nref = r.dof[j] + 1,
-                               .psf_flux = F,
-                               .q = lp->completeness};
-            gl_limits_calibrate_point(&pt, r.fakes, r.nfakes, k);
-            r.throughput[j] = pt.throughput;
-            r.throughput_scatter[j] = pt.throughput_scatter;
-            r.fakes_used[j] = pt.fakes_used;
-            r.contrast[j] = pt.contrast;
-            r.completeness_of_contrast[j] = pt.completeness;
-            r.contrast_c50[j] = pt.contrast_c50;
-            r.contrast_cq[j] = pt.contrast_cq;
-        }
+     * separation: every point on its own (static schedule, one thread per
+     * point: the same numbers at any thread count) */
+    gsl_set_error_handler_off();
+#pragma omp parallel for schedule(static)
+    for (long ki = 0; ki < (long)np * n; ki++) {
+        int k = (int)(ki / n);
+        long i = ki % n;
+        size_t j = (size_t)ki;
+        limits_point pt = {.sep_px = r.sep_px[i],
+                           .fwhm = fwhm,
+                           .noise = r.noise[j],
+                           .tau = r.t_threshold[j],
+                           .nref = r.dof[j] + 1,
+                           .psf_flux = F,
+                           .q = lp->completeness};
+        gl_limits_calibrate_point(&pt, r.fakes, r.nfakes, k);
+        r.throughput[j] = pt.throughput;
+        r.throughput_scatter[j] = pt.throughput_scatter;
+        r.fakes_used[j] = pt.fakes_used;
+        r.contrast[j] = pt.contrast;
+        r.completeness_of_contrast[j] = pt.completeness;
+        r.contrast_c50[j] = pt.contrast_c50;
+        r.contrast_cq[j] = pt.contrast_cq;
+    }
     gl_progress("limits", 1 + lp->fake_runs, 1 + lp->fake_runs);
     long usable = 0, low = 0;
     for (long i = 0; i < n; i++) {
