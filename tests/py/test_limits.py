@@ -298,7 +298,7 @@ def test_completeness_columns_match_scipy(tmp_path):
     F = fits.getheader(tmp_path / "l.limits.fits", 1)["GLPSFAP"]
     good = np.flatnonzero(np.isfinite(t["contrast_c90"]))
     assert good.size >= 10
-    for i in good[:: max(1, good.size // 5)]:  # five separations: quad is slow
+    for i in good[[0, good.size // 2, -1]]:  # three separations: quad is slow
         tau, dof = t["t_threshold"][i], t["dof"][i]
         assert tau == pytest.approx(stats.t.isf(stats.norm.sf(4), dof), rel=1e-7)
         for q, col, mag in ((0.5, "contrast_c50", "delta_mag_c50"),
