@@ -24,7 +24,7 @@
  *
  * Assumptions: aperture noise iid normal (the test's own assumption); the
  * response is linear in c between the fake's contrast and the one solved for
- * (the fakes are planted near the 50% level to keep that small); the fakes
+ * (the fakes are planted around the 50% and 95% levels to keep that small); the fakes
  * near one separation sample the position-angle dependence of the response.
  */
 #include "core/internal.h"

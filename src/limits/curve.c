@@ -22,7 +22,8 @@
  * Fakes are planted, by default, at the flux that throughput 1 would detect
  * half of the time, at least 10 x the local aperture noise (common practice
  * is a fixed 5-10 x: bright enough to measure, faint enough not to drive the
- * KL modes; near the 50% level the response is the one the curve needs).
+ * KL modes), and from the second run on at the 95% contrast the earlier runs
+ * give, so that the fakes bracket the fluxes the curve needs.
  */
 #include "core/internal.h"
 #include "gloam/detect.h"
@@ -179,9 +180,12 @@ static void measure_fake(gl_limits_fake *f, const gl_aperture_plan *ap,
     }
 }
 
-/* The contrast of 50% completeness at fake j's separation from the fakes
- * of the runs before run b (plane 1), within a factor 4 of its first guess;
- * the first guess where none can be computed. */
+/* The contrast of 95% completeness (50% where 95% is out of reach) at fake
+ * j's separation from the fakes of the runs before run b (plane 1), within a
+ * factor 4 of its first guess; the first guess where none can be computed.
+ * The first run's fakes sit below the curve, these above it: between them
+ * they bracket the fluxes the 50% and 95% contrasts need (full-frame PCA
+ * absorbs a brighter companion more; measured in docs/limits.md). */
 static double provisional_level(const gl_limits_result *r, int j, int b, double fwhm, double F)
 {
     const gl_limits_fake *f = &r->fakes[j];
@@ -199,10 +203,10 @@ static double provisional_level(const gl_limits_result *r, int j, int b, double 
                        .tau = interp(r->sep_px, r->t_threshold, r->n, f->sep_px),
                        .nref = dof + 1,
                        .psf_flux = F,
-                       .q = 0.5};
+                       .q = 0.95};
     gl_limits_calibrate_point(&pt, done, nd, 0);
     gl_free(done);
-    double c = pt.contrast_c50;
+    double c = isfinite(pt.contrast_cq) ? pt.contrast_cq : pt.contrast_c50;
     if (!(c > 0))
         return f->contrast;
     return GL_MIN(GL_MAX(c, 0.25 * f->contrast), 4 * f->contrast);
@@ -400,9 +404,9 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
         for (int j = 0; j < r.nfakes; j++)
             if (r.fakes[j].run == b) {
                 /* automatic level: from the second run on, the fakes go in at
-                 * the 50% contrast the earlier runs give (the subtraction is
-                 * not linear in the companion's flux: calibrate near where
-                 * the curve will be) */
+                 * the 95% contrast the earlier runs give (the subtraction is
+                 * not linear in the companion's flux: calibrate where the
+                 * curve will be) */
                 if (b > 0 && !(lp->fake_level > 0))
                     r.fakes[j].contrast = provisional_level(&r, j, b, fwhm, F);
                 comps[nc++] =
