@@ -16,26 +16,29 @@ echo "== 1. what the sequence holds"
 
 echo
 echo "== 2. star centring (method chosen from the data) and angles from the headers"
+# the angles of the aligned frames are stored in aligned.fits (its ANGLES
+# table, read by later commands without --angles) and also written as text
 "$gloam" align "$frames/cube.fits" --out "$out/aligned.fits" --table "$out/starpos.csv" \
-  --angles-from-header --angles-out "$out/angles.txt" --overwrite
+  --method auto --angles-from-header --angles-out "$out/angles.txt" --overwrite
 cube="$out/aligned.fits"
 angles="$out/angles.txt"
 
 echo
 echo "== 3. classical ADI (median frame subtracted), for comparison"
 "$gloam" subtract "$cube" --angles "$angles" --fwhm "$fwhm" \
-  --mask-radius 6 --method median --out "$out/adi.fits" --overwrite
-"$gloam" detect "$out/adi.fits" --fwhm "$fwhm" --mask-radius 6 --out "$out/adi" --overwrite
+  --mask-radius 6 --method median-frame --out "$out/adi.fits" --overwrite
+# no --fwhm: detect reads the FWHM that subtract recorded in adi.fits
+"$gloam" detect "$out/adi.fits" --mask-radius 6 --out "$out/adi" --overwrite
 
 echo
-echo "== 4. annular KLIP: 5, 10 and 20 modes, references rotated by at least 0.75 FWHM"
+echo "== 4. KLIP ring by ring: 5, 10 and 20 modes, references where the sky turned by at least 0.75 FWHM"
 "$gloam" subtract "$cube" --angles "$angles" --fwhm "$fwhm" \
-  --mask-radius 6 --method annular --gap 0.75 --modes 5,10,20 --out "$out/klip.fits" --overwrite
+  --mask-radius 6 --method klip-rings --gap 0.75 --modes 5,10,20 --out "$out/klip.fits" --overwrite
 
 echo
 echo "== 5. detection in the 5-mode image (5 sigma, small-sample statistics)"
-"$gloam" detect "$out/klip.fits" --fwhm "$fwhm" --plane 1 --mask-radius 6 \
-  --out "$out/klip" --every-plane --overwrite
+"$gloam" detect "$out/klip.fits" --fwhm auto --plane 1 --mask-radius 6 \
+  --out "$out/klip" --every-plane --skip-flanking --overwrite
 echo "found ($out/klip.candidates.csv):"
 brief "$out/klip.candidates.csv"
 echo "planted in the simulation ($frames/truth.csv):"
@@ -44,7 +47,7 @@ cut -d, -f1-3 "$frames/truth.csv" | sed 's/,/\t/g'
 echo
 echo "== 6. contrast curve calibrated with fake companions, and the candidates' contrast"
 "$gloam" limits "$cube" --angles "$angles" --psf "$frames/psf.fits" \
-  --fwhm "$fwhm" --mask-radius 6 --method annular --gap 0.75 --modes 5 \
+  --fwhm "$fwhm" --mask-radius 6 --method klip-rings --gap 0.75 --modes 5 \
   --candidates "$out/klip.candidates.csv" \
   --out "$out/klip5" --overwrite
 
@@ -55,3 +58,8 @@ echo
 echo "products in $out/: aligned.fits, starpos.csv, klip.fits (north-up, one plane per mode count), klip.snr.fits"
 echo "and klip.snr.png (S/N maps), klip.candidates.csv, klip5.limits.csv/.png/.svg"
 echo "(contrast curve; the real companions in the field raise the noise at 16 and 31 px)"
+
+echo
+echo "== 8. the whole reduction again from one plan (demo-frames/plan.ini): run folder, summary, report"
+"$gloam" run "$frames/plan.ini" --out "$out/run"
+echo "open $out/run/report.html; a second 'gloam run' skips every unchanged step"

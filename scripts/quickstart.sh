@@ -13,10 +13,12 @@ case "$what" in demo|test) ;; *) echo "usage: $0 demo|test" >&2; exit 1 ;; esac
 # ---- 1. Debian packages -----------------------------------------------------
 packages=(build-essential meson ninja-build pkg-config
           libcfitsio-dev wcslib-dev libfftw3-dev liblapacke-dev libopenblas-dev
-          liberfa-dev libgsl-dev libcairo2-dev libcjson-dev zlib1g-dev)
+          liberfa-dev libgsl-dev libcairo2-dev libcjson-dev zlib1g-dev libinih-dev
+          libopenmpi-dev openmpi-bin)
 if [ "$what" = test ]; then
   packages+=(fitsverify clang-format python3-pytest python3-numpy python3-scipy
-             python3-astropy python3-photutils python3-skimage python3-astroplan)
+             python3-astropy python3-photutils python3-skimage python3-astroplan
+             chromium poppler-utils)
 fi
 missing=()
 for p in "${packages[@]}"; do

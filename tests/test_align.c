@@ -181,7 +181,8 @@ static void test_spots(void)
 }
 
 /* Whole step on a jittered cube: rms error of the star positions. */
-static double run_jitter(star_kind kind, gl_centre_method m, double noise, gl_centre_method *used)
+static double run_jitter(star_kind kind, gl_centre_method m, gl_profile_kind prof, double noise,
+                         gl_centre_method *used)
 {
     long n = 64, nf = 12;
     double tx[12], ty[12];
@@ -189,6 +190,7 @@ static double run_jitter(star_kind kind, gl_centre_method m, double noise, gl_ce
     gl_align_params p;
     gl_align_params_init(&p);
     p.method = m;
+    p.profile = prof;
     gl_align_result *r = NULL;
     gl_status st = gl_align_run(c, NULL, "test", &p, &r);
     CHECK(st == GL_OK, "align %s: %s", gl_centre_method_name(m), gl_error_message());
@@ -216,21 +218,21 @@ static void test_jitter_recovery(void)
     gl_centre_method used = GL_CENTRE_AUTO;
     double e;
     /* issue 3: rms error < 0.02 px on unsaturated stars */
-    e = run_jitter(STAR_GAUSS, GL_CENTRE_AUTO, 2.0, &used);
+    e = run_jitter(STAR_GAUSS, GL_CENTRE_AUTO, GL_PROFILE_GAUSSIAN, 2.0, &used);
     CHECK(e < 0.02, "auto on a Gaussian star: rms %g", e);
-    CHECK(used == GL_CENTRE_GAUSSIAN, "auto chose %s", gl_centre_method_name(used));
-    e = run_jitter(STAR_MOFFAT, GL_CENTRE_MOFFAT, 2.0, NULL);
+    CHECK(used == GL_CENTRE_CORE, "auto chose %s", gl_centre_method_name(used));
+    e = run_jitter(STAR_MOFFAT, GL_CENTRE_CORE, GL_PROFILE_MOFFAT, 2.0, NULL);
     CHECK(e < 0.02, "Moffat fit: rms %g", e);
-    e = run_jitter(STAR_AIRY, GL_CENTRE_REGISTER, 2.0, NULL);
+    e = run_jitter(STAR_AIRY, GL_CENTRE_REFERENCE, GL_PROFILE_GAUSSIAN, 2.0, NULL);
     CHECK(e < 0.02, "registration on an Airy star: rms %g", e);
-    e = run_jitter(STAR_AIRY, GL_CENTRE_GAUSSIAN, 2.0, NULL);
+    e = run_jitter(STAR_AIRY, GL_CENTRE_CORE, GL_PROFILE_GAUSSIAN, 2.0, NULL);
     CHECK(e < 0.02, "Gaussian fit of an Airy star: rms %g", e);
     /* issue 3: rms error < 0.1 px with satellite spots */
-    e = run_jitter(STAR_SPOTS, GL_CENTRE_AUTO, 2.0, &used);
+    e = run_jitter(STAR_SPOTS, GL_CENTRE_AUTO, GL_PROFILE_GAUSSIAN, 2.0, &used);
     CHECK(e < 0.1, "spots: rms %g", e);
     CHECK(used == GL_CENTRE_SPOTS, "auto chose %s", gl_centre_method_name(used));
-    e = run_jitter(STAR_SPOTS, GL_CENTRE_SYMMETRY, 2.0, NULL);
-    CHECK(e < 0.1, "symmetry: rms %g", e);
+    e = run_jitter(STAR_SPOTS, GL_CENTRE_HALO, GL_PROFILE_GAUSSIAN, 2.0, NULL);
+    CHECK(e < 0.1, "halo: rms %g", e);
 }
 
 static void test_preparation(void)
@@ -251,7 +253,7 @@ static void test_preparation(void)
         angles[f] = -10 + 2.0 * f;
     gl_align_params p;
     gl_align_params_init(&p);
-    p.method = GL_CENTRE_GAUSSIAN;
+    p.method = GL_CENTRE_CORE;
     p.badpix_sigma = 5;
     p.reject_sigma = 5;
     p.crop = 21;
@@ -295,7 +297,7 @@ static void test_correlation_rejection(void)
                 (float)(5 + 1000 * s * exp(-0.5 * (pow(x - tx[3], 2) + pow(y - ty[3], 2)) / 36.0));
     gl_align_params p;
     gl_align_params_init(&p);
-    p.method = GL_CENTRE_GAUSSIAN;
+    p.method = GL_CENTRE_CORE;
     p.reject_sigma = 5;
     gl_align_result *r = NULL;
     CHECK(gl_align_run(c, NULL, "ao", &p, &r) == GL_OK, "%s", gl_error_message());
@@ -336,7 +338,7 @@ static void test_bad_input(void)
                 if (hypot(x - tx[f], y - ty[f]) < 5)
                     gl_cube_plane(c, 0, f)[y * n + x] = NAN;
     gl_align_params_init(&p);
-    p.method = GL_CENTRE_SYMMETRY;
+    p.method = GL_CENTRE_HALO;
     p.crop = 5;
     CHECK(gl_align_run(c, NULL, "hole.fits", &p, &r) == GL_ERR_INPUT, "NaN crop");
     CHECK(strstr(gl_error_message(), "holds no data") != NULL, "%s", gl_error_message());
@@ -397,7 +399,7 @@ static void test_threads(void)
         gl_cube *c = make_cube(n, nf, STAR_AIRY, 1.0, 1.0, tx, ty, 11);
         gl_align_params p;
         gl_align_params_init(&p);
-        p.method = GL_CENTRE_REGISTER;
+        p.method = GL_CENTRE_REFERENCE;
         p.badpix_sigma = 5;
         gl_align_result *r = NULL;
         CHECK(gl_align_run(c, NULL, "t", &p, &r) == GL_OK, "%s", gl_error_message());
@@ -420,7 +422,7 @@ static void test_allocation_failures(void)
 {
     long n = 32, nf = 4;
     double tx[4], ty[4], angles[4] = {0, 1, 2, 3};
-    gl_centre_method methods[3] = {GL_CENTRE_GAUSSIAN, GL_CENTRE_REGISTER, GL_CENTRE_SPOTS};
+    gl_centre_method methods[3] = {GL_CENTRE_CORE, GL_CENTRE_REFERENCE, GL_CENTRE_SPOTS};
     int bad = 0;
     for (int m = 0; m < 3; m++)
         for (long k = 1; k <= 120; k++) {

@@ -446,6 +446,38 @@ static void test_csv_roundtrip(void)
           "short row refused: %s", gl_error_message());
 }
 
+/* The angle table of a product: written after the image, read back the
+ * same; radian-looking and constant lists (issue 10). */
+static void test_angle_table(void)
+{
+    const char *p = path_in("with_angles.fits");
+    gl_cube *c = NULL;
+    CHECK(gl_cube_new(8, 8, 1, 3, &c) == GL_OK, "cube");
+    c->naxis = 3;
+    double in[3] = {-10.25, 0.5, 12.75}, *a = NULL;
+    long n = 0;
+    CHECK(gl_fits_write_cube(p, c, NULL) == GL_OK, "%s", gl_error_message());
+    CHECK(gl_angles_table_read(p, 3, &a, &n) == GL_OK && a == NULL, "no table yet: not an error");
+    CHECK(gl_angles_table_append(p, in, 3) == GL_OK, "%s", gl_error_message());
+    CHECK(gl_angles_table_read(p, 3, &a, &n) == GL_OK && n == 3, "%s", gl_error_message());
+    for (int i = 0; a && i < 3; i++)
+        CHECK(a[i] == in[i], "angle %d read back", i);
+    gl_free(a);
+    CHECK(gl_angles_table_read(p, 4, &a, &n) == GL_ERR_INPUT && a == NULL, "wrong count");
+    gl_cube *back = NULL;
+    CHECK(gl_fits_read_cube(p, 3, &back) == GL_OK && back->nframe == 3, "image still read");
+    gl_cube_free(back);
+    gl_cube_free(c);
+    unlink(p);
+
+    double rad[4] = {-0.31, -0.12, 0.07, 0.26}, deg[4] = {-17.8, -6.9, 4.0, 14.9};
+    double whole[4] = {0, 1, 2, 3}, flat[3] = {5, 5, 365};
+    CHECK(gl_angles_look_like_radians(rad, 4), "radians recognised");
+    CHECK(!gl_angles_look_like_radians(deg, 4), "degrees are degrees");
+    CHECK(!gl_angles_look_like_radians(whole, 4), "whole degrees are degrees");
+    CHECK(gl_angles_constant(flat, 3) && !gl_angles_constant(rad, 4), "constant modulo 360");
+}
+
 int main(void)
 {
     snprintf(dir, sizeof dir, "/tmp/gloam-test-io-XXXXXX");
@@ -463,6 +495,7 @@ int main(void)
     test_obsinfo_cube_wcs();
     test_many_axes();
     test_csv_roundtrip();
+    test_angle_table();
     /* remove what is left */
     DIR *dp = opendir(dir);
     for (struct dirent *e; dp && (e = readdir(dp));)

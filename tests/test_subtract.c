@@ -194,7 +194,9 @@ static void test_target_weights(void)
     sub_eig_work *w = NULL;
     float W[2 * 12];
     CHECK(sub_eig_work_new(n, 5, &w) == GL_OK, "eigen workspace");
-    CHECK(sub_target_weights(C, n, lib, nlib, t, ks, 2, w, W) == GL_OK, "weights");
+    long kused = 0;
+    CHECK(sub_target_weights(C, n, ncol, lib, nlib, t, ks, 2, w, W, &kused) == GL_OK, "weights");
+    CHECK(kused == 5, "all 5 modes used");
     sub_basis b;
     CHECK(sub_basis_build(L, nlib, ncol, 5, &b) == GL_OK, "library basis");
     for (int q = 0; q < 2; q++) {
@@ -335,8 +337,7 @@ static void test_errors(void)
     p.method = GL_SUBTRACT_ANNULAR;
     p.gap_fwhm = 50;
     CHECK(gl_subtract_run(c, ang, NULL, &p, &r) == GL_ERR_USAGE, "gap leaves no references");
-    CHECK(strstr(gl_error_message(), "without reference") != NULL, "message: %s",
-          gl_error_message());
+    CHECK(strstr(gl_error_message(), "--gap") != NULL, "message: %s", gl_error_message());
     p.gap_fwhm = 0.5;
     gl_cube *other = NULL;
     gl_cube_new(30, 32, 1, 4, &other);
@@ -363,11 +364,74 @@ static void test_errors(void)
         CHECK(st == GL_ERR_NOMEM && r.image == NULL, "allocation %ld fails cleanly (%d)", k, st);
     }
     CHECK(nomem > 5, "fault injection reached %d allocations", nomem);
+    /* the same for klip-rings with its per-ring report */
+    p.method = GL_SUBTRACT_ANNULAR;
+    p.mask_radius = 0;
+    nomem = 0;
+    for (long k = 1; k < 400; k += 3) {
+        gl_malloc_fail_after(k);
+        gl_status st = gl_subtract_run(c, ang, NULL, &p, &r);
+        gl_malloc_fail_after(0);
+        if (st == GL_OK) {
+            gl_subtract_result_free(&r);
+            break;
+        }
+        nomem += st == GL_ERR_NOMEM;
+        CHECK(st == GL_ERR_NOMEM && r.image == NULL,
+              "klip-rings: allocation %ld fails cleanly (%d)", k, st);
+    }
+    CHECK(nomem > 5, "klip-rings fault injection reached %d allocations", nomem);
     gl_cube_free(refs);
     gl_cube_free(other);
     gl_cube_free(c);
     free(ang);
     free(zero);
+}
+
+/* The default inner radius of klip-rings against a brute-force scan: at the
+ * radius returned every frame's library at the first ring's middle holds the
+ * largest mode count; a little further in, some frame's does not. */
+static void test_inner_radius(void)
+{
+    long n = 30;
+    double ang[30];
+    for (long i = 0; i < n; i++)
+        ang[i] = -10.0 + 20.0 * (double)i / (double)(n - 1) + 0.01 * sin((double)i);
+    gl_subtract_params p;
+    gl_subtract_params_init(&p);
+    p.method = GL_SUBTRACT_ANNULAR;
+    p.fwhm = 4;
+    p.modes[0] = 5;
+    long idx[30];
+    double r = gl_subtract_inner_radius(&p, ang, n, 0, 128, 128);
+    double half = 0.5 * p.ring_fwhm * p.fwhm, gap = p.gap_fwhm * p.fwhm;
+    CHECK(r > 0 && r < 64, "inner radius inside the frame: %g", r);
+    long fewest = n, fewest_in = n;
+    for (long t = 0; t < n; t++) {
+        long m = gl_subtract_library_select(ang, NULL, n, t, r + half, gap, 0, idx);
+        long m2 = gl_subtract_library_select(ang, NULL, n, t, r - 0.01 + half, gap, 0, idx);
+        fewest = m < fewest ? m : fewest;
+        fewest_in = m2 < fewest_in ? m2 : fewest_in;
+    }
+    CHECK(fewest >= 5, "every frame has 5 references at %g px (fewest %ld)", r, fewest);
+    CHECK(fewest_in < 5, "0.01 px further in, some frame has fewer (%ld)", fewest_in);
+    /* too many modes for any ring inside a 40-px frame: at least one each */
+    p.modes[0] = 28;
+    r = gl_subtract_inner_radius(&p, ang, n, 0, 40, 40);
+    fewest = n;
+    for (long t = 0; t < n; t++) {
+        long m = gl_subtract_library_select(ang, NULL, n, t, r + half, gap, 0, idx);
+        fewest = m < fewest ? m : fewest;
+    }
+    CHECK(r > 0 && fewest >= 1, "fallback: one reference each at %g px (%ld)", r, fewest);
+    /* an explicit radius, other methods, RDI alone: no choice made */
+    p.mask_radius = 3;
+    CHECK(gl_subtract_inner_radius(&p, ang, n, 0, 128, 128) == 3, "explicit radius kept");
+    p.mask_radius = GL_SUBTRACT_MASK_AUTO;
+    p.method = GL_SUBTRACT_PCA;
+    CHECK(gl_subtract_inner_radius(&p, ang, n, 0, 128, 128) == 0, "klip-frame starts at 0");
+    p.method = GL_SUBTRACT_ANNULAR;
+    CHECK(gl_subtract_inner_radius(&p, ang, n, 4, 128, 128) == 0, "RDI alone starts at 0");
 }
 
 int main(void)
@@ -381,5 +445,6 @@ int main(void)
     test_target_weights();
     test_threads();
     test_errors();
+    test_inner_radius();
     CHECK_DONE();
 }

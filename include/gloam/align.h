@@ -4,18 +4,20 @@
  * real sequence needs around it (bad pixels, frame selection, crop, temporal
  * binning, parallactic angles from the headers).
  *
- * Centring methods (one interface, a table of function pointers):
- *  - "gaussian", "moffat": least-squares fit of a 2-D Gaussian or a Moffat
- *    (1969, A&A 3, 455) profile plus a constant background to a stamp around
- *    an unsaturated star (GSL multifit_nlinear), with parameter uncertainties;
- *  - "register": every frame registered to the median frame by
- *    cross-correlation refined by an upsampled matrix-multiply DFT
+ * Centring methods, named by what they centre on (one interface, a table of
+ * function pointers):
+ *  - "core": least-squares fit of a profile (`profile`: a 2-D Gaussian or a
+ *    Moffat (1969, A&A 3, 455) profile) plus a constant background to a stamp
+ *    around an unsaturated star (GSL multifit_nlinear), with parameter
+ *    uncertainties;
+ *  - "reference": every frame registered to a reference frame (the median of
+ *    registered frames) by cross-correlation refined by a matrix-multiply DFT
  *    (Guizar-Sicairos, Thurman & Fienup 2008, Opt. Lett. 33, 156), then one
- *    absolute centre for the median frame (profile fit when the star is
+ *    absolute centre for the reference (profile fit when the star is
  *    unsaturated, halo symmetry otherwise);
  *  - "spots": four satellite spots found and fitted, the centre being the
  *    least-squares intersection of the two spot diagonals;
- *  - "symmetry": the centre of point symmetry of a coronagraphic halo, from the
+ *  - "halo": the centre of point symmetry of a coronagraphic halo, from the
  *    cross-correlation of the frame with its 180-degree rotation.
  * Shifts are applied by the geometry module (gloam/geometry.h).
  *
@@ -159,15 +161,15 @@ GL_API gl_status gl_align_frame_times_read(const char *path, long nframe, double
 
 typedef enum gl_centre_method {
     GL_CENTRE_AUTO = -1,
-    GL_CENTRE_GAUSSIAN = 0,
-    GL_CENTRE_MOFFAT,
-    GL_CENTRE_REGISTER,
+    GL_CENTRE_CORE = 0, /* profile fit of the star's core (gl_align_params.profile) */
+    GL_CENTRE_REFERENCE,
     GL_CENTRE_SPOTS,
-    GL_CENTRE_SYMMETRY,
+    GL_CENTRE_HALO,
     GL_CENTRE_NMETHODS
 } gl_centre_method;
 
-/* Method by name ("auto", "gaussian", ...); -2 for an unknown name. */
+/* Method by name ("auto", "core", "reference", "spots", "halo"); -2 for an
+ * unknown name. */
 GL_API int gl_centre_method_from_name(const char *name);
 GL_API const char *gl_centre_method_name(gl_centre_method m);
 
@@ -175,7 +177,9 @@ typedef struct gl_align_params {
     /* set by the user */
     gl_centre_method method; /* GL_CENTRE_AUTO: chosen from the data (logged) */
     gl_interp interp;        /* shift interpolator (default FFT) */
-    int upsample;            /* registration / symmetry resolution 1/upsample px (100) */
+    gl_profile_kind profile; /* profile of the "core" method (Gaussian) */
+    double precision;        /* sub-pixel precision of registration and symmetry, px
+                                (0.01); the DFT upsampling factor is 1 / precision */
     int stamp_half;          /* profile-fit stamp half-size, px (0: from the FWHM) */
     double fwhm;             /* star FWHM guess, px (0: estimated) */
     double spot_search;      /* px around the median-frame spot positions (5) */
@@ -187,8 +191,9 @@ typedef struct gl_align_params {
     long bin;                /* > 1: average this many consecutive kept frames */
 } gl_align_params;
 
-/* Defaults: auto method, FFT shifts, upsample 100, no bad-pixel correction,
- * no frame selection, no crop, no binning. */
+/* Defaults: auto method, Gaussian core profile, FFT shifts, precision
+ * 0.01 px, no bad-pixel correction, no frame selection, no crop, no
+ * binning. */
 GL_API void gl_align_params_init(gl_align_params *p);
 
 /* Bit codes of the bad-pixel map. */
@@ -211,7 +216,8 @@ typedef enum gl_frame_status {
 /* Everything the step produced. */
 typedef struct gl_align_result {
     gl_cube *aligned;           /* kept (and binned, cropped) frames, star at (nx/2, ny/2) */
-    gl_centre_method method;    /* the method used */
+    gl_centre_method method;    /* the method used (after any fallback) */
+    char method_note[256];      /* methods tried before it and why they were left, or "" */
     long nframe;                /* input frames */
     double *x, *y;              /* star in each input frame (NaN when not found) */
     double *err_x, *err_y;      /* 1-sigma uncertainties */
@@ -235,8 +241,15 @@ GL_API void gl_align_result_free(gl_align_result *r);
  * measurements do not depend on the number of OpenMP threads.
  * Errors: GL_ERR_USAGE (bad parameter, crop larger than the frame),
  * GL_ERR_INPUT (no star signal; spots not found; every frame rejected; the
- * crop region holds no data), GL_ERR_NUMERIC, GL_ERR_NOMEM. Messages name
- * `name` (the input file). */
+ * crop region holds no data; the method centred fewer than half of the
+ * frames), GL_ERR_NUMERIC, GL_ERR_NOMEM. Messages name `name` (the input
+ * file).
+ * Most frames lost: a method that centres the star in fewer than half of the
+ * frames (counting frames whose centre jumps away from the others) has not
+ * found the star. With GL_CENTRE_AUTO the next method of the automatic order
+ * is tried (logged with the reason, recorded in method_note); with a method
+ * asked for, or when every method has failed, the run stops with
+ * GL_ERR_INPUT rather than return a product without most of the data. */
 GL_API gl_status gl_align_run(gl_cube *cube, const double *angles, const char *name,
                               const gl_align_params *p, gl_align_result **out);
 

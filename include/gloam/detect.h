@@ -225,7 +225,7 @@ GL_API gl_status gl_detect_quicklook_write(const char *path, const gl_detect_map
                                            const char *title);
 
 /* Writes the maps as one FITS file: primary HDU the S/N map (2-D), image
- * extensions FPF and SIGNIF, each with `header` (the input's cards, with any
+ * extensions FPF and SIGMA, each with `header` (the input's cards, with any
  * third-axis WCS removed) and the parameters (GLDxxxx keywords), provenance
  * and checksums. Errors: GL_ERR_IO, GL_ERR_NOMEM. */
 GL_API gl_status gl_detect_maps_write(const char *path, const gl_detect_maps *maps,

@@ -15,5 +15,7 @@
 #include "gloam/sim.h"
 #include "gloam/detect.h"
 #include "gloam/align.h"
+#include "gloam/vet.h"
+#include "gloam/run.h"
 
 #endif

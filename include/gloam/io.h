@@ -81,6 +81,42 @@ GL_API void gl_obsinfo_from_header(const gl_header *h, gl_obsinfo *info);
  * not finite; empty). */
 GL_API gl_status gl_angles_read(const char *path, long expected, double **angles, long *n);
 
+/* Extension name of the angle table a product carries. */
+#define GL_ANGLES_EXTNAME "ANGLES"
+
+/* Appends the angle table to the FITS file `path` (normally a product just
+ * written under its temporary name): a binary-table extension EXTNAME
+ * 'ANGLES' with one column ANGLE (TUNIT 'deg', 1D), one row per frame in
+ * frame order, with CHECKSUM/DATASUM. On failure the file is deleted.
+ * Errors: GL_ERR_IO naming path. */
+GL_API gl_status gl_angles_table_append(const char *path, const double *angles, long n);
+
+/* Reads the angle table of a product (the 'ANGLES' binary-table extension).
+ * A file without one (or not FITS) is not an error: *angles stays NULL.
+ * When expected > 0 the row count must equal it.
+ * Errors: GL_ERR_IO, GL_ERR_INPUT (no ANGLE column, wrong count, empty, not
+ * finite), each naming path. */
+GL_API gl_status gl_angles_table_read(const char *path, long expected, double **angles, long *n);
+
+/* Smallest spread (max - min) of an angle list that gl_angles_look_like_radians
+ * considers: below it the list is close to constant in either unit. */
+#define GL_ANGLES_RADIAN_MIN_SPREAD 0.01
+
+/* 1 when an angle list (degrees expected) looks like radians: every |angle|
+ * <= 2 pi, a spread between GL_ANGLES_RADIAN_MIN_SPREAD and 2 pi, and not
+ * every angle a whole number. Parallactic angles in radians lie in
+ * [-pi, pi] (or [0, 2 pi)) and are not whole numbers, so a radian list
+ * always passes; a degree list passes only when the whole sequence stays
+ * within 6.3 degrees of zero, i.e. a short sequence through the meridian
+ * with at most 6.3 degrees of field rotation, for which a warning is worth
+ * having anyway; a hand-written list of whole degrees (0, 1, 2, 3) does not
+ * (common practice, no published rule). */
+GL_API int gl_angles_look_like_radians(const double *a, long n);
+
+/* 1 when every angle equals the first (modulo 360, within 1e-6 deg): no
+ * field rotation. */
+GL_API int gl_angles_constant(const double *a, long n);
+
 /* ---- provenance -------------------------------------------------------- */
 
 /* What made a product: recorded in every FITS product's header (HISTORY and
@@ -92,7 +128,17 @@ typedef struct gl_provenance {
     int ninputs;
     const char *inputs[16];
     unsigned long crc32[16]; /* CRC-32 (zlib) of each input file's bytes */
+    /* what was observed, from the first science input (see
+     * gl_provenance_add_observation): written into every table product */
+    int has_obs;
+    gl_obsinfo obs;
 } gl_provenance;
+
+/* Records what was observed (OBJECT, TELESCOP, INSTRUME, FILTER, DATE-OBS,
+ * MJD-OBS, the pixel scale of the WCS) from the header of the first science
+ * input; later calls keep the first. FITS tables then carry these keywords
+ * (gl_table_write_fits), images carry them through their own header. */
+GL_API void gl_provenance_add_observation(gl_provenance *p, const gl_header *h);
 
 /* Adds an input file and its CRC-32 (silently ignores more than 16). */
 GL_API gl_status gl_provenance_add_input(gl_provenance *p, const char *path);
@@ -113,6 +159,10 @@ GL_API gl_status gl_outset_new(int overwrite, gl_outset **out);
  * Errors: GL_ERR_EXISTS, GL_ERR_IO, GL_ERR_USAGE (output equals an input). */
 GL_API gl_status gl_outset_add(gl_outset *s, const char *path, const gl_provenance *prov,
                                const char **tmp_path);
+/* Rewrites the last error message so that it names products, not the
+ * temporary names gl_outset_add handed out for them (in this process);
+ * returns st. The CLI calls it before printing any error. */
+GL_API gl_status gl_outset_error_names(gl_status st);
 /* Renames every temporary file into place. */
 GL_API gl_status gl_outset_commit(gl_outset *s);
 /* Deletes uncommitted temporary files and frees the set; NULL is a no-op. */
@@ -137,6 +187,14 @@ typedef struct gl_table {
 
 /* Write t to path (normally a temporary name from gl_outset_add); a failed
  * write leaves no file. Errors: GL_ERR_IO (naming path), GL_ERR_NOMEM. */
+/* The same tables led by one column of text (label_name; labels holds
+ * t->nrows strings: a target's name, a status), quoted in CSV where
+ * RFC 4180 asks; in FITS a character column as wide as the longest label. */
+GL_API gl_status gl_table_write_csv_labelled(const char *path, const gl_table *t,
+                                             const char *label_name, const char *const *labels);
+GL_API gl_status gl_table_write_fits_labelled(const char *path, const gl_table *t,
+                                              const char *extname, const gl_provenance *prov,
+                                              const char *label_name, const char *const *labels);
 GL_API gl_status gl_table_write_csv(const char *path, const gl_table *t);
 
 /* A CSV table read back: one header line of column names, then rows of
@@ -156,6 +214,12 @@ GL_API gl_status gl_csv_read(const char *path, gl_csv **out);
 GL_API void gl_csv_free(gl_csv *t);
 /* Index of a column by name, or -1. */
 GL_API int gl_csv_column(const gl_csv *t, const char *name);
+/* Reads the first table extension of a FITS file into the same structure
+ * (numeric scalar columns; others, and nulls, read as NaN).
+ * Errors: GL_ERR_IO, GL_ERR_INPUT (not FITS, no table extension). */
+GL_API gl_status gl_table_read_fits(const char *path, gl_csv **out);
+/* A table as CSV or as a FITS table (by the file's first bytes, "SIMPLE"). */
+GL_API gl_status gl_table_read(const char *path, gl_csv **out);
 GL_API gl_status gl_table_write_fits(const char *path, const gl_table *t, const char *extname,
                                      const gl_provenance *prov);
 

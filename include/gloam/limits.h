@@ -132,21 +132,30 @@ typedef struct gl_limits_series {
     const char *label;
 } gl_limits_series;
 
+#define GL_LIMITS_PLOT_MAX_CURVES 12
+
 typedef struct gl_limits_plot {
     long n;
     const double *sep_px;
     int ncurves;
-    gl_limits_series curves[4];
+    gl_limits_series curves[GL_LIMITS_PLOT_MAX_CURVES];
     double pixscale_mas; /* > 0 adds an arcsec axis */
     const char *title;
     int nnotes;
     const char *notes[8];
+    /* candidates marked on the figure (nmarks 0: none) */
+    int nmarks;
+    const double *mark_sep_px, *mark_contrast;
+    const char *const *mark_labels; /* may be NULL */
 } gl_limits_plot;
 
 /* Draws the figure to a PNG and/or an SVG file (either path may be NULL).
  * Errors: GL_ERR_IO. */
 GL_API gl_status gl_limits_plot_write(const char *png_path, const char *svg_path,
                                       const gl_limits_plot *p);
+/* The same figure for a journal: a PDF one column (3.5 in) wide with 7-8 pt
+ * fonts and the notes under the plot. Errors: GL_ERR_IO. */
+GL_API gl_status gl_limits_plot_write_pdf(const char *pdf_path, const gl_limits_plot *p);
 
 #ifdef __cplusplus
 }

@@ -21,7 +21,8 @@ void gl_align_params_init(gl_align_params *p)
     memset(p, 0, sizeof *p);
     p->method = GL_CENTRE_AUTO;
     p->interp = GL_INTERP_FFT;
-    p->upsample = 100;
+    p->profile = GL_PROFILE_GAUSSIAN;
+    p->precision = 0.01;
     p->spot_search = 5;
     p->bin = 1;
 }
@@ -61,8 +62,10 @@ static gl_status check_params(const gl_cube *c, const gl_align_params *p)
 {
     if (p->method < GL_CENTRE_AUTO || p->method >= GL_CENTRE_NMETHODS)
         return gl_error_set(GL_ERR_USAGE, "unknown centring method %d", (int)p->method);
-    if (p->upsample < 1 || p->upsample > 1000)
-        return gl_error_set(GL_ERR_USAGE, "upsampling %d is outside [1, 1000]", p->upsample);
+    if (!(p->precision >= 0.001 && p->precision <= 1))
+        return gl_error_set(GL_ERR_USAGE, "precision %g px is outside [0.001, 1]", p->precision);
+    if (p->profile != GL_PROFILE_GAUSSIAN && p->profile != GL_PROFILE_MOFFAT)
+        return gl_error_set(GL_ERR_USAGE, "unknown core profile %d", (int)p->profile);
     if (p->crop < 0 || p->crop > GL_MIN(c->nx, c->ny))
         return gl_error_set(GL_ERR_USAGE, "crop size %ld does not fit the %ldx%ld frame", p->crop,
                             c->nx, c->ny);
@@ -227,6 +230,13 @@ static gl_status assemble(const gl_cube *c, const gl_align_params *p, const char
         gl_header_set_dbl(h, "CRPIX2", crpix - (double)y0 + (double)(c->ny / 2) - my,
                           "reference pixel, star-centred frame");
     gl_header_set_str(h, "GLALMETH", gl_centre_method_name(r->method), "star centring method");
+    if (r->method == GL_CENTRE_CORE)
+        gl_header_set_str(h, "GLALPROF", p->profile == GL_PROFILE_MOFFAT ? "moffat" : "gaussian",
+                          "profile fitted to the core");
+    gl_header_set_dbl(h, "GLALPREC", 1.0 / gl_align_upsample(p),
+                      "[pix] registration / symmetry precision");
+    if (r->method_note[0])
+        gl_header_add_history(h, r->method_note);
     gl_header_set_str(h, "GLALINTP", gl_interp_name(p->interp), "sub-pixel shift interpolator");
     gl_header_set_int(h, "GLALNIN", c->nframe, "frames in the input");
     gl_header_set_int(h, "GLALNKEP", r->nkept, "frames kept");
@@ -262,13 +272,16 @@ static const char *status_word(int s)
 
 /* A centre far from all the others is a feature taken for the star (a
  * satellite spot, a bright speckle), not pointing jitter: the frame is
- * rejected. Far means beyond max(3 FWHM, 5 x the robust spread of the centres
- * (hypot of the per-axis robust sigmas; e^-25 for Gaussian jitter));
- * pointing jitter of an AO system stays well inside that (common practice). */
-static gl_status reject_jumps(const gl_align_stack *s, const gl_align_params *p, const char *name,
-                              gl_align_result *r, long nf)
+ * marked GL_FRAME_JUMP. Far means beyond max(3 FWHM, 5 x the robust spread
+ * of the centres (hypot of the per-axis robust sigmas; e^-25 for Gaussian
+ * jitter)); pointing jitter of an AO system stays well inside that (common
+ * practice). *mx, *my get the median centre (NaN with fewer than 5 frames,
+ * when nothing is marked). */
+static gl_status reject_jumps(const gl_align_stack *s, const gl_align_params *p, gl_align_result *r,
+                              long nf, double *mx, double *my)
 {
     double *v = gl_malloc(3 * (size_t)nf * sizeof *v);
+    *mx = *my = NAN;
     if (!v)
         return gl_error_nomem("centre check");
     long m = 0;
@@ -279,9 +292,9 @@ static gl_status reject_jumps(const gl_align_stack *s, const gl_align_params *p,
             m++;
         }
     if (m >= 5) {
-        double mx, sx, my, sy;
-        gl_stats_robust(v, (size_t)m, v + 2 * nf, &mx, &sx);
-        gl_stats_robust(v + nf, (size_t)m, v + 2 * nf, &my, &sy);
+        double sx, sy;
+        gl_stats_robust(v, (size_t)m, v + 2 * nf, mx, &sx);
+        gl_stats_robust(v + nf, (size_t)m, v + 2 * nf, my, &sy);
         double fwhm = p->fwhm;
         long px, py;
         double peak;
@@ -291,20 +304,103 @@ static gl_status reject_jumps(const gl_align_stack *s, const gl_align_params *p,
         if (!(fwhm > 0) || !isfinite(fwhm))
             fwhm = 4;
         double lim = GL_MAX(3 * fwhm, 5 * hypot(sx, sy));
-        for (long f = 0; f < nf; f++) {
-            double d = hypot(r->x[f] - mx, r->y[f] - my);
-            if (r->status[f] == GL_FRAME_KEPT && d > lim) {
+        for (long f = 0; f < nf; f++)
+            if (r->status[f] == GL_FRAME_KEPT && hypot(r->x[f] - *mx, r->y[f] - *my) > lim)
                 r->status[f] = GL_FRAME_JUMP;
-                gl_log(GL_LOG_WARN,
-                       "%s: frame %ld rejected: its centre (%.2f, %.2f) lies %.1f px from the "
-                       "others' median (%.2f, %.2f): a satellite spot or another feature taken "
-                       "for the star",
-                       name, f, r->x[f], r->y[f], d, mx, my);
-            }
-        }
     }
     gl_free(v);
     return GL_OK;
+}
+
+/* Centres every frame with the method asked for, or with the automatic
+ * choice and its fallbacks: a method that keeps fewer than half of the
+ * frames (no centre, or a centre that jumps away from the others) has not
+ * found the star, and the next method is tried (auto) or the run stops
+ * (a method asked for). Fills r->x, y, err_x, err_y, quality, status and
+ * r->method. */
+static gl_status centre_frames(const gl_align_stack *s, const gl_align_params *p, const char *name,
+                               gl_align_result *r)
+{
+    long nf = s->nframe;
+    int tried[GL_CENTRE_NMETHODS] = {0};
+    int *ok = gl_malloc((size_t)nf * sizeof *ok);
+    gl_status st = GL_OK;
+    char reason[512], left[256] = "";
+    if (!ok)
+        return gl_error_nomem("centring");
+    for (;;) {
+        gl_centre_method m = p->method;
+        if (m == GL_CENTRE_AUTO) {
+            m = gl_centre_auto(s, p, tried, reason, sizeof reason);
+            if (m == GL_CENTRE_AUTO) {
+                st = gl_error_set(GL_ERR_INPUT,
+                                  "%s: no centring method found the star in most frames (%s); "
+                                  "see the log, or try --method with --fwhm or --spot-radius",
+                                  name, left);
+                break;
+            }
+            gl_log(GL_LOG_INFO, "centring method: %s, chosen because the data show %s",
+                   gl_centre_method_name(m), reason);
+        } else {
+            gl_log(GL_LOG_INFO, "centring method: %s (as asked)", gl_centre_method_name(m));
+        }
+        tried[m] = 1;
+        r->method = m;
+        const gl_centre_ops *ops = gl_centre_ops_get(m);
+        gl_centres cen = {r->x, r->y, r->err_x, r->err_y, r->quality, ok};
+        st = ops->measure(s, p, &cen);
+        if (st && !(st == GL_ERR_INPUT && p->method == GL_CENTRE_AUTO))
+            break;
+        long nok = 0, nfail = 0;
+        double mx = NAN, my = NAN;
+        if (!st) {
+            for (long f = 0; f < nf; f++)
+                r->status[f] = ok[f] ? GL_FRAME_KEPT : GL_FRAME_NO_CENTRE;
+            if ((st = reject_jumps(s, p, r, nf, &mx, &my)))
+                break;
+            for (long f = 0; f < nf; f++)
+                nok += r->status[f] == GL_FRAME_KEPT;
+        } else {
+            gl_error_clear();
+            st = GL_OK;
+        }
+        nfail = nf - nok;
+        if (2 * nok >= nf) {
+            for (long f = 0; f < nf; f++)
+                if (r->status[f] == GL_FRAME_NO_CENTRE)
+                    gl_log(GL_LOG_WARN, "%s: frame %ld rejected: the %s centring found no star",
+                           name, f, ops->name);
+                else if (r->status[f] == GL_FRAME_JUMP)
+                    gl_log(GL_LOG_WARN,
+                           "%s: frame %ld rejected: its centre (%.2f, %.2f) lies %.1f px from "
+                           "the others' median (%.2f, %.2f): a satellite spot or another "
+                           "feature taken for the star",
+                           name, f, r->x[f], r->y[f], hypot(r->x[f] - mx, r->y[f] - my), mx, my);
+            break;
+        }
+        char what[128];
+        snprintf(what, sizeof what, "%s%s lost %ld of %ld frames", left[0] ? "; " : "", ops->name,
+                 nfail, nf);
+        snprintf(left + strlen(left), sizeof left - strlen(left), "%s", what);
+        if (p->method != GL_CENTRE_AUTO) {
+            st = gl_error_set(GL_ERR_INPUT,
+                              "%s: the %s centring found the star in only %ld of the %ld frames "
+                              "(no centre, or a centre far from the others): it does not suit "
+                              "these data; try another --method (auto falls back by itself)",
+                              name, ops->name, nok, nf);
+            break;
+        }
+        gl_log(GL_LOG_WARN,
+               "%s: the %s centring found the star in only %ld of the %ld frames; trying the "
+               "next method",
+               name, ops->name, nok, nf);
+    }
+    if (!st && left[0])
+        snprintf(r->method_note, sizeof r->method_note,
+                 "gloam align: centring fell back to %s (%s)", gl_centre_method_name(r->method),
+                 left);
+    gl_free(ok);
+    return st;
 }
 
 gl_status gl_align_run(gl_cube *cube, const double *angles, const char *name,
@@ -380,45 +476,7 @@ gl_status gl_align_run(gl_cube *cube, const double *angles, const char *name,
     if ((st = gl_sharp_reference(&stack, p, sharp)))
         goto cleanup;
     stack.sharp = sharp;
-    gl_centre_method m = p->method;
-    char reason[256];
-    if (m == GL_CENTRE_AUTO) {
-        m = gl_centre_auto(&stack, p, reason, sizeof reason);
-        gl_log(GL_LOG_INFO, "centring method: %s, chosen because the data show %s",
-               gl_centre_method_name(m), reason);
-    } else {
-        gl_log(GL_LOG_INFO, "centring method: %s (as asked)", gl_centre_method_name(m));
-    }
-    r->method = m;
-    const gl_centre_ops *ops = gl_centre_ops_get(m);
-    int *ok = gl_malloc((size_t)nf * sizeof *ok);
-    if (!ok) {
-        st = gl_error_nomem("centring");
-        goto cleanup;
-    }
-    gl_centres cen = {r->x, r->y, r->err_x, r->err_y, r->quality, ok};
-    st = ops->measure(&stack, p, &cen);
-    long nok = 0;
-    for (long f = 0; f < nf && !st; f++) {
-        r->status[f] = ok[f] ? GL_FRAME_KEPT : GL_FRAME_NO_CENTRE;
-        if (ok[f])
-            nok++;
-        else
-            gl_log(GL_LOG_WARN, "%s: frame %ld rejected: the %s centring found no star", name, f,
-                   ops->name);
-    }
-    gl_free(ok);
-    if (st)
-        goto cleanup;
-    if (nok == 0) {
-        st = gl_error_set(GL_ERR_INPUT,
-                          "%s: the %s centring found the star in none of the %ld "
-                          "frames",
-                          name, ops->name, nf);
-        goto cleanup;
-    }
-
-    if ((st = reject_jumps(&stack, p, name, r, nf)))
+    if ((st = centre_frames(&stack, p, name, r)))
         goto cleanup;
     if ((st = shift_frames(cube, p, r->x, r->y, r->status)))
         goto cleanup;

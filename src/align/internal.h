@@ -37,8 +37,8 @@ typedef struct gl_centre_ops {
     gl_status (*measure)(const gl_align_stack *s, const gl_align_params *p, gl_centres *c);
 } gl_centre_ops;
 
-extern const gl_centre_ops gl_centre_gaussian_ops, gl_centre_moffat_ops, gl_centre_register_ops,
-    gl_centre_spots_ops, gl_centre_symmetry_ops;
+extern const gl_centre_ops gl_centre_core_ops, gl_centre_reference_ops, gl_centre_spots_ops,
+    gl_centre_halo_ops;
 const gl_centre_ops *gl_centre_ops_get(gl_centre_method m);
 
 /* A sharp reference: up to 64 frames spread over the sequence, registered
@@ -46,9 +46,19 @@ const gl_centre_ops *gl_centre_ops_get(gl_centre_method m);
  * Only s->img and s->median are used. */
 gl_status gl_sharp_reference(const gl_align_stack *s, const gl_align_params *p, float *ref);
 
-/* Chooses a method for the stack (logged by the caller with the reason). */
-gl_centre_method gl_centre_auto(const gl_align_stack *s, const gl_align_params *p, char *reason,
-                                size_t size);
+/* Chooses a method for the stack (logged by the caller with the reason),
+ * skipping the methods m with tried[m] set; GL_CENTRE_AUTO when every
+ * method has been tried. */
+gl_centre_method gl_centre_auto(const gl_align_stack *s, const gl_align_params *p, const int *tried,
+                                char *reason, size_t size);
+
+/* The DFT upsampling factor of a registration precision in pixels
+ * (1 / precision, rounded, within [1, 1000]). */
+static inline int gl_align_upsample(const gl_align_params *p)
+{
+    double u = p->precision > 0 ? 1.0 / p->precision : 100.0;
+    return u < 1 ? 1 : (u > 1000 ? 1000 : (int)(u + 0.5));
+}
 
 /* Re-records the current error message as "prefix: message" (the message
  * is copied first: gl_error_set must not read the buffer it writes). */

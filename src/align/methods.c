@@ -2,22 +2,25 @@
  * methods.c -- the centring methods behind one interface (a table of
  * gl_centre_ops), and the automatic choice between them.
  *
- *  gaussian, moffat  per-frame profile fit (profile.c)
- *  register          per-frame cross-correlation with the median frame
- *                    (xcorr.c; Guizar-Sicairos et al. 2008) plus one absolute
- *                    centre of the median frame: a Gaussian fit when the star
- *                    is an unsaturated compact peak, else halo symmetry
- *  spots             satellite spots found on the median frame, refitted in
- *                    every frame (spots.c)
- *  symmetry          per-frame centre of point symmetry (xcorr.c)
+ *  core       per-frame profile fit, Gaussian or Moffat (profile.c)
+ *  reference  per-frame cross-correlation with a reference frame (xcorr.c;
+ *             Guizar-Sicairos et al. 2008) plus one absolute centre of the
+ *             reference: a Gaussian fit when the star is an unsaturated
+ *             compact peak, else halo symmetry
+ *  spots      satellite spots found on the reference, refitted in every
+ *             frame (spots.c)
+ *  halo       per-frame centre of point symmetry (xcorr.c)
  *
  * Automatic choice (common practice, no published rule): satellite spots
- * when four are found and are comparable to the brightest feature (a
- * coronagraphic image); otherwise a Gaussian fit when the reference shows
- * an unsaturated compact star bright enough in single frames, registration
- * when it is too faint in single frames; otherwise the halo symmetry of each
- * frame (which followed the star better than registration on simulated
- * coronagraphic sequences, where the speckles evolve).
+ * when four are found, are comparable to the brightest feature and cross at
+ * the centre of symmetry of the halo (a quadrilateral of speckles or a
+ * companion does not); otherwise a core fit when the reference shows an
+ * unsaturated compact star bright enough in single frames, the reference
+ * registration when it is too faint in single frames; otherwise the halo
+ * symmetry of each frame (which followed the star better than registration
+ * on simulated coronagraphic sequences, where the speckles evolve).
+ * gl_centre_auto skips methods already tried, so that the caller can fall
+ * back when a method loses most of the frames.
  */
 #include "align/internal.h"
 #include "core/internal.h"
@@ -26,8 +29,7 @@
 #include <stdio.h>
 #include <string.h>
 
-static const char *const method_names[GL_CENTRE_NMETHODS] = {"gaussian", "moffat", "register",
-                                                             "spots", "symmetry"};
+static const char *const method_names[GL_CENTRE_NMETHODS] = {"core", "reference", "spots", "halo"};
 
 int gl_centre_method_from_name(const char *name)
 {
@@ -66,22 +68,11 @@ static int profile_frame(const float *img, long nx, long ny, const void *ctx, do
     return 0;
 }
 
-static gl_status measure_profile(const gl_align_stack *s, const gl_align_params *p, gl_centres *c,
-                                 gl_profile_kind kind)
+static gl_status measure_core(const gl_align_stack *s, const gl_align_params *p, gl_centres *c)
 {
-    profile_ctx ctx = {kind, p};
+    profile_ctx ctx = {p->profile, p};
     gl_centres_each_frame(s, profile_frame, &ctx, c);
     return GL_OK;
-}
-
-static gl_status measure_gaussian(const gl_align_stack *s, const gl_align_params *p, gl_centres *c)
-{
-    return measure_profile(s, p, c, GL_PROFILE_GAUSSIAN);
-}
-
-static gl_status measure_moffat(const gl_align_stack *s, const gl_align_params *p, gl_centres *c)
-{
-    return measure_profile(s, p, c, GL_PROFILE_MOFFAT);
 }
 
 /* ---- star or halo? ------------------------------------------------------ */
@@ -127,7 +118,7 @@ gl_status gl_sharp_reference(const gl_align_stack *s, const gl_align_params *p, 
     float *buf = gl_malloc(npix * (size_t)nsub * sizeof *buf);
     gl_status st = buf ? GL_OK : gl_error_nomem("registration reference");
     if (!st)
-        st = gl_xcorr_plan_new(s->median, s->nx, s->ny, p->upsample, &xp);
+        st = gl_xcorr_plan_new(s->median, s->nx, s->ny, gl_align_upsample(p), &xp);
     if (!st)
         st = gl_geom_plan_new(s->nx, s->ny, p->interp, &gp);
     int nomem = 0;
@@ -176,7 +167,7 @@ static gl_status measure_register(const gl_align_stack *s, const gl_align_params
         /* a compact feature far from the frame's centre of symmetry is not
          * the star (a satellite spot, a background source): use symmetry */
         double sx, sy;
-        if (gl_align_symmetry_centre(ref, s->nx, s->ny, p->upsample, &sx, &sy) == GL_OK &&
+        if (gl_align_symmetry_centre(ref, s->nx, s->ny, gl_align_upsample(p), &sx, &sy) == GL_OK &&
             hypot(fit.x - sx, fit.y - sy) > 3 * GL_MAX(fit.fwhm, 1.0)) {
             gl_log(GL_LOG_WARN,
                    "registration: the compact peak at (%.2f, %.2f) lies %.1f px from the "
@@ -195,19 +186,19 @@ static gl_status measure_register(const gl_align_stack *s, const gl_align_params
                "the registered median frame",
                cx, cy);
     } else {
-        st = gl_align_symmetry_centre(ref, s->nx, s->ny, p->upsample, &cx, &cy);
+        st = gl_align_symmetry_centre(ref, s->nx, s->ny, gl_align_upsample(p), &cx, &cy);
         if (st)
             goto cleanup;
-        ecx = ecy = 0.5 / p->upsample;
+        ecx = ecy = 0.5 / gl_align_upsample(p);
         gl_log(GL_LOG_INFO,
                "registration: absolute centre (%.3f, %.3f) from the point symmetry "
                "of the registered median frame",
                cx, cy);
     }
-    st = gl_xcorr_plan_new(ref, s->nx, s->ny, p->upsample, &plan);
+    st = gl_xcorr_plan_new(ref, s->nx, s->ny, gl_align_upsample(p), &plan);
     if (st)
         goto cleanup;
-    double quant = 1.0 / (p->upsample * sqrt(12.0)); /* rounding to the 1/up grid */
+    double quant = 1.0 / (gl_align_upsample(p) * sqrt(12.0)); /* rounding to the 1/up grid */
     int nomem = 0;
     long done = 0;
 #pragma omp parallel
@@ -248,7 +239,7 @@ cleanup:
 static gl_status measure_symmetry(const gl_align_stack *s, const gl_align_params *p, gl_centres *c)
 {
     gl_xcorr_plan *plan = NULL;
-    gl_status st = gl_symmetry_plan_new(s->nx, s->ny, p->upsample, &plan);
+    gl_status st = gl_symmetry_plan_new(s->nx, s->ny, gl_align_upsample(p), &plan);
     if (st)
         return st;
     size_t npix = (size_t)s->nx * (size_t)s->ny;
@@ -301,7 +292,7 @@ static gl_status measure_spots(const gl_align_stack *s, const gl_align_params *p
            "(%.1f,%.1f) (%.1f,%.1f); centre (%.3f, %.3f)",
            ref.x[0], ref.y[0], ref.x[1], ref.y[1], ref.x[2], ref.y[2], ref.x[3], ref.y[3], ref.cx,
            ref.cy);
-    if ((st = gl_xcorr_plan_new(s->sharp, s->nx, s->ny, p->upsample, &plan)))
+    if ((st = gl_xcorr_plan_new(s->sharp, s->nx, s->ny, gl_align_upsample(p), &plan)))
         return st;
     size_t npix = (size_t)s->nx * (size_t)s->ny;
     int nomem = 0;
@@ -355,71 +346,144 @@ static gl_status measure_spots(const gl_align_stack *s, const gl_align_params *p
 
 /* ---- table and automatic choice ----------------------------------------- */
 
-const gl_centre_ops gl_centre_gaussian_ops = {"gaussian", "2-D Gaussian fit per frame",
-                                              measure_gaussian};
-const gl_centre_ops gl_centre_moffat_ops = {"moffat", "Moffat (1969) profile fit per frame",
-                                            measure_moffat};
-const gl_centre_ops gl_centre_register_ops = {
-    "register", "cross-correlation with the median frame (upsampled DFT)", measure_register};
+const gl_centre_ops gl_centre_core_ops = {
+    "core", "profile fit (Gaussian or Moffat 1969) of the star's core per frame", measure_core};
+const gl_centre_ops gl_centre_reference_ops = {
+    "reference", "cross-correlation with a reference frame (upsampled DFT)", measure_register};
 const gl_centre_ops gl_centre_spots_ops = {"spots", "intersection of satellite-spot diagonals",
                                            measure_spots};
-const gl_centre_ops gl_centre_symmetry_ops = {
-    "symmetry", "point symmetry of the halo (correlation with its 180-degree rotation)",
+const gl_centre_ops gl_centre_halo_ops = {
+    "halo", "point symmetry of the halo (correlation with its 180-degree rotation)",
     measure_symmetry};
 
 const gl_centre_ops *gl_centre_ops_get(gl_centre_method m)
 {
     static const gl_centre_ops *const table[GL_CENTRE_NMETHODS] = {
-        &gl_centre_gaussian_ops, &gl_centre_moffat_ops, &gl_centre_register_ops,
-        &gl_centre_spots_ops, &gl_centre_symmetry_ops};
+        &gl_centre_core_ops, &gl_centre_reference_ops, &gl_centre_spots_ops, &gl_centre_halo_ops};
     return m >= 0 && m < GL_CENTRE_NMETHODS ? table[m] : NULL;
 }
 
-gl_centre_method gl_centre_auto(const gl_align_stack *s, const gl_align_params *p, char *reason,
-                                size_t size)
+/* 1 when the four spots of sp are satellite spots of the star: their
+ * faintest is comparable to the brightest feature (2 per cent), and their
+ * diagonals cross at the centre of point symmetry of the reference (within
+ * max(3 px, 1 spot FWHM): that centre is itself uncertain by a pixel or two
+ * on a jittered reference; and no spot within 2 FWHM of it). Quasi-static speckles come
+ * in point-symmetric pairs too, but two random pairs rarely pass the
+ * geometric tests of gl_align_spots_find; a set that includes the star's
+ * own residual core or a companion crosses away from the centre of
+ * symmetry, which is what this catches (common practice). */
+static int spots_plausible(const gl_align_stack *s, const gl_align_params *p, const gl_spots *sp,
+                           double bg, double peak, char *why, size_t size)
+{
+    double weakest = INFINITY;
+    for (int k = 0; k < 4; k++) {
+        long x = lround(sp->x[k]), y = lround(sp->y[k]);
+        double v = s->sharp[y * s->nx + x] - bg;
+        if (v < weakest)
+            weakest = v;
+    }
+    if (!(weakest > 0.02 * (peak - bg))) {
+        snprintf(why, size,
+                 "four spot-like peaks, but the faintest (%.3g) is under 2%% of the "
+                 "brightest feature (%.3g)",
+                 weakest, peak - bg);
+        return 0;
+    }
+    double sx, sy;
+    if (gl_align_symmetry_centre(s->sharp, s->nx, s->ny, gl_align_upsample(p), &sx, &sy)) {
+        gl_error_clear();
+        snprintf(why, size, "four spot-like peaks, but no centre of symmetry to check them on");
+        return 0;
+    }
+    double off = hypot(sp->cx - sx, sp->cy - sy), nearest = INFINITY;
+    for (int k = 0; k < 4; k++)
+        nearest = GL_MIN(nearest, hypot(sp->x[k] - sx, sp->y[k] - sy));
+    if (off > GL_MAX(3.0, sp->fwhm) || nearest < 2 * GL_MAX(sp->fwhm, 1.0)) {
+        snprintf(why, size,
+                 "four spot-like peaks crossing at (%.1f, %.1f), %.1f px from the halo's "
+                 "centre of symmetry (%.1f, %.1f): speckles or a companion, not satellite spots",
+                 sp->cx, sp->cy, off, sx, sy);
+        return 0;
+    }
+    snprintf(why, size,
+             "four satellite spots in the registered median frame crossing at the halo's "
+             "centre of symmetry (faintest %.3g above the background; brightest 3x3 feature "
+             "%.3g)",
+             weakest, peak - bg);
+    return 1;
+}
+
+gl_centre_method gl_centre_auto(const gl_align_stack *s, const gl_align_params *p, const int *tried,
+                                char *reason, size_t size)
 {
     long px, py;
     double peak;
     double bg = gl_image_median(s->sharp, s->nx, s->ny);
+    char spots_why[320] = "";
     gl_image_peak(s->sharp, s->nx, s->ny, 2, &px, &py, &peak);
     gl_spots sp;
-    if (gl_align_spots_find(s->sharp, s->nx, s->ny, p->spot_radius, &sp) == GL_OK) {
-        double weakest = INFINITY;
-        for (int k = 0; k < 4; k++) {
-            long x = lround(sp.x[k]), y = lround(sp.y[k]);
-            double v = s->sharp[y * s->nx + x] - bg;
-            if (v < weakest)
-                weakest = v;
-        }
-        if (weakest > 0.02 * (peak - bg)) {
-            snprintf(reason, size,
-                     "four satellite spots in the registered median frame (faintest %.3g above "
-                     "the background; brightest 3x3 feature %.3g)",
-                     weakest, peak - bg);
+    if (!tried[GL_CENTRE_SPOTS] &&
+        gl_align_spots_find(s->sharp, s->nx, s->ny, p->spot_radius, &sp) == GL_OK) {
+        if (spots_plausible(s, p, &sp, bg, peak, reason, size))
             return GL_CENTRE_SPOTS;
-        }
+        snprintf(spots_why, sizeof spots_why, "%s; ", reason);
     }
     gl_error_clear();
     gl_profile_fit fit;
-    if (compact_star(s->sharp, s->nx, s->ny, p, &fit)) {
+    int compact = compact_star(s->sharp, s->nx, s->ny, p, &fit);
+    double sx, sy;
+    if (compact &&
+        gl_align_symmetry_centre(s->sharp, s->nx, s->ny, gl_align_upsample(p), &sx, &sy) == GL_OK &&
+        hypot(fit.x - sx, fit.y - sy) > 3 * GL_MAX(fit.fwhm, 1.0)) {
+        /* a compact peak far from the centre of symmetry is a companion or
+         * a background source, not the star (as in measure_register) */
+        snprintf(spots_why + strlen(spots_why), sizeof spots_why - strlen(spots_why),
+                 "a compact peak at (%.1f, %.1f), %.1f px from the centre of symmetry: not the "
+                 "star; ",
+                 fit.x, fit.y, hypot(fit.x - sx, fit.y - sy));
+        compact = 0;
+    }
+    if ((!tried[GL_CENTRE_CORE] || !tried[GL_CENTRE_REFERENCE]) && compact) {
         double noise = gl_image_noise(s->img, s->nx, s->ny);
         double snr = noise > 0 ? fit.amplitude / noise : INFINITY;
-        if (snr >= 20) {
+        if (snr >= 20 && !tried[GL_CENTRE_CORE]) {
             snprintf(reason, size,
-                     "an unsaturated star (FWHM %.2f px, peak S/N %.0f in one "
+                     "%san unsaturated star (FWHM %.2f px, peak S/N %.0f in one "
                      "frame)",
-                     fit.fwhm, snr);
-            return GL_CENTRE_GAUSSIAN;
+                     spots_why, fit.fwhm, snr);
+            return GL_CENTRE_CORE;
         }
-        snprintf(reason, size,
-                 "an unsaturated but faint star (peak S/N %.1f in one frame): "
-                 "registration uses the whole stack",
-                 snr);
-        return GL_CENTRE_REGISTER;
+        if (!tried[GL_CENTRE_REFERENCE]) {
+            snprintf(reason, size,
+                     "%san unsaturated star (peak S/N %.1f in one frame): "
+                     "registration uses the whole stack",
+                     spots_why, snr);
+            return GL_CENTRE_REFERENCE;
+        }
     }
     gl_error_clear();
-    snprintf(reason, size,
-             "no unsaturated compact star and no satellite spots: a saturated or "
-             "coronagraphic image, centred frame by frame on the symmetry of its halo");
-    return GL_CENTRE_SYMMETRY;
+    if (!tried[GL_CENTRE_HALO]) {
+        if (tried[GL_CENTRE_CORE] || tried[GL_CENTRE_REFERENCE])
+            snprintf(reason, size,
+                     "%sthe star's core or the reference frame lost most frames: centred frame "
+                     "by frame on the symmetry of the halo",
+                     spots_why);
+        else
+            snprintf(reason, size,
+                     "%sno unsaturated compact star%s: a saturated or coronagraphic image, "
+                     "centred frame by frame on the symmetry of its halo",
+                     spots_why,
+                     spots_why[0] || tried[GL_CENTRE_SPOTS] ? "" : " and no satellite spots");
+        return GL_CENTRE_HALO;
+    }
+    /* the last resort: registration to the reference works on any image */
+    if (!tried[GL_CENTRE_REFERENCE]) {
+        snprintf(reason, size,
+                 "%sthe other methods lost most frames: registration to the "
+                 "reference frame",
+                 spots_why);
+        return GL_CENTRE_REFERENCE;
+    }
+    snprintf(reason, size, "every method has been tried");
+    return GL_CENTRE_AUTO;
 }

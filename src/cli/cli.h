@@ -20,7 +20,9 @@ typedef struct gl_cli {
     char cmdline[4096];
     char program[64];
     gl_provenance prov;
-    int parsing; /* set by cli_next_option once getopt has been reset */
+    int parsing;        /* set by cli_next_option once getopt has been reset */
+    int rotation_sense; /* --rotation-sense: 0 not given, +1 counter-clockwise, -1 clockwise */
+    char angles_source[1024]; /* where cli_read_cube_angles found the angles ("" before) */
 } gl_cli;
 
 /* Option codes shared by every command (above the range of short options). */
@@ -30,8 +32,21 @@ enum {
     CLI_OPT_VERBOSE,
     CLI_OPT_THREADS,
     CLI_OPT_HELP,
+    CLI_OPT_ROTATION_SENSE,
     CLI_OPT_FIRST_COMMAND_OPTION = 1100
 };
+
+/* --rotation-sense, for every command that reads an angle list (subtract,
+ * limits, inject): handled by cli_common_option, applied in one place,
+ * cli_read_cube_angles. */
+#define CLI_ANGLE_OPTION                                                                           \
+    {                                                                                              \
+        "rotation-sense", required_argument, 0, CLI_OPT_ROTATION_SENSE                             \
+    }
+#define CLI_ANGLE_HELP                                                                             \
+    "  --rotation-sense WAY   which way the sky turns on the detector as the angle grows:\n"       \
+    "                         counter-clockwise (default; or the input header's GLROTSNS)\n"       \
+    "                         | clockwise (the angles are then used with the opposite sign)\n"
 
 #define CLI_COMMON_OPTIONS                                                                         \
     {"overwrite", no_argument, 0, CLI_OPT_OVERWRITE}, {"quiet", no_argument, 0, CLI_OPT_QUIET},    \
@@ -71,7 +86,9 @@ static inline int cli_exit_status(int k)
  * which the caller returns with *exit_now set. */
 int cli_common_option(gl_cli *cli, int code, const char *arg, const char *help_text, int *exit_now);
 
-/* Prints "gloam CMD: <library message>" and returns the exit code. */
+/* Prints "gloam CMD: <library message>" and returns the exit code. A
+ * message about the parallactic angles that does not name a file gets the
+ * angles' source (cli->angles_source) in front. */
 int cli_fail(const gl_cli *cli, gl_status st);
 /* Prints "gloam CMD: <message>" plus a hint to --help; returns 1. */
 int cli_usage(const gl_cli *cli, const char *fmt, ...) __attribute__((format(printf, 2, 3)));
@@ -103,19 +120,75 @@ int cli_parse_double(const gl_cli *cli, const char *opt, const char *arg, double
 gl_status cli_read_input(gl_cli *cli, const char *path, int min_naxis, gl_cube **cube);
 
 /* Reads the science cube (3-D or 4-D) and its angle list (one angle per
- * frame), recording both in the provenance. On failure the message names the
- * file at fault; the caller frees whatever is not NULL. */
+ * frame), recording both in the provenance. angles_path NULL (no --angles):
+ * the cube's own angle table (the ANGLES extension gloam align and inject
+ * write), an error naming the cube when it has none. The source is logged
+ * and kept in cli->angles_source; angles that look like radians get a
+ * warning naming it (gl_angles_look_like_radians). On failure the message
+ * names the file at fault; the caller frees whatever is not NULL.
+ * The rotation sense (--rotation-sense, else the cube header's GLROTSNS,
+ * else counter-clockwise) is applied here and only here: with clockwise the
+ * angles are negated, so that everything downstream (subtraction,
+ * derotation, fake companions) keeps the convention of docs/conventions.md;
+ * the sense is recorded as GLROTSNS in the cube's header, which products
+ * copy. */
 gl_status cli_read_cube_angles(gl_cli *cli, const char *cube_path, const char *angles_path,
                                gl_cube **cube, double **angles);
+
+/* The rotation-sense step of cli_read_cube_angles, for a cube and angle list
+ * read another way; source names the angles in the log. */
+gl_status cli_apply_rotation_sense(const gl_cli *cli, gl_cube *cube, const char *source,
+                                   double *angles, long n);
+
+/* Warns (naming source) about an angle list that looks like radians; used
+ * wherever angles are read. */
+void cli_check_angles(const char *source, const double *angles, long n);
+
+/* --fwhm: a width in pixels, or "auto" (CLI_FWHM_AUTO), resolved by
+ * cli_resolve_fwhm once the inputs are read. */
+#define CLI_FWHM_AUTO (-1.0)
+/* Parses a --fwhm value: "auto" gives CLI_FWHM_AUTO, else a number in
+ * [GL_FWHM_MIN_PX, 1e4]. Prints a message and returns -1 on a bad value. */
+int cli_parse_fwhm(const gl_cli *cli, const char *arg, double *out);
+/* Settles the FWHM (pixels) a command uses, and logs the value and where it
+ * came from. *fwhm > 0: given with --fwhm, kept. CLI_FWHM_AUTO or 0 (not
+ * given): measured on psf_path when given (the PSF's azimuthal profile, the
+ * code behind inspect --psf), else read from the header h of product_path
+ * where a previous step recorded it (GLSFWHM from subtract, GLFWHM).
+ * Errors: GL_ERR_USAGE when neither is there (naming the file), the PSF's
+ * reading errors. */
+gl_status cli_resolve_fwhm(gl_cli *cli, double *fwhm, const char *psf_path, const gl_header *h,
+                           const char *product_path);
+/* The off-axis PSF measured on its own grid (one channel, scale 1): FWHM,
+ * centre, flux; recorded in the provenance. Shared by inspect and
+ * cli_resolve_fwhm. */
+gl_status cli_psf_measure(gl_cli *cli, const char *psf_path, gl_psf_model **out);
 
 /* Re-records the library's last message as "PATH: message" (unless it
  * already starts with path) so that it names the file; returns st. */
 gl_status cli_error_in_file(const char *path, gl_status st);
 
+/* The one --out rule (docs/conventions.md, "Where products go"):
+ *  - file commands (align, subtract, inject) take a file name; PREFIX
+ *    commands (detect, limits) take a prefix to which each product's suffix
+ *    is appended; simulate takes a folder (created if missing);
+ *  - --out naming a folder (an existing one, or a name ending in '/') puts
+ *    the products inside it, named after the input file without its FITS
+ *    extension: `align raw/night.fits --out red/` writes
+ *    red/night.aligned.fits, `detect night.subtracted.fits --out red/`
+ *    writes red/night.subtracted.snr.fits, ...;
+ *  - a folder that does not exist is an error naming it (gl_outset_add).
+ * cli_output_name applies it to a file command's --out: out itself, or
+ * DIR/STEM SUFFIX in buf (SUFFIX e.g. ".aligned.fits"); NULL after a usage
+ * message when the name does not fit. */
+const char *cli_output_name(const gl_cli *cli, const char *out, const char *input,
+                            const char *suffix, char *buf, size_t size);
+
 /* Registers the product PREFIX SUFFIX (an --out prefix, or "DIR" and
  * "/NAME") in outs: the name is written into path[size] (refused with
  * GL_ERR_USAGE when it does not fit) and *tmp gets the temporary name to
- * write to. */
+ * write to. A PREFIX that names a folder gives DIR/STEM SUFFIX, STEM from
+ * the first input of the provenance (cli_output_name's rule). */
 gl_status cli_add_product(gl_cli *cli, gl_outset *outs, const char *prefix, const char *suffix,
                           char *path, size_t size, const char **tmp);
 
@@ -137,5 +210,23 @@ int cmd_simulate(gl_cli *cli, int argc, char **argv);
 int cmd_subtract(gl_cli *cli, int argc, char **argv);
 int cmd_detect(gl_cli *cli, int argc, char **argv);
 int cmd_limits(gl_cli *cli, int argc, char **argv);
+int cmd_vet(gl_cli *cli, int argc, char **argv);
+int cmd_run(gl_cli *cli, int argc, char **argv);
+int cmd_survey(gl_cli *cli, int argc, char **argv);
+
+/* --force STEP of run and survey: sets force[step] (every step for "all");
+ * prints a message and returns -1 for an unknown step. */
+int cli_parse_force(const gl_cli *cli, const char *arg, int force[GL_NSTEPS]);
+
+/* The gl_run_exec_fn of run and survey (cmd_run.c): runs a gloam command in
+ * this process with its stdout and stderr sent to files; user is the
+ * gl_cli of run or survey, whose printers are put back afterwards. */
+int cli_exec_in_process(void *user, int argc, char **argv, const char *stdout_path,
+                        const char *log_path);
+
+/* Runs `gloam COMMAND ...` in this process (argv[0] is the program, argv[1]
+ * the command), as main() does; returns the exit status. Used by `gloam
+ * run` so that a step writes exactly what the single command writes. */
+int cli_run_command(int argc, char **argv);
 
 #endif

@@ -15,10 +15,19 @@ static const char help[] =
     "Finds the star in every frame and shifts it to pixel (nx/2, ny/2).\n\n"
     "  --out FILE            aligned cube (required)\n"
     "  --table FILE          star-position table (CSV): frame,x,y,x_err,y_err,method,...\n"
-    "  --method M            auto (default), gaussian, moffat, register, spots, symmetry\n"
+    "  --method M            what the centre is measured on:\n"
+    "                          auto (default): chosen from the data; a method that\n"
+    "                            loses most frames hands over to the next one\n"
+    "                          core: a profile fitted to the star's core (--profile)\n"
+    "                          halo: the centre of symmetry of the halo (coronagraph)\n"
+    "                          spots: the crossing of four satellite spots\n"
+    "                          reference: registration to a reference frame\n"
+    "  --profile P           core profile: gaussian (default) or moffat\n"
+    "  --precision PX        sub-pixel precision of registration and halo symmetry,\n"
+    "                        pixels (default 0.01)\n"
     "  --interp I            shift interpolator: fft (default) or cubic\n"
-    "  --upsample N          registration resolution 1/N pixel (default 100)\n"
-    "  --fwhm PX             star FWHM guess for the profile fits (default: estimated)\n"
+    "  --fwhm PX|auto        star FWHM guess for the profile fits (default and auto:\n"
+    "                        estimated from the data)\n"
     "  --stamp PX            half-size of the profile-fit stamp (default: 2 FWHM)\n"
     "  --spot-search PX      search radius around the median-frame spots (default 5)\n"
     "  --spot-radius PX      expected distance of the satellite spots from the star\n"
@@ -29,13 +38,16 @@ static const char help[] =
     "                        median frame is an outlier by SIGMA\n"
     "  --crop PX             output frames of PX x PX pixels around the star\n"
     "  --bin N               average N consecutive kept frames (angles averaged)\n"
-    "  --angles FILE         parallactic angles of the input frames\n"
+    "  --angles FILE         parallactic angles of the input frames (default: the\n"
+    "                        input's ANGLES table, if any); the angles of the output\n"
+    "                        frames are stored in ALIGNED.fits (an ANGLES table that\n"
+    "                        subtract, limits, inject and inspect read)\n"
     "  --angles-from-header  compute them from the header (DATE-OBS/MJD-OBS, EXPTIME,\n"
     "                        RA, DEC, site); per-frame starts from a binary-table\n"
     "                        extension with a column MJD when present\n"
     "  --frame-cadence S     seconds between frame starts (default: header CADENCE,\n"
     "                        else EXPTIME)\n"
-    "  --angles-out FILE     angles of the output frames (needed with angles)\n";
+    "  --angles-out FILE     also write the output frames' angles as a text file\n";
 
 enum {
     OPT_OUT = CLI_OPT_FIRST_COMMAND_OPTION,
@@ -43,6 +55,8 @@ enum {
     OPT_METHOD,
     OPT_INTERP,
     OPT_UPSAMPLE,
+    OPT_PROFILE,
+    OPT_PRECISION,
     OPT_FWHM,
     OPT_STAMP,
     OPT_SPOT_SEARCH,
@@ -89,6 +103,40 @@ static gl_status write_map(const char *path, const float *map, long nx, long ny,
     return st;
 }
 
+/* --method NAME, with the first release's names still accepted (a note
+ * each): gaussian and moffat are the core method with that profile,
+ * register is reference, symmetry is halo (docs/names.md). */
+static int parse_method(const gl_cli *cli, const char *name, gl_align_params *p, int *profile_given)
+{
+    static const struct {
+        const char *old, *now;
+        gl_centre_method m;
+        int profile; /* -1: unchanged */
+    } renamed[] = {
+        {"gaussian", "--method core --profile gaussian", GL_CENTRE_CORE, GL_PROFILE_GAUSSIAN},
+        {"moffat", "--method core --profile moffat", GL_CENTRE_CORE, GL_PROFILE_MOFFAT},
+        {"register", "--method reference", GL_CENTRE_REFERENCE, -1},
+        {"symmetry", "--method halo", GL_CENTRE_HALO, -1},
+    };
+    for (size_t i = 0; i < sizeof renamed / sizeof renamed[0]; i++)
+        if (strcmp(name, renamed[i].old) == 0) {
+            char old[64];
+            snprintf(old, sizeof old, "--method %s", name);
+            cli_deprecated(cli, old, renamed[i].now);
+            p->method = renamed[i].m;
+            if (renamed[i].profile >= 0) {
+                p->profile = (gl_profile_kind)renamed[i].profile;
+                *profile_given = 1;
+            }
+            return 0;
+        }
+    int m = gl_centre_method_from_name(name);
+    if (m == -2)
+        return cli_usage(cli, "--method: '%s' is not auto, core, halo, spots or reference", name);
+    p->method = (gl_centre_method)m;
+    return 0;
+}
+
 int cmd_align(gl_cli *cli, int argc, char **argv)
 {
     static const struct option opts[] = {{"out", required_argument, 0, OPT_OUT},
@@ -96,6 +144,8 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
                                          {"method", required_argument, 0, OPT_METHOD},
                                          {"interp", required_argument, 0, OPT_INTERP},
                                          {"upsample", required_argument, 0, OPT_UPSAMPLE},
+                                         {"profile", required_argument, 0, OPT_PROFILE},
+                                         {"precision", required_argument, 0, OPT_PRECISION},
                                          {"fwhm", required_argument, 0, OPT_FWHM},
                                          {"stamp", required_argument, 0, OPT_STAMP},
                                          {"spot-search", required_argument, 0, OPT_SPOT_SEARCH},
@@ -114,7 +164,7 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
     gl_align_params p;
     gl_align_params_init(&p);
     const char *out = NULL, *table = NULL, *map_path = NULL, *angles_in = NULL, *angles_out = NULL;
-    int from_header = 0;
+    int from_header = 0, profile_given = 0;
     double cadence = 0, d;
     long n;
     int c;
@@ -123,13 +173,23 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
         switch (c) {
         case OPT_OUT: out = optarg; break;
         case OPT_TABLE: table = optarg; break;
-        case OPT_METHOD: {
-            int m = gl_centre_method_from_name(optarg);
-            if (m == -2)
-                return cli_usage(cli, "--method: unknown method '%s'", optarg);
-            p.method = (gl_centre_method)m;
+        case OPT_METHOD:
+            if (parse_method(cli, optarg, &p, &profile_given))
+                return 1;
             break;
-        }
+        case OPT_PROFILE:
+            if (strcmp(optarg, "gaussian") == 0)
+                p.profile = GL_PROFILE_GAUSSIAN;
+            else if (strcmp(optarg, "moffat") == 0)
+                p.profile = GL_PROFILE_MOFFAT;
+            else
+                return cli_usage(cli, "--profile: '%s' is neither gaussian nor moffat", optarg);
+            profile_given = 1;
+            break;
+        case OPT_PRECISION:
+            if (cli_parse_double(cli, "--precision", optarg, 0.001, 1, &p.precision))
+                return 1;
+            break;
         case OPT_INTERP: {
             int i = gl_interp_from_name(optarg);
             if (i < 0)
@@ -137,14 +197,17 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
             p.interp = (gl_interp)i;
             break;
         }
-        case OPT_UPSAMPLE:
+        case OPT_UPSAMPLE: /* the old spelling: precision 1/N px */
+            cli_deprecated(cli, "--upsample", "--precision (--upsample N = --precision 1/N)");
             if (cli_parse_long(cli, "--upsample", optarg, 1, 1000, &n))
                 return 1;
-            p.upsample = (int)n;
+            p.precision = 1.0 / (double)n;
             break;
         case OPT_FWHM:
-            if (cli_parse_double(cli, "--fwhm", optarg, GL_FWHM_MIN_PX, 1000, &p.fwhm))
+            if (cli_parse_fwhm(cli, optarg, &p.fwhm))
                 return 1;
+            if (p.fwhm < 0) /* auto: estimated from the data, as without --fwhm */
+                p.fwhm = 0;
             break;
         case OPT_STAMP:
             if (cli_parse_long(cli, "--stamp", optarg, 2, 500, &n))
@@ -189,16 +252,19 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
     }
     if (k < 0)
         return cli_exit_status(k);
+    if (profile_given && p.method != GL_CENTRE_CORE && p.method != GL_CENTRE_AUTO)
+        return cli_usage(cli, "--profile applies to --method core (or auto), not %s",
+                         gl_centre_method_name(p.method));
     const char *in = cli_positional(cli, argc, argv, "the input cube");
     if (!in)
         return 1;
     if (!out)
         return cli_usage(cli, "--out is required");
+    char out_buf[4096];
+    if (!(out = cli_output_name(cli, out, in, ".aligned.fits", out_buf, sizeof out_buf)))
+        return 1;
     if (angles_in && from_header)
         return cli_usage(cli, "--angles and --angles-from-header exclude each other");
-    if ((angles_in || from_header) && !angles_out)
-        return cli_usage(cli, "angles given: --angles-out is needed (frames may be rejected or "
-                              "binned)");
     if (angles_out && !angles_in && !from_header)
         return cli_usage(cli, "--angles-out needs --angles or --angles-from-header");
     if (map_path && p.badpix_sigma <= 0)
@@ -221,7 +287,18 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
         if ((st = gl_provenance_add_input(&cli->prov, angles_in)) ||
             (st = gl_angles_read(angles_in, cube->nframe, &angles, &nang)))
             goto done;
-    } else if (from_header) {
+        cli_check_angles(angles_in, angles, nang);
+    } else if (!from_header) {
+        /* the input's own angle table, when it has one */
+        if ((st = gl_angles_table_read(in, cube->nframe, &angles, &nang)))
+            goto done;
+        if (angles) {
+            char src[1100];
+            snprintf(src, sizeof src, "%s[%s]", in, GL_ANGLES_EXTNAME);
+            gl_log(GL_LOG_INFO, "angles: %ld from the %s table of %s", nang, GL_ANGLES_EXTNAME, in);
+            cli_check_angles(src, angles, nang);
+        }
+    } else {
         if ((st = gl_align_frame_times_read(in, cube->nframe, &mjd)))
             goto done;
         gl_frame_times times = {mjd, cadence};
@@ -258,9 +335,11 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
     if (!angles && r->nout != r->nframe)
         gl_log(GL_LOG_WARN,
                "%ld input frames became %ld output frames: an angle list of the input no "
-               "longer matches (give it with --angles and --angles-out)",
+               "longer matches (give it with --angles: the output then carries the angles "
+               "of its frames)",
                r->nframe, r->nout);
-    if ((st = gl_fits_write_cube(t_out, r->aligned, &cli->prov)))
+    if ((st = gl_fits_write_cube(t_out, r->aligned, &cli->prov)) ||
+        (r->angles_out && (st = gl_angles_table_append(t_out, r->angles_out, r->nout))))
         goto done;
     if (t_table && (st = gl_align_table_write_csv(t_table, r, angles)))
         goto done;

@@ -1,10 +1,10 @@
 /*
  * cmd_detect.c -- `gloam detect RESULT.fits --fwhm PX --out PREFIX`: S/N,
- * FPF and significance maps of a north-up starlight-subtracted image (or one
+ * FPF and Gaussian-sigma maps of a north-up starlight-subtracted image (or one
  * plane of a cube of them) and the list of point-source candidates above a
  * threshold given in Gaussian sigma, with small-sample statistics.
  *
- * Products: PREFIX.snr.fits (S/N map; extensions FPF and SIGNIF),
+ * Products: PREFIX.snr.fits (S/N map; extensions FPF and SIGMA),
  * PREFIX.candidates.csv and .fits (best first), PREFIX.snr.png.
  */
 #include "cli/cli.h"
@@ -15,21 +15,22 @@
 #include <string.h>
 
 static const char help[] =
-    "usage: gloam detect RESULT.fits --fwhm PX --out PREFIX [options]\n"
+    "usage: gloam detect RESULT.fits [--fwhm PX] --out PREFIX [options]\n"
     "\n"
-    "S/N (two-sample Student t), false-positive-fraction and significance maps of a\n"
+    "S/N (two-sample Student t), false-positive-fraction and Gaussian-sigma maps of a\n"
     "north-up starlight-subtracted image, and the candidates above a threshold.\n"
     "The star is at pixel (nx/2, ny/2).\n"
     "\n"
-    "  --fwhm PX            PSF FWHM in pixels (required; apertures are 1 FWHM wide)\n"
-    "  --out PREFIX         writes PREFIX.snr.fits (HDUs SNR, FPF, SIGNIF),\n"
+    "  --fwhm PX|auto       PSF FWHM in pixels (apertures are 1 FWHM wide); default and\n"
+    "                       auto: the FWHM gloam subtract recorded in RESULT.fits\n"
+    "  --out PREFIX         writes PREFIX.snr.fits (HDUs SNR, FPF, SIGMA),\n"
     "                       PREFIX.candidates.csv, PREFIX.candidates.fits, PREFIX.snr.png\n"
     "  --plane K            plane of a 3-D input, 1-based (default 1)\n"
     "  --threshold SIGMA    detection threshold as a Gaussian sigma (default 5:\n"
     "                       FPF 2.867e-7 per test aperture), converted to Student t\n"
     "  --mask-radius PX     no detections closer to the star (default 1 FWHM)\n"
     "  --aperture-diameter PX   aperture diameter (default 1 FWHM)\n"
-    "  --exclude-adjacent   leave out the two apertures next to the test aperture\n"
+    "  --skip-flanking      leave out the two apertures flanking the test aperture\n"
     "                       (negative self-subtraction wings of ADI)\n"
     "  --merge-radius PX    maxima closer than this are one candidate (default 1 FWHM)\n"
     "  --pixscale MAS       pixel scale in mas (default: from the WCS, if any)\n"
@@ -43,6 +44,7 @@ enum {
     OPT_MASK,
     OPT_DIAM,
     OPT_EXCL,
+    OPT_EXCL_OLD,
     OPT_MERGE,
     OPT_PIXSCALE,
     OPT_EVERY
@@ -62,7 +64,8 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
                                          {"threshold", required_argument, 0, OPT_THRESHOLD},
                                          {"mask-radius", required_argument, 0, OPT_MASK},
                                          {"aperture-diameter", required_argument, 0, OPT_DIAM},
-                                         {"exclude-adjacent", no_argument, 0, OPT_EXCL},
+                                         {"skip-flanking", no_argument, 0, OPT_EXCL},
+                                         {"exclude-adjacent", no_argument, 0, OPT_EXCL_OLD},
                                          {"merge-radius", required_argument, 0, OPT_MERGE},
                                          {"pixscale", required_argument, 0, OPT_PIXSCALE},
                                          {"every-plane", no_argument, 0, OPT_EVERY},
@@ -77,7 +80,7 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
     while ((k = cli_next_option(cli, argc, argv, opts, help, &c)) > 0) {
         switch (c) {
         case OPT_FWHM:
-            if (cli_parse_double(cli, "--fwhm", optarg, GL_FWHM_MIN_PX, 1e4, &par.fwhm))
+            if (cli_parse_fwhm(cli, optarg, &par.fwhm))
                 return 1;
             break;
         case OPT_OUT: prefix = optarg; break;
@@ -96,6 +99,10 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
         case OPT_DIAM:
             if (cli_parse_double(cli, "--aperture-diameter", optarg, 0.1, 1e4, &par.diameter))
                 return 1;
+            break;
+        case OPT_EXCL_OLD:
+            cli_deprecated(cli, "--exclude-adjacent", "--skip-flanking");
+            par.exclude_adjacent = 1;
             break;
         case OPT_EXCL: par.exclude_adjacent = 1; break;
         case OPT_MERGE:
@@ -116,9 +123,9 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
     if (!input)
         return 1;
     {
-        const char *names[] = {"--fwhm", "--out"};
-        const void *vals[] = {par.fwhm > 0 ? names : NULL, prefix && *prefix ? prefix : NULL};
-        if (cli_missing(cli, 2, names, vals))
+        const char *names[] = {"--out"};
+        const void *vals[] = {prefix && *prefix ? prefix : NULL};
+        if (cli_missing(cli, 1, names, vals))
             return 1;
     }
     cli_start(cli);
@@ -140,6 +147,11 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
     if ((st = gl_provenance_add_input(&cli->prov, input)) ||
         (st = gl_fits_read_cube(input, 2, &cube))) {
         rc = fail_file(cli, input, st);
+        goto cleanup;
+    }
+    gl_provenance_add_observation(&cli->prov, cube->header);
+    if ((st = cli_resolve_fwhm(cli, &par.fwhm, NULL, cube->header, input))) {
+        rc = cli_fail(cli, st);
         goto cleanup;
     }
     nplanes = cube->nchan * cube->nframe;
@@ -178,6 +190,20 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
         goto cleanup;
     }
 
+    {
+        /* a product of gloam subtract records its method (GLSMETH); without
+         * it the input may be a raw or only aligned cube, whose star light
+         * makes every S/N meaningless */
+        char meth[72];
+        if (!gl_header_get_str(cube->header, "GLSMETH", meth, sizeof meth))
+            gl_log(GL_LOG_WARN,
+                   "%s: not a product of gloam subtract (no GLSMETH record)%s: detect expects "
+                   "a starlight-subtracted, north-up image; S/N on raw frames is not "
+                   "meaningful",
+                   input,
+                   cube->naxis >= 3 && cube->nframe * cube->nchan > 1 ? ", and a cube of frames"
+                                                                      : "");
+    }
     if ((st = gl_detect_sky_new(cube->header, par.pixscale_mas, &sky)) ||
         (st = gl_detect_maps_compute(img, nx, ny, &par, &maps)) ||
         (st = gl_detect_candidates_find(img, nx, ny, maps, &par, sky, &cand, &ncand))) {
@@ -188,8 +214,8 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
     /* the table: fixed columns, then the S/N of each candidate in every plane */
     enum { NFIXED = 19 };
     static const char *fixed[NFIXED] = {
-        "rank",        "x",      "y",        "sep_px",    "sep_arcsec",   "pa_deg", "dra_arcsec",
-        "ddec_arcsec", "flux",   "snr",      "fpf",       "significance", "noise",  "nref",
+        "rank",        "x",      "y",        "sep_px",    "sep_arcsec", "pa_deg", "dra_arcsec",
+        "ddec_arcsec", "flux",   "snr",      "fpf",       "sigma",      "noise",  "nref",
         "peak_x",      "peak_y", "peak_snr", "gauss_fit", "fit_fwhm"};
     static const char *units[NFIXED] = {"",       "pix", "pix", "pix", "arcsec", "deg", "arcsec",
                                         "arcsec", "",    "",    "",    "sigma",  "",    "",

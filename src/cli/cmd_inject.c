@@ -9,21 +9,24 @@
 #include <string.h>
 
 static const char help[] =
-    "usage: gloam inject CUBE --angles FILE --psf PSF.fits --companion SEP_PX:PA_DEG:CONTRAST...\n"
+    "usage: gloam inject CUBE [--angles FILE] --psf PSF.fits --companion "
+    "SEP_PX:PA_DEG:CONTRAST...\n"
     "                    --out CUBE2.fits [options]\n\n"
     "Plants fake companions: the off-axis PSF times --psf-scale (its total flux is the\n"
     "star's flux per frame) times the contrast, moved with sub-pixel accuracy to where a\n"
     "source at that separation and sky position angle sits in each frame. Writes\n"
     "CUBE2.fits and the planted list CUBE2.planted.csv.\n\n"
     "options:\n"
-    "  --angles FILE          parallactic angles (deg), one per frame\n"
+    "  --angles FILE          parallactic angles (deg), one per frame (default: the\n"
+    "                         cube's ANGLES table, written by gloam align)\n"
     "  --psf FILE             unsaturated off-axis PSF (2-D, or 3-D/4-D per channel)\n"
     "  --companion S:PA:C     separation (px), position angle (deg), contrast; repeatable;\n"
     "                         a negative contrast removes a known companion\n"
     "  --out FILE             the cube with companions\n"
     "  --psf-scale F          multiplies the PSF to the science exposure (default 1)\n"
     "  --north-offset DEG     true north offset of the detector (default 0)\n"
-    "  --spectrum F1,F2,...   per-channel contrast multipliers for 4-D cubes (default flat)\n";
+    "  --spectrum F1,F2,...   per-channel contrast multipliers for 4-D cubes (default "
+    "flat)\n" CLI_ANGLE_HELP;
 
 enum {
     OPT_ANGLES = CLI_OPT_FIRST_COMMAND_OPTION,
@@ -57,6 +60,7 @@ int cmd_inject(gl_cli *cli, int argc, char **argv)
                                          {"psf-scale", required_argument, 0, OPT_SCALE},
                                          {"north-offset", required_argument, 0, OPT_NORTH},
                                          {"spectrum", required_argument, 0, OPT_SPECTRUM},
+                                         CLI_ANGLE_OPTION,
                                          CLI_COMMON_OPTIONS,
                                          {0, 0, 0, 0}};
     const char *angles_path = NULL, *psf_path = NULL, *out_path = NULL, *spectrum_text = NULL;
@@ -98,11 +102,15 @@ int cmd_inject(gl_cli *cli, int argc, char **argv)
     if (!cube_path)
         return 1;
     {
-        const char *names[] = {"--angles", "--psf", "--out", "--companion"};
-        const void *vals[] = {angles_path, psf_path, out_path, ncompanions ? names : NULL};
-        if (cli_missing(cli, 4, names, vals))
+        const char *names[] = {"--psf", "--out", "--companion"};
+        const void *vals[] = {psf_path, out_path, ncompanions ? names : NULL};
+        if (cli_missing(cli, 3, names, vals))
             return 1;
     }
+    char out_buf[4096];
+    if (!(out_path =
+              cli_output_name(cli, out_path, cube_path, ".injected.fits", out_buf, sizeof out_buf)))
+        return 1;
     cli_start(cli);
 
     gl_cube *cube = NULL, *psfc = NULL;
@@ -138,14 +146,14 @@ int cmd_inject(gl_cli *cli, int argc, char **argv)
     }
     if ((st = gl_psf_model_new(psfc, psf_path, cube->nx, cube->ny, cube->nchan, psf_scale, &psf)))
         goto cleanup;
-    gl_log(GL_LOG_INFO, "PSF centre (%.3f, %.3f) in %s, FWHM %.2f px, star flux %.6g per frame",
-           psf->centre_x, psf->centre_y, psf_path, psf->fwhm_px[0], psf->flux[0]);
 
     planted_name(out_path, planted, sizeof planted);
     if ((st = gl_outset_new(cli->overwrite, &outs)) ||
         (st = gl_outset_add(outs, out_path, &cli->prov, &tmp_cube)) ||
         (st = gl_outset_add(outs, planted, &cli->prov, &tmp_csv)))
         goto cleanup;
+    gl_log(GL_LOG_INFO, "PSF centre (%.3f, %.3f) in %s, FWHM %.2f px, star flux %.6g per frame",
+           psf->centre_x, psf->centre_y, psf_path, psf->fwhm_px[0], psf->flux[0]);
     if ((st = gl_inject_companions(cube, angles, north, psf, comps, ncompanions, spectrum)))
         goto cleanup;
 
@@ -158,7 +166,8 @@ int cmd_inject(gl_cli *cli, int argc, char **argv)
                  k + 1, comps[k].sep_px, comps[k].pa_deg, comps[k].contrast);
         gl_header_add_history(cube->header, line);
     }
-    if ((st = gl_fits_write_cube(tmp_cube, cube, &cli->prov)))
+    if ((st = gl_fits_write_cube(tmp_cube, cube, &cli->prov)) ||
+        (st = gl_angles_table_append(tmp_cube, angles, cube->nframe)))
         goto cleanup;
 
     {

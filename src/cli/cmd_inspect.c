@@ -20,8 +20,10 @@ static const char help[] =
     "1.4826*MAD far from the star), outlier frames, field rotation, and the\n"
     "observation keywords found in the header. Writes no file.\n\n"
     "options:\n"
-    "  --angles FILE      parallactic angles (degrees, one a line, or 1-D FITS)\n"
-    "  --fwhm PX          PSF FWHM for the rotation in FWHM (default: 4 px, assumed)\n"
+    "  --angles FILE      parallactic angles (degrees, one a line, or 1-D FITS;\n"
+    "                     default: the cube's ANGLES table, if any)\n"
+    "  --fwhm PX|auto     PSF FWHM for the rotation in FWHM (default: from --psf,\n"
+    "                     else 4 px, assumed; auto: from --psf or the file's header)\n"
     "  --psf FILE         the off-axis PSF: its FWHM (azimuthal profile), centre and\n"
     "                     flux are measured and reported; the FWHM then replaces the\n"
     "                     assumed one (the value to give later commands as --fwhm)\n"
@@ -152,9 +154,9 @@ int cmd_inspect(gl_cli *cli, int argc, char **argv)
         switch (c) {
         case OPT_ANGLES: angles = optarg; break;
         case OPT_FWHM:
-            if (cli_parse_double(cli, "--fwhm", optarg, GL_FWHM_MIN_PX, 1000, &p.fwhm_px))
+            if (cli_parse_fwhm(cli, optarg, &p.fwhm_px))
                 return 1;
-            p.fwhm_given = 1;
+            p.fwhm_given = p.fwhm_px > 0; /* auto: from --psf, else the file's header */
             break;
         case OPT_JSON: json = 1; break;
         case OPT_PSF: psf_path = optarg; break;
@@ -174,17 +176,25 @@ int cmd_inspect(gl_cli *cli, int argc, char **argv)
     gl_status st = GL_OK;
     if (psf_path) {
         /* the PSF measured on its own grid, with the code inject and limits use */
-        gl_cube *pc = NULL;
-        st = cli_read_input(cli, psf_path, 2, &pc);
-        if (!st)
-            st = gl_psf_model_new(pc, psf_path, pc->nx, pc->ny, 1, 1.0, &psf);
-        gl_cube_free(pc);
-        if (st)
+        if ((st = cli_psf_measure(cli, psf_path, &psf)))
             return cli_fail(cli, st);
         if (!p.fwhm_given) {
             p.fwhm_px = psf->fwhm_px[0];
             p.fwhm_given = 1;
         }
+    }
+    if (!p.fwhm_given && p.fwhm_px == CLI_FWHM_AUTO) {
+        /* --fwhm auto without --psf: a FWHM recorded in the file's header */
+        gl_cube *c = NULL;
+        double v = 0;
+        st = gl_fits_read_cube(in, 2, &c);
+        if (!st)
+            st = cli_resolve_fwhm(cli, &v, NULL, c->header, in);
+        gl_cube_free(c);
+        if (st)
+            return cli_fail(cli, st);
+        p.fwhm_px = v;
+        p.fwhm_given = 1;
     }
     st = gl_inspect_report_new(in, angles, &p, &r);
     if (st) {

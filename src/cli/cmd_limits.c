@@ -20,7 +20,8 @@ static const char help[] =
     "completeness (Jensen-Clem et al. 2018). Writes PREFIX.limits.csv, .limits.fits,\n"
     "PREFIX.limits.png, .limits.svg and PREFIX.fakes.csv.\n\n"
     "options:\n"
-    "  --angles FILE          parallactic angles (deg), one per frame\n"
+    "  --angles FILE          parallactic angles (deg), one per frame (default: the\n"
+    "                         cube's ANGLES table, written by gloam align)\n"
     "  --psf FILE             unsaturated off-axis PSF\n"
     "  --out PREFIX           prefix of the products\n"
     "  --psf-scale F          multiplies the PSF to the science exposure (default 1)\n"
@@ -332,9 +333,9 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
     if (!cube_path)
         return 1;
     {
-        const char *names[] = {"--angles", "--psf", "--fwhm", "--out"};
-        const void *vals[] = {angles_path, psf_path, setup.have_fwhm ? names : NULL, prefix};
-        if (cli_missing(cli, 4, names, vals))
+        const char *names[] = {"--psf", "--fwhm", "--out"}; /* angles: cli_read_cube_angles */
+        const void *vals[] = {psf_path, setup.have_fwhm ? names : NULL, prefix};
+        if (cli_missing(cli, 3, names, vals))
             return 1;
     }
     if (cli_subtract_check(cli, &setup))
@@ -352,10 +353,13 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
     gl_status st;
     gl_csv *cands = NULL;
     double *cand_sep = NULL, *cand_pa = NULL;
-    char p_csv[4096], p_fits[4096], p_png[4096], p_svg[4096], p_fakes[4096], p_comp[4096];
-    const char *t_csv, *t_fits, *t_png, *t_svg, *t_fakes, *t_comp = NULL;
+    char p_csv[4096], p_fits[4096], p_png[4096], p_svg[4096], p_pdf[4096], p_fakes[4096],
+        p_comp[4096];
+    const char *t_csv, *t_fits, *t_png, *t_svg, *t_pdf, *t_fakes, *t_comp = NULL;
 
     if ((st = cli_read_cube_angles(cli, cube_path, angles_path, &cube, &angles)) ||
+        (st = cli_resolve_fwhm(cli, &setup.p.fwhm, setup.p.fwhm > 0 ? NULL : psf_path, cube->header,
+                               cube_path)) ||
         (st = cli_read_input(cli, psf_path, 2, &psfc)) ||
         (st = cli_subtract_prepare(cli, &setup, cube_path, cube, &refs)) ||
         (st = gl_psf_model_new(psfc, psf_path, cube->nx, cube->ny, cube->nchan, psf_scale, &psf)))
@@ -365,6 +369,7 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
         (st = cli_add_product(cli, outs, prefix, ".limits.fits", p_fits, sizeof p_fits, &t_fits)) ||
         (st = cli_add_product(cli, outs, prefix, ".limits.png", p_png, sizeof p_png, &t_png)) ||
         (st = cli_add_product(cli, outs, prefix, ".limits.svg", p_svg, sizeof p_svg, &t_svg)) ||
+        (st = cli_add_product(cli, outs, prefix, ".limits.pdf", p_pdf, sizeof p_pdf, &t_pdf)) ||
         (st = cli_add_product(cli, outs, prefix, ".fakes.csv", p_fakes, sizeof p_fakes, &t_fakes)))
         goto cleanup;
     if (cand_path) {
@@ -401,6 +406,7 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
         lp.avoid_pa_deg = cand_pa;
     }
 
+    setup.p.angles_name = angles_path;
     gl_obsinfo info;
     gl_obsinfo_from_header(cube->header, &info);
     if (!(pixscale > 0) && info.pixscale_mas > 0)
@@ -445,7 +451,15 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
                       "subtraction method");
     if (modes_text[0])
         gl_header_set_str(keys, "GLMODES", modes_text, "KL mode counts, one per plane");
-    gl_header_set_dbl(keys, "GLMASK", setup.p.mask_radius, "[pix] inner mask radius");
+    gl_header_set_dbl(keys, "GLMASK",
+                      gl_subtract_inner_radius(&setup.p, angles, cube->nframe,
+                                               refs ? refs->nframe : 0, cube->nx, cube->ny),
+                      "[pix] inner mask radius");
+    {
+        char sense[72];
+        if (gl_header_get_str(cube->header, "GLROTSNS", sense, sizeof sense))
+            gl_header_set_str(keys, "GLROTSNS", sense, "sky turn on the detector as angle grows");
+    }
     gl_header_set_int(keys, "GLFKRUNS", lp.fake_runs, "subtraction runs with fake companions");
     gl_header_set_int(keys, "GLNFAKE", res.nfakes, "fake companions planted");
     if (lp.fake_level > 0)
@@ -497,15 +511,16 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
                  res.nplanes);
         const char *n5 = "completeness from the fakes' lobes, for this sequence's noise "
                          "(docs/limits.md)";
-        gl_limits_plot plot = {res.n,
-                               res.sep_px,
-                               2,
-                               {{res.contrast_c50, l1}, {res.contrast_cq, l2}},
-                               pixscale > 0 ? pixscale : 0,
-                               ttl,
-                               5,
-                               {n1, n2, n3, n4, n5}};
-        if ((st = gl_limits_plot_write(t_png, t_svg, &plot)))
+        gl_limits_plot plot = {.n = res.n,
+                               .sep_px = res.sep_px,
+                               .ncurves = 2,
+                               .curves = {{res.contrast_c50, l1}, {res.contrast_cq, l2}},
+                               .pixscale_mas = pixscale > 0 ? pixscale : 0,
+                               .title = ttl,
+                               .nnotes = 5,
+                               .notes = {n1, n2, n3, n4, n5}};
+        if ((st = gl_limits_plot_write(t_png, t_svg, &plot)) ||
+            (st = gl_limits_plot_write_pdf(t_pdf, &plot)))
             goto cleanup;
     }
     if ((st = gl_outset_commit(outs)))

@@ -403,7 +403,24 @@ int cmd_simulate(gl_cli *cli, int argc, char **argv)
         if (st != GL_OK)
             return cli_fail(cli, st);
     } else if (mkdir(dir, 0777) != 0) {
-        fprintf(stderr, "gloam simulate: %s: cannot create the folder: %s\n", dir, strerror(errno));
+        int err = errno;
+        char parent[4096];
+        snprintf(parent, sizeof parent, "%s", dir);
+        char *slash = strrchr(parent, '/');
+        while (slash && slash > parent && slash[1] == '\0') { /* "a/b/" */
+            *slash = '\0';
+            slash = strrchr(parent, '/');
+        }
+        if (slash)
+            *slash = '\0';
+        if (err == ENOENT)
+            fprintf(stderr,
+                    "gloam simulate: %s: cannot create the folder: its parent folder %s does "
+                    "not exist\n",
+                    dir, slash ? parent : ".");
+        else
+            fprintf(stderr, "gloam simulate: %s: cannot create the folder: %s\n", dir,
+                    strerror(err));
         return 1;
     } else {
         made_dir = 1;

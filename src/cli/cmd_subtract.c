@@ -1,6 +1,6 @@
 /*
  * cmd_subtract.c -- `gloam subtract`: starlight subtraction (classical ADI,
- * full-frame and annular KLIP, RDI, SDI/ASDI), derotation to north-up and
+ * KLIP over the whole region or ring by ring, RDI, SDI/ASDI), derotation to north-up and
  * combination. Parses options into gl_subtract_params and calls
  * gl_subtract_run; writes the image (one plane per mode count) and, when
  * asked, the residual cubes, all or nothing.
@@ -17,9 +17,10 @@ static const char help[] =
     "usage: gloam subtract CUBE --angles FILE --fwhm PX --out RESULT.fits [options]\n\n"
     "Removes the star's speckle halo, derotates the residuals to north-up (east left)\n"
     "and combines them. RESULT.fits holds one plane per mode count, in the order given\n"
-    "(one plane for --method median or none).\n\n"
+    "(one plane for --method median-frame or derotate-only).\n\n"
     "options:\n"
-    "  --angles FILE          parallactic angles (deg), one per frame\n"
+    "  --angles FILE          parallactic angles (deg), one per frame (default: the\n"
+    "                         cube's ANGLES table, written by gloam align)\n"
     "  --out FILE             the north-up product\n"
     "  --residuals FILE       also write the derotated residual cube\n"
     "  --raw-residuals FILE   also write the residuals before derotation\n"
@@ -66,12 +67,16 @@ int cmd_subtract(gl_cli *cli, int argc, char **argv)
     if (!cube_path)
         return 1;
     {
-        const char *names[] = {"--angles", "--fwhm", "--out"};
-        const void *vals[] = {angles_path, setup.have_fwhm ? names : NULL, out_path};
-        if (cli_missing(cli, 3, names, vals))
+        const char *names[] = {"--fwhm", "--out"}; /* angles: cli_read_cube_angles */
+        const void *vals[] = {setup.have_fwhm ? names : NULL, out_path};
+        if (cli_missing(cli, 2, names, vals))
             return 1;
     }
     if (cli_subtract_check(cli, &setup))
+        return 1;
+    char out_buf[4096]; /* --out DIR/: DIR/STEM.subtracted.fits (cli_output_name) */
+    if (!(out_path = cli_output_name(cli, out_path, cube_path, ".subtracted.fits", out_buf,
+                                     sizeof out_buf)))
         return 1;
     cli_start(cli);
 
@@ -82,10 +87,12 @@ int cmd_subtract(gl_cli *cli, int argc, char **argv)
     const char *tmp_out = NULL, *tmp_resid = NULL, *tmp_raw = NULL;
     gl_status st;
 
-    if ((st = cli_read_cube_angles(cli, cube_path, angles_path, &cube, &angles)))
+    if ((st = cli_read_cube_angles(cli, cube_path, angles_path, &cube, &angles)) ||
+        (st = cli_resolve_fwhm(cli, &pp->fwhm, NULL, cube->header, cube_path)))
         goto cleanup;
     if ((st = cli_subtract_prepare(cli, &setup, cube_path, cube, &refs)))
         goto cleanup;
+    pp->angles_name = angles_path;
     pp->keep_residuals = resid_path != NULL;
     pp->keep_raw_residuals = raw_path != NULL;
 
@@ -102,10 +109,10 @@ int cmd_subtract(gl_cli *cli, int argc, char **argv)
         (tmp_raw && (st = gl_fits_write_cube(tmp_raw, res.raw_residuals, &cli->prov))) ||
         (st = gl_outset_commit(outs)))
         goto cleanup;
-    gl_log(GL_LOG_INFO, "%s: %s subtraction of %ld frames%s, %ld plane%s", out_path,
-           gl_subtract_method_name(pp->method), res.nframes_used,
+    gl_log(GL_LOG_INFO, "%s: %s subtraction of %ld frames%s, %ld plane%s, from %.1f px out",
+           out_path, gl_subtract_method_name(pp->method), res.nframes_used,
            res.nrefs_used ? " with reference frames" : "", res.image->nframe,
-           res.image->nframe > 1 ? "s" : "");
+           res.image->nframe > 1 ? "s" : "", res.inner_radius);
 
 cleanup:
     gl_outset_free(outs);

@@ -12,12 +12,19 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <sys/stat.h>
 #include <time.h>
 #include <unistd.h>
 
 int cli_fail(const gl_cli *cli, gl_status st)
 {
-    fprintf(stderr, "gloam %s: %s\n", cli->command, gl_error_message());
+    gl_outset_error_names(st); /* name products, never their temporary names */
+    const char *msg = gl_error_message();
+    if (cli->angles_source[0] && strstr(msg, "parallactic angles") &&
+        !strstr(msg, cli->angles_source))
+        fprintf(stderr, "gloam %s: %s: %s\n", cli->command, cli->angles_source, msg);
+    else
+        fprintf(stderr, "gloam %s: %s\n", cli->command, msg);
     return gl_status_exit_code(st);
 }
 
@@ -144,6 +151,16 @@ int cli_common_option(gl_cli *cli, int code, const char *arg, const char *help_t
             return -1;
         cli->threads = (int)n;
         return 1;
+    case CLI_OPT_ROTATION_SENSE:
+        if (strcmp(arg, "counter-clockwise") == 0)
+            cli->rotation_sense = 1;
+        else if (strcmp(arg, "clockwise") == 0)
+            cli->rotation_sense = -1;
+        else {
+            cli_usage(cli, "--rotation-sense: '%s' is not counter-clockwise or clockwise", arg);
+            return -1;
+        }
+        return 1;
     case CLI_OPT_HELP:
         fputs(help_text, stdout);
         fputs(CLI_COMMON_HELP, stdout);
@@ -160,6 +177,8 @@ gl_status cli_read_input(gl_cli *cli, const char *path, int min_naxis, gl_cube *
         gl_cube_free(*cube);
         *cube = NULL;
     }
+    if (!st && min_naxis >= 3) /* a science cube, not a PSF: what was observed */
+        gl_provenance_add_observation(&cli->prov, (*cube)->header);
     return st;
 }
 
@@ -169,11 +188,134 @@ gl_status cli_read_cube_angles(gl_cli *cli, const char *cube_path, const char *a
     long n = 0;
     gl_status st;
     *angles = NULL;
-    if ((st = cli_read_input(cli, cube_path, 3, cube)) ||
-        (st = gl_angles_read(angles_path, (*cube)->nframe, angles, &n)) ||
-        (st = gl_provenance_add_input(&cli->prov, angles_path)))
+    if ((st = cli_read_input(cli, cube_path, 3, cube)))
         return st;
-    return GL_OK;
+    if (angles_path) {
+        if ((st = gl_angles_read(angles_path, (*cube)->nframe, angles, &n)) ||
+            (st = gl_provenance_add_input(&cli->prov, angles_path)))
+            return st;
+        snprintf(cli->angles_source, sizeof cli->angles_source, "%s", angles_path);
+    } else {
+        if ((st = gl_angles_table_read(cube_path, (*cube)->nframe, angles, &n)))
+            return st;
+        if (!*angles)
+            return gl_error_set(GL_ERR_USAGE,
+                                "%s: no angles: the cube has no %s table (gloam align stores one "
+                                "when given --angles or --angles-from-header); give --angles FILE",
+                                cube_path, GL_ANGLES_EXTNAME);
+        snprintf(cli->angles_source, sizeof cli->angles_source, "%s[%s]", cube_path,
+                 GL_ANGLES_EXTNAME);
+        gl_log(GL_LOG_INFO, "angles: %ld from the %s table of %s (no --angles given)", n,
+               GL_ANGLES_EXTNAME, cube_path);
+    }
+    cli_check_angles(cli->angles_source, *angles, n);
+    return cli_apply_rotation_sense(cli, *cube, cli->angles_source, *angles, n);
+}
+
+gl_status cli_apply_rotation_sense(const gl_cli *cli, gl_cube *cube, const char *source,
+                                   double *angles, long n)
+{
+    char hs[72] = "";
+    int sense = cli->rotation_sense, from_header = 0;
+    if (!sense && gl_header_get_str(cube->header, "GLROTSNS", hs, sizeof hs)) {
+        sense = strcmp(hs, "clockwise") == 0 ? -1 : 1;
+        from_header = 1;
+    }
+    if (!sense)
+        sense = 1;
+    if (sense < 0) {
+        for (long i = 0; i < n; i++)
+            angles[i] = -angles[i];
+        gl_log(GL_LOG_INFO,
+               "%s: the sky turns clockwise as these angles grow (%s): they are used with the "
+               "opposite sign",
+               source, from_header ? "GLROTSNS of the cube" : "--rotation-sense clockwise");
+    }
+    return gl_header_set_str(cube->header, "GLROTSNS",
+                             sense < 0 ? "clockwise" : "counter-clockwise",
+                             "sky turn on the detector as the angle grows");
+}
+
+void cli_check_angles(const char *source, const double *angles, long n)
+{
+    /* a list without rotation is refused where rotation is needed (subtract,
+     * limits), with cli_fail naming the source; inject and RDI need none */
+    if (!gl_angles_constant(angles, n) && gl_angles_look_like_radians(angles, n)) {
+        double lo = angles[0], hi = angles[0];
+        for (long i = 1; i < n; i++) {
+            lo = angles[i] < lo ? angles[i] : lo;
+            hi = angles[i] > hi ? angles[i] : hi;
+        }
+        gl_log(GL_LOG_WARN,
+               "%s: the angles look like radians (all within +-2 pi, spread %.4g): gloam reads "
+               "degrees, so this is %.4g deg of field rotation; if they are radians, multiply "
+               "by 180/pi (%.4g deg)",
+               source, hi - lo, hi - lo, (hi - lo) * 180 / M_PI);
+    }
+}
+
+int cli_parse_fwhm(const gl_cli *cli, const char *arg, double *out)
+{
+    if (strcmp(arg, "auto") == 0) {
+        *out = CLI_FWHM_AUTO;
+        return 0;
+    }
+    char *end;
+    errno = 0;
+    double v = strtod(arg, &end);
+    if (end == arg || *end || errno || !isfinite(v) || !(v >= GL_FWHM_MIN_PX) || v > 1e4) {
+        cli_usage(cli, "--fwhm must be the PSF's FWHM in pixels (at least %g) or auto (got %s)",
+                  GL_FWHM_MIN_PX, arg);
+        return -1;
+    }
+    *out = v;
+    return 0;
+}
+
+gl_status cli_psf_measure(gl_cli *cli, const char *psf_path, gl_psf_model **out)
+{
+    gl_cube *pc = NULL;
+    *out = NULL;
+    gl_status st = cli_read_input(cli, psf_path, 2, &pc);
+    if (!st)
+        st = gl_psf_model_new(pc, psf_path, pc->nx, pc->ny, 1, 1.0, out);
+    gl_cube_free(pc);
+    return st;
+}
+
+gl_status cli_resolve_fwhm(gl_cli *cli, double *fwhm, const char *psf_path, const gl_header *h,
+                           const char *product_path)
+{
+    static const char *const keys[] = {"GLSFWHM", "GLFWHM"};
+    if (*fwhm > 0) {
+        gl_log(GL_LOG_DEBUG, "FWHM %.3f px (given with --fwhm)", *fwhm);
+        return GL_OK;
+    }
+    if (psf_path) {
+        gl_psf_model *m = NULL;
+        gl_status st = cli_psf_measure(cli, psf_path, &m);
+        if (st)
+            return st;
+        double v = m->fwhm_px[0];
+        gl_psf_model_free(m);
+        if (!(v >= GL_FWHM_MIN_PX) || !isfinite(v))
+            return gl_error_set(GL_ERR_INPUT, "%s: no FWHM could be measured on the PSF", psf_path);
+        *fwhm = v;
+        gl_log(GL_LOG_INFO, "FWHM %.3f px, measured on %s (azimuthal profile)", v, psf_path);
+        return GL_OK;
+    }
+    for (size_t k = 0; h && k < sizeof keys / sizeof keys[0]; k++) {
+        double v;
+        if (gl_header_get_dbl(h, keys[k], &v) && v >= GL_FWHM_MIN_PX && isfinite(v)) {
+            *fwhm = v;
+            gl_log(GL_LOG_INFO, "FWHM %.3f px, recorded in %s (%s)", v, product_path, keys[k]);
+            return GL_OK;
+        }
+    }
+    return gl_error_set(GL_ERR_USAGE,
+                        "%s: --fwhm auto: the file records no FWHM (keyword GLSFWHM, written by "
+                        "gloam subtract) and no --psf was given to measure it; give --fwhm PX",
+                        product_path);
 }
 
 gl_status cli_error_in_file(const char *path, gl_status st)
@@ -185,10 +327,67 @@ gl_status cli_error_in_file(const char *path, gl_status st)
     return st;
 }
 
+/* 1 when an --out value names a folder: an existing one, or any name
+ * ending in '/'. */
+static int names_folder(const char *out)
+{
+    struct stat sb;
+    size_t n = strlen(out);
+    return n > 0 && (out[n - 1] == '/' || (stat(out, &sb) == 0 && S_ISDIR(sb.st_mode)));
+}
+
+/* The file name of path without its folder and its FITS extension
+ * (".fits", ".fit", ".fts", optionally compressed ".gz"/".fz"). */
+static void input_stem(const char *path, char *stem, size_t size)
+{
+    const char *base = strrchr(path, '/');
+    base = base ? base + 1 : path;
+    snprintf(stem, size, "%s", base);
+    static const char *const ext[] = {".gz", ".fz", ".fits", ".fit", ".fts"};
+    for (size_t k = 0; k < sizeof ext / sizeof ext[0]; k++) {
+        size_t n = strlen(stem), e = strlen(ext[k]);
+        if (n > e && strcmp(stem + n - e, ext[k]) == 0)
+            stem[n - e] = '\0';
+    }
+    if (!stem[0])
+        snprintf(stem, size, "gloam");
+}
+
+/* DIR + '/' (unless there) + stem of input + suffix into buf; 0 when it
+ * does not fit. */
+static int inside_folder(const char *dir, const char *input, const char *suffix, char *buf,
+                         size_t size)
+{
+    char stem[1024];
+    input_stem(input ? input : "", stem, sizeof stem);
+    size_t n = strlen(dir);
+    int k = snprintf(buf, size, "%s%s%s%s", dir, n && dir[n - 1] == '/' ? "" : "/", stem, suffix);
+    return k >= 0 && (size_t)k < size;
+}
+
+const char *cli_output_name(const gl_cli *cli, const char *out, const char *input,
+                            const char *suffix, char *buf, size_t size)
+{
+    if (!out || !names_folder(out))
+        return out;
+    if (!inside_folder(out, input, suffix, buf, size)) {
+        cli_usage(cli, "--out %.60s...: the product name is too long", out);
+        return NULL;
+    }
+    return buf;
+}
+
 gl_status cli_add_product(gl_cli *cli, gl_outset *outs, const char *prefix, const char *suffix,
                           char *path, size_t size, const char **tmp)
 {
-    int n = snprintf(path, size, "%s%s", prefix, suffix);
+    int n;
+    if (suffix[0] != '/' && names_folder(prefix)) /* PREFIX a folder: DIR/STEM.suffix */
+        n = inside_folder(prefix, cli->prov.ninputs ? cli->prov.inputs[0] : NULL, suffix, path,
+                          size)
+                ? (int)strlen(path)
+                : -1;
+    else
+        n = snprintf(path, size, "%s%s", prefix, suffix);
     if (n < 0 || (size_t)n >= size)
         return gl_error_set(GL_ERR_USAGE, "%.60s...%s: the product name is too long", prefix,
                             suffix);
@@ -216,6 +415,14 @@ void cli_deprecated(const gl_cli *cli, const char *old, const char *now)
 static void print_log(gl_log_level level, const char *msg, void *user)
 {
     const gl_cli *cli = user;
+    /* a command that runs a step several times (limits: the subtraction
+     * with and without fakes) says each thing once */
+    static char said[8][512];
+    static int nsaid;
+    for (int i = 0; i < nsaid && i < 8; i++)
+        if (strncmp(said[i], msg, sizeof said[i] - 1) == 0)
+            return;
+    snprintf(said[nsaid++ % 8], sizeof said[0], "%s", msg);
     const char *tag = level == GL_LOG_ERROR ? "error: " : level == GL_LOG_WARN ? "warning: " : "";
     fprintf(stderr, "gloam %s: %s%s\n", cli->command, tag, msg);
 }

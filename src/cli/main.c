@@ -22,6 +22,9 @@ static const command commands[] = {
     {"detect", cmd_detect, "S/N and false-alarm maps, candidate point sources"},
     {"inject", cmd_inject, "plant fake companions into a sequence"},
     {"limits", cmd_limits, "contrast curves calibrated by fake companions"},
+    {"vet", cmd_vet, "characterise candidates (negative companion fit, errors) and test them"},
+    {"run", cmd_run, "a whole reduction from a plan: run folder, summary, HTML report"},
+    {"survey", cmd_survey, "every target of a plan, in parallel under mpirun"},
     {NULL, NULL, NULL},
 };
 
@@ -37,21 +40,8 @@ static void print_help(FILE *out)
                  "Exit status: 0 success, 1 bad input or usage, 2 internal failure.\n");
 }
 
-int main(int argc, char **argv)
+int cli_run_command(int argc, char **argv)
 {
-    if (argc < 2) {
-        print_help(stderr);
-        return 1;
-    }
-    if (strcmp(argv[1], "--help") == 0 || strcmp(argv[1], "-h") == 0 ||
-        strcmp(argv[1], "help") == 0) {
-        print_help(stdout);
-        return 0;
-    }
-    if (strcmp(argv[1], "--version") == 0) {
-        printf("gloam %s\n", gl_version());
-        return 0;
-    }
     for (size_t i = 0; commands[i].name; i++) {
         if (strcmp(argv[1], commands[i].name) != 0)
             continue;
@@ -72,4 +62,22 @@ int main(int argc, char **argv)
     }
     fprintf(stderr, "gloam: unknown command '%s' (see gloam --help)\n", argv[1]);
     return 1;
+}
+
+int main(int argc, char **argv)
+{
+    if (argc < 2) {
+        print_help(stderr);
+        return 1;
+    }
+    if (strcmp(argv[1], "--help") == 0 || strcmp(argv[1], "-h") == 0 ||
+        strcmp(argv[1], "help") == 0) {
+        print_help(stdout);
+        return 0;
+    }
+    if (strcmp(argv[1], "--version") == 0) {
+        printf("gloam %s\n", gl_version());
+        return 0;
+    }
+    return cli_run_command(argc, argv);
 }

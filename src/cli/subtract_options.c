@@ -14,32 +14,53 @@
 #include <string.h>
 
 const char cli_subtract_help[] =
-    "  --fwhm PX              PSF full width at half maximum, pixels (> 0)\n"
-    "  --method NAME          median | pca | annular | none (default pca)\n"
-    "                           median: frame minus the median frame (classical ADI)\n"
-    "                           pca: full-frame KLIP, one basis for every mode count\n"
-    "                           annular: KLIP ring by ring with a rotation gap\n"
-    "                           none: derotate and combine only\n"
-    "  --modes K1,K2,...      KL mode counts, one output plane each (default 5)\n"
-    "  --mask-radius PX       inner mask: pixels closer to the star are left out (default 0)\n"
+    "  --fwhm PX|auto         PSF full width at half maximum, pixels; auto: measured on\n"
+    "                         --psf, or recorded in the input's header\n"
+    "  --method NAME          how the star's light is modelled and removed (default klip-frame):\n"
+    "                           median-frame: each frame minus the median of all frames\n"
+    "                             (classical ADI)\n"
+    "                           klip-frame: each frame minus its projection on KL modes of the\n"
+    "                             whole region; by default the modes come from every frame,\n"
+    "                             the frame itself included (full-frame PCA)\n"
+    "                           klip-rings: the same ring by ring, each frame's modes built\n"
+    "                             only from frames where the sky has turned far enough\n"
+    "                           derotate-only: no subtraction, derotate and combine\n"
+    "  --modes K1,K2,...      numbers of KL modes to remove, one output plane each (default 5)\n"
+    "  --mask-radius PX|auto  pixels closer to the star are left out; auto (default): 0, or for\n"
+    "                         klip-rings the first radius where every frame has enough\n"
+    "                         references past --gap\n"
     "  --outer-radius PX      outer edge of the region (default: largest circle in the frame)\n"
-    "  --ring W               annulus width, FWHM (annular, median fit; default 1)\n"
-    "  --sectors N            azimuthal sectors per annulus (annular; default 1)\n"
-    "  --gap G                least rotation between a frame and its references, FWHM of arc\n"
-    "                         at the annulus (annular; default 0.75)\n"
-    "  --nearest N            keep only the N qualifying frames nearest in angle (annular)\n"
-    "  --median-fit           scale the median frame ring by ring (median)\n"
-    "  --centre MODE          frame | temporal: mean removed before the KL basis\n"
-    "                         (default frame: each frame minus its own mean)\n"
+    "  --basis-frames WHICH   frames behind each frame's KL modes (klip-frame):\n"
+    "                           all (default): every frame, itself included\n"
+    "                           all-but-target: every frame except itself\n"
+    "                           beyond-gap: the frames past --gap at the middle of the region\n"
+    "  --ring W               ring width in FWHM (klip-rings, --median-fit; default 1)\n"
+    "  --arcs N               cut each ring into N equal arcs of azimuth (klip-rings; default 1)\n"
+    "  --gap G                a frame serves as a reference only when the sky has turned far\n"
+    "                         enough for a source at the ring's middle to move G FWHM\n"
+    "                         (klip-rings; default 0.75)\n"
+    "  --keep-closest N       of the frames past the gap, keep the N closest in angle\n"
+    "  --median-fit           scale the median frame to each frame ring by ring (median-frame)\n"
+    "  --remove-mean HOW      mean taken out before the KL modes are built:\n"
+    "                         each-frame (default: each frame's own mean) | each-pixel (each\n"
+    "                         pixel's mean over the frames)\n"
     "  --north-offset DEG     true north offset of the detector (default 0)\n"
     "  --interp NAME          derotation: fft (default) | cubic\n"
     "  --combine NAME         median (default) | mean | weighted (inverse residual variance)\n"
     "  --refs FILE            reference-star cube for RDI (same frame size)\n"
     "  --refs-use WHAT        refs (default: basis from the references alone) | both\n"
     "  --refs-best N          keep the N reference frames best correlated with the science\n"
-    "  --sdi                  spectral step for 4-D cubes before the ADI step (ASDI)\n"
+    "  --spectral-step        4-D cubes: remove the star across wavelength channels first, then\n"
+    "                         run --method on the result (SDI then ADI)\n"
     "  --wavelengths L1,...   one wavelength per channel (default: the header's WAVE axis)\n"
-    "  --sdi-modes K          KL modes of the spectral step (default 1)\n";
+    "  --spectral-modes K     KL modes of the spectral step (default 1)\n" CLI_ANGLE_HELP;
+
+/* The first release's spellings (docs/names.md): they still work, with one
+ * note each. */
+static const char *const old_methods[][2] = {{"median", "median-frame"},
+                                             {"pca", "klip-frame"},
+                                             {"annular", "klip-rings"},
+                                             {"none", "derotate-only"}};
 
 void cli_subtract_setup_init(cli_subtract_setup *s)
 {
@@ -106,21 +127,28 @@ int cli_subtract_option(gl_cli *cli, int code, const char *optarg, cli_subtract_
     case CLI_OPT_REFS: s->refs_path = optarg; return 1;
     case CLI_OPT_WAVES: s->waves_text = optarg; return 1;
     case CLI_OPT_MEDFIT: p.median_fit = 1; return 1;
-    case CLI_OPT_SDI: p.sdi = GL_SDI_CHANNELS; return 1;
+    case CLI_OPT_SDI: cli_deprecated(cli, "--sdi", "--spectral-step"); /* fall through */
+    case CLI_OPT_SPECTRAL: p.sdi = GL_SDI_CHANNELS; return 1;
     case CLI_OPT_FWHM:
-        if (cli_parse_double(cli, "--fwhm", optarg, -INFINITY, INFINITY, &p.fwhm))
+        if (cli_parse_fwhm(cli, optarg, &p.fwhm)) /* auto: cli_resolve_fwhm */
             return -1;
-        if (!(p.fwhm >= GL_FWHM_MIN_PX) || p.fwhm > 1e4) {
-            cli_usage(cli, "--fwhm must be the PSF's FWHM in pixels, at least 0.5 (got %s)",
-                      optarg);
-            return -1;
-        }
         s->have_fwhm = 1;
         return 1;
     case CLI_OPT_METHOD: {
         int m = gl_subtract_method_from_name(optarg);
+        for (int i = 0; m < 0 && i < 4; i++)
+            if (strcmp(optarg, old_methods[i][0]) == 0) {
+                char old[64], now[64];
+                snprintf(old, sizeof old, "--method %s", old_methods[i][0]);
+                snprintf(now, sizeof now, "--method %s", old_methods[i][1]);
+                cli_deprecated(cli, old, now);
+                m = gl_subtract_method_from_name(old_methods[i][1]);
+            }
         if (m < 0) {
-            cli_usage(cli, "--method: '%s' is not median, pca, annular or none", optarg);
+            cli_usage(cli,
+                      "--method: '%s' is not median-frame, klip-frame, klip-rings or "
+                      "derotate-only",
+                      optarg);
             return -1;
         }
         p.method = (gl_subtract_method)m;
@@ -143,26 +171,62 @@ int cli_subtract_option(gl_cli *cli, int code, const char *optarg, cli_subtract_
         return 1;
     }
     case CLI_OPT_MASK:
+        if (strcmp(optarg, "auto") == 0) {
+            p.mask_radius = GL_SUBTRACT_MASK_AUTO;
+            return 1;
+        }
         return cli_parse_double(cli, "--mask-radius", optarg, 0, 1e6, &p.mask_radius) ? -1 : 1;
     case CLI_OPT_OUTER:
         return cli_parse_double(cli, "--outer-radius", optarg, 0, 1e6, &p.outer_radius) ? -1 : 1;
     case CLI_OPT_RING:
         return cli_parse_double(cli, "--ring", optarg, 1e-3, 1e4, &p.ring_fwhm) ? -1 : 1;
-    case CLI_OPT_SECTORS:
-        if (cli_parse_long(cli, "--sectors", optarg, 1, 360, &n))
+    case CLI_OPT_SECTORS: cli_deprecated(cli, "--sectors", "--arcs"); /* fall through */
+    case CLI_OPT_ARCS:
+        if (cli_parse_long(cli, code == CLI_OPT_ARCS ? "--arcs" : "--sectors", optarg, 1, 360, &n))
             return -1;
         p.sectors = (int)n;
         return 1;
     case CLI_OPT_GAP: return cli_parse_double(cli, "--gap", optarg, 0, 1e4, &p.gap_fwhm) ? -1 : 1;
-    case CLI_OPT_NEAREST:
-        return cli_parse_long(cli, "--nearest", optarg, 1, 1000000, &p.nearest) ? -1 : 1;
-    case CLI_OPT_CENTRE:
-        if (strcmp(optarg, "frame") == 0)
+    case CLI_OPT_NEAREST: cli_deprecated(cli, "--nearest", "--keep-closest"); /* fall through */
+    case CLI_OPT_KEEP_CLOSEST:
+        return cli_parse_long(cli, code == CLI_OPT_NEAREST ? "--nearest" : "--keep-closest", optarg,
+                              1, 1000000, &p.nearest)
+                   ? -1
+                   : 1;
+    case CLI_OPT_REMOVE_MEAN:
+        if (strcmp(optarg, "each-frame") == 0)
             p.centring = GL_CENTRE_FRAME;
-        else if (strcmp(optarg, "temporal") == 0)
+        else if (strcmp(optarg, "each-pixel") == 0)
             p.centring = GL_CENTRE_TEMPORAL;
         else {
-            cli_usage(cli, "--centre: '%s' is not frame or temporal", optarg);
+            cli_usage(cli, "--remove-mean: '%s' is not each-frame or each-pixel", optarg);
+            return -1;
+        }
+        return 1;
+    case CLI_OPT_CENTRE:
+        if (strcmp(optarg, "frame") == 0) {
+            cli_deprecated(cli, "--centre frame", "--remove-mean each-frame");
+            p.centring = GL_CENTRE_FRAME;
+        } else if (strcmp(optarg, "temporal") == 0) {
+            cli_deprecated(cli, "--centre temporal", "--remove-mean each-pixel");
+            p.centring = GL_CENTRE_TEMPORAL;
+        } else {
+            cli_usage(cli,
+                      "--centre (the old spelling of --remove-mean): '%s' is not frame or "
+                      "temporal",
+                      optarg);
+            return -1;
+        }
+        return 1;
+    case CLI_OPT_BASIS_FRAMES:
+        if (strcmp(optarg, "all") == 0)
+            p.basis_frames = GL_BASIS_ALL;
+        else if (strcmp(optarg, "all-but-target") == 0)
+            p.basis_frames = GL_BASIS_ALL_BUT_TARGET;
+        else if (strcmp(optarg, "beyond-gap") == 0)
+            p.basis_frames = GL_BASIS_BEYOND_GAP;
+        else {
+            cli_usage(cli, "--basis-frames: '%s' is not all, all-but-target or beyond-gap", optarg);
             return -1;
         }
         return 1;
@@ -199,7 +263,12 @@ int cli_subtract_option(gl_cli *cli, int code, const char *optarg, cli_subtract_
     case CLI_OPT_REFS_BEST:
         return cli_parse_long(cli, "--refs-best", optarg, 1, 1000000, &p.refs_best) ? -1 : 1;
     case CLI_OPT_SDI_MODES:
-        return cli_parse_long(cli, "--sdi-modes", optarg, 1, 1000, &p.sdi_modes) ? -1 : 1;
+        cli_deprecated(cli, "--sdi-modes", "--spectral-modes"); /* fall through */
+    case CLI_OPT_SPECTRAL_MODES:
+        return cli_parse_long(cli, code == CLI_OPT_SDI_MODES ? "--sdi-modes" : "--spectral-modes",
+                              optarg, 1, 1000, &p.sdi_modes)
+                   ? -1
+                   : 1;
     default: return 0;
     }
 #undef p
@@ -233,10 +302,11 @@ gl_status cli_subtract_prepare(gl_cli *cli, cli_subtract_setup *s, const char *c
         }
     }
     if (s->p.sdi == GL_SDI_CHANNELS && cube->nchan < 2) {
-        st = gl_error_set(GL_ERR_USAGE,
-                          "%s: --sdi needs a 4-D cube (x, y, wavelength, frame); this one has "
-                          "one channel",
-                          cube_path);
+        st = gl_error_set(
+            GL_ERR_USAGE,
+            "%s: --spectral-step needs a 4-D cube (x, y, wavelength, frame); this one has "
+            "one channel",
+            cube_path);
         goto cleanup;
     }
     if (s->p.sdi == GL_SDI_CHANNELS) {
@@ -251,7 +321,7 @@ gl_status cli_subtract_prepare(gl_cli *cli, cli_subtract_setup *s, const char *c
         }
         if (nw == 0) {
             st = gl_error_set(GL_ERR_USAGE,
-                              "%s: --sdi needs --wavelengths, a WAVE axis 3 or WAVEL1..n "
+                              "%s: --spectral-step needs --wavelengths, a WAVE axis 3 or WAVEL1..n "
                               "keywords in the header",
                               cube_path);
             goto cleanup;
@@ -259,7 +329,7 @@ gl_status cli_subtract_prepare(gl_cli *cli, cli_subtract_setup *s, const char *c
         s->p.nwave = nw;
         s->p.wavelengths = s->waves;
     } else if (s->waves_text) {
-        st = gl_error_set(GL_ERR_USAGE, "--wavelengths is only used with --sdi");
+        st = gl_error_set(GL_ERR_USAGE, "--wavelengths is only used with --spectral-step");
         goto cleanup;
     }
     *refs_out = refs;

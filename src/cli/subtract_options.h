@@ -27,7 +27,13 @@ enum {
     CLI_OPT_REFS_BEST,
     CLI_OPT_SDI,
     CLI_OPT_WAVES,
-    CLI_OPT_SDI_MODES
+    CLI_OPT_SDI_MODES,
+    CLI_OPT_ARCS,
+    CLI_OPT_KEEP_CLOSEST,
+    CLI_OPT_REMOVE_MEAN,
+    CLI_OPT_SPECTRAL,
+    CLI_OPT_SPECTRAL_MODES,
+    CLI_OPT_BASIS_FRAMES
 };
 
 #define CLI_SUBTRACT_OPTIONS                                                                       \
@@ -37,22 +43,25 @@ enum {
         {"mask-radius", required_argument, 0, CLI_OPT_MASK},                                       \
         {"outer-radius", required_argument, 0, CLI_OPT_OUTER},                                     \
         {"ring", required_argument, 0, CLI_OPT_RING},                                              \
+        {"arcs", required_argument, 0, CLI_OPT_ARCS},                                              \
         {"sectors", required_argument, 0, CLI_OPT_SECTORS},                                        \
         {"gap", required_argument, 0, CLI_OPT_GAP},                                                \
+        {"keep-closest", required_argument, 0, CLI_OPT_KEEP_CLOSEST},                              \
         {"nearest", required_argument, 0, CLI_OPT_NEAREST},                                        \
         {"median-fit", no_argument, 0, CLI_OPT_MEDFIT},                                            \
+        {"remove-mean", required_argument, 0, CLI_OPT_REMOVE_MEAN},                                \
         {"centre", required_argument, 0, CLI_OPT_CENTRE},                                          \
+        {"basis-frames", required_argument, 0, CLI_OPT_BASIS_FRAMES},                              \
         {"north-offset", required_argument, 0, CLI_OPT_NORTH},                                     \
         {"interp", required_argument, 0, CLI_OPT_INTERP},                                          \
         {"combine", required_argument, 0, CLI_OPT_COMBINE},                                        \
         {"refs", required_argument, 0, CLI_OPT_REFS},                                              \
         {"refs-use", required_argument, 0, CLI_OPT_REFS_USE},                                      \
         {"refs-best", required_argument, 0, CLI_OPT_REFS_BEST},                                    \
-        {"sdi", no_argument, 0, CLI_OPT_SDI},                                                      \
+        {"spectral-step", no_argument, 0, CLI_OPT_SPECTRAL}, {"sdi", no_argument, 0, CLI_OPT_SDI}, \
         {"wavelengths", required_argument, 0, CLI_OPT_WAVES},                                      \
-    {                                                                                              \
-        "sdi-modes", required_argument, 0, CLI_OPT_SDI_MODES                                       \
-    }
+        {"spectral-modes", required_argument, 0, CLI_OPT_SPECTRAL_MODES},                          \
+        {"sdi-modes", required_argument, 0, CLI_OPT_SDI_MODES}, CLI_ANGLE_OPTION
 
 /* Help lines of those options. */
 extern const char cli_subtract_help[];

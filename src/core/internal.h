@@ -45,4 +45,8 @@ float gl_stats_median_inplace_float(float *v, long n);
 #define GL_MIN(a, b) ((a) < (b) ? (a) : (b))
 #define GL_MAX(a, b) ((a) > (b) ? (a) : (b))
 
+/* A copy of s in gl_malloc'ed memory (free with gl_free); NULL when out of
+ * memory. */
+char *gl_strdup(const char *s);
+
 #endif

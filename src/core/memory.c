@@ -4,6 +4,7 @@
  * the n-th allocation fail on purpose.
  */
 #include "gloam/core.h"
+#include "core/internal.h"
 
 #include <stdatomic.h>
 #include <stdlib.h>
@@ -49,4 +50,13 @@ void *gl_calloc(size_t n, size_t size)
 void gl_free(void *p)
 {
     free(p);
+}
+
+char *gl_strdup(const char *s)
+{
+    size_t n = strlen(s) + 1;
+    char *d = gl_malloc(n);
+    if (d)
+        memcpy(d, s, n);
+    return d;
 }

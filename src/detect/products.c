@@ -1,10 +1,10 @@
 /*
  * products.c -- the detection maps as one FITS file: the primary HDU is the
  * S/N (Student t) map, image extensions FPF (float64, so that false-positive
- * fractions far below the float range keep their value) and SIGNIF (the
- * Gaussian-equivalent significance). Every HDU carries the celestial WCS of
- * the input (a third axis of a multi-plane input is removed), the parameters
- * (GLD* keywords), provenance and CHECKSUM/DATASUM.
+ * fractions far below the float range keep their value) and SIGMA (the
+ * one-sided Gaussian sigma with the same FPF, the unit of --threshold). Every HDU carries the
+ * celestial WCS of the input (a third axis of a multi-plane input is removed), the parameters (GLD*
+ * keywords), provenance and CHECKSUM/DATASUM.
  */
 #include "core/internal.h"
 #include "detect/internal.h"
@@ -53,6 +53,8 @@ static gl_status add_params(gl_header *h, const gl_detect_params *par, long nx, 
     gl_status st = GL_OK;
     if (!st)
         st = gl_header_set_str(h, "GLDMAP", "SNR", "this HDU: two-sample Student t (S/N)");
+    if (!st) /* a ratio: dimensionless, whatever the input's unit */
+        st = gl_header_set_str(h, "BUNIT", "", "dimensionless (S/N)");
     if (!st)
         st = gl_header_set_dbl(h, "GLDFWHM", par->fwhm, "[px] PSF FWHM");
     if (!st)
@@ -97,6 +99,7 @@ static int append_ext(fitsfile *f, const gl_header *h, const char *extname, cons
     }
     fits_update_key_str(f, "EXTNAME", extname, NULL, status);
     fits_update_key_str(f, "GLDMAP", extname, what, status);
+    fits_update_key_str(f, "BUNIT", "", "dimensionless", status);
     gl_fits_write_provenance(f, prov, status);
     fits_write_img(f, datatype, 1, (LONGLONG)nx * ny, data, status);
     fits_write_chksum(f, status);
@@ -136,7 +139,7 @@ gl_status gl_detect_maps_write(const char *path, const gl_detect_maps *maps,
     }
     append_ext(f, c->header, "FPF", "false-positive fraction P(T > t)", DOUBLE_IMG, TDOUBLE,
                maps->fpf, nx, ny, prov, &status);
-    append_ext(f, c->header, "SIGNIF", "Gaussian-equivalent significance (sigma)", FLOAT_IMG,
+    append_ext(f, c->header, "SIGMA", "Gaussian sigma of the same FPF (cf. --threshold)", FLOAT_IMG,
                TFLOAT, maps->significance, nx, ny, prov, &status);
     st = gl_fits_finish(f, path, "cannot write the map extensions", status);
 cleanup:

@@ -227,7 +227,18 @@ gl_status gl_inspect_report_new(const char *cube_path, const char *angles_path,
         if ((st = gl_angles_read(angles_path, c->nframe, &angles, &nangles)))
             goto cleanup;
         snprintf(r->angles_path, sizeof r->angles_path, "%s", angles_path);
+    } else {
+        /* a product's own angle table (gloam align, inject) */
+        if ((st = gl_angles_table_read(cube_path, c->nframe, &angles, &nangles)))
+            goto cleanup;
+        if (angles)
+            snprintf(r->angles_path, sizeof r->angles_path, "%s[%s]", cube_path, GL_ANGLES_EXTNAME);
     }
+    if (angles && gl_angles_look_like_radians(angles, nangles))
+        gl_log(GL_LOG_WARN,
+               "%s: the angles look like radians (all within +-2 pi): gloam reads degrees; "
+               "if they are radians, multiply by 180/pi",
+               r->angles_path);
     gl_obsinfo_from_header(c->header, &r->obs);
     r->nx = c->nx;
     r->ny = c->ny;

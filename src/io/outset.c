@@ -18,6 +18,47 @@
 #include <unistd.h>
 #include <zlib.h>
 
+/* Every temporary name handed out in this process and its destination, so
+ * that a message about a failed write can name the product the user asked
+ * for (gl_outset_error_names), even after the set is freed. Names longer
+ * than the slots are not recorded (their messages keep the temporary name). */
+enum { NAME_SLOTS = 32, NAME_LEN = 1024 };
+static char tmp_names[NAME_SLOTS][NAME_LEN], dest_names[NAME_SLOTS][NAME_LEN];
+static int nnames;
+
+static void remember_names(const char *tmp, const char *dest)
+{
+    if (strlen(tmp) >= NAME_LEN || strlen(dest) >= NAME_LEN)
+        return;
+    int k = nnames++ % NAME_SLOTS;
+    snprintf(tmp_names[k], NAME_LEN, "%s", tmp);
+    snprintf(dest_names[k], NAME_LEN, "%s", dest);
+}
+
+gl_status gl_outset_error_names(gl_status st)
+{
+    char msg[2048], out[2048];
+    snprintf(msg, sizeof msg, "%s", gl_error_message());
+    int changed = 0;
+    for (int k = 0; k < GL_MIN(nnames, NAME_SLOTS); k++) {
+        char *at = strstr(msg, tmp_names[k]);
+        if (!at)
+            continue;
+        size_t head = (size_t)(at - msg), nd = strlen(dest_names[k]);
+        size_t tail = strlen(at + strlen(tmp_names[k]));
+        if (head + nd + tail >= sizeof msg)
+            continue;
+        memcpy(out, msg, head);
+        memcpy(out + head, dest_names[k], nd);
+        memcpy(out + head + nd, at + strlen(tmp_names[k]), tail + 1);
+        memcpy(msg, out, head + nd + tail + 1);
+        changed = 1;
+    }
+    if (changed)
+        gl_error_set(st, "%s", msg);
+    return st;
+}
+
 typedef struct outfile {
     char *path;
     char *tmp;
@@ -37,15 +78,6 @@ gl_status gl_outset_new(int overwrite, gl_outset **out)
         return gl_error_nomem("output set");
     (*out)->overwrite = overwrite;
     return GL_OK;
-}
-
-static char *dup_str(const char *s)
-{
-    size_t n = strlen(s) + 1;
-    char *d = gl_malloc(n);
-    if (d)
-        memcpy(d, s, n);
-    return d;
 }
 
 static int same_file(const char *a, const char *b)
@@ -75,12 +107,13 @@ gl_status gl_outset_add(gl_outset *s, const char *path, const gl_provenance *pro
         if (!s->overwrite)
             return gl_error_set(GL_ERR_EXISTS, "%s: exists (use --overwrite to replace it)", path);
     }
-    char *copy = dup_str(path);
+    char *copy = gl_strdup(path);
     if (!copy)
         return gl_error_nomem("output path");
     char *dir = dirname(copy);
     if (stat(dir, &sb) != 0 || !S_ISDIR(sb.st_mode)) {
-        gl_status st = gl_error_set(GL_ERR_IO, "%s: folder %s does not exist", path, dir);
+        gl_status st =
+            gl_error_set(GL_ERR_IO, "%s: the output folder %s does not exist", path, dir);
         gl_free(copy);
         return st;
     }
@@ -104,7 +137,7 @@ gl_status gl_outset_add(gl_outset *s, const char *path, const gl_provenance *pro
     }
     size_t len = strlen(path) + 64;
     char *tmp = gl_malloc(len);
-    char *p2 = dup_str(path);
+    char *p2 = gl_strdup(path);
     if (!tmp || !p2) {
         gl_free(tmp);
         gl_free(p2);
@@ -117,6 +150,7 @@ gl_status gl_outset_add(gl_outset *s, const char *path, const gl_provenance *pro
              s->n);
     s->files[s->n].path = p2;
     s->files[s->n].tmp = tmp;
+    remember_names(tmp, path);
     s->n++;
     *tmp_path = tmp;
     return GL_OK;
@@ -173,10 +207,21 @@ gl_status gl_file_crc32(const char *path, unsigned long *crc)
     return GL_OK;
 }
 
+void gl_provenance_add_observation(gl_provenance *p, const gl_header *h)
+{
+    if (p->has_obs || !h)
+        return;
+    gl_obsinfo_from_header(h, &p->obs);
+    p->has_obs = 1;
+}
+
 gl_status gl_provenance_add_input(gl_provenance *p, const char *path)
 {
     if (p->ninputs >= 16)
         return GL_OK;
+    for (int i = 0; i < p->ninputs; i++)
+        if (strcmp(p->inputs[i], path) == 0) /* read twice: listed once */
+            return GL_OK;
     unsigned long crc = 0;
     gl_status st = gl_file_crc32(path, &crc);
     if (st)

@@ -1,7 +1,9 @@
 /*
- * table.c -- writing result tables: CSV (one header line of column names,
+ * table.c -- result tables: CSV (one header line of column names,
  * numbers at full double precision) and the same columns as a FITS binary
- * table extension through cfitsio.
+ * table extension through cfitsio, optionally led by one column of text (a
+ * target's name, quoted in CSV as RFC 4180 says where needed); reading both
+ * back (gl_csv).
  */
 #include "core/internal.h"
 #include "io/internal.h"
@@ -23,16 +25,39 @@ static void print_double(FILE *fp, double v)
 
 gl_status gl_table_write_csv(const char *path, const gl_table *t)
 {
+    return gl_table_write_csv_labelled(path, t, NULL, NULL);
+}
+
+gl_status gl_table_write_csv_labelled(const char *path, const gl_table *t, const char *label_name,
+                                      const char *const *labels)
+{
     FILE *fp = fopen(path, "w");
     if (!fp)
         return gl_error_set(GL_ERR_IO, "%s: cannot create (%s)", path, strerror(errno));
+    const int lab = labels != NULL;
+    if (lab)
+        fprintf(fp, "%s", label_name);
     for (int c = 0; c < t->ncols; c++)
-        fprintf(fp, "%s%s", c ? "," : "", t->names[c]);
+        fprintf(fp, "%s%s", c || lab ? "," : "", t->names[c]);
     fputc('\n', fp);
     for (long r = 0; r < t->nrows; r++) {
+        if (lab) { /* RFC 4180: quoted when it holds a comma or a quote */
+            const char *s = labels[r] ? labels[r] : "";
+            if (strpbrk(s, ",\"\n")) {
+                fputc('"', fp);
+                for (const char *q = s; *q; q++) {
+                    if (*q == '"')
+                        fputc('"', fp);
+                    fputc(*q, fp);
+                }
+                fputc('"', fp);
+            } else {
+                fputs(s, fp);
+            }
+        }
         for (int c = 0; c < t->ncols; c++) {
             double v = t->cols[c][r];
-            if (c)
+            if (c || lab)
                 fputc(',', fp);
             /* integers print as integers; NaN (no value) as an empty field */
             if (isnan(v))
@@ -52,24 +77,69 @@ gl_status gl_table_write_csv(const char *path, const gl_table *t)
     return GL_OK;
 }
 
+/* What was observed, so that a table read on its own says of what star,
+ * when, with which filter and at which pixel scale (FITS Standard 4.0
+ * keywords; the scale as GLPIXSC, mas per pixel). */
+static void write_observation(fitsfile *f, const gl_provenance *prov, int *status)
+{
+    if (!prov || !prov->has_obs)
+        return;
+    const gl_obsinfo *o = &prov->obs;
+    const struct {
+        const char *key, *value, *comment;
+    } text[] = {{"OBJECT", o->object, "observed object"},
+                {"TELESCOP", o->telescope, "telescope"},
+                {"INSTRUME", o->instrument, "instrument"},
+                {"FILTER", o->filter, "filter"},
+                {"DATE-OBS", o->date_obs, "start of the observation"}};
+    for (size_t i = 0; i < sizeof text / sizeof text[0]; i++)
+        if (text[i].value[0])
+            fits_update_key_str(f, text[i].key, text[i].value, text[i].comment, status);
+    if (isfinite(o->mjd_obs))
+        fits_update_key_dbl(f, "MJD-OBS", o->mjd_obs, -15, "MJD of the start of the observation",
+                            status);
+    if (isfinite(o->pixscale_mas))
+        fits_update_key_dbl(f, "GLPIXSC", o->pixscale_mas, -12, "pixel scale, mas (from the WCS)",
+                            status);
+}
+
 gl_status gl_table_write_fits(const char *path, const gl_table *t, const char *extname,
                               const gl_provenance *prov)
 {
+    return gl_table_write_fits_labelled(path, t, extname, prov, NULL, NULL);
+}
+
+gl_status gl_table_write_fits_labelled(const char *path, const gl_table *t, const char *extname,
+                                       const gl_provenance *prov, const char *label_name,
+                                       const char *const *labels)
+{
     fitsfile *f = NULL;
     int status = 0;
-    char **ttype = gl_calloc((size_t)t->ncols, sizeof *ttype);
-    char **tform = gl_calloc((size_t)t->ncols, sizeof *tform);
-    char **tunit = gl_calloc((size_t)t->ncols, sizeof *tunit);
+    const int lab = labels != NULL, n = t->ncols + lab;
+    char **ttype = gl_calloc((size_t)n, sizeof *ttype);
+    char **tform = gl_calloc((size_t)n, sizeof *tform);
+    char **tunit = gl_calloc((size_t)n, sizeof *tunit);
+    char label_form[32];
     if (!ttype || !tform || !tunit) {
         gl_free(ttype);
         gl_free(tform);
         gl_free(tunit);
         return gl_error_nomem("table columns");
     }
+    if (lab) {
+        size_t w = 1;
+        for (long r = 0; r < t->nrows; r++)
+            if (labels[r] && strlen(labels[r]) > w)
+                w = strlen(labels[r]);
+        snprintf(label_form, sizeof label_form, "%zuA", w);
+        ttype[0] = (char *)label_name;
+        tform[0] = label_form;
+        tunit[0] = "";
+    }
     for (int c = 0; c < t->ncols; c++) {
-        ttype[c] = (char *)t->names[c];
-        tform[c] = "1D";
-        tunit[c] = (char *)((t->units && t->units[c]) ? t->units[c] : "");
+        ttype[c + lab] = (char *)t->names[c];
+        tform[c + lab] = "1D";
+        tunit[c + lab] = (char *)((t->units && t->units[c]) ? t->units[c] : "");
     }
     unlink(path);
     if (fits_create_diskfile(&f, path, &status)) {
@@ -81,12 +151,17 @@ gl_status gl_table_write_fits(const char *path, const gl_table *t, const char *e
     fits_create_img(f, FLOAT_IMG, 0, NULL, &status);
     gl_fits_write_provenance(f, prov, &status);
     fits_write_chksum(f, &status);
-    fits_create_tbl(f, BINARY_TBL, t->nrows, t->ncols, ttype, tform, tunit, extname, &status);
+    fits_create_tbl(f, BINARY_TBL, t->nrows, n, ttype, tform, tunit, extname, &status);
+    for (long r = 0; lab && r < t->nrows && !status; r++) {
+        char *s = (char *)(labels[r] ? labels[r] : "");
+        fits_write_col(f, TSTRING, 1, r + 1, 1, 1, &s, &status);
+    }
     for (int c = 0; c < t->ncols && !status; c++)
         if (t->nrows > 0)
-            fits_write_col(f, TDOUBLE, c + 1, 1, 1, t->nrows, (void *)t->cols[c], &status);
+            fits_write_col(f, TDOUBLE, c + 1 + lab, 1, 1, t->nrows, (void *)t->cols[c], &status);
     gl_fits_write_header(f, t->header, prov, &status);
     gl_fits_write_provenance(f, prov, &status);
+    write_observation(f, prov, &status);
     fits_write_chksum(f, &status);
     gl_free(ttype);
     gl_free(tform);
@@ -203,4 +278,97 @@ cleanup:
     gl_csv_free(t);
     fclose(fp);
     return st;
+}
+
+gl_status gl_table_read_fits(const char *path, gl_csv **out)
+{
+    fitsfile *f = NULL;
+    int status = 0, hdutype = 0, ncols = 0;
+    long nrows = 0;
+    gl_status st = GL_OK;
+    gl_csv *t = NULL;
+    *out = NULL;
+    if (fits_open_diskfile(&f, path, READONLY, &status))
+        return gl_fits_error(GL_ERR_IO, path, "cannot open", status);
+    /* the first binary or ASCII table extension */
+    for (int h = 2;; h++) {
+        if (fits_movabs_hdu(f, h, &hdutype, &status)) {
+            st = gl_error_set(GL_ERR_INPUT, "%s: no table extension", path);
+            goto cleanup;
+        }
+        if (hdutype == BINARY_TBL || hdutype == ASCII_TBL)
+            break;
+    }
+    fits_get_num_rows(f, &nrows, &status);
+    fits_get_num_cols(f, &ncols, &status);
+    if (status) {
+        st = gl_fits_error(GL_ERR_INPUT, path, "cannot read the table layout", status);
+        goto cleanup;
+    }
+    if (!(t = gl_calloc(1, sizeof *t)) ||
+        !(t->names = gl_calloc((size_t)ncols, sizeof *t->names)) ||
+        !(t->data = gl_calloc((size_t)(nrows ? nrows : 1) * (size_t)ncols, sizeof *t->data))) {
+        st = gl_error_nomem("table");
+        goto cleanup;
+    }
+    t->ncols = ncols;
+    t->nrows = nrows;
+    double *col = gl_malloc((size_t)(nrows ? nrows : 1) * sizeof *col);
+    if (!col) {
+        st = gl_error_nomem("table");
+        goto cleanup;
+    }
+    for (int c = 0; c < ncols && !st; c++) {
+        char key[16], name[72] = "";
+        int typecode = 0;
+        long repeat = 0, width = 0;
+        snprintf(key, sizeof key, "TTYPE%d", c + 1);
+        fits_read_key(f, TSTRING, key, name, NULL, &status);
+        status = 0;
+        size_t len = strlen(name) + 1;
+        if (!(t->names[c] = gl_malloc(len))) {
+            st = gl_error_nomem("table");
+            break;
+        }
+        memcpy(t->names[c], name, len);
+        fits_get_coltype(f, c + 1, &typecode, &repeat, &width, &status);
+        /* numeric scalar columns only; others read as NaN */
+        if (!status && typecode != TSTRING && repeat == 1 && nrows > 0) {
+            double nul = NAN;
+            int anynul = 0;
+            fits_read_col(f, TDOUBLE, c + 1, 1, 1, nrows, &nul, col, &anynul, &status);
+        } else {
+            for (long r = 0; r < nrows; r++)
+                col[r] = NAN;
+        }
+        if (status) {
+            st = gl_fits_error(GL_ERR_INPUT, path, "cannot read a column", status);
+            break;
+        }
+        for (long r = 0; r < nrows; r++)
+            t->data[r * ncols + c] = col[r];
+    }
+    gl_free(col);
+    if (!st) {
+        *out = t;
+        t = NULL;
+    }
+cleanup:
+    gl_csv_free(t);
+    status = 0;
+    fits_close_file(f, &status);
+    return st;
+}
+
+gl_status gl_table_read(const char *path, gl_csv **out)
+{
+    FILE *fp = fopen(path, "rb");
+    char head[6] = "";
+    if (!fp)
+        return gl_error_set(GL_ERR_IO, "%s: cannot open (%s)", path, strerror(errno));
+    size_t n = fread(head, 1, 6, fp);
+    fclose(fp);
+    if (n == 6 && memcmp(head, "SIMPLE", 6) == 0)
+        return gl_table_read_fits(path, out);
+    return gl_csv_read(path, out);
 }

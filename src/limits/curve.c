@@ -238,7 +238,10 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
 
     /* separations */
     double step = lp->step_px > 0 ? lp->step_px : fwhm / 2;
-    double r0 = lp->r_min_px > 0 ? lp->r_min_px : GL_MAX(fwhm, sp->mask_radius + fwhm / 2);
+    /* the subtraction's inner radius (chosen from the field rotation when asked) */
+    double mask =
+        gl_subtract_inner_radius(sp, angles, cube->nframe, refs ? refs->nframe : 0, nx, ny);
+    double r0 = lp->r_min_px > 0 ? lp->r_min_px : GL_MAX(fwhm, mask + fwhm / 2);
     double edge = 0.5 * (double)GL_MIN(nx, ny) - diam / 2 - 1;
     if (sp->outer_radius > 0)
         edge = GL_MIN(edge, sp->outer_radius - diam / 2);

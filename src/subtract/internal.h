@@ -37,6 +37,19 @@ void sub_region_free(sub_region *r);
  * unusable frames) and may be changed by the sink. */
 typedef gl_status (*sub_sink_fn)(void *sink, int mode_index, float *resid);
 
+/* What the per-target KLIP (klip-rings, klip-frame with a basis per frame)
+ * reports back, per ring: the radii, the fewest and most modes a frame
+ * really used for the largest count asked (-1: no frame with references),
+ * and the frames left NaN there for want of any reference. Arrays of nring,
+ * allocated by the method, freed by sub_report_free. */
+typedef struct sub_report {
+    long nring;
+    double *r_in, *r_out;
+    long *kmin, *kmax, *noref;
+    long kasked;
+} sub_report;
+void sub_report_free(sub_report *r);
+
 /* The prepared input every method works from. */
 typedef struct sub_ctx {
     const gl_subtract_params *p;
@@ -50,6 +63,7 @@ typedef struct sub_ctx {
     const float *ref;   /* nref x npix */
     double r_in, r_out; /* region radii, px */
     float *work;        /* nframe x npix scratch handed to the sink */
+    sub_report *report; /* filled by the per-target KLIP methods */
     sub_sink_fn sink;
     void *sink_data;
 } sub_ctx;
@@ -64,6 +78,24 @@ extern const sub_method sub_method_median;
 extern const sub_method sub_method_pca;
 extern const sub_method sub_method_annular;
 extern const sub_method sub_method_none;
+
+/* KLIP with a library of its own for every target (method_annular.c):
+ * rings `width` px wide from c->r_in to c->r_out, `nsect` arcs each; a
+ * target's library holds the usable science frames that rotated by at least
+ * gap_px at the ring's mid radius (gap_px 0: every other frame), the closest
+ * `nearest` of them when > 0, plus the reference frames for RDI. Mode counts
+ * are capped at the library (and its non-zero eigenvalues); a target with no
+ * reference is NaN in that piece. Fills c->report and calls the sink. */
+gl_status sub_klip_local(const sub_ctx *c, double width, int nsect, double gap_px, long nearest,
+                         const char *label);
+/* The reference library of target t at radius r (science frames past the
+ * gap, then reference rows nframe..); returns its size. */
+long sub_library(const sub_ctx *c, long t, double r, double gap_px, long nearest, long *lib);
+
+/* gl_subtract_inner_radius with usable-frame flags (NULL: all usable) and the
+ * outer radius in px (region.c). */
+double sub_inner_radius(const gl_subtract_params *p, const double *angles,
+                        const unsigned char *usable, long n, long nref, double r_out);
 
 /* ---- linear algebra (klip.c) ------------------------------------------ */
 
@@ -108,13 +140,18 @@ void sub_basis_free(sub_basis *b);
  * nlib rows), the target row t and ascending mode counts, writes for each
  * count k the nall weights w with projection(x_t) = sum_l w_l x_l onto the
  * first k KL modes of the library (Soummer et al. 2012 eqs. 4-8 written in
- * the library's row space). Workspace from sub_eig_work_new. Returns
+ * the library's row space). ncol is the number of pixels C was summed over
+ * (it sets the level below which an eigenvalue is zero). *kused (may be
+ * NULL) receives the modes really used: the largest count, capped at the
+ * library size and at the modes with a non-zero eigenvalue. Workspace from
+ * sub_eig_work_new. Returns
  * GL_ERR_NUMERIC when the eigensolver fails. */
 typedef struct sub_eig_work sub_eig_work;
 gl_status sub_eig_work_new(long maxlib, long kmax, sub_eig_work **out);
 void sub_eig_work_free(sub_eig_work *w);
-gl_status sub_target_weights(const double *C, long nall, const long *lib, long nlib, long t,
-                             const long *kcounts, int nk, sub_eig_work *w, float *weights);
+gl_status sub_target_weights(const double *C, long nall, long ncol, const long *lib, long nlib,
+                             long t, const long *kcounts, int nk, sub_eig_work *w, float *weights,
+                             long *kused);
 
 /* ---- reference frames (refs.c) ------------------------------------------ */
 

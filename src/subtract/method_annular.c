@@ -1,22 +1,34 @@
 /*
- * method_annular.c -- KLIP annulus by annulus (Soummer, Pueyo & Larkin 2012,
- * ApJL 755, L28, sec. 3, with the frame selection of Lafreniere et al. 2007,
- * ApJ 660, 770): the region is cut into rings --ring FWHM wide (optionally
- * into azimuthal sectors); in each piece every science frame is a target
- * whose reference library holds only the frames that rotated by at least
- * --gap FWHM at the ring's mid radius (arc length r |dtheta|), optionally the
- * nearest N of them in angle, plus the reference-star frames for RDI.
+ * method_annular.c -- KLIP with a reference library of its own for every
+ * target frame (Soummer, Pueyo & Larkin 2012, ApJL 755, L28, sec. 3, with
+ * the frame selection of Lafreniere et al. 2007, ApJ 660, 770).
  *
- * Per piece the covariance of all rows is computed once (ssyrk tiles); each
- * target's KL basis comes from the eigendecomposition of its library's block
- * of that covariance, and its projection is written back as weights on the
- * library rows (see sub_target_weights), so a whole block of targets and all
- * mode counts are subtracted with one sgemm. Targets are processed in blocks
- * of fixed size, one block per thread at a time (static schedule), so
- * results do not depend on the thread count.
+ * klip-rings: the region is cut into rings --ring FWHM wide (optionally into
+ * --arcs azimuthal arcs); in each piece every science frame is a target whose
+ * reference library holds only the frames that rotated by at least --gap FWHM
+ * at the ring's mid radius (the distance r |dtheta| a source there moves),
+ * optionally the closest N of them in angle, plus the reference-star frames
+ * for RDI. klip-frame with --basis-frames all-but-target / beyond-gap is the
+ * same computation on one piece, the whole region (the basis of frame i
+ * built without frame i, or without the frames closer than the gap at the
+ * region's mid radius).
  *
- * Centring "temporal" subtracts the mean over all basis rows of the piece
- * (not per library): an approximation, stated in docs/subtract.md.
+ * Per piece the covariance of all rows is computed once; each target's KL
+ * basis comes from the eigendecomposition of its library's block of that
+ * covariance, and its projection is written back as weights on the library
+ * rows (see sub_target_weights), so a whole block of targets and all mode
+ * counts are subtracted with one sgemm. Targets are processed in blocks of
+ * fixed size, one block per thread at a time (static schedule), so results
+ * do not depend on the thread count.
+ *
+ * Small libraries do not stop the run: a count larger than a library (or
+ * than its non-zero eigenvalues) uses what the library holds, and a target
+ * with no reference at all is NaN in that piece (left out of the
+ * combination there). What was really used is reported per ring
+ * (sub_report), for one summary warning and the product header.
+ *
+ * Mean removal "each-pixel" subtracts the mean over all basis rows of the
+ * piece (not per library): an approximation, stated in docs/subtract.md.
  */
 #include "subtract/internal.h"
 
@@ -35,62 +47,42 @@ typedef struct thread_ws {
     long *lib; /* nall */
 } thread_ws;
 
-/* Library of target t (science row) in a piece at radius r: qualifying
- * science frames and/or all reference rows. */
-static long piece_library(const sub_ctx *c, long t, double r, long *lib)
+long sub_library(const sub_ctx *c, long t, double r, double gap_px, long nearest, long *lib)
 {
     const gl_subtract_params *p = c->p;
     long n = 0;
     if (!(c->nref > 0 && p->refs_use == GL_REFS_ONLY))
-        n = gl_subtract_library_select(c->angles, c->usable, c->nframe, t, r, p->gap_fwhm * p->fwhm,
-                                       p->nearest, lib);
+        n = gl_subtract_library_select(c->angles, c->usable, c->nframe, t, r, gap_px, nearest, lib);
     for (long i = 0; i < c->nref; i++)
         lib[n++] = c->nframe + i;
     return n;
 }
 
-/* Checks every library of every ring before any work: the smallest one must
- * hold the largest mode count. */
-static gl_status check_libraries(const sub_ctx *c, double width, long nring, long kmax, long *lib)
+void sub_report_free(sub_report *r)
 {
-    const gl_subtract_params *p = c->p;
-    for (long k = 0; k < nring; k++) {
-        double r_in = c->r_in + (double)k * width;
-        double r_out = GL_SUB_MIN(c->r_out, r_in + width);
-        double rmid = 0.5 * (r_in + r_out);
-        for (long t = 0; t < c->nframe; t++) {
-            if (!c->usable[t])
-                continue;
-            long n = piece_library(c, t, rmid, lib);
-            if (n == 0)
-                return gl_error_set(GL_ERR_USAGE,
-                                    "--gap %g FWHM leaves frame %ld without reference frames at "
-                                    "radius %.1f px (too little field rotation there): raise "
-                                    "--mask-radius past that radius or lower --gap",
-                                    p->gap_fwhm, t, rmid);
-            if (n < kmax)
-                return gl_error_set(GL_ERR_USAGE,
-                                    "--modes %ld is larger than the %ld usable reference frames "
-                                    "of frame %ld at radius %.1f px (--gap %g FWHM): use fewer "
-                                    "modes, a larger --mask-radius or a smaller --gap",
-                                    kmax, n, t, rmid, p->gap_fwhm);
-        }
-    }
-    return GL_OK;
+    if (!r)
+        return;
+    gl_free(r->r_in);
+    gl_free(r->r_out);
+    gl_free(r->kmin);
+    gl_free(r->kmax);
+    gl_free(r->noref);
+    memset(r, 0, sizeof *r);
 }
 
-static gl_status annular_run(const sub_ctx *c)
+gl_status sub_klip_local(const sub_ctx *c, double width, int nsect, double gap_px, long nearest,
+                         const char *label)
 {
     const gl_subtract_params *p = c->p;
     gl_status st = GL_OK;
     int nth = sub_max_threads();
     int nk = p->nmodes;
     long nall = c->nframe + c->nref;
-    double width = p->ring_fwhm * p->fwhm;
     long nring = (long)ceil((c->r_out - c->r_in) / width - 1e-9);
     if (nring < 1)
         nring = 1;
-    int nsect = p->sectors > 1 ? p->sectors : 1;
+    if (nsect < 1)
+        nsect = 1;
     long sorted[GL_SUBTRACT_MAX_MODES];
     int order[GL_SUBTRACT_MAX_MODES];
     sub_modes_sorted(p, sorted, order);
@@ -100,23 +92,34 @@ static gl_status annular_run(const sub_ctx *c)
     double *C = NULL;
     unsigned char *flags = NULL;
     thread_ws *ws = gl_calloc((size_t)nth, sizeof *ws);
-    long *lib0 = gl_malloc(sizeof(long) * (size_t)nall);
     gl_status *tst = gl_calloc((size_t)nth, sizeof *tst);
     sub_region *regs = NULL;
     double *covwork = NULL;
-    if (!ws || !lib0 || !tst) {
+    long *kused = NULL;
+    sub_report *rep = c->report;
+    if (!ws || !tst) {
         st = gl_error_nomem("annular workspace");
         goto cleanup;
     }
-    st = check_libraries(c, width, nring, kmax, lib0);
-    if (st)
-        goto cleanup;
 
     /* plan: every piece's pixel list, once; the largest bounds the buffers */
     long npieces = nring * nsect, done = 0;
     regs = gl_calloc((size_t)npieces, sizeof *regs);
     covwork = gl_malloc(sizeof(double) * sub_covariance_work_size());
-    if (!regs || !covwork) {
+    /* modes really used by each (piece, target); -1: no reference */
+    kused = gl_calloc((size_t)npieces * (size_t)c->nframe, sizeof(long));
+    if (rep) {
+        sub_report_free(rep);
+        rep->nring = nring;
+        rep->kasked = kmax;
+        rep->r_in = gl_malloc(sizeof(double) * (size_t)nring);
+        rep->r_out = gl_malloc(sizeof(double) * (size_t)nring);
+        rep->kmin = gl_malloc(sizeof(long) * (size_t)nring);
+        rep->kmax = gl_malloc(sizeof(long) * (size_t)nring);
+        rep->noref = gl_calloc((size_t)nring, sizeof(long));
+    }
+    if (!regs || !covwork || !kused ||
+        (rep && (!rep->r_in || !rep->r_out || !rep->kmin || !rep->kmax || !rep->noref))) {
         st = gl_error_nomem("annular plan");
         goto cleanup;
     }
@@ -198,11 +201,14 @@ static gl_status annular_run(const sub_ctx *c)
                         memset(Wt, 0, sizeof(float) * (size_t)nk * (size_t)nall);
                         continue;
                     }
-                    long nlib = piece_library(c, t, rmid, w->lib);
-                    gl_status e =
-                        sub_target_weights(C, nall, w->lib, nlib, t, sorted, nk, w->eig, Wt);
+                    long nlib = sub_library(c, t, rmid, gap_px, nearest, w->lib);
+                    long *ku = &kused[(size_t)(k * nsect + s) * (size_t)c->nframe + (size_t)t];
+                    gl_status e = sub_target_weights(C, nall, npr, w->lib, nlib, t, sorted, nk,
+                                                     w->eig, Wt, ku);
                     if (e)
                         tst[tid] = e;
+                    if (nlib == 0)
+                        *ku = -1;
                     for (int q = 0; q < nk; q++)
                         memcpy(w->R + ((size_t)(t - t0) * (size_t)nk + (size_t)q) * (size_t)npr,
                                M + (size_t)t * (size_t)npr, sizeof(float) * (size_t)npr);
@@ -211,7 +217,9 @@ static gl_status annular_run(const sub_ctx *c)
                 cblas_sgemm(CblasRowMajor, CblasNoTrans, CblasNoTrans, (int)(nt * nk), (int)npr,
                             (int)nall, -1.0f, w->W, (int)nall, M, (int)npr, 1.0f, w->R, (int)npr);
                 for (long t = t0; t < t1; t++) {
-                    if (!c->usable[t])
+                    /* no reference: no model, the frame is left out here */
+                    if (!c->usable[t] ||
+                        kused[(size_t)(k * nsect + s) * (size_t)c->nframe + (size_t)t] < 0)
                         continue;
                     const float *in = c->sci + (size_t)t * (size_t)c->npix;
                     for (int q = 0; q < nk; q++) {
@@ -228,12 +236,34 @@ static gl_status annular_run(const sub_ctx *c)
                 if (tst[t]) {
                     /* messages are per thread: restate it on this one */
                     st = gl_error_set(tst[t],
-                                      "annular KLIP: eigendecomposition of a reference library "
+                                      "%s: eigendecomposition of a reference library "
                                       "failed at radius %.1f px",
-                                      rmid);
+                                      label, rmid);
                     goto cleanup;
                 }
-            gl_progress("annular KLIP", ++done, npieces);
+            gl_progress(label, ++done, npieces);
+        }
+    }
+    /* per ring: fewest and most modes used, frames without references */
+    for (long k = 0; rep && k < nring; k++) {
+        rep->r_in[k] = c->r_in + (double)k * width;
+        rep->r_out[k] = GL_SUB_MIN(c->r_out, rep->r_in[k] + width);
+        rep->kmin[k] = -1;
+        rep->kmax[k] = -1;
+        for (int s = 0; s < nsect; s++) {
+            if (regs[k * nsect + s].npix == 0)
+                continue;
+            for (long t = 0; t < c->nframe; t++) {
+                if (!c->usable[t])
+                    continue;
+                long u = kused[(size_t)(k * nsect + s) * (size_t)c->nframe + (size_t)t];
+                if (u < 0) {
+                    rep->noref[k]++;
+                    continue;
+                }
+                rep->kmin[k] = rep->kmin[k] < 0 ? u : GL_SUB_MIN(rep->kmin[k], u);
+                rep->kmax[k] = GL_SUB_MAX(rep->kmax[k], u);
+            }
         }
     }
     /* hand each count over in the order asked */
@@ -260,8 +290,8 @@ cleanup:
             gl_free(ws[t].lib);
         }
     gl_free(ws);
-    gl_free(lib0);
     gl_free(tst);
+    gl_free(kused);
     gl_free(M);
     gl_free(C);
     gl_free(flags);
@@ -270,4 +300,11 @@ cleanup:
     return st;
 }
 
-const sub_method sub_method_annular = {"annular", 1, annular_run};
+static gl_status rings_run(const sub_ctx *c)
+{
+    const gl_subtract_params *p = c->p;
+    return sub_klip_local(c, p->ring_fwhm * p->fwhm, p->sectors, p->gap_fwhm * p->fwhm, p->nearest,
+                          "klip-rings");
+}
+
+const sub_method sub_method_annular = {"klip-rings", 1, rings_run};

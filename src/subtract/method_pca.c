@@ -1,11 +1,15 @@
 /*
- * method_pca.c -- full-frame KLIP/PCA (Soummer, Pueyo & Larkin 2012, ApJL
- * 755, L28). The region between the mask radius and the outer radius of every
- * usable frame forms one row of the data matrix; the rows are centred (each
- * frame minus its own mean by default, as in the paper, or each pixel minus
- * its temporal mean); the KL basis of the basis rows (science frames for ADI,
- * reference frames for RDI, or both) is computed once; each science frame
- * minus its projection on the first K modes is its residual.
+ * method_pca.c -- klip-frame, full-frame KLIP/PCA (Soummer, Pueyo & Larkin
+ * 2012, ApJL 755, L28). The region between the mask radius and the outer
+ * radius of every usable frame forms one row of the data matrix; the rows
+ * are centred (each frame minus its own mean by default, as in the paper, or
+ * each pixel minus its temporal mean); the KL basis of the basis rows
+ * (science frames for ADI, reference frames for RDI, or both) is computed
+ * once; each science frame minus its projection on the first K modes is its
+ * residual. With ADI the basis holds the target frame itself: full-frame PCA
+ * as in Amara & Quanz 2012 (MNRAS 427, 948), where a companion's own light
+ * is partly in the basis. --basis-frames all-but-target / beyond-gap give
+ * each frame a basis without it (sub_klip_local).
  *
  * All mode counts come from one basis in one pass: the counts are taken in
  * increasing order and each step removes only the modes added since the last
@@ -23,6 +27,12 @@ static gl_status pca_run(const sub_ctx *c)
 {
     const gl_subtract_params *p = c->p;
     gl_status st = GL_OK;
+    /* a basis per frame, built without it: the per-target KLIP on one piece,
+     * the whole region (method_annular.c) */
+    if (p->basis_frames != GL_BASIS_ALL && !(c->nref > 0 && p->refs_use == GL_REFS_ONLY))
+        return sub_klip_local(c, (c->r_out - c->r_in) * (1 + 1e-12), 1,
+                              p->basis_frames == GL_BASIS_BEYOND_GAP ? p->gap_fwhm * p->fwhm : 0.0,
+                              p->nearest, "klip-frame");
     sub_region reg = {0};
     sub_basis basis = {0};
     float *M = NULL, *coef = NULL;
@@ -130,4 +140,4 @@ cleanup:
     return st;
 }
 
-const sub_method sub_method_pca = {"pca", 1, pca_run};
+const sub_method sub_method_pca = {"klip-frame", 1, pca_run};

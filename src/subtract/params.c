@@ -1,6 +1,8 @@
 /*
  * params.c -- the subtraction parameters: defaults, checks that need no
- * data, and the name tables of methods and combinations.
+ * data, and the name tables of methods and combinations (the names of
+ * docs/names.md; the command line keeps the first release's spellings as
+ * deprecated aliases).
  */
 #include "subtract/internal.h"
 
@@ -14,12 +16,13 @@ void gl_subtract_params_init(gl_subtract_params *p)
     p->fwhm = 0;
     p->nmodes = 1;
     p->modes[0] = 5;
-    p->mask_radius = 0;
+    p->mask_radius = GL_SUBTRACT_MASK_AUTO;
     p->outer_radius = 0;
     p->ring_fwhm = 1.0;
     p->sectors = 1;
     p->gap_fwhm = 0.75;
     p->nearest = 0;
+    p->basis_frames = GL_BASIS_ALL;
     p->median_fit = 0;
     p->centring = GL_CENTRE_FRAME;
     p->north_offset = 0;
@@ -48,26 +51,29 @@ gl_status gl_subtract_params_check(const gl_subtract_params *p)
         if (p->modes[i] < 1)
             return gl_error_set(GL_ERR_USAGE, "--modes: %ld is not a positive mode count",
                                 p->modes[i]);
-    if (!(p->mask_radius >= 0) || !(p->outer_radius >= 0))
+    if (!(p->mask_radius >= 0 || p->mask_radius == GL_SUBTRACT_MASK_AUTO) ||
+        !(p->outer_radius >= 0))
         return gl_error_set(GL_ERR_USAGE, "--mask-radius and --outer-radius must be >= 0");
+    if (p->basis_frames < GL_BASIS_ALL || p->basis_frames > GL_BASIS_BEYOND_GAP)
+        return gl_error_set(GL_ERR_USAGE, "unknown --basis-frames choice %d", (int)p->basis_frames);
     if (!(p->ring_fwhm > 0))
         return gl_error_set(GL_ERR_USAGE, "--ring must be a positive width in FWHM (got %g)",
                             p->ring_fwhm);
     if (p->sectors < 1 || p->sectors > 360)
-        return gl_error_set(GL_ERR_USAGE, "--sectors must be between 1 and 360 (got %d)",
-                            p->sectors);
+        return gl_error_set(GL_ERR_USAGE, "--arcs must be between 1 and 360 (got %d)", p->sectors);
     if (!(p->gap_fwhm >= 0))
         return gl_error_set(GL_ERR_USAGE, "--gap must be >= 0 FWHM (got %g)", p->gap_fwhm);
     if (p->nearest < 0 || p->refs_best < 0)
-        return gl_error_set(GL_ERR_USAGE, "--nearest and --refs-best must be >= 0");
+        return gl_error_set(GL_ERR_USAGE, "--keep-closest and --refs-best must be >= 0");
     if (!isfinite(p->north_offset))
         return gl_error_set(GL_ERR_USAGE, "--north-offset must be finite");
     if (p->sdi == GL_SDI_CHANNELS && p->sdi_modes < 1)
-        return gl_error_set(GL_ERR_USAGE, "--sdi-modes must be >= 1");
+        return gl_error_set(GL_ERR_USAGE, "--spectral-modes must be >= 1");
     return GL_OK;
 }
 
-static const char *const method_names[] = {"median", "pca", "annular", "none"};
+static const char *const method_names[] = {"median-frame", "klip-frame", "klip-rings",
+                                           "derotate-only"};
 static const char *const combine_names[] = {"median", "mean", "weighted"};
 
 int gl_subtract_method_from_name(const char *name)

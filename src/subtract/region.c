@@ -8,6 +8,10 @@
  * 770): a frame may serve as a reference for a target only when the field
  * rotated between them by at least `gap` at the annulus' radius, measured as
  * the arc length r |dtheta|.
+ *
+ * The default inner radius of klip-rings follows from the same rule: the
+ * smallest radius at which the first ring gives every frame as many
+ * references as the largest mode count (else at least one).
  */
 #include "subtract/internal.h"
 
@@ -115,4 +119,77 @@ long gl_subtract_library_select(const double *angles, const unsigned char *usabl
         }
     }
     return m;
+}
+
+/* Rotation (radians) to the m-th farthest usable frame from t; 0 when t has
+ * fewer than m usable companions in the sequence. */
+static double mth_farthest(const double *angles, const unsigned char *usable, long n, long t,
+                           long m, double *buf)
+{
+    long k = 0;
+    for (long j = 0; j < n; j++)
+        if (j != t && (!usable || usable[j]))
+            buf[k++] = rotation_between(angles[j], angles[t]) * (M_PI / 180.0);
+    if (k < m || m < 1)
+        return 0.0;
+    /* partial selection sort, descending: m is a few tens at most */
+    for (long i = 0; i < m; i++) {
+        long b = i;
+        for (long j = i + 1; j < k; j++)
+            if (buf[j] > buf[b])
+                b = j;
+        double v = buf[i];
+        buf[i] = buf[b];
+        buf[b] = v;
+    }
+    return buf[m - 1];
+}
+
+double sub_inner_radius(const gl_subtract_params *p, const double *angles,
+                        const unsigned char *usable, long n, long nref, double r_out)
+{
+    if (p->mask_radius >= 0)
+        return p->mask_radius;
+    if (p->method != GL_SUBTRACT_ANNULAR || (nref > 0 && p->refs_use == GL_REFS_ONLY) ||
+        !(p->gap_fwhm > 0))
+        return 0.0;
+    long kmax = 0;
+    for (int i = 0; i < p->nmodes; i++)
+        kmax = GL_SUB_MAX(kmax, p->modes[i]);
+    if (p->nearest > 0)
+        kmax = GL_SUB_MIN(kmax, p->nearest);
+    kmax -= nref; /* GL_REFS_WITH_SCIENCE: the reference frames are always there */
+    if (kmax < 1)
+        return 0.0;
+    double gap = p->gap_fwhm * p->fwhm, half = 0.5 * p->ring_fwhm * p->fwhm;
+    double *buf = gl_malloc(sizeof(double) * (size_t)(n > 0 ? n : 1));
+    if (!buf)
+        return 0.0; /* no memory: no mask; the run itself reports the shortage */
+    double r_in = 0.0;
+    /* enough references for the largest count, else at least one each */
+    long tries[2] = {kmax, 1};
+    for (int a = 0; a < 2; a++) {
+        double dmin = INFINITY;
+        for (long t = 0; t < n; t++)
+            if (!usable || usable[t])
+                dmin = GL_SUB_MIN(dmin, mth_farthest(angles, usable, n, t, tries[a], buf));
+        /* the first ring's mid radius r_in + half must give r_mid dmin >=
+         * gap; a hair more keeps the comparison clear of rounding */
+        double r = dmin > 0 && isfinite(dmin) ? gap / dmin * (1 + 1e-9) - half : INFINITY;
+        if (r + half < r_out) {
+            r_in = GL_SUB_MAX(r, 0.0);
+            break;
+        }
+    }
+    gl_free(buf);
+    return r_in;
+}
+
+double gl_subtract_inner_radius(const gl_subtract_params *p, const double *angles, long nframe,
+                                long nref, long nx, long ny)
+{
+    double cx = (double)(nx / 2), cy = (double)(ny / 2);
+    double rmax = GL_SUB_MIN(GL_SUB_MIN(cx, cy), GL_SUB_MIN((double)nx - cx, (double)ny - cy));
+    double r_out = p->outer_radius > 0 ? GL_SUB_MIN(p->outer_radius, rmax) : rmax;
+    return sub_inner_radius(p, angles, NULL, nframe, nref, r_out);
 }

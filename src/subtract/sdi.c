@@ -6,10 +6,10 @@
  * speckles line up with those of the longest wavelength; in the region
  * between the mask and the outer radius each channel is KLIP-subtracted
  * (Soummer et al. 2012) with the other channels of the same frame as its
- * library and --sdi-modes modes; the residuals are scaled back by
+ * library and --spectral-modes modes; the residuals are scaled back by
  * lambda_c / lambda_max and averaged over channels (NaN ignored). The frames
  * that come out go on to the ADI step (--method), which makes ASDI; with
- * --method none they are only derotated and combined (SDI alone).
+ * --method derotate-only they are only derotated and combined (SDI alone).
  *
  * Assumptions: the star is at (nx/2, ny/2) in every channel; wavelengths are
  * in any one unit. A companion is partly subtracted where its radial shift
@@ -123,7 +123,7 @@ gl_status sub_sdi_frames(const gl_cube *cube, const gl_subtract_params *p, doubl
             for (long k = 0; k < nc; k++)
                 if (k != t)
                     w->lib[nlib++] = k;
-            e = sub_target_weights(w->C, nc, w->lib, nlib, t, &kk, 1, w->eig, w->W);
+            e = sub_target_weights(w->C, nc, npr, w->lib, nlib, t, &kk, 1, w->eig, w->W, NULL);
             float *ch = w->chans + (size_t)t * np;
             /* residual of channel t inside the region; NaN elsewhere */
             for (long j = 0; j < npr && !e; j++) {

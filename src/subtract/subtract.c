@@ -33,8 +33,71 @@ void gl_subtract_result_free(gl_subtract_result *r)
     memset(r, 0, sizeof *r);
 }
 
+static const char *const mean_names[] = {"each-frame", "each-pixel"};
+static const char *const basis_names[] = {"all", "all-but-target", "beyond-gap"};
+
+/* One summary of what the per-target KLIP really used: rings where the
+ * libraries held fewer modes than asked, and frames left NaN for want of
+ * references. Fills the counts of res; writes the text (empty when nothing
+ * was capped) into text. */
+static void report_summary(const sub_report *r, gl_subtract_result *res, char *text, size_t size)
+{
+    size_t len = 0;
+    text[0] = '\0';
+    res->rings_capped = 0;
+    res->frames_without_refs = 0;
+    res->fewest_modes = r->kasked;
+    int listed = 0;
+    for (long k = 0; k < r->nring; k++) {
+        int capped = r->kmin[k] >= 0 && r->kmin[k] < r->kasked;
+        res->rings_capped += capped;
+        res->frames_without_refs += r->noref[k];
+        if (r->kmin[k] >= 0)
+            res->fewest_modes = GL_SUB_MIN(res->fewest_modes, r->kmin[k]);
+        if (!capped && !r->noref[k])
+            continue;
+        if (listed++ >= 12) {
+            if (listed == 14 && len < size)
+                len += (size_t)snprintf(text + len, size - len, "; ...");
+            continue;
+        }
+        if (len < size)
+            len += (size_t)snprintf(text + len, size - len,
+                                    "%sring %ld (%.1f-%.1f px): ", listed > 1 ? "; " : "", k + 1,
+                                    r->r_in[k], r->r_out[k]);
+        if (len < size && r->kmin[k] >= 0)
+            len += (size_t)snprintf(text + len, size - len,
+                                    r->kmin[k] == r->kmax[k] ? "%ld modes" : "%ld-%ld modes",
+                                    r->kmin[k], r->kmax[k]);
+        if (len < size && r->noref[k])
+            len += (size_t)snprintf(text + len, size - len, "%s%ld frame%s without references",
+                                    r->kmin[k] >= 0 ? ", " : "", r->noref[k],
+                                    r->noref[k] > 1 ? "s" : "");
+    }
+}
+
+/* The per-ring record of what the per-target KLIP used, as HISTORY cards. */
+static gl_status record_rings(gl_header *h, const sub_report *r)
+{
+    gl_status st = GL_OK;
+    char text[160];
+    for (long k = 0; !st && k < r->nring; k++) {
+        if (!(r->kmin[k] >= 0 && r->kmin[k] < r->kasked) && !r->noref[k])
+            continue;
+        if (r->kmin[k] >= 0)
+            snprintf(text, sizeof text,
+                     "ring %ld, %.1f-%.1f px: %ld-%ld of %ld modes, %ld frames no refs", k + 1,
+                     r->r_in[k], r->r_out[k], r->kmin[k], r->kmax[k], r->kasked, r->noref[k]);
+        else
+            snprintf(text, sizeof text, "ring %ld, %.1f-%.1f px: no frame has refs (NaN)", k + 1,
+                     r->r_in[k], r->r_out[k]);
+        st = gl_header_add_history(h, text);
+    }
+    return st;
+}
+
 static gl_status record_params(gl_header *h, const gl_subtract_params *p, const sub_ctx *c,
-                               int nplanes, int uses_modes)
+                               int nplanes, int uses_modes, const gl_subtract_result *res)
 {
     gl_status st = GL_OK;
     char key[32], text[160];
@@ -52,18 +115,35 @@ static gl_status record_params(gl_header *h, const gl_subtract_params *p, const 
         SET(gl_header_set_int(h, key, p->modes[i], text));
     }
     SET(gl_header_set_dbl(h, "GLSMASK", c->r_in, "inner mask radius, px"));
+    SET(gl_header_set_bool(h, "GLSMAUTO", p->mask_radius < 0,
+                           "inner radius chosen from the field rotation"));
     SET(gl_header_set_dbl(h, "GLSROUT", c->r_out, "outer radius, px"));
     if (p->method == GL_SUBTRACT_ANNULAR || (p->method == GL_SUBTRACT_MEDIAN && p->median_fit))
-        SET(gl_header_set_dbl(h, "GLSRING", p->ring_fwhm, "annulus width, FWHM"));
-    if (p->method == GL_SUBTRACT_ANNULAR) {
-        SET(gl_header_set_int(h, "GLSSECT", p->sectors, "azimuthal sectors per annulus"));
+        SET(gl_header_set_dbl(h, "GLSRING", p->ring_fwhm, "ring width, FWHM"));
+    if (p->method == GL_SUBTRACT_PCA)
+        SET(gl_header_set_str(h, "GLSBASIS", basis_names[p->basis_frames],
+                              "frames in each frame's basis"));
+    int local = p->method == GL_SUBTRACT_ANNULAR ||
+                (p->method == GL_SUBTRACT_PCA && p->basis_frames != GL_BASIS_ALL);
+    if (p->method == GL_SUBTRACT_ANNULAR)
+        SET(gl_header_set_int(h, "GLSSECT", p->sectors, "azimuthal arcs per ring"));
+    if (p->method == GL_SUBTRACT_ANNULAR ||
+        (p->method == GL_SUBTRACT_PCA && p->basis_frames == GL_BASIS_BEYOND_GAP))
         SET(gl_header_set_dbl(h, "GLSGAP", p->gap_fwhm, "least rotation to a reference, FWHM"));
-        SET(gl_header_set_int(h, "GLSNEAR", p->nearest, "nearest qualifying refs kept (0 all)"));
+    if (local) {
+        SET(gl_header_set_int(h, "GLSNEAR", p->nearest, "closest qualifying refs kept (0 all)"));
+        SET(gl_header_set_int(h, "GLSKCAPR", res->rings_capped,
+                              "rings where fewer modes than asked were used"));
+        SET(gl_header_set_int(h, "GLSKLOW", res->fewest_modes, "fewest modes used in any ring"));
+        SET(gl_header_set_int(h, "GLSNOREF", res->frames_without_refs,
+                              "ring-frame pairs left NaN: no reference"));
+        if (c->report && c->report->nring)
+            SET(record_rings(h, c->report));
     }
     if (p->method == GL_SUBTRACT_MEDIAN)
         SET(gl_header_set_bool(h, "GLSFIT", p->median_fit, "median scaled per annulus"));
     if (uses_modes)
-        SET(gl_header_set_str(h, "GLSCENT", p->centring == GL_CENTRE_FRAME ? "frame" : "temporal",
+        SET(gl_header_set_str(h, "GLSCENT", mean_names[p->centring],
                               "mean removed before the KL basis"));
     SET(gl_header_set_dbl(h, "GLSNORTH", p->north_offset, "north offset, deg"));
     SET(gl_header_set_str(h, "GLSINTRP", gl_interp_name(p->interp), "derotation interpolator"));
@@ -97,6 +177,7 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
     float *sci_owned = NULL, *ref_avg = NULL, *ref_sel = NULL, *work = NULL;
     unsigned char *usable = NULL;
     sub_sink *sink = NULL;
+    sub_report report = {0};
     gl_subtract_result res = {0};
     memset(out, 0, sizeof *out);
 
@@ -115,7 +196,8 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
                             nf);
     for (long i = 0; i < nf; i++)
         if (!isfinite(angles[i]))
-            return gl_error_set(GL_ERR_INPUT, "angle of frame %ld is not finite", i);
+            return gl_error_set(GL_ERR_USAGE, "%s: angle of frame %ld is not finite",
+                                p->angles_name ? p->angles_name : "the angles", i);
     if (refs && (refs->nx != nx || refs->ny != ny))
         return gl_error_set(GL_ERR_INPUT,
                             "reference cube is %ld x %ld px but the science cube is %ld x %ld px",
@@ -125,14 +207,16 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
                             "reference cube has %ld channels but the science cube has %ld",
                             refs->nchan, cube->nchan);
     if (p->sdi == GL_SDI_CHANNELS && cube->nchan < 2)
-        return gl_error_set(GL_ERR_USAGE, "--sdi needs a 4-D cube with several wavelength "
-                                          "channels");
+        return gl_error_set(GL_ERR_USAGE,
+                            "--spectral-step needs a 4-D cube with several wavelength "
+                            "channels");
     if (p->sdi == GL_SDI_CHANNELS && p->nwave != cube->nchan)
-        return gl_error_set(GL_ERR_USAGE, "--sdi needs one wavelength per channel (%ld), got %d",
+        return gl_error_set(GL_ERR_USAGE,
+                            "--spectral-step needs one wavelength per channel (%ld), got %d",
                             cube->nchan, p->nwave);
     if (p->sdi == GL_SDI_CHANNELS && p->sdi_modes >= cube->nchan)
         return gl_error_set(GL_ERR_USAGE,
-                            "--sdi-modes %ld is not below the %ld channels of each frame",
+                            "--spectral-modes %ld is not below the %ld channels of each frame",
                             p->sdi_modes, cube->nchan);
 
     sub_ctx c = {0};
@@ -144,7 +228,7 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
     c.angles = angles;
     double cx = (double)(nx / 2), cy = (double)(ny / 2);
     double rmax = GL_SUB_MIN(GL_SUB_MIN(cx, cy), GL_SUB_MIN((double)nx - cx, (double)ny - cy));
-    c.r_in = p->mask_radius;
+    c.r_in = p->mask_radius >= 0 ? p->mask_radius : 0.0;
     c.r_out = p->outer_radius > 0 ? GL_SUB_MIN(p->outer_radius, rmax) : rmax;
     if (c.r_in >= c.r_out)
         return gl_error_set(GL_ERR_USAGE,
@@ -160,23 +244,40 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
             goto cleanup;
         c.sci = sci_owned;
     }
-    /* usable frames: any finite pixel inside the region */
+    /* usable frames: any finite pixel inside the region; once more when the
+     * inner radius is then chosen from the rotation of the usable frames */
     usable = gl_calloc((size_t)nf, 1);
     if (!usable) {
         st = gl_error_nomem("frame flags");
         goto cleanup;
     }
-    for (long i = 0; i < nf; i++) {
-        const float *f = c.sci + (size_t)i * np;
-        for (long y = 0; y < ny && !usable[i]; y++)
-            for (long x = 0; x < nx; x++) {
-                double r = hypot((double)x - cx, (double)y - cy);
-                if (r >= c.r_in && r < c.r_out && !isnan(f[y * nx + x])) {
-                    usable[i] = 1;
-                    break;
+    long nref_given =
+        refs && p->method != GL_SUBTRACT_NONE
+            ? (p->refs_best > 0 ? GL_SUB_MIN(p->refs_best, refs->nframe) : refs->nframe)
+            : 0;
+    for (int pass = 0; pass < (p->mask_radius < 0 ? 2 : 1); pass++) {
+        if (pass == 1) {
+            c.r_in = sub_inner_radius(p, angles, usable, nf, nref_given, c.r_out);
+            if (c.r_in > 0)
+                gl_log(GL_LOG_INFO,
+                       "inner radius %.1f px (%.2f FWHM): the first ring where every frame has "
+                       "references past --gap %g FWHM (set --mask-radius to choose another)",
+                       c.r_in, c.r_in / p->fwhm, p->gap_fwhm);
+            c.nusable = 0;
+        }
+        for (long i = 0; i < nf; i++) {
+            usable[i] = 0;
+            const float *f = c.sci + (size_t)i * np;
+            for (long y = 0; y < ny && !usable[i]; y++)
+                for (long x = 0; x < nx; x++) {
+                    double r = hypot((double)x - cx, (double)y - cy);
+                    if (r >= c.r_in && r < c.r_out && !isnan(f[y * nx + x])) {
+                        usable[i] = 1;
+                        break;
+                    }
                 }
-            }
-        c.nusable += usable[i];
+            c.nusable += usable[i];
+        }
     }
     c.usable = usable;
     if (c.nusable == 0) {
@@ -226,9 +327,9 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
         double span = hi - lo;
         if (!(span > 1e-6)) {
             st = gl_error_set(GL_ERR_USAGE,
-                              "the parallactic angles do not change (zero field rotation): "
+                              "%s: the parallactic angles do not change (zero field rotation): "
                               "method %s needs field rotation (or --refs for RDI)",
-                              method->name);
+                              p->angles_name ? p->angles_name : "the angles", method->name);
             goto cleanup;
         }
         double rmid = 0.5 * (c.r_in + c.r_out);
@@ -242,7 +343,7 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
     long kmax = 0;
     for (int i = 0; i < p->nmodes; i++)
         kmax = GL_SUB_MAX(kmax, p->modes[i]);
-    if (p->method == GL_SUBTRACT_PCA) {
+    if (p->method == GL_SUBTRACT_PCA && (p->basis_frames == GL_BASIS_ALL || !use_sci)) {
         long nb = (use_sci ? c.nusable : 0) + c.nref;
         long allowed = nb - (p->centring == GL_CENTRE_TEMPORAL ? 1 : 0);
         if (kmax > allowed) {
@@ -275,9 +376,32 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
         goto cleanup;
     c.sink = sub_sink_put;
     c.sink_data = sink;
+    c.report = &report;
     st = method->run(&c);
     if (st)
         goto cleanup;
+    res.inner_radius = c.r_in;
+    res.fewest_modes = kmax;
+    if (report.nring > 0) {
+        long any = 0;
+        for (long k = 0; k < report.nring; k++)
+            any += report.kmin[k] >= 0;
+        if (!any) {
+            st = gl_error_set(GL_ERR_USAGE,
+                              "--gap %g FWHM: no frame has a reference frame in any ring (the "
+                              "sequence turns too little for that gap); lower --gap",
+                              p->gap_fwhm);
+            goto cleanup;
+        }
+        char text[1024];
+        report_summary(&report, &res, text, sizeof text);
+        if (text[0])
+            gl_log(GL_LOG_WARN,
+                   "%s: the libraries held fewer references than asked (%ld modes) in %ld "
+                   "ring%s, and %ld ring-frame pair%s had none (left NaN): %s",
+                   method->name, kmax, res.rings_capped, res.rings_capped == 1 ? "" : "s",
+                   res.frames_without_refs, res.frames_without_refs == 1 ? "" : "s", text);
+    }
 
     /* the product header: the input's cards, the parameters, north-up WCS */
     gl_header_free(res.image->header);
@@ -288,7 +412,7 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
     }
     st = sub_wcs_north_up(res.image->header, nx, ny);
     if (!st)
-        st = record_params(res.image->header, p, &c, nplanes, method->uses_modes);
+        st = record_params(res.image->header, p, &c, nplanes, method->uses_modes, &res);
     for (int k = 0; !st && k < 2; k++) {
         gl_cube *rc = k ? res.raw_residuals : res.residuals;
         if (!rc)
@@ -299,7 +423,7 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
         if (!rc->header)
             st = gl_error_nomem("residual header");
         else if (k)
-            st = record_params(rc->header, p, &c, nplanes, method->uses_modes);
+            st = record_params(rc->header, p, &c, nplanes, method->uses_modes, &res);
     }
     if (st)
         goto cleanup;
@@ -309,6 +433,7 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
     memset(&res, 0, sizeof res);
 cleanup:
     sub_sink_free(sink);
+    sub_report_free(&report);
     gl_subtract_result_free(&res);
     gl_free(sci_owned);
     gl_free(ref_avg);

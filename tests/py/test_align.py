@@ -215,15 +215,16 @@ def test_angles_from_header_cli_with_time_table(tmp_path):
 
 # ---- the command end to end -------------------------------------------------------
 
-@pytest.mark.parametrize("kind,method,tol", [("gauss", "auto", 0.02), ("airy", "register", 0.02),
-                                             ("moffat", "moffat", 0.02),
-                                             ("spots", "auto", 0.1),
-                                             ("spots", "symmetry", 0.1)])
+@pytest.mark.parametrize("kind,method,tol", [("gauss", ["auto"], 0.02),
+                                             ("airy", ["reference"], 0.02),
+                                             ("moffat", ["core", "--profile", "moffat"], 0.02),
+                                             ("spots", ["auto"], 0.1),
+                                             ("spots", ["halo"], 0.1)])
 def test_known_jitter_recovered(tmp_path, kind, method, tol):
     cube, tx, ty = jitter_cube(64, 16, kind, 2.0, 2.5, 5)
     write(tmp_path / "c.fits", cube)
     p = run(tmp_path / "c.fits", "--out", tmp_path / "o.fits", "--table", tmp_path / "t.csv",
-            "--method", method)
+            "--method", *method)
     assert "centring method:" in p.stderr
     t = read_table(tmp_path / "t.csv")
     assert list(t.dtype.names[:5]) == ["frame", "x", "y", "x_err", "y_err"]
@@ -245,7 +246,7 @@ def test_threads_identical(tmp_path):
     cube, _, _ = jitter_cube(48, 8, "airy", 2.0, 1.5, 9)
     write(tmp_path / "c.fits", cube)
     for t in (1, 2):
-        run(tmp_path / "c.fits", "--out", tmp_path / f"o{t}.fits", "--method", "register",
+        run(tmp_path / "c.fits", "--out", tmp_path / f"o{t}.fits", "--method", "reference",
             "--bad-pixels", "5", "--table", tmp_path / f"t{t}.csv", "--threads", t)
     assert np.array_equal(fits.getdata(tmp_path / "o1.fits"), fits.getdata(tmp_path / "o2.fits"),
                           equal_nan=True)
@@ -308,7 +309,7 @@ def test_bad_input(tmp_path):
         spots[f][np.hypot(x - sx[f], y - sy[f]) < 5] = np.nan
     write(tmp_path / "hole.fits", spots)
     check_refused(tmp_path, [tmp_path / "hole.fits", "--out", tmp_path / "o.fits", "--method",
-                             "symmetry", "--crop", "5", "--quiet"], "holds no data")
+                             "halo", "--crop", "5", "--quiet"], "holds no data")
     np.savetxt(tmp_path / "short.txt", np.arange(5.0))
     check_refused(tmp_path, [tmp_path / "star.fits", "--out", tmp_path / "o.fits", "--angles",
                              tmp_path / "short.txt", "--angles-out", tmp_path / "a.txt"],
@@ -328,7 +329,7 @@ def test_bad_input(tmp_path):
 
 @pytest.mark.parametrize("sim_args,method,tol", [
     (["--size", "128", "--spots", "6:1e-2"], "spots", 0.1),      # coronagraph + spots
-    (["--size", "64", "--coronagraph", "none"], "gaussian", 0.02),  # unsaturated star
+    (["--size", "64", "--coronagraph", "none"], "core", 0.02),  # unsaturated star
 ])
 def test_simulated_jitter(tmp_path, sim_args, method, tol):
     d = tmp_path / "sim"
@@ -367,7 +368,7 @@ def test_demo_sequence(tmp_path):
     p = run(os.path.join(src, "cube.fits"), "--out", tmp_path / "a.fits", "--table",
             tmp_path / "t.csv", "--angles", os.path.join(src, "angles.txt"), "--angles-out",
             tmp_path / "a.txt")
-    assert "centring method: symmetry, chosen because" in p.stderr
+    assert "centring method: halo, chosen because" in p.stderr
     f = np.genfromtxt(os.path.join(src, "frames.csv"), delimiter=",", names=True)
     t = read_table(tmp_path / "t.csv")
     rms = np.sqrt(np.mean((t["x"] - f["star_x"]) ** 2 + (t["y"] - f["star_y"]) ** 2) / 2)
@@ -391,7 +392,7 @@ def test_centre_jumps_are_rejected(tmp_path):
         cube[f] = img
     fits.PrimaryHDU(cube).writeto(tmp_path / "c.fits")
     r = subprocess.run([GLOAM, "align", str(tmp_path / "c.fits"), "--out", str(tmp_path / "a.fits"),
-                        "--table", str(tmp_path / "t.csv"), "--method", "gaussian"],
+                        "--table", str(tmp_path / "t.csv"), "--method", "core"],
                        capture_output=True, text=True)
     assert r.returncode == 0, r.stderr
     t = np.genfromtxt(tmp_path / "t.csv", delimiter=",", names=True, dtype=None, encoding=None)
@@ -401,3 +402,63 @@ def test_centre_jumps_are_rejected(tmp_path):
     err = np.hypot(t["x"][k] - 48 - jit[k, 0], t["y"][k] - 48 - jit[k, 1])
     assert np.sqrt(np.mean(err**2)) < 0.02
     assert "centre-jump" not in r.stderr and "frame 6 rejected" in r.stderr
+
+
+# ---- issue 10: auto must not take speckles for satellite spots ----------------------
+
+def test_auto_keeps_the_frames_without_spots(tmp_path):
+    """Regression: on a sequence simulated without spots (Lyot coronagraph, a
+    companion) the automatic choice once took four speckles for satellite
+    spots and kept 19 of 40 frames, exiting 0. Now it must not choose spots,
+    must keep every frame."""
+    d = tmp_path / "sim"
+    subprocess.run([GLOAM, "simulate", d, "--frames", "40", "--coronagraph", "lyot",
+                    "--companion", "25:100:5e-3", "--quiet"], check=True)
+    p = run(d / "cube.fits", "--out", tmp_path / "a.fits", "--table", tmp_path / "t.csv")
+    assert "centring method: spots" not in p.stderr
+    t = np.genfromtxt(tmp_path / "t.csv", delimiter=",", names=True, dtype=None, encoding=None)
+    assert t["kept"].sum() == 40
+    assert fits.getdata(tmp_path / "a.fits").shape[0] == 40
+    # asked for explicitly, spots lose most frames: a clear refusal, no product
+    check_refused(tmp_path, [d / "cube.fits", "--out", tmp_path / "s.fits", "--method", "spots",
+                             "--quiet"], "found the star in only")
+
+
+@pytest.mark.parametrize("old,new", [
+    (["--method", "gaussian"], ["--method", "core", "--profile", "gaussian"]),
+    (["--method", "moffat"], ["--method", "core", "--profile", "moffat"]),
+    (["--method", "register"], ["--method", "reference"]),
+    (["--method", "symmetry"], ["--method", "halo"]),
+    (["--method", "reference", "--upsample", "20"], ["--method", "reference", "--precision", "0.05"]),
+])
+def test_old_spellings_still_work(tmp_path, old, new):
+    """docs/names.md: every old spelling does what the new one does, with one
+    note naming the new spelling."""
+    kind = "spots" if "symmetry" in old else ("moffat" if "moffat" in old else "gauss")
+    cube, _, _ = jitter_cube(48, 6, kind, 1.0, 1.0, 3)
+    write(tmp_path / "c.fits", cube)
+    po = run(tmp_path / "c.fits", "--out", tmp_path / "old.fits", "--table", tmp_path / "old.csv",
+             *old)
+    pn = run(tmp_path / "c.fits", "--out", tmp_path / "new.fits", "--table", tmp_path / "new.csv",
+             *new)
+    assert "is the old spelling of" in po.stderr and "old spelling" not in pn.stderr
+    assert np.array_equal(fits.getdata(tmp_path / "old.fits"), fits.getdata(tmp_path / "new.fits"),
+                          equal_nan=True)
+    assert open(tmp_path / "old.csv").read() == open(tmp_path / "new.csv").read()
+
+
+def test_every_method_losing_most_frames_stops(tmp_path):
+    """Six of ten frames hold no data: each automatic method in turn loses
+    them, is logged and handed over; when none keeps most frames, align stops
+    with one line naming the file and the losses, and writes nothing (issue
+    10: never exit 0 having dropped most of the data)."""
+    cube, _, _ = jitter_cube(48, 10, "gauss", 1.0, 1.0, 3)
+    cube[[1, 2, 4, 6, 7, 9]] = np.nan
+    write(tmp_path / "holes.fits", cube)
+    p = run(tmp_path / "holes.fits", "--out", tmp_path / "o.fits", ok=False)
+    assert p.returncode == 1
+    assert p.stderr.count("trying the next method") == 3, p.stderr
+    last = p.stderr.strip().splitlines()[-1]
+    assert "holes.fits" in last and "no centring method found the star in most frames" in last
+    assert "core lost 6 of 10" in last and "halo lost 6 of 10" in last
+    assert not (tmp_path / "o.fits").exists()

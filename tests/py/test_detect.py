@@ -112,7 +112,7 @@ def test_snr_matches_mawet_ttest_with_photutils(tmp_path, exclude):
     gloam("detect", path, "--fwhm", fwhm, "--out", tmp_path / "d", "--quiet",
           *(["--exclude-adjacent"] if exclude else []))
     with fits.open(tmp_path / "d.snr.fits") as hd:
-        snr, fpf, sig = hd[0].data, hd["FPF"].data, hd["SIGNIF"].data
+        snr, fpf, sig = hd[0].data, hd["FPF"].data, hd["SIGMA"].data
     for x, y in [(40, 52), (45, 40), (25, 50)]:
         t_ref, n2 = mawet_reference(img32, x, y, fwhm, exclude)
         assert snr[y, x] == pytest.approx(t_ref, rel=1e-5, abs=1e-6)
@@ -278,7 +278,7 @@ def test_multi_plane_and_every_plane(tmp_path):
     # the maps keep the celestial part of the WCS (astropy.wcs), and the
     # offsets agree with astropy's
     w_in = WCS(h).celestial
-    for ext in ("SNR", "FPF", "SIGNIF"):
+    for ext in ("SNR", "FPF", "SIGMA"):
         w = WCS(fits.getheader(tmp_path / "d.snr.fits", ext))
         assert w.naxis == 2
         assert w.pixel_to_world(5, 7).separation(w_in.pixel_to_world(5, 7)).arcsec < 1e-9
@@ -299,7 +299,7 @@ def test_same_output_for_any_thread_count(tmp_path):
     path = write(tmp_path / "a.fits", img)
     for t in (1, 2):
         gloam("detect", path, "--fwhm", 3, "--out", tmp_path / f"t{t}", "--threads", t, "--quiet")
-    for ext in ("SNR", "FPF", "SIGNIF"):
+    for ext in ("SNR", "FPF", "SIGMA"):
         a = fits.getdata(tmp_path / "t1.snr.fits", ext)
         b = fits.getdata(tmp_path / "t2.snr.fits", ext)
         assert np.array_equal(a, b, equal_nan=True)

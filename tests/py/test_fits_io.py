@@ -255,3 +255,31 @@ def test_no_temporary_files_after_failure(tmp_path):
     r = roundtrip(src, tmp_path / "missing" / "out.fits")
     assert r.returncode == 1 and "does not exist" in r.stderr
     assert sorted(p.name for p in tmp_path.iterdir()) == ["in", "out"]
+
+
+def test_tables_say_what_was_observed(tmp_path):
+    """A table read on its own names the star, the date and the pixel scale:
+    OBJECT, TELESCOP, DATE-OBS and MJD-OBS as in the science cube (FITS
+    Standard 4.0 keywords, read with astropy), GLPIXSC the pixel scale of the
+    cube's WCS (astropy.wcs proj_plane_pixel_scales, geometric mean, in mas)."""
+    import numpy as np
+    from astropy.wcs import WCS
+    from astropy.wcs.utils import proj_plane_pixel_scales
+    gloam = os.environ["GLOAM"]
+    sim = tmp_path / "sim"
+    run = lambda *a: subprocess.run([gloam, *map(str, a)], capture_output=True, text=True)
+    r = run("simulate", sim, "--frames", 16, "--size", 64, "--seed", 3, "--companion", "12:40:5e-3")
+    assert r.returncode == 0, r.stderr
+    r = run("subtract", sim / "cube.fits", "--angles", sim / "angles.txt", "--fwhm", 4,
+            "--method", "klip-frame", "--modes", 3, "--out", tmp_path / "r.fits")
+    assert r.returncode == 0, r.stderr
+    r = run("detect", tmp_path / "r.fits", "--fwhm", 4, "--threshold", 2, "--out", tmp_path / "d")
+    assert r.returncode == 0, r.stderr
+    cube = fits.getheader(sim / "cube.fits")
+    table = fits.getheader(tmp_path / "d.candidates.fits", "CANDIDATES")
+    for key in ("OBJECT", "TELESCOP", "DATE-OBS"):
+        assert table[key] == cube[key], key
+    assert table["MJD-OBS"] == pytest.approx(cube["MJD-OBS"], abs=1e-9)
+    w = WCS(cube).celestial
+    want = 3.6e6 * np.sqrt(np.prod(proj_plane_pixel_scales(w)))
+    assert table["GLPIXSC"] == pytest.approx(want, rel=1e-9)

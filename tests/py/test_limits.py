@@ -151,9 +151,9 @@ def subtracted(path):
 # ---- 1. the curve on white noise equals the analytic value ------------------
 
 CASES = [
-    ("median", [], []),
-    ("pca", ["--modes", "3,8"], []),
-    ("median", ["--mask-radius", "5"], ["--skip-flanking"]),
+    ("median-frame", [], []),
+    ("klip-frame", ["--modes", "3,8"], []),
+    ("median-frame", ["--mask-radius", "5"], ["--skip-flanking"]),
 ]
 
 
@@ -290,7 +290,7 @@ def test_completeness_columns_match_scipy(tmp_path):
     the c50 and c90 columns recomputed from the fakes table with scipy
     (ncx2 + quad, brentq), and the completeness of the classical contrast."""
     c, a, p = noise_inputs(tmp_path, seed=12)
-    ok("limits", c, "--angles", a, "--psf", p, "--fwhm", FWHM, "--method", "median",
+    ok("limits", c, "--angles", a, "--psf", p, "--fwhm", FWHM, "--method", "median-frame",
        "--threshold", 4, "--completeness", 0.9, "--out", tmp_path / "l", "--quiet")
     t = table(tmp_path / "l.limits.csv")
     fakes = table(tmp_path / "l.fakes.csv")
@@ -334,7 +334,7 @@ def sim(tmp_path_factory):
     return d, fwhm, amp, angles
 
 
-@pytest.mark.parametrize("method,opts", [("median", []), ("pca", ["--modes", "3,8"])])
+@pytest.mark.parametrize("method,opts", [("median-frame", []), ("klip-frame", ["--modes", "3,8"])])
 def test_throughput_matches_numpy_injection(sim, tmp_path, method, opts):
     d, fwhm, amp, angles = sim
     cube = fits.getdata(d / "s" / "cube.fits").astype(float)
@@ -364,7 +364,7 @@ def test_throughput_matches_numpy_injection(sim, tmp_path, method, opts):
             # issue 6: within 10% of the numpy injection-recovery (15% for
             # PCA: the fakes of one run share the KL basis, and the second
             # run's fakes sit at the first run's 50% level, brighter)
-            assert got == pytest.approx(thr, rel=0.15 if method == "pca" else 0.10), checked
+            assert got == pytest.approx(thr, rel=0.15 if method == "klip-frame" else 0.10), checked
     print(method, "fake sep, plane, gloam throughput, numpy injection:", checked)
 
 
@@ -400,7 +400,7 @@ def calibration_trials(tmp_path, span, seed):
     p = tmp_path / "psf.fits"
     write_psf(p)
     cube_path = tmp_path / "cube.fits"
-    common = ["--angles", a, "--fwhm", FWHM, "--method", "median"]
+    common = ["--angles", a, "--fwhm", FWHM, "--method", "median-frame"]
     grid = ["--min-separation", seps[0], "--step", seps[1] - seps[0],
             "--max-separation", seps[-1]]
     noise2, K = [], {0.5: [], 0.95: []}
@@ -470,7 +470,7 @@ def test_false_alarms_at_the_stated_fpf(tmp_path):
     a = write_angles(tmp_path / "angles.txt", angles)
     p = tmp_path / "psf.fits"
     write_psf(p)
-    common = ["--angles", a, "--fwhm", FWHM, "--method", "median"]
+    common = ["--angles", a, "--fwhm", FWHM, "--method", "median-frame"]
     write_cube(tmp_path / "c.fits", rng.normal(0, 1, (CAL_NF, CAL_N, CAL_N)))
     ok("limits", tmp_path / "c.fits", *common, "--psf", p, "--threshold", 2,
        "--min-separation", FWHM, "--step", FWHM, "--out", tmp_path / "l2", "--quiet")
@@ -501,7 +501,7 @@ def test_false_alarms_at_the_stated_fpf(tmp_path):
 def bad_case(tmp, *extra, psf=None, angles=None):
     c, a, p = noise_inputs(tmp, seed=3, n=48, nf=20)
     args = ["limits", c, "--angles", angles or a, "--psf", psf or p, "--fwhm", FWHM,
-            "--method", "median", "--out", tmp / "o", *extra]
+            "--method", "median-frame", "--out", tmp / "o", *extra]
     before = {q.name: hashlib.sha256(q.read_bytes()).hexdigest() for q in tmp.iterdir()}
     r = run(*args)
     after = {q.name: hashlib.sha256(q.read_bytes()).hexdigest() for q in tmp.iterdir()}
@@ -562,7 +562,7 @@ def test_bad_separation_range(tmp_path):
 
 def test_threads_and_products(tmp_path):
     c, a, p = noise_inputs(tmp_path, seed=5, n=48, nf=20)
-    common = ["limits", c, "--angles", a, "--psf", p, "--fwhm", FWHM, "--method", "pca",
+    common = ["limits", c, "--angles", a, "--psf", p, "--fwhm", FWHM, "--method", "klip-frame",
               "--modes", "2,4", "--quiet", "--pixscale", 12.25]
     ok(*common, "--threads", 1, "--out", tmp_path / "t1")
     ok(*common, "--threads", 2, "--out", tmp_path / "t2")
@@ -605,7 +605,7 @@ def test_candidate_contrast_recovers_the_planted_one(tmp_path):
     write_cube(tmp_path / "cube.fits", cube)
     write_angles(tmp_path / "angles.txt", angles)
     write_psf(tmp_path / "psf.fits")
-    common = ["--angles", tmp_path / "angles.txt", "--fwhm", FWHM, "--method", "median"]
+    common = ["--angles", tmp_path / "angles.txt", "--fwhm", FWHM, "--method", "median-frame"]
     ok("subtract", tmp_path / "cube.fits", *common, "--out", tmp_path / "sub.fits")
     ok("detect", tmp_path / "sub.fits", "--fwhm", FWHM, "--out", tmp_path / "det")
     det = table(tmp_path / "det.candidates.csv")
@@ -647,7 +647,7 @@ def test_candidates_table_without_positions_is_refused(tmp_path):
     (tmp_path / "c.csv").write_text("a,b\n1,2\n")
     before = sorted(p.name for p in tmp_path.iterdir())
     r = run("limits", cube, "--angles", angles, "--psf", psf, "--fwhm", FWHM, "--method",
-            "median", "--candidates", tmp_path / "c.csv", "--out", tmp_path / "lim")
+            "median-frame", "--candidates", tmp_path / "c.csv", "--out", tmp_path / "lim")
     assert r.returncode == 1 and "no sep_px and pa_deg columns" in r.stderr
     assert len(r.stderr.strip().splitlines()) == 1
     assert sorted(p.name for p in tmp_path.iterdir()) == before
@@ -659,7 +659,7 @@ def test_skip_flanking_and_its_old_spelling(tmp_path):
     the threshold's dof; --exclude-adjacent is the old spelling: same bytes,
     one note (docs/names.md)."""
     c, a, p = noise_inputs(tmp_path, seed=21, n=48, nf=20)
-    common = ["limits", c, "--angles", a, "--psf", p, "--fwhm", FWHM, "--method", "median"]
+    common = ["limits", c, "--angles", a, "--psf", p, "--fwhm", FWHM, "--method", "median-frame"]
     ok(*common, "--out", tmp_path / "n", "--quiet")
     ok(*common, "--skip-flanking", "--out", tmp_path / "s", "--quiet")
     r = ok(*common, "--exclude-adjacent", "--out", tmp_path / "o")

@@ -123,7 +123,8 @@ def test_pca_residuals_match_numpy(tmp_path, centre, route):
     modes = [3, 7]
     r_in, r_out = 3.0, (24.0 if route != "svd-small-region" else 6.0)
     r = run("subtract", c, "--angles", a, "--fwhm", FWHM, "--out", tmp_path / "o.fits",
-            "--modes", "7,3", "--mask-radius", r_in, "--outer-radius", r_out, "--centre", centre,
+            "--modes", "7,3", "--mask-radius", r_in, "--outer-radius", r_out, "--remove-mean",
+            {"frame": "each-frame", "temporal": "each-pixel"}[centre],
             "--raw-residuals", tmp_path / "raw.fits")
     assert r.returncode == 0, r.stderr
     raw = fits.getdata(tmp_path / "raw.fits").astype(np.float64)  # (frame, mode, y, x)
@@ -192,7 +193,8 @@ def test_rdi_keeps_best_correlated_refs(tmp_path):
 
 
 def annular_numpy(cube, angles, fwhm, r_in, r_out, ring, gap, k, nearest=0):
-    """Plain numpy annular KLIP (the loop an astronomer would write)."""
+    """Plain numpy annular KLIP (the loop an astronomer would write): a
+    library smaller than k uses all its modes, an empty one leaves NaN."""
     nf, n, _ = cube.shape
     out = np.full(cube.shape, np.nan)
     width = ring * fwhm
@@ -209,10 +211,37 @@ def annular_numpy(cube, angles, fwhm, r_in, r_out, ring, gap, k, nearest=0):
             lib = [j for j in range(nf) if j != t and rmid * np.deg2rad(d[j]) >= gap * fwhm]
             if nearest and len(lib) > nearest:
                 lib = sorted(sorted(lib, key=lambda j: (d[j], j))[:nearest])
+            if not lib:
+                continue
             _, _, Z = np.linalg.svd(X[lib], full_matrices=False)
             x = X[t]
             out[t][m] = x - (Z[:k] @ x) @ Z[:k]
     return out
+
+
+def test_klip_rings_small_libraries_match_numpy(tmp_path):
+    """20 deg of rotation and no mask: the inner rings' libraries hold fewer
+    frames than --modes (or none). Each uses what it has, as the numpy loop
+    does; frames without references are NaN; one warning names the rings and
+    the header records them."""
+    n = 40
+    cube, angles, _ = make_sequence(n=n, nf=20, rot=20, sep=9)
+    c, a = write_inputs(tmp_path, cube, angles)
+    r = run("subtract", c, "--angles", a, "--fwhm", FWHM, "--out", tmp_path / "o.fits",
+            "--method", "klip-rings", "--modes", 6, "--mask-radius", 0, "--gap", 0.75,
+            "--raw-residuals", tmp_path / "raw.fits")
+    assert r.returncode == 0, r.stderr
+    warn = [ln for ln in r.stderr.splitlines() if "libraries" in ln]
+    assert len(warn) == 1 and "ring 1 (0.0-4.0 px)" in warn[0] and "left NaN" in warn[0], r.stderr
+    raw = fits.getdata(tmp_path / "raw.fits").astype(np.float64)
+    want = annular_numpy(cube, angles, FWHM, 0, 20, 1, 0.75, 6)
+    m = region_mask(n, 0, 20)
+    assert np.array_equal(np.isnan(raw[:, m]), np.isnan(want[:, m]))
+    ok = ~np.isnan(want[:, m])
+    assert rel_diff(raw[:, m][ok], want[:, m][ok]) < 1e-4
+    h = fits.getheader(tmp_path / "raw.fits")
+    assert h["GLSKCAPR"] >= 1 and h["GLSNOREF"] > 0 and 1 <= h["GLSKLOW"] < 6
+    assert any("ring 1, 0.0-4.0 px: no frame has refs" in str(x) for x in h["HISTORY"])
 
 
 @pytest.mark.parametrize("nearest", [0, 10])
@@ -222,10 +251,10 @@ def test_annular_residuals_match_numpy(tmp_path, nearest):
     cube, angles, _ = make_sequence(n=n, nf=20, rot=70, sep=9)
     c, a = write_inputs(tmp_path, cube, angles)
     args = ["subtract", c, "--angles", a, "--fwhm", FWHM, "--out", tmp_path / "o.fits",
-            "--method", "annular", "--modes", 4, "--mask-radius", 4, "--ring", 1.5, "--gap", 0.75,
+            "--method", "klip-rings", "--modes", 4, "--mask-radius", 4, "--ring", 1.5, "--gap", 0.75,
             "--raw-residuals", tmp_path / "raw.fits"]
     if nearest:
-        args += ["--nearest", nearest]
+        args += ["--keep-closest", nearest]
     r = run(*args)
     assert r.returncode == 0, r.stderr
     raw = fits.getdata(tmp_path / "raw.fits").astype(np.float64)
@@ -247,7 +276,7 @@ def test_derotation_of_analytic_gaussian(tmp_path, interp, tol):
         cube[i] = 100 * gaussian(n, x, y, 1.8)
     c, a = write_inputs(tmp_path, cube, angles)
     r = run("subtract", c, "--angles", a, "--fwhm", FWHM, "--out", tmp_path / "o.fits",
-            "--method", "none", "--combine", "mean", "--north-offset", north, "--interp", interp,
+            "--method", "derotate-only", "--combine", "mean", "--north-offset", north, "--interp", interp,
             "--residuals", tmp_path / "res.fits")
     assert r.returncode == 0, r.stderr
     img = fits.getdata(tmp_path / "o.fits").astype(np.float64)
@@ -290,7 +319,7 @@ def test_north_up_wcs(tmp_path):
     assert up[1] - star_out[1] == pytest.approx(s, rel=1e-6)
     assert (left[0] - star_out[0]) * np.cos(np.deg2rad(-30)) == pytest.approx(s, rel=1e-3)
     h = fits.getheader(tmp_path / "o.fits")
-    assert h["GLSMETH"] == "pca" and h["GLSFWHM"] == FWHM and h["GLSMOD1"] == 2
+    assert h["GLSMETH"] == "klip-frame" and h["GLSFWHM"] == FWHM and h["GLSMOD1"] == 2
 
 
 # ---- planted companions -----------------------------------------------------
@@ -303,16 +332,16 @@ def peak_position(img):
 
 METHODS = [
     ("median", []),
-    ("median-fit", ["--method", "median", "--median-fit"]),
-    ("pca", ["--method", "pca", "--modes", "5"]),
-    ("pca-temporal", ["--method", "pca", "--modes", "5", "--centre", "temporal"]),
-    ("annular", ["--method", "annular", "--modes", "4", "--gap", "0.75"]),
-    ("annular-sectors", ["--method", "annular", "--modes", "3", "--sectors", "4", "--nearest", "12",
+    ("median-fit", ["--method", "median-frame", "--median-fit"]),
+    ("pca", ["--method", "klip-frame", "--modes", "5"]),
+    ("pca-temporal", ["--method", "klip-frame", "--modes", "5", "--remove-mean", "each-pixel"]),
+    ("annular", ["--method", "klip-rings", "--modes", "4", "--gap", "0.75"]),
+    ("annular-sectors", ["--method", "klip-rings", "--modes", "3", "--arcs", "4", "--keep-closest", "12",
                          "--combine", "weighted"]),
-    ("rdi-pca", ["--method", "pca", "--modes", "5", "--refs", "REFS"]),
-    ("rdi-annular-both", ["--method", "annular", "--modes", "5", "--refs", "REFS",
+    ("rdi-pca", ["--method", "klip-frame", "--modes", "5", "--refs", "REFS"]),
+    ("rdi-annular-both", ["--method", "klip-rings", "--modes", "5", "--refs", "REFS",
                           "--refs-use", "both", "--refs-best", "8"]),
-    ("rdi-median", ["--method", "median", "--refs", "REFS", "--combine", "mean"]),
+    ("rdi-median", ["--method", "median-frame", "--refs", "REFS", "--combine", "mean"]),
 ]
 
 
@@ -324,7 +353,7 @@ def test_companion_found_north_up(tmp_path, name, opts):
     refs, _, _ = make_sequence(n=n, nf=16, amp=0.0, seed=9, pattern=pat)
     fits.PrimaryHDU(refs).writeto(tmp_path / "refs.fits")
     if name == "median":
-        opts = ["--method", "median"]
+        opts = ["--method", "median-frame"]
     opts = [str(tmp_path / "refs.fits") if o == "REFS" else o for o in opts]
     r = run("subtract", c, "--angles", a, "--fwhm", FWHM, "--out", tmp_path / "o.fits",
             "--mask-radius", 5, *opts)
@@ -355,10 +384,10 @@ def test_sdi_companion_found(tmp_path):
     fits.PrimaryHDU(cube).writeto(tmp_path / "cube.fits")
     (tmp_path / "a.txt").write_text("\n".join(map(str, angles)))
     wl = ",".join(map(str, waves))
-    for method in ("none", "pca"):
+    for method in ("derotate-only", "klip-frame"):
         out = tmp_path / f"{method}.fits"
         r = run("subtract", tmp_path / "cube.fits", "--angles", tmp_path / "a.txt", "--fwhm", FWHM,
-                "--out", out, "--sdi", "--wavelengths", wl, "--sdi-modes", 1,
+                "--out", out, "--spectral-step", "--wavelengths", wl, "--spectral-modes", 1,
                 "--method", method, "--modes", 2, "--mask-radius", 5)
         assert r.returncode == 0, r.stderr
         img = fits.getdata(out).astype(np.float64)
@@ -372,10 +401,10 @@ def test_sdi_companion_found(tmp_path):
     hdr["CTYPE3"], hdr["CRVAL3"], hdr["CDELT3"], hdr["CRPIX3"] = "WAVE", 1.0e-6, 0.1e-6, 1.0
     fits.PrimaryHDU(cube, hdr).writeto(tmp_path / "cube_w.fits")
     r = run("subtract", tmp_path / "cube_w.fits", "--angles", tmp_path / "a.txt", "--fwhm", FWHM,
-            "--out", tmp_path / "hdr.fits", "--sdi", "--sdi-modes", 1, "--method", "pca",
+            "--out", tmp_path / "hdr.fits", "--spectral-step", "--spectral-modes", 1, "--method", "klip-frame",
             "--modes", 2, "--mask-radius", 5)
     assert r.returncode == 0, r.stderr
-    assert np.allclose(fits.getdata(tmp_path / "hdr.fits"), fits.getdata(tmp_path / "pca.fits"),
+    assert np.allclose(fits.getdata(tmp_path / "hdr.fits"), fits.getdata(tmp_path / "klip-frame.fits"),
                        rtol=1e-5, atol=1e-6, equal_nan=True)
 
 
@@ -410,9 +439,9 @@ def test_rdi_beats_adi_below_one_fwhm(tmp_path):
 
 # ---- threads ----------------------------------------------------------------
 
-@pytest.mark.parametrize("opts", [["--method", "pca", "--modes", "2,6"],
-                                  ["--method", "annular", "--modes", "3", "--sectors", "3"],
-                                  ["--method", "median", "--median-fit", "--combine", "weighted"]])
+@pytest.mark.parametrize("opts", [["--method", "klip-frame", "--modes", "2,6"],
+                                  ["--method", "klip-rings", "--modes", "3", "--arcs", "3"],
+                                  ["--method", "median-frame", "--median-fit", "--combine", "weighted"]])
 def test_threads_identical(tmp_path, opts):
     cube, angles, _ = make_sequence(n=48, nf=18, sep=10)
     c, a = write_inputs(tmp_path, cube, angles)
@@ -430,15 +459,16 @@ def test_threads_identical(tmp_path, opts):
 
 BAD = [
     ("modes", ["--modes", "31"], "--modes"),
-    ("annular-modes", ["--method", "annular", "--modes", "29", "--gap", "0.1"], "--modes"),
-    ("zero-rotation", ["ZERO"], "rotation"),
-    ("gap", ["--method", "annular", "--gap", "40"], "without reference"),
+    ("zero-rotation", ["ZERO"], "zero.txt: the parallactic angles do not change"),
+    ("gap", ["--method", "klip-rings", "--gap", "40"], "--gap"),
     ("refs-size", ["--refs", "SMALL"], "small.fits"),
     ("fwhm-zero", ["--fwhm", "0"], "--fwhm"),
     ("fwhm-negative", ["--fwhm", "-3"], "--fwhm"),
     ("mask", ["--mask-radius", "40"], "--mask-radius"),
     ("method", ["--method", "loci"], "--method"),
-    ("sdi-3d", ["--sdi", "--wavelengths", "1,2"], "--sdi"),
+    ("sdi-3d", ["--spectral-step", "--wavelengths", "1,2"], "--spectral-step"),
+    ("rotation-sense", ["--rotation-sense", "left"], "--rotation-sense"),
+    ("basis-frames", ["--basis-frames", "some"], "--basis-frames"),
 ]
 
 
@@ -491,10 +521,10 @@ def simulated(tmp_path_factory):
     return d, float(truth["x_north_up"]), float(truth["y_north_up"])
 
 
-@pytest.mark.parametrize("opts", [["--method", "median"],
-                                  ["--method", "pca", "--modes", "5"],
-                                  ["--method", "annular", "--modes", "3", "--gap", "0.3"],
-                                  ["--method", "pca", "--modes", "5", "--refs", "REFS"]],
+@pytest.mark.parametrize("opts", [["--method", "median-frame"],
+                                  ["--method", "klip-frame", "--modes", "5"],
+                                  ["--method", "klip-rings", "--modes", "3", "--gap", "0.3"],
+                                  ["--method", "klip-frame", "--modes", "5", "--refs", "REFS"]],
                          ids=["median", "pca", "annular", "rdi"])
 def test_simulated_companion_found(tmp_path, simulated, opts):
     d, x0, y0 = simulated
@@ -510,3 +540,54 @@ def test_simulated_companion_found(tmp_path, simulated, opts):
     img[np.abs(np.hypot(xx - 32, yy - 32) - 14) > 3] = np.nan
     x, y = peak_position(img)
     assert np.hypot(x - x0, y - y0) <= 1.5, (x, y, x0, y0)
+
+
+# ---- the first release's spellings (docs/names.md) ---------------------------
+
+OLD = [
+    ("method-median", ["--method", "median"], ["--method", "median-frame"], "--method median"),
+    ("method-pca", ["--method", "pca"], ["--method", "klip-frame"], "--method pca"),
+    ("method-annular", ["--method", "annular"], ["--method", "klip-rings"], "--method annular"),
+    ("method-none", ["--method", "none"], ["--method", "derotate-only"], "--method none"),
+    ("sectors", ["--method", "klip-rings", "--sectors", "2"],
+     ["--method", "klip-rings", "--arcs", "2"], "--sectors"),
+    ("nearest", ["--method", "klip-rings", "--nearest", "8"],
+     ["--method", "klip-rings", "--keep-closest", "8"], "--nearest"),
+    ("centre-frame", ["--centre", "frame"], ["--remove-mean", "each-frame"], "--centre frame"),
+    ("centre-temporal", ["--centre", "temporal"], ["--remove-mean", "each-pixel"],
+     "--centre temporal"),
+]
+
+
+@pytest.mark.parametrize("name,old,new,word", OLD, ids=[o[0] for o in OLD])
+def test_old_spelling_still_works(tmp_path, name, old, new, word):
+    """Each old spelling gives the same product as the new one, with one note."""
+    cube, angles, _ = make_sequence(n=40, nf=16, sep=9)
+    c, a = write_inputs(tmp_path, cube, angles)
+    common = ["subtract", c, "--angles", a, "--fwhm", FWHM, "--mask-radius", 5]
+    r_old = run(*common, *old, "--out", tmp_path / "old.fits")
+    r_new = run(*common, *new, "--out", tmp_path / "new.fits")
+    assert r_old.returncode == 0 and r_new.returncode == 0, (r_old.stderr, r_new.stderr)
+    notes = [ln for ln in r_old.stderr.splitlines() if "note:" in ln]
+    assert len(notes) == 1 and word in notes[0] and "old spelling" in notes[0], r_old.stderr
+    assert "note:" not in r_new.stderr
+    assert np.array_equal(fits.getdata(tmp_path / "old.fits"), fits.getdata(tmp_path / "new.fits"),
+                          equal_nan=True)
+
+
+def test_old_spectral_spellings_still_work(tmp_path):
+    """--sdi and --sdi-modes: same product as --spectral-step --spectral-modes."""
+    n, nf = 32, 6
+    rng = np.random.default_rng(8)
+    cube = rng.standard_normal((nf, 3, n, n)).astype(np.float32) + 5 * gaussian(n, n // 2, n // 2)
+    fits.PrimaryHDU(cube).writeto(tmp_path / "c.fits")
+    (tmp_path / "a.txt").write_text("\n".join(map(str, np.linspace(-30, 30, nf))))
+    common = ["subtract", tmp_path / "c.fits", "--angles", tmp_path / "a.txt", "--fwhm", FWHM,
+              "--wavelengths", "1,1.1,1.2", "--mask-radius", 3, "--method", "derotate-only"]
+    r_old = run(*common, "--sdi", "--sdi-modes", 1, "--out", tmp_path / "old.fits")
+    r_new = run(*common, "--spectral-step", "--spectral-modes", 1, "--out", tmp_path / "new.fits")
+    assert r_old.returncode == 0 and r_new.returncode == 0, (r_old.stderr, r_new.stderr)
+    notes = [ln for ln in r_old.stderr.splitlines() if "note:" in ln]
+    assert len(notes) == 2 and "--sdi is" in notes[0] and "--sdi-modes is" in notes[1], r_old.stderr
+    assert np.array_equal(fits.getdata(tmp_path / "old.fits"), fits.getdata(tmp_path / "new.fits"),
+                          equal_nan=True)

