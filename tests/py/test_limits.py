@@ -258,7 +258,7 @@ def p_lobes(delta, lam, tau, nu):
             return stats.nct.sf(tau, nu, delta)
         m, sd = nu + lam, np.sqrt(2 * (nu + 2 * lam))
         f = lambda v: stats.norm.sf(tau * np.sqrt(v / nu) - delta) * stats.ncx2.pdf(v, nu, lam)
-        return sum(integrate.quad(f, lo, hi, epsabs=1e-13, epsrel=1e-10, limit=200)[0]
+        return sum(integrate.quad(f, lo, hi, epsabs=1e-12, epsrel=1e-9, limit=100)[0]
                    for lo, hi in ((max(0.0, m - 30 * sd), m), (m, m + 40 * sd + 200)))
 
 
@@ -281,7 +281,7 @@ def model_contrast(row, i, fakes, k, F, q):
     hi = tau / a.max()
     while mean_p(hi) < q:
         hi *= 2
-    xq = optimize.brentq(lambda xx: mean_p(xx) - q, 0, hi, xtol=1e-10, rtol=1e-9)
+    xq = optimize.brentq(lambda xx: mean_p(xx) - q, 0, hi, xtol=1e-9, rtol=1e-8)
     return xq * row["noise"][i] / F, mean_p
 
 
@@ -298,7 +298,7 @@ def test_completeness_columns_match_scipy(tmp_path):
     F = fits.getheader(tmp_path / "l.limits.fits", 1)["GLPSFAP"]
     good = np.flatnonzero(np.isfinite(t["contrast_c90"]))
     assert good.size >= 10
-    for i in good[[0, good.size // 2, -1]]:  # three separations: quad is slow
+    for i in good[[0, -1]]:  # two separations, inner and outer: quad is slow
         tau, dof = t["t_threshold"][i], t["dof"][i]
         assert tau == pytest.approx(stats.t.isf(stats.norm.sf(4), dof), rel=1e-7)
         for q, col, mag in ((0.5, "contrast_c50", "delta_mag_c50"),
