@@ -120,7 +120,7 @@ static double solve(const window *w, double q)
         if (gsl_root_fsolver_iterate(s) != GSL_SUCCESS)
             break;
         double a = gsl_root_fsolver_x_lower(s), b = gsl_root_fsolver_x_upper(s);
-        if (gsl_root_test_interval(a, b, 0, 1e-7) == GSL_SUCCESS) {
+        if (gsl_root_test_interval(a, b, 0, 1e-6) == GSL_SUCCESS) {
             x = gsl_root_fsolver_root(s);
             break;
         }

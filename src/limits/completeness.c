@@ -123,7 +123,7 @@ double gl_limits_completeness_lobes(double delta, double lambda, double tau, dou
     double m = nu + lambda, sd = sqrt(2 * (nu + 2 * lambda));
     double pts[3] = {GL_MAX(0.0, m - 30 * sd), m, m + 40 * sd + 200};
     double result = NAN, err = 0;
-    if (gsl_integration_qagp(&f, pts, 3, 1e-13, 1e-10, 256, w, &result, &err) != GSL_SUCCESS &&
+    if (gsl_integration_qagp(&f, pts, 3, 1e-12, 1e-8, 256, w, &result, &err) != GSL_SUCCESS &&
         !(err < 1e-7))
         result = NAN;
     gsl_integration_workspace_free(w);
