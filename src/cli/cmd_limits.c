@@ -525,12 +525,17 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
     }
     if ((st = gl_outset_commit(outs)))
         goto cleanup;
-    for (long i = 0; i<res.n; i += res.n> 8 ? res.n / 8 : 1)
-        gl_log(GL_LOG_INFO,
-               "  %6.1f px: throughput %.2f, contrast %.3g (%.1f mag) at %g sigma and 50%% "
-               "completeness",
-               res.sep_px[i], res.throughput[i], res.contrast_c50[i],
-               -2.5 * log10(res.contrast_c50[i]), lp.sigma);
+    for (long i = 0; i<res.n; i += res.n> 8 ? res.n / 8 : 1) {
+        if (isfinite(res.contrast_c50[i]))
+            gl_log(GL_LOG_INFO,
+                   "  %6.1f px: throughput %.2f, contrast %.3g (%.1f mag) at %g sigma and 50%% "
+                   "completeness",
+                   res.sep_px[i], res.throughput[i], res.contrast_c50[i],
+                   -2.5 * log10(res.contrast_c50[i]), lp.sigma);
+        else
+            gl_log(GL_LOG_INFO, "  %6.1f px: throughput %.2f, no contrast reaches 50%% at %g sigma",
+                   res.sep_px[i], res.throughput[i], lp.sigma);
+    }
     gl_log(GL_LOG_INFO, "wrote %s (.fits, .png, .svg) and %s", p_csv, p_fakes);
 
 cleanup:

@@ -461,23 +461,37 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
         r.contrast_cq[j] = pt.contrast_cq;
     }
     gl_progress("limits", 1 + lp->fake_runs, 1 + lp->fake_runs);
-    long usable = 0, low = 0;
+    long usable = 0, low = 0, capped = 0, capped95 = 0;
     for (long i = 0; i < n; i++) {
-        usable += isfinite(r.contrast_c50[i]);
-        low += isfinite(r.noise[i]) && !(r.throughput[i] > 0.01);
+        int thr = isfinite(r.noise[i]) && r.throughput[i] > 0.01;
+        usable += thr;
+        low += isfinite(r.noise[i]) && !thr;
+        capped += thr && isfinite(r.t_threshold[i]) && !isfinite(r.contrast_c50[i]);
+        capped95 += thr && isfinite(r.t_threshold[i]) && !isfinite(r.contrast_cq[i]);
     }
     if (usable == 0) {
+        char level[48];
+        if (lp->fake_level > 0)
+            snprintf(level, sizeof level, "%g x the local noise", lp->fake_level);
+        else
+            snprintf(level, sizeof level, "near the 50%% level");
         st = gl_error_set(GL_ERR_USAGE,
                           "no separation kept a measurable throughput (above 1%%): the fakes "
-                          "(%g x the local noise) were removed by the subtraction; lower "
-                          "--fake-level or use fewer modes",
-                          lp->fake_level);
+                          "(%s) were removed by the subtraction; lower --fake-level or use fewer "
+                          "modes",
+                          level);
         goto cleanup;
     }
     if (low > 0)
         gl_log(GL_LOG_WARN,
                "%ld of %ld separations have a throughput below 1%% and no contrast (plane 1)", low,
                n);
+    if (capped > 0 || capped95 > 0)
+        gl_log(GL_LOG_WARN,
+               "%ld of %ld separations have no 50%% contrast and %ld no %g%% contrast (plane 1): "
+               "a companion's own self-subtraction lobes cap its S/N below the threshold there, "
+               "however bright (more field rotation, --skip-flanking or a lower --threshold help)",
+               capped, n, capped95, 100 * lp->completeness);
     r.image = base.image;
     r.fwhm = fwhm;
     base.image = NULL;
