@@ -434,6 +434,19 @@ static void test_inner_radius(void)
     CHECK(gl_subtract_inner_radius(&p, ang, n, 4, 128, 128) == 0, "RDI alone starts at 0");
 }
 
+/* Method names: the new ones both ways, the first release's found too. */
+static void test_names(void)
+{
+    const char *now[] = {"median-frame", "klip-frame", "klip-rings", "derotate-only"};
+    const char *old[] = {"median", "pca", "annular", "none"};
+    for (int i = 0; i < 4; i++) {
+        CHECK(gl_subtract_method_from_name(now[i]) == i, "%s", now[i]);
+        CHECK(gl_subtract_method_from_name(old[i]) == i, "old name %s", old[i]);
+        CHECK(strcmp(gl_subtract_method_name((gl_subtract_method)i), now[i]) == 0, "name %d", i);
+    }
+    CHECK(gl_subtract_method_from_name("loci") == -1, "unknown name");
+}
+
 int main(void)
 {
     openblas_set_num_threads(1);
@@ -446,5 +459,6 @@ int main(void)
     test_threads();
     test_errors();
     test_inner_radius();
+    test_names();
     CHECK_DONE();
 }

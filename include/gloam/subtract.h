@@ -171,7 +171,9 @@ GL_API double gl_subtract_inner_radius(const gl_subtract_params *p, const double
  * message naming the parameter. */
 GL_API gl_status gl_subtract_params_check(const gl_subtract_params *p);
 
-/* Name tables: return -1 for an unknown name. */
+/* Name tables: return -1 for an unknown name. gl_subtract_method_from_name
+ * also knows the first release's names (median, pca, annular, none), which
+ * older products carry in GLSMETH; gl_subtract_method_name gives the new ones. */
 GL_API int gl_subtract_method_from_name(const char *name);
 GL_API const char *gl_subtract_method_name(gl_subtract_method m);
 GL_API int gl_combine_from_name(const char *name);

@@ -406,7 +406,7 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
         lp.avoid_pa_deg = cand_pa;
     }
 
-    setup.p.angles_name = angles_path;
+    setup.p.angles_name = cli->angles_source;
     gl_obsinfo info;
     gl_obsinfo_from_header(cube->header, &info);
     if (!(pixscale > 0) && info.pixscale_mas > 0)

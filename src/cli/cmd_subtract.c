@@ -92,7 +92,7 @@ int cmd_subtract(gl_cli *cli, int argc, char **argv)
         goto cleanup;
     if ((st = cli_subtract_prepare(cli, &setup, cube_path, cube, &refs)))
         goto cleanup;
-    pp->angles_name = angles_path;
+    pp->angles_name = cli->angles_source;
     pp->keep_residuals = resid_path != NULL;
     pp->keep_raw_residuals = raw_path != NULL;
 

@@ -135,8 +135,8 @@ int cli_subtract_option(gl_cli *cli, int code, const char *optarg, cli_subtract_
         s->have_fwhm = 1;
         return 1;
     case CLI_OPT_METHOD: {
-        int m = gl_subtract_method_from_name(optarg);
-        for (int i = 0; m < 0 && i < 4; i++)
+        int m = -1;
+        for (int i = 0; i < 4; i++)
             if (strcmp(optarg, old_methods[i][0]) == 0) {
                 char old[64], now[64];
                 snprintf(old, sizeof old, "--method %s", old_methods[i][0]);
@@ -144,6 +144,8 @@ int cli_subtract_option(gl_cli *cli, int code, const char *optarg, cli_subtract_
                 cli_deprecated(cli, old, now);
                 m = gl_subtract_method_from_name(old_methods[i][1]);
             }
+        if (m < 0)
+            m = gl_subtract_method_from_name(optarg);
         if (m < 0) {
             cli_usage(cli,
                       "--method: '%s' is not median-frame, klip-frame, klip-rings or "

@@ -130,7 +130,7 @@ typedef struct sub_basis {
 
 /* Builds the basis from X (nrow x ncol, centred, no NaN): eigendecomposition
  * of X X^T (LAPACKE_dsyevr, top kmax pairs) when nrow <= ncol, else an SVD of
- * X (LAPACKE_sgesdd). GL_ERR_USAGE when kmax > nrow; GL_ERR_NUMERIC when the
+ * X (LAPACKE_dgesdd, on a double copy). GL_ERR_USAGE when kmax > nrow; GL_ERR_NUMERIC when the
  * solver fails. */
 gl_status sub_basis_build(const float *X, long nrow, long ncol, long kmax, sub_basis *b);
 void sub_basis_free(sub_basis *b);

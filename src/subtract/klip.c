@@ -7,7 +7,7 @@
  * Workload: a few hundred frames of tens of thousands of pixels. The
  * covariance X X^T comes from ssyrk/sgemm tiles; the basis from the
  * eigendecomposition of X X^T (dsyevr, only the leading pairs) when there are
- * fewer frames than pixels, else from an SVD of X (sgesdd). Every BLAS call
+ * fewer frames than pixels, else from an SVD of X (dgesdd). Every BLAS call
  * covers one tile of fixed size, and each tile is computed by one thread, so
  * results are bit-identical whatever the number of threads.
  */
@@ -247,20 +247,26 @@ cleanup:
     return st;
 }
 
+/* More frames than pixels: an SVD of X itself, in double precision (the
+ * matrix is small in this case, at most a few thousand pixels), for the same
+ * reason as basis_rows_double: a float32 SVD leaves trailing singular vectors
+ * of a bright sequence with a part of the leading one of order
+ * 1e-7 sigma_1 / sigma_q. */
 static gl_status basis_from_svd(const float *X, long nrow, long ncol, long kmax, sub_basis *b)
 {
     gl_status st = GL_OK;
     long mn = GL_SUB_MIN(nrow, ncol);
-    float *A = gl_malloc(sizeof(float) * (size_t)nrow * (size_t)ncol);
-    float *U = gl_malloc(sizeof(float) * (size_t)nrow * (size_t)mn);
-    float *VT = gl_malloc(sizeof(float) * (size_t)mn * (size_t)ncol);
-    float *s = gl_malloc(sizeof(float) * (size_t)mn);
+    double *A = gl_malloc(sizeof(double) * (size_t)nrow * (size_t)ncol);
+    double *U = gl_malloc(sizeof(double) * (size_t)nrow * (size_t)mn);
+    double *VT = gl_malloc(sizeof(double) * (size_t)mn * (size_t)ncol);
+    double *s = gl_malloc(sizeof(double) * (size_t)mn);
     if (!A || !U || !VT || !s) {
         st = gl_error_nomem("KL basis (SVD)");
         goto cleanup;
     }
-    memcpy(A, X, sizeof(float) * (size_t)nrow * (size_t)ncol);
-    lapack_int info = LAPACKE_sgesdd(LAPACK_ROW_MAJOR, 'S', (lapack_int)nrow, (lapack_int)ncol, A,
+    for (size_t i = 0; i < (size_t)nrow * (size_t)ncol; i++)
+        A[i] = X[i];
+    lapack_int info = LAPACKE_dgesdd(LAPACK_ROW_MAJOR, 'S', (lapack_int)nrow, (lapack_int)ncol, A,
                                      (lapack_int)ncol, s, U, (lapack_int)mn, VT, (lapack_int)ncol);
     if (info != 0) {
         st = gl_error_set(GL_ERR_NUMERIC,
@@ -268,17 +274,17 @@ static gl_status basis_from_svd(const float *X, long nrow, long ncol, long kmax,
                           ncol, (int)info);
         goto cleanup;
     }
-    double lzero = eig_zero_level((double)s[0] * s[0], nrow, ncol);
+    double lzero = eig_zero_level(s[0] * s[0], nrow, ncol);
     b->rank = 0;
     for (long q = 0; q < kmax; q++) {
-        double lam = q < mn ? (double)s[q] * s[q] : 0.0;
+        double lam = q < mn ? s[q] * s[q] : 0.0;
         b->eigval[q] = lam;
         int keep = q < mn && lam > lzero && lam > 0;
         if (keep)
             b->rank++;
         for (long j = 0; j < ncol; j++)
             b->Z[(size_t)q * (size_t)ncol + (size_t)j] =
-                keep ? VT[(size_t)q * (size_t)ncol + (size_t)j] : 0.0f;
+                keep ? (float)VT[(size_t)q * (size_t)ncol + (size_t)j] : 0.0f;
     }
 cleanup:
     gl_free(A);

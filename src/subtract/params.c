@@ -76,10 +76,14 @@ static const char *const method_names[] = {"median-frame", "klip-frame", "klip-r
                                            "derotate-only"};
 static const char *const combine_names[] = {"median", "mean", "weighted"};
 
+/* The first release's names, still found (products of that release carry
+ * them in GLSMETH); the command line notes them as deprecated. */
+static const char *const old_method_names[] = {"median", "pca", "annular", "none"};
+
 int gl_subtract_method_from_name(const char *name)
 {
     for (int i = 0; i < 4; i++)
-        if (name && strcmp(name, method_names[i]) == 0)
+        if (name && (strcmp(name, method_names[i]) == 0 || strcmp(name, old_method_names[i]) == 0))
             return i;
     return -1;
 }

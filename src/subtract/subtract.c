@@ -116,7 +116,7 @@ static gl_status record_params(gl_header *h, const gl_subtract_params *p, const 
     }
     SET(gl_header_set_dbl(h, "GLSMASK", c->r_in, "inner mask radius, px"));
     SET(gl_header_set_bool(h, "GLSMAUTO", p->mask_radius < 0,
-                           "inner radius chosen from the field rotation"));
+                           "inner radius from the auto rule (not given)"));
     SET(gl_header_set_dbl(h, "GLSROUT", c->r_out, "outer radius, px"));
     if (p->method == GL_SUBTRACT_ANNULAR || (p->method == GL_SUBTRACT_MEDIAN && p->median_fit))
         SET(gl_header_set_dbl(h, "GLSRING", p->ring_fwhm, "ring width, FWHM"));

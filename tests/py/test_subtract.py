@@ -441,7 +441,10 @@ def test_rdi_beats_adi_below_one_fwhm(tmp_path):
 
 @pytest.mark.parametrize("opts", [["--method", "klip-frame", "--modes", "2,6"],
                                   ["--method", "klip-rings", "--modes", "3", "--arcs", "3"],
-                                  ["--method", "median-frame", "--median-fit", "--combine", "weighted"]])
+                                  ["--method", "median-frame", "--median-fit", "--combine", "weighted"],
+                                  ["--method", "klip-frame", "--basis-frames", "all-but-target",
+                                   "--modes", "2,4"],
+                                  ["--method", "klip-rings", "--modes", "8", "--gap", "1.5"]])
 def test_threads_identical(tmp_path, opts):
     cube, angles, _ = make_sequence(n=48, nf=18, sep=10)
     c, a = write_inputs(tmp_path, cube, angles)

@@ -159,9 +159,15 @@ def test_products(recovered):
        f"{d}/s.fits", "--quiet")
     ok("detect", f"{d}/s.fits", "--fwhm", FWHM, "--mask-radius", 3, "--out", f"{d}/d",
        "--quiet")
+    # align's star table: per-frame errors of 0.3 px average to 0.3 / 4 over 16 frames
+    with open(f"{d}/starpos.csv", "w") as f:
+        f.write("frame,x,y,x_err,y_err\n")
+        for k in range(16):
+            f.write(f"{k},24,24,0.3,0.3\n")
     ok("vet", f"{d}/cube.fits", "--angles", f"{d}/angles.txt", "--psf", f"{d}/psf.fits", *SUB,
-       "--candidates", f"{d}/d.candidates.fits", "--error-fakes", 2,
-       "--pixscale", 12, "--quiet", "--threads", 1, "--out", f"{d}/p")
+       "--candidates", f"{d}/d.candidates.fits", "--error-fakes", 2, "--star-table",
+       f"{d}/starpos.csv", "--north-error", 0.2, "--pixscale", 12, "--pixscale-error", 0.05,
+       "--quiet", "--threads", 1, "--out", f"{d}/p")
     rows = read_csv(f"{d}/p.vet.csv")
     assert len(rows) >= 1
     r = rows[0]
@@ -172,6 +178,13 @@ def test_products(recovered):
     assert min(abs(r["sep_px"] - 9), abs(r["sep_px"] - 15)) < 0.5
     np.testing.assert_allclose(r["dra_mas"], r["sep_px"] * 12 * np.sin(np.radians(r["pa_deg"])))
     np.testing.assert_allclose(r["dmag"], -2.5 * np.log10(r["contrast"]))
+    # the error budget: quadrature sums (docs/vet.md)
+    c = 0.3 / 4
+    np.testing.assert_allclose(r["sep_err"], np.hypot(r["sep_err_fit"], c))
+    np.testing.assert_allclose(
+        r["pa_err"], np.sqrt(r["pa_err_fit"]**2 + np.degrees(c / r["sep_px"])**2 + 0.2**2))
+    np.testing.assert_allclose(r["sep_err_mas"], np.hypot(r["sep_err"] * 12, r["sep_px"] * 0.05))
+    np.testing.assert_allclose(r["dmag_err"], 2.5 / np.log(10) * r["contrast_err"] / r["contrast"])
     with fits.open(f"{d}/p.vet.fits") as h:
         t = h["VET"]
         assert t.columns["sep_px"].unit == "pix" and t.columns["dra_mas"].unit == "mas"
@@ -280,3 +293,33 @@ def test_bad_candidates(empty, tmp_path, name, text, what):
     assert len(lines) == 1 and cand in lines[0] and what in lines[0], r.stderr
     assert (sorted(os.listdir(d)), sorted(os.listdir(tmp_path))) == before
     assert not glob.glob(f"{tmp_path}/bad.*")
+
+
+def test_spectral_radial_motion(tmp_path):
+    """4-D cube (4 channels): a companion keeps its separation across the
+    band and passes; a source whose separation grows in proportion to the
+    wavelength (as a speckle's does, Sparks & Ford 2002, ApJ 578, 543), made
+    here by planting it channel by channel at sep x lambda / mean, fails."""
+    d = str(tmp_path)
+    waves = [1.5, 1.6, 1.7, 1.8]
+    ok("simulate", d, "--seed", 5, "--quiet", *SIM, "--wavelengths", ",".join(map(str, waves)),
+       "--companion", "15:230:1e-3")
+    r = vet(d, [(15.5, 228.5)], fakes=2)[0]
+    assert r["spectral_pass"] == 1 and abs(r["spectral_value"]) < 1.5, r
+    # the speckle-like source, on a companion-free 4-D sequence
+    e = f"{d}/e"
+    ok("simulate", e, "--seed", 6, "--quiet", *SIM, "--wavelengths", ",".join(map(str, waves)))
+    with fits.open(f"{e}/cube.fits") as h:
+        hdr, cube = h[0].header, h[0].data.astype(np.float32)  # (frame, chan, y, x)
+    psf = fits.getdata(f"{e}/psf.fits").astype(np.float32)
+    for c, w in enumerate(waves):
+        fits.PrimaryHDU(cube[:, c]).writeto(f"{e}/c{c}.fits", overwrite=True)
+        fits.PrimaryHDU(psf[c] if psf.ndim == 3 else psf).writeto(f"{e}/p{c}.fits",
+                                                                   overwrite=True)
+        sep = 15 * w / np.mean(waves)
+        ok("inject", f"{e}/c{c}.fits", "--angles", f"{e}/angles.txt", "--psf", f"{e}/p{c}.fits",
+           "--companion", f"{sep}:230:1e-3", "--out", f"{e}/i{c}.fits", "--quiet")
+        cube[:, c] = fits.getdata(f"{e}/i{c}.fits")
+    fits.PrimaryHDU(cube, header=hdr).writeto(f"{e}/cube.fits", overwrite=True)
+    r = vet(e, [(15.5, 228.5)], fakes=2)[0]
+    assert r["spectral_pass"] == 0 and r["spectral_value"] > 7, r
