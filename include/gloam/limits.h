@@ -23,30 +23,47 @@ GL_API double gl_limits_completeness(double delta, double tau, double nu);
  * Errors: GL_ERR_USAGE (q or nu out of range), GL_ERR_NUMERIC. */
 GL_API gl_status gl_limits_delta_for_completeness(double q, double tau, double nu, double *delta);
 
+/* Completeness when the companion also changes the reference apertures: T
+ * doubly noncentral t, nu degrees of freedom, numerator noncentrality delta
+ * and denominator noncentrality lambda = sum over the references of
+ * (g_k - mean g)^2 / sigma^2 (g_k the companion's noise-free response in
+ * reference k). Equals gl_limits_completeness for lambda = 0. NaN for
+ * invalid input. */
+GL_API double gl_limits_completeness_lobes(double delta, double lambda, double tau, double nu);
+
 /* ---- contrast curves ---------------------------------------------------- */
 
 typedef struct gl_limits_params {
-    double sigma;         /* threshold in Gaussian sigma, as an FPF (default 5) */
-    double completeness;  /* second curve's completeness (default 0.95) */
-    double step_px;       /* separation step of the curve; 0: FWHM / 2 */
-    double r_min_px;      /* first separation; 0: max(FWHM, mask + FWHM / 2) */
-    double r_max_px;      /* last separation; 0: as far as apertures fit */
-    int fake_runs;        /* runs with fake companions, each one subtraction (default 2) */
-    double fake_level;    /* fake flux in units of the local aperture noise (default 10) */
-    double pa0_deg;       /* position angle of the first fake (default 0) */
-    int exclude_adjacent; /* leave out the two apertures next to the test one */
-    int navoid;           /* known sources the fakes keep 2 FWHM away from */
+    double sigma;        /* threshold in Gaussian sigma, as an FPF (default 5) */
+    double completeness; /* second curve's completeness (default 0.95) */
+    double step_px;      /* separation step of the curve; 0: FWHM / 2 */
+    double r_min_px;     /* first separation; 0: max(FWHM, mask + FWHM / 2) */
+    double r_max_px;     /* last separation; 0: as far as apertures fit */
+    int fake_runs;       /* runs with fake companions, each one subtraction (default 2) */
+    double fake_level;   /* fake flux in units of the local aperture noise; 0 (default):
+                            the flux reaching 50% completeness at throughput 1, at least 10 */
+    double pa0_deg;      /* position angle of the first fake (default 0) */
+    int skip_flanking;   /* leave the two apertures flanking the test one out of the references */
+    int navoid;          /* known sources: left out of the noise (apertures closer than
+                            1 FWHM), and the fakes keep 2 FWHM away from them */
     const double *avoid_sep_px, *avoid_pa_deg; /* navoid each, not owned */
 } gl_limits_params;
 
 /* Fills p with the defaults listed above. */
 GL_API void gl_limits_params_init(gl_limits_params *p);
 
-/* One planted fake and what survived of it in each output plane. */
+/* One planted fake and what survived of it in each output plane. All from
+ * the difference image (with fakes - without) on the ring of the detection
+ * test at the fake (test aperture on the fake), per unit contrast and in
+ * units of F, except snr. */
 typedef struct gl_limits_fake {
     double sep_px, pa_deg, contrast;
     int run;
-    double throughput[GL_SUBTRACT_MAX_MODES];
+    int nref;                                 /* references of its t test */
+    double throughput[GL_SUBTRACT_MAX_MODES]; /* test-aperture sum / (contrast F) */
+    double signal[GL_SUBTRACT_MAX_MODES];     /* (test - mean of the references) / (contrast F) */
+    double ref_spread[GL_SUBTRACT_MAX_MODES]; /* sqrt(sum (ref - mean)^2) / (contrast F) */
+    double snr[GL_SUBTRACT_MAX_MODES];        /* the detection t at the fake, image with fakes */
 } gl_limits_fake;
 
 /* The curves, one set per output plane of the subtraction (one per mode
@@ -59,11 +76,13 @@ typedef struct gl_limits_result {
     double *napertures, *dof;         /* per plane */
     double *noise, *mean;             /* std and mean of the aperture sums, per plane */
     double *t_threshold;              /* t for the FPF at dof, per plane */
-    double *throughput;               /* interpolated from the fakes, per plane */
+    double *throughput;               /* local linear fit of the fakes' throughput, per plane */
+    double *throughput_scatter;       /* std of the fakes' throughput about that fit */
+    double *fakes_used;               /* fakes within 1.5 FWHM that calibrate the point */
     double *contrast;                 /* t sigma sqrt(1+1/n2) / (throughput F), per plane */
-    double *completeness_of_contrast; /* completeness reached by `contrast` */
-    double *contrast_c50;             /* 50% completeness at the FPF (exact) */
-    double *contrast_cq;              /* params.completeness at the FPF */
+    double *completeness_of_contrast; /* completeness reached by `contrast` (fake model) */
+    double *contrast_c50;             /* 50% completeness at the FPF (fake model) */
+    double *contrast_cq;              /* params.completeness at the FPF (fake model) */
     double psf_aperture_flux;         /* F: aperture sum of the scaled PSF */
     double fpf;                       /* the FPF of params.sigma */
     int nfakes;
@@ -77,12 +96,14 @@ typedef struct gl_limits_result {
  *        parameters (run exactly as given), the PSF model (star flux) and
  *        the limits parameters.
  * Method: one subtraction of the cube; noise from the non-overlapping 1-FWHM
- *        apertures of each separation; the threshold and completeness from
- *        the two-sample t-test (Mawet et al. 2014; Jensen-Clem et al. 2018);
- *        throughput from fakes planted in `fake_runs` runs of the same
- *        subtraction, measured as (with fakes - without) aperture sums and
- *        interpolated linearly in separation (held at the end values beyond
- *        the outermost fakes).
+ *        apertures of each separation (those near known sources left out);
+ *        the threshold from the two-sample t-test (Mawet et al. 2014); fakes
+ *        planted in `fake_runs` runs of the same subtraction, each measured
+ *        on the difference image over the whole ring of its detection test;
+ *        the completeness at each separation is the average, over the fakes
+ *        within 1.5 FWHM, of the doubly noncentral t probability with their
+ *        measured signal and reference spread (Jensen-Clem et al. 2018 with
+ *        the fakes' lobes; docs/limits.md).
  * Errors: GL_ERR_USAGE (parameters, separations beyond the frame),
  *        GL_ERR_INPUT, GL_ERR_NOMEM, and whatever the subtraction returns. */
 GL_API gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_cube *refs,

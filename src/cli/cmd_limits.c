@@ -31,12 +31,16 @@ static const char help[] =
     "  --min-separation PX    first separation (default max(FWHM, mask + FWHM/2))\n"
     "  --max-separation PX    last separation (default: where apertures still fit)\n"
     "  --fake-runs N          runs with fake companions (default 2)\n"
-    "  --fake-level X         fake flux in units of the local aperture noise (default 10)\n"
-    "  --exclude-adjacent     leave out the two apertures next to the test aperture\n"
+    "  --fake-level X|auto    fake flux in units of the local aperture noise (default auto:\n"
+    "                         the flux a throughput of 1 detects half of the time, >= 10)\n"
+    "  --skip-flanking        leave the two apertures flanking the test aperture out of the\n"
+    "                         references (noise model and fakes' S/N; docs/names.md\n"
+    "                         lists the old spelling)\n"
     "  --pixscale MAS         pixel scale for the arcsec axis (default: from the WCS)\n"
     "  --title TEXT           title of the figure (default: OBJECT, or the file name)\n"
-    "  --candidates FILE      a candidates CSV (gloam detect; columns sep_px, pa_deg): fakes\n"
-    "                         keep 2 FWHM away from them, and PREFIX.companions.csv gives\n"
+    "  --candidates FILE      a candidates CSV (gloam detect; columns sep_px, pa_deg): left\n"
+    "                         out of the noise (apertures within 1 FWHM), fakes keep 2 FWHM\n"
+    "                         away from them, and PREFIX.companions.csv gives\n"
     "                         their throughput-corrected contrast in every plane\n"
     "subtraction options:\n";
 
@@ -52,7 +56,8 @@ enum {
     OPT_RMAX,
     OPT_FAKE_RUNS,
     OPT_FAKE_LEVEL,
-    OPT_EXCLUDE,
+    OPT_SKIP_FLANKING,
+    OPT_EXCLUDE_OLD,
     OPT_PIXSCALE,
     OPT_TITLE,
     OPT_CANDIDATES
@@ -88,8 +93,16 @@ static int parse_limits_option(gl_cli *cli, int c, const char *arg, gl_limits_pa
         lp->fake_runs = (int)n;
         return 1;
     case OPT_FAKE_LEVEL:
+        if (strcmp(arg, "auto") == 0) {
+            lp->fake_level = 0;
+            return 1;
+        }
         return cli_parse_double(cli, "--fake-level", arg, 0.1, 1e4, &lp->fake_level) ? -1 : 1;
-    case OPT_EXCLUDE: lp->exclude_adjacent = 1; return 1;
+    case OPT_EXCLUDE_OLD:
+        cli_deprecated(cli, "--exclude-adjacent", "--skip-flanking");
+        lp->skip_flanking = 1;
+        return 1;
+    case OPT_SKIP_FLANKING: lp->skip_flanking = 1; return 1;
     case OPT_PIXSCALE:
         return cli_parse_double(cli, "--pixscale", arg, 1e-3, 1e6, pixscale) ? -1 : 1;
     default: return 0;
@@ -102,19 +115,34 @@ static gl_status write_tables(const char *csv, const char *fits, const gl_limits
                               const gl_provenance *prov)
 {
     long rows = r->n * r->nplanes;
-    enum { NCOL = 17 };
+    enum { NCOL = 19 };
     double *buf = gl_calloc((size_t)rows * NCOL, sizeof *buf);
     if (!buf)
         return gl_error_nomem("limits table");
     char cq_name[32], dq_name[32];
     snprintf(cq_name, sizeof cq_name, "contrast_c%02.0f", 100 * q);
     snprintf(dq_name, sizeof dq_name, "delta_mag_c%02.0f", 100 * q);
-    const char *names[NCOL] = {
-        "plane",        "modes",        "sep_px",      "sep_arcsec",    "napertures", "dof",
-        "noise",        "mean",         "t_threshold", "throughput",    "contrast",   "delta_mag",
-        "completeness", "contrast_c50", cq_name,       "delta_mag_c50", dq_name};
-    const char *units[NCOL] = {"", "", "pix", "arcsec", "", "", "",    "",   "",
-                               "", "", "mag", "",       "", "", "mag", "mag"};
+    const char *names[NCOL] = {"plane",
+                               "modes",
+                               "sep_px",
+                               "sep_arcsec",
+                               "napertures",
+                               "dof",
+                               "noise",
+                               "mean",
+                               "t_threshold",
+                               "throughput",
+                               "throughput_scatter",
+                               "fakes_used",
+                               "contrast",
+                               "delta_mag",
+                               "completeness",
+                               "contrast_c50",
+                               cq_name,
+                               "delta_mag_c50",
+                               dq_name};
+    const char *units[NCOL] = {"", "", "pix", "arcsec", "", "", "", "",    "",   "",
+                               "", "", "",    "mag",    "", "", "", "mag", "mag"};
     const double *cols[NCOL];
     for (int c = 0; c < NCOL; c++)
         cols[c] = buf + (size_t)c * (size_t)rows;
@@ -132,6 +160,8 @@ static gl_status write_tables(const char *csv, const char *fits, const gl_limits
                               r->mean[j],
                               r->t_threshold[j],
                               r->throughput[j],
+                              r->throughput_scatter[j],
+                              r->fakes_used[j],
                               r->contrast[j],
                               -2.5 * log10(r->contrast[j]),
                               r->completeness_of_contrast[j],
@@ -150,36 +180,46 @@ static gl_status write_tables(const char *csv, const char *fits, const gl_limits
     return st;
 }
 
+/* The fakes, one row each: where, how bright, which run, and per plane what
+ * the subtraction left of them (throughput, signal and reference spread of
+ * the t test, per unit contrast and PSF aperture flux) and their S/N. */
 static gl_status write_fakes(const char *csv, const gl_limits_result *r)
 {
-    int nc = 4 + r->nplanes;
-    double *buf = gl_calloc((size_t)(r->nfakes ? r->nfakes : 1) * (size_t)nc, sizeof *buf);
+    enum { PER_PLANE = 4 };
+    int nc = 5 + PER_PLANE * r->nplanes;
+    size_t nr = (size_t)(r->nfakes ? r->nfakes : 1);
+    double *buf = gl_calloc(nr * (size_t)nc, sizeof *buf);
     const char **names = gl_calloc((size_t)nc, sizeof *names);
     const double **cols = gl_calloc((size_t)nc, sizeof *cols);
-    char(*pn)[32] = gl_calloc((size_t)r->nplanes, sizeof *pn);
+    char(*pn)[40] = gl_calloc((size_t)r->nplanes * PER_PLANE, sizeof *pn);
     gl_status st = GL_OK;
     if (!buf || !names || !cols || !pn) {
         st = gl_error_nomem("fakes table");
         goto cleanup;
     }
-    names[0] = "sep_px";
-    names[1] = "pa_deg";
-    names[2] = "contrast";
-    names[3] = "run";
-    for (int k = 0; k < r->nplanes; k++) {
-        snprintf(pn[k], sizeof pn[k], "throughput_plane%d", k + 1);
-        names[4 + k] = pn[k];
-    }
+    static const char *fixed[] = {"sep_px", "pa_deg", "contrast", "run", "nref"};
+    static const char *stem[PER_PLANE] = {"throughput", "signal", "ref_spread", "snr"};
+    for (int c = 0; c < 5; c++)
+        names[c] = fixed[c];
+    for (int q = 0; q < PER_PLANE; q++)
+        for (int k = 0; k < r->nplanes; k++) {
+            int c = 5 + q * r->nplanes + k;
+            snprintf(pn[c - 5], sizeof pn[0], "%s_plane%d", stem[q], k + 1);
+            names[c] = pn[c - 5];
+        }
     for (int c = 0; c < nc; c++)
-        cols[c] = buf + (size_t)c * (size_t)r->nfakes;
+        cols[c] = buf + (size_t)c * nr;
     for (int j = 0; j < r->nfakes; j++) {
         const gl_limits_fake *f = &r->fakes[j];
-        buf[j] = f->sep_px;
-        buf[(size_t)r->nfakes + (size_t)j] = f->pa_deg;
-        buf[2 * (size_t)r->nfakes + (size_t)j] = f->contrast;
-        buf[3 * (size_t)r->nfakes + (size_t)j] = f->run + 1;
-        for (int k = 0; k < r->nplanes; k++)
-            buf[(size_t)(4 + k) * (size_t)r->nfakes + (size_t)j] = f->throughput[k];
+        double v[5] = {f->sep_px, f->pa_deg, f->contrast, f->run + 1, f->nref};
+        for (int c = 0; c < 5; c++)
+            buf[(size_t)c * nr + (size_t)j] = v[c];
+        for (int k = 0; k < r->nplanes; k++) {
+            const double w[PER_PLANE] = {f->throughput[k], f->signal[k], f->ref_spread[k],
+                                         f->snr[k]};
+            for (int q = 0; q < PER_PLANE; q++)
+                buf[(size_t)(5 + q * r->nplanes + k) * nr + (size_t)j] = w[q];
+        }
     }
     gl_table t = {nc, r->nfakes, names, NULL, cols, NULL};
     st = gl_table_write_csv(csv, &t);
@@ -250,7 +290,8 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
                                          {"max-separation", required_argument, 0, OPT_RMAX},
                                          {"fake-runs", required_argument, 0, OPT_FAKE_RUNS},
                                          {"fake-level", required_argument, 0, OPT_FAKE_LEVEL},
-                                         {"exclude-adjacent", no_argument, 0, OPT_EXCLUDE},
+                                         {"skip-flanking", no_argument, 0, OPT_SKIP_FLANKING},
+                                         {"exclude-adjacent", no_argument, 0, OPT_EXCLUDE_OLD},
                                          {"pixscale", required_argument, 0, OPT_PIXSCALE},
                                          {"title", required_argument, 0, OPT_TITLE},
                                          {"candidates", required_argument, 0, OPT_CANDIDATES},
@@ -400,7 +441,8 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
     gl_header_set_str(keys, "GLSTAT", "two-sample Student-t, Mawet+2014",
                       "small-sample statistics per separation");
     gl_header_set_dbl(keys, "GLCOMPL", lp.completeness, "completeness of the second curve");
-    gl_header_set_str(keys, "GLCMPREF", "noncentral t, Jensen-Clem+2018", "completeness model");
+    gl_header_set_str(keys, "GLCMPREF", "doubly noncentral t of the fakes, Jensen-Clem+2018",
+                      "completeness model (docs/limits.md)");
     gl_header_set_dbl(keys, "GLFWHM", setup.p.fwhm, "[pix] FWHM = aperture diameter");
     gl_header_set_dbl(keys, "GLPSFSC", psf_scale, "PSF scale to the science exposure");
     gl_header_set_dbl(keys, "GLPSFAP", res.psf_aperture_flux, "aperture flux of the scaled PSF");
@@ -420,13 +462,21 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
     }
     gl_header_set_int(keys, "GLFKRUNS", lp.fake_runs, "subtraction runs with fake companions");
     gl_header_set_int(keys, "GLNFAKE", res.nfakes, "fake companions planted");
-    gl_header_set_dbl(keys, "GLFAKELV", lp.fake_level, "fake flux / local aperture noise");
-    gl_header_set_str(keys, "GLTHRU", "injection-recovery, linear in sep",
-                      "throughput: (with - without fakes), interpolated");
-    gl_header_set_bool(keys, "GLEXADJ", lp.exclude_adjacent, "adjacent apertures left out");
-    gl_header_add_history(keys, "caveat: a companion's own ADI self-subtraction wings are not in "
-                                "the completeness model; close to the star with little field "
-                                "rotation the curve is optimistic (docs/limits.md)");
+    if (lp.fake_level > 0)
+        gl_header_set_dbl(keys, "GLFAKELV", lp.fake_level, "fake flux / local aperture noise");
+    else
+        gl_header_set_str(keys, "GLFAKELV", "auto", "fake flux: 50% at throughput 1, >= 10 noise");
+    gl_header_set_str(keys, "GLTHRU", "injection-recovery, local linear fit",
+                      "throughput: fakes within 1.5 FWHM, (with - without)");
+    gl_header_set_bool(keys, "GLSKIPFL", lp.skip_flanking, "flanking apertures out of the refs");
+    gl_header_set_int(keys, "GLNAVOID", lp.navoid, "known sources left out of the noise");
+    gl_header_add_history(keys, "completeness: mean over the fakes within 1.5 FWHM of the doubly "
+                                "noncentral t with their measured signal and reference spread "
+                                "(self-subtraction lobes); empty where the lobes cap the S/N");
+    gl_header_add_history(keys, "caveat: noise of this sequence taken as the true noise (10-20% "
+                                "scatter): c95 applied to another sequence is recovered 80-93% "
+                                "of the time; response taken as linear around the fakes' fluxes "
+                                "(docs/limits.md)");
     gl_header_add_history(keys, "contrast = t sigma sqrt(1+1/n2) / (throughput x PSF aperture "
                                 "flux); sigma = std of the aperture sums at the separation");
 
@@ -449,12 +499,18 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
         snprintf(n2, sizeof n2, "%s%s%s; FWHM %.2f px = aperture diameter; mask %.1f px",
                  gl_subtract_method_name(setup.p.method), modes_text[0] ? ", modes " : "",
                  modes_text[0] ? modes_text : "", setup.p.fwhm, setup.p.mask_radius);
-        snprintf(n3, sizeof n3, "throughput from %d fakes in %d runs at %g x noise; PSF scale %g",
-                 res.nfakes, lp.fake_runs, lp.fake_level, psf_scale);
+        if (lp.fake_level > 0)
+            snprintf(n3, sizeof n3,
+                     "throughput from %d fakes in %d runs at %g x noise; PSF scale %g", res.nfakes,
+                     lp.fake_runs, lp.fake_level, psf_scale);
+        else
+            snprintf(n3, sizeof n3,
+                     "throughput from %d fakes in %d runs near the 50%% level; PSF scale %g",
+                     res.nfakes, lp.fake_runs, psf_scale);
         snprintf(n4, sizeof n4, "plane 1 of %d; star flux = scaled off-axis PSF total",
                  res.nplanes);
-        const char *n5 = "innermost FWHM with little rotation: optimistic (self-subtraction "
-                         "wings not modelled)";
+        const char *n5 = "completeness from the fakes' lobes, for this sequence's noise "
+                         "(docs/limits.md)";
         gl_limits_plot plot = {.n = res.n,
                                .sep_px = res.sep_px,
                                .ncurves = 2,
@@ -469,12 +525,17 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
     }
     if ((st = gl_outset_commit(outs)))
         goto cleanup;
-    for (long i = 0; i<res.n; i += res.n> 8 ? res.n / 8 : 1)
-        gl_log(GL_LOG_INFO,
-               "  %6.1f px: throughput %.2f, contrast %.3g (%.1f mag) at %g sigma and 50%% "
-               "completeness",
-               res.sep_px[i], res.throughput[i], res.contrast_c50[i],
-               -2.5 * log10(res.contrast_c50[i]), lp.sigma);
+    for (long i = 0; i<res.n; i += res.n> 8 ? res.n / 8 : 1) {
+        if (isfinite(res.contrast_c50[i]))
+            gl_log(GL_LOG_INFO,
+                   "  %6.1f px: throughput %.2f, contrast %.3g (%.1f mag) at %g sigma and 50%% "
+                   "completeness",
+                   res.sep_px[i], res.throughput[i], res.contrast_c50[i],
+                   -2.5 * log10(res.contrast_c50[i]), lp.sigma);
+        else
+            gl_log(GL_LOG_INFO, "  %6.1f px: throughput %.2f, no contrast reaches 50%% at %g sigma",
+                   res.sep_px[i], res.throughput[i], lp.sigma);
+    }
     gl_log(GL_LOG_INFO, "wrote %s (.fits, .png, .svg) and %s", p_csv, p_fakes);
 
 cleanup:

@@ -1,25 +1,35 @@
 /*
  * curve.c -- contrast curves: noise per separation from the apertures of the
- * annulus, small-sample thresholds (Mawet et al. 2014, ApJ 792, 97),
- * completeness (Jensen-Clem et al. 2018, AJ 155, 19), and throughput
- * measured by planting fake companions and running the user's own
- * subtraction again.
+ * annulus, small-sample thresholds (Mawet et al. 2014, ApJ 792, 97), and
+ * fake companions planted in extra runs of the user's own subtraction, whose
+ * measured responses calibrate the completeness (Jensen-Clem et al. 2018,
+ * AJ 155, 19; calibrate.c).
  *
- * Throughput: the fakes are planted in `fake_runs` separate runs, one fake
- * per FWHM of separation, consecutive separations going to different runs
- * (so within a run fakes are `fake_runs` FWHM apart radially) and turning by
- * the golden angle in position angle, the runs spread evenly in angle.
- * What survives is the aperture sum in (run with fakes) - (run without), so
- * the noise of the image itself cancels and only the fakes' own processing
- * remains; divided by contrast x PSF aperture flux it is the throughput at
- * that separation. Fakes are planted at `fake_level` times the local aperture
- * noise (common practice: bright enough to measure, faint enough not to
- * drive the KL modes).
+ * Noise: the sample std of the non-overlapping 1-FWHM aperture sums at each
+ * separation, apertures closer than 1 FWHM to a known source (--candidates)
+ * left out so that a real companion does not inflate it.
+ *
+ * Fakes: within one run the fakes are 2 FWHM apart in separation (their rings
+ * do not share apertures); the `fake_runs` runs are offset by 2 FWHM / runs,
+ * so the fakes together sample the separations every 2 FWHM / runs, and turn
+ * by the golden angle in position angle, so the fakes near any separation sit
+ * at different angles. Each fake is measured on the difference image (run
+ * with fakes - run without), so the noise of the image cancels and only what
+ * the subtraction did to the fake remains, over the whole ring of the
+ * detection test at the fake: its test aperture (the throughput), the mean
+ * and the spread of its response in the references (the self-subtraction
+ * lobes), and, on the run image itself, the detection S/N a user would get.
+ * Fakes are planted, by default, at the flux that throughput 1 would detect
+ * half of the time, at least 10 x the local aperture noise (common practice
+ * is a fixed 5-10 x: bright enough to measure, faint enough not to drive the
+ * KL modes), and from the second run on at the 95% contrast the earlier runs
+ * give, so that the fakes bracket the fluxes the curve needs.
  */
 #include "core/internal.h"
 #include "gloam/detect.h"
-#include "gloam/limits.h"
+#include "limits/internal.h"
 
+#include <gsl/gsl_errno.h>
 #include <math.h>
 #include <string.h>
 
@@ -29,17 +39,26 @@ void gl_limits_params_init(gl_limits_params *p)
     p->sigma = 5;
     p->completeness = 0.95;
     p->fake_runs = 2;
-    p->fake_level = 10;
+    p->fake_level = 0;
 }
 
 void gl_limits_result_free(gl_limits_result *r)
 {
     if (!r)
         return;
-    double *arrays[] = {r->sep_px,       r->napertures, r->dof,
-                        r->noise,        r->mean,       r->t_threshold,
-                        r->throughput,   r->contrast,   r->completeness_of_contrast,
-                        r->contrast_c50, r->contrast_cq};
+    double *arrays[] = {r->sep_px,
+                        r->napertures,
+                        r->dof,
+                        r->noise,
+                        r->mean,
+                        r->t_threshold,
+                        r->throughput,
+                        r->throughput_scatter,
+                        r->fakes_used,
+                        r->contrast,
+                        r->completeness_of_contrast,
+                        r->contrast_c50,
+                        r->contrast_cq};
     for (size_t i = 0; i < sizeof arrays / sizeof arrays[0]; i++)
         gl_free(arrays[i]);
     gl_free(r->fakes);
@@ -47,20 +66,42 @@ void gl_limits_result_free(gl_limits_result *r)
     memset(r, 0, sizeof *r);
 }
 
-/* Aperture noise at separation sep in one plane: std and mean of the sums of
- * the non-overlapping apertures (those touching NaN or the edge left out). */
-static void ring_noise(const gl_aperture_plan *ap, const float *img, long nx, long ny, double sep,
-                       double diam, double *work, double *xs, double *ys, double *sums,
-                       long *nvalid, double *stddev, double *mean)
+/* North-up image position of (sep, pa) (docs/conventions.md). */
+static void sky_xy(double cx, double cy, double sep, double pa_deg, double *x, double *y)
 {
-    long n = gl_detect_ring_count(sep, diam), m = 0;
-    gl_detect_ring_positions((double)(nx / 2), (double)(ny / 2), sep, 0.0, n, xs, ys);
+    double t = pa_deg * M_PI / 180;
+    *x = cx - sep * sin(t);
+    *y = cy + sep * cos(t);
+}
+
+/* Aperture noise at separation sep in one plane: std and mean of the sums of
+ * the non-overlapping apertures (those touching NaN or the edge left out, and
+ * those closer than 1 FWHM to a known source). *nvalid counts the apertures
+ * on valid data (the ring of the detection test), *nused those in the noise. */
+static void ring_noise(const gl_aperture_plan *ap, const float *img, long nx, long ny, double sep,
+                       double diam, const gl_limits_params *lp, double *work, double *xs,
+                       double *ys, double *sums, long *nvalid, long *nused, double *stddev,
+                       double *mean)
+{
+    long n = gl_detect_ring_count(sep, diam), m = 0, v = 0;
+    double cx = (double)(nx / 2), cy = (double)(ny / 2);
+    gl_detect_ring_positions(cx, cy, sep, 0.0, n, xs, ys);
     for (long k = 0; k < n; k++) {
         double s;
-        if (gl_detect_aperture_sum(ap, img, nx, ny, xs[k], ys[k], work, &s, NULL))
+        if (!gl_detect_aperture_sum(ap, img, nx, ny, xs[k], ys[k], work, &s, NULL))
+            continue;
+        v++;
+        int near = 0;
+        for (int a = 0; a < lp->navoid && !near; a++) {
+            double x, y;
+            sky_xy(cx, cy, lp->avoid_sep_px[a], lp->avoid_pa_deg[a], &x, &y);
+            near = hypot(xs[k] - x, ys[k] - y) < diam;
+        }
+        if (!near)
             sums[m++] = s;
     }
-    *nvalid = m;
+    *nvalid = v;
+    *nused = m;
     *stddev = *mean = NAN;
     if (m < 3)
         return;
@@ -91,6 +132,86 @@ static double interp(const double *x, const double *y, long nk, double xq)
     return y[k - 1] + f * (y[k] - y[k - 1]);
 }
 
+/* Measures one fake in every plane: on the ring of its detection test (the
+ * test aperture on the fake, the others following counter-clockwise), the
+ * difference (with fakes - without) in the test aperture and in the
+ * references (the flanking two left out with skip_flanking), and the
+ * detection S/N on the image with fakes. */
+static void measure_fake(gl_limits_fake *f, const gl_aperture_plan *ap,
+                         const gl_detect_params *dpar, const gl_cube *base, const gl_cube *run,
+                         int np, double F, int skip, double *work, double *xs, double *ys,
+                         double *snr_work)
+{
+    long nx = base->nx, ny = base->ny;
+    double cx = (double)(nx / 2), cy = (double)(ny / 2), x, y;
+    sky_xy(cx, cy, f->sep_px, f->pa_deg, &x, &y);
+    long n = gl_detect_ring_count(f->sep_px, 2 * gl_detect_aperture_radius(ap));
+    gl_detect_ring_positions(cx, cy, f->sep_px, atan2(y - cy, x - cx), n, xs, ys);
+    double unit = f->contrast * F;
+    for (int k = 0; k < np; k++) {
+        const float *i1 = gl_cube_plane(run, 0, k), *i0 = gl_cube_plane(base, 0, k);
+        f->throughput[k] = f->signal[k] = f->ref_spread[k] = f->snr[k] = NAN;
+        double s1, s0, d[2048];
+        long m = 0;
+        for (long a = 0; a < n && m < 2048; a++) {
+            if (a > 0 && skip && (a == 1 || a == n - 1))
+                continue;
+            int ok = gl_detect_aperture_sum(ap, i1, nx, ny, xs[a], ys[a], work, &s1, NULL) &&
+                     gl_detect_aperture_sum(ap, i0, nx, ny, xs[a], ys[a], work, &s0, NULL);
+            if (a == 0 && !ok)
+                break;
+            if (ok)
+                d[m++] = (s1 - s0) / unit;
+        }
+        gl_ttest t;
+        if (gl_detect_snr_at(ap, dpar, i1, nx, ny, x, y, snr_work, &t))
+            f->snr[k] = t.t;
+        f->nref = (int)(m > 0 ? m - 1 : 0);
+        if (m < 3)
+            continue;
+        double mu = 0, ss = 0;
+        for (long a = 1; a < m; a++)
+            mu += d[a] / (double)(m - 1);
+        for (long a = 1; a < m; a++)
+            ss += (d[a] - mu) * (d[a] - mu);
+        f->throughput[k] = d[0];
+        f->signal[k] = d[0] - mu;
+        f->ref_spread[k] = sqrt(ss);
+    }
+}
+
+/* The contrast of 95% completeness (50% where 95% is out of reach) at fake
+ * j's separation from the fakes of the runs before run b (plane 1), within a
+ * factor 4 of its first guess; the first guess where none can be computed.
+ * The first run's fakes sit below the curve, these above it: between them
+ * they bracket the fluxes the 50% and 95% contrasts need (full-frame PCA
+ * absorbs a brighter companion more; measured in docs/limits.md). */
+static double provisional_level(const gl_limits_result *r, int j, int b, double fwhm, double F)
+{
+    const gl_limits_fake *f = &r->fakes[j];
+    gl_limits_fake *done = gl_malloc((size_t)r->nfakes * sizeof *done);
+    if (!done)
+        return f->contrast;
+    int nd = 0;
+    for (int i = 0; i < r->nfakes; i++)
+        if (r->fakes[i].run < b)
+            done[nd++] = r->fakes[i];
+    double dof = interp(r->sep_px, r->dof, r->n, f->sep_px);
+    limits_point pt = {.sep_px = f->sep_px,
+                       .fwhm = fwhm,
+                       .noise = interp(r->sep_px, r->noise, r->n, f->sep_px),
+                       .tau = interp(r->sep_px, r->t_threshold, r->n, f->sep_px),
+                       .nref = dof + 1,
+                       .psf_flux = F,
+                       .q = 0.95};
+    gl_limits_calibrate_point(&pt, done, nd, 0);
+    gl_free(done);
+    double c = isfinite(pt.contrast_cq) ? pt.contrast_cq : pt.contrast_c50;
+    if (!(c > 0))
+        return f->contrast;
+    return GL_MIN(GL_MAX(c, 0.25 * f->contrast), 4 * f->contrast);
+}
+
 gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_cube *refs,
                             const gl_subtract_params *sp, const gl_psf_model *psf,
                             const gl_limits_params *lp, gl_limits_result *out)
@@ -101,16 +222,16 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
     gl_aperture_plan *ap = NULL;
     gl_cube *work_cube = NULL;
     gl_companion *comps = NULL;
-    double *work = NULL, *xs = NULL, *ys = NULL, *sums = NULL, *fr = NULL, *ft = NULL;
+    double *work = NULL, *xs = NULL, *ys = NULL, *sums = NULL, *snr_work = NULL;
     gl_status st = GL_OK;
     memset(out, 0, sizeof *out);
 
     long nx = cube->nx, ny = cube->ny;
     double fwhm = sp->fwhm, diam = fwhm, cx = (double)(nx / 2), cy = (double)(ny / 2);
     if (!(lp->sigma > 0) || !(lp->completeness > 0 && lp->completeness < 1) || lp->fake_runs < 1 ||
-        lp->fake_runs > 64 || !(lp->fake_level > 0) || lp->step_px < 0)
+        lp->fake_runs > 64 || !(lp->fake_level >= 0) || lp->step_px < 0)
         return gl_error_set(GL_ERR_USAGE, "limits: threshold, completeness (0-1), fake runs "
-                                          "(1-64), fake level (> 0) or step out of range");
+                                          "(1-64), fake level (>= 0) or step out of range");
     if (!(fwhm > 0))
         return gl_error_set(GL_ERR_USAGE, "--fwhm must be positive");
     sp1.keep_residuals = sp1.keep_raw_residuals = 0;
@@ -176,10 +297,18 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
     r.fpf = gl_detect_fpf_from_sigma(lp->sigma);
     size_t nn = (size_t)n * (size_t)np;
     r.sep_px = gl_calloc((size_t)n, sizeof(double));
-    double **per_plane[] = {
-        &r.napertures,   &r.dof,        &r.noise,    &r.mean,
-        &r.t_threshold,  &r.throughput, &r.contrast, &r.completeness_of_contrast,
-        &r.contrast_c50, &r.contrast_cq};
+    double **per_plane[] = {&r.napertures,
+                            &r.dof,
+                            &r.noise,
+                            &r.mean,
+                            &r.t_threshold,
+                            &r.throughput,
+                            &r.throughput_scatter,
+                            &r.fakes_used,
+                            &r.contrast,
+                            &r.completeness_of_contrast,
+                            &r.contrast_c50,
+                            &r.contrast_cq};
     int ok = r.sep_px != NULL;
     for (size_t i = 0; i < sizeof per_plane / sizeof per_plane[0]; i++)
         ok &= (*per_plane[i] = gl_calloc(nn, sizeof(double))) != NULL;
@@ -195,11 +324,11 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
         const float *img = gl_cube_plane(base.image, 0, k);
         for (long i = 0; i < n; i++) {
             size_t j = (size_t)k * (size_t)n + (size_t)i;
-            long m;
-            ring_noise(ap, img, nx, ny, r.sep_px[i], diam, work, xs, ys, sums, &m, &r.noise[j],
-                       &r.mean[j]);
-            long n2 = m - 1 - (lp->exclude_adjacent ? 2 : 0);
-            r.napertures[j] = (double)m;
+            long m, used;
+            ring_noise(ap, img, nx, ny, r.sep_px[i], diam, lp, work, xs, ys, sums, &m, &used,
+                       &r.noise[j], &r.mean[j]);
+            long n2 = m - 1 - (lp->skip_flanking ? 2 : 0);
+            r.napertures[j] = (double)used;
             r.dof[j] = n2 >= 2 ? (double)(n2 - 1) : NAN;
             r.t_threshold[j] = n2 >= 2 ? gl_detect_t_threshold(lp->sigma, n2 - 1) : NAN;
         }
@@ -217,20 +346,20 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
         }
     }
 
-    /* fakes: one per FWHM of separation, consecutive ones in different
-     * runs, golden-angle steps in position angle */
-    long nf = (long)floor((r1 - r0) / fwhm + 1e-9) + 1;
+    /* fakes: 2 FWHM apart within a run, the runs offset by 2 FWHM / runs,
+     * golden-angle steps in position angle */
+    double dsep = 2 * fwhm / lp->fake_runs;
+    long nf = (long)floor((r1 - r0) / dsep + 1e-9) + 1;
     r.fakes = gl_calloc((size_t)nf, sizeof *r.fakes);
     comps = gl_calloc((size_t)nf, sizeof *comps);
-    fr = gl_malloc((size_t)nf * sizeof *fr);
-    ft = gl_malloc((size_t)nf * sizeof *ft);
-    if (!r.fakes || !comps || !fr || !ft) {
+    if (!r.fakes || !comps) {
         st = gl_error_nomem("fake companions");
         goto cleanup;
     }
     for (long j = 0; j < nf; j++) {
         gl_limits_fake *f = &r.fakes[r.nfakes];
-        f->sep_px = r0 + fwhm * (double)j;
+        memset(f, 0, sizeof *f);
+        f->sep_px = r0 + dsep * (double)j;
         f->run = (int)(j % lp->fake_runs);
         f->pa_deg =
             fmod(lp->pa0_deg + 360.0 * f->run / lp->fake_runs + 137.50776 * (double)j, 360.0);
@@ -249,18 +378,43 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
             f->pa_deg = fmod(f->pa_deg + 30.0, 360.0);
         }
         /* brightness from the first plane's noise at that separation */
-        double sig = interp(r.sep_px, r.noise, n, f->sep_px);
+        double sig = interp(r.sep_px, r.noise, n, f->sep_px), level = lp->fake_level;
         if (!(sig > 0))
             continue;
-        f->contrast = lp->fake_level * sig / F;
+        if (!(level > 0)) {
+            long n2 = gl_detect_ring_count(f->sep_px, diam) - 1 - (lp->skip_flanking ? 2 : 0);
+            double d50 = NAN, tau = gl_detect_t_threshold(lp->sigma, n2 - 1);
+            if (n2 >= 2 && gl_limits_delta_for_completeness(0.5, tau, (double)(n2 - 1), &d50))
+                gl_error_clear();
+            level = isfinite(d50) ? GL_MAX(10.0, d50 * sqrt(1 + 1.0 / (double)n2)) : 10.0;
+        }
+        f->contrast = level * sig / F;
         r.nfakes++;
+    }
+    gl_detect_params dpar;
+    gl_detect_params_init(&dpar);
+    dpar.fwhm = fwhm;
+    dpar.diameter = diam;
+    dpar.mask_radius = 1e-6; /* the curve's own separations decide */
+    dpar.exclude_adjacent = lp->skip_flanking;
+    snr_work = gl_malloc(gl_detect_snr_worksize(ap, nx, ny) * sizeof *snr_work);
+    if (!snr_work) {
+        st = gl_error_nomem("fake S/N");
+        goto cleanup;
     }
     for (int b = 0; b < lp->fake_runs; b++) {
         int nc = 0;
         for (int j = 0; j < r.nfakes; j++)
-            if (r.fakes[j].run == b)
+            if (r.fakes[j].run == b) {
+                /* automatic level: from the second run on, the fakes go in at
+                 * the 95% contrast the earlier runs give (the subtraction is
+                 * not linear in the companion's flux: calibrate where the
+                 * curve will be) */
+                if (b > 0 && !(lp->fake_level > 0))
+                    r.fakes[j].contrast = provisional_level(&r, j, b, fwhm, F);
                 comps[nc++] =
                     (gl_companion){r.fakes[j].sep_px, r.fakes[j].pa_deg, r.fakes[j].contrast};
+            }
         if (nc == 0)
             continue;
         gl_cube_free(work_cube);
@@ -274,70 +428,70 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
         gl_subtract_result_free(&run);
         if ((st = gl_subtract_run(work_cube, angles, refs, &sp1, &run)))
             goto cleanup;
-        for (int j = 0; j < r.nfakes; j++) {
-            gl_limits_fake *f = &r.fakes[j];
-            if (f->run != b)
-                continue;
-            double t = f->pa_deg * M_PI / 180;
-            double x = cx - f->sep_px * sin(t), y = cy + f->sep_px * cos(t);
-            for (int k = 0; k < np; k++) {
-                double s1, s0;
-                int ok1 = gl_detect_aperture_sum(ap, gl_cube_plane(run.image, 0, k), nx, ny, x, y,
-                                                 work, &s1, NULL);
-                int ok0 = gl_detect_aperture_sum(ap, gl_cube_plane(base.image, 0, k), nx, ny, x, y,
-                                                 work, &s0, NULL);
-                f->throughput[k] = ok1 && ok0 ? (s1 - s0) / (f->contrast * F) : NAN;
-            }
-        }
+        for (int j = 0; j < r.nfakes; j++)
+            if (r.fakes[j].run == b)
+                measure_fake(&r.fakes[j], ap, &dpar, base.image, run.image, np, F,
+                             lp->skip_flanking, work, xs, ys, snr_work);
         gl_progress("limits", 2 + b, 1 + lp->fake_runs);
     }
 
-    /* throughput on the grid, and the contrasts */
-    for (int k = 0; k < np; k++) {
-        long nk = 0;
-        for (int j = 0; j < r.nfakes; j++) /* fakes are in increasing separation */
-            if (isfinite(r.fakes[j].throughput[k])) {
-                fr[nk] = r.fakes[j].sep_px;
-                ft[nk] = r.fakes[j].throughput[k];
-                nk++;
-            }
-        for (long i = 0; i < n; i++) {
-            size_t j = (size_t)k * (size_t)n + (size_t)i;
-            double T = interp(fr, ft, nk, r.sep_px[i]);
-            r.throughput[j] = T;
-            double n2 = r.dof[j] + 1, sig = r.noise[j], t = r.t_threshold[j];
-            r.contrast[j] = r.contrast_c50[j] = r.contrast_cq[j] = NAN;
-            r.completeness_of_contrast[j] = NAN;
-            /* a throughput below 1% leaves nothing to calibrate */
-            if (!(T > 0.01) || !isfinite(sig) || !isfinite(t))
-                continue;
-            double scale = sig * sqrt(1 + 1 / n2) / (T * F), d50, dq;
-            r.contrast[j] = t * scale;
-            r.completeness_of_contrast[j] = gl_limits_completeness(t, t, r.dof[j]);
-            if (gl_limits_delta_for_completeness(0.5, t, r.dof[j], &d50) == GL_OK)
-                r.contrast_c50[j] = d50 * scale;
-            if (gl_limits_delta_for_completeness(lp->completeness, t, r.dof[j], &dq) == GL_OK)
-                r.contrast_cq[j] = dq * scale;
-        }
+    /* throughput and completeness on the grid, from the fakes around each
+     * separation: every point on its own (static schedule, one thread per
+     * point: the same numbers at any thread count) */
+    gsl_set_error_handler_off();
+#pragma omp parallel for schedule(static)
+    for (long ki = 0; ki < (long)np * n; ki++) {
+        int k = (int)(ki / n);
+        long i = ki % n;
+        size_t j = (size_t)ki;
+        limits_point pt = {.sep_px = r.sep_px[i],
+                           .fwhm = fwhm,
+                           .noise = r.noise[j],
+                           .tau = r.t_threshold[j],
+                           .nref = r.dof[j] + 1,
+                           .psf_flux = F,
+                           .q = lp->completeness};
+        gl_limits_calibrate_point(&pt, r.fakes, r.nfakes, k);
+        r.throughput[j] = pt.throughput;
+        r.throughput_scatter[j] = pt.throughput_scatter;
+        r.fakes_used[j] = pt.fakes_used;
+        r.contrast[j] = pt.contrast;
+        r.completeness_of_contrast[j] = pt.completeness;
+        r.contrast_c50[j] = pt.contrast_c50;
+        r.contrast_cq[j] = pt.contrast_cq;
     }
     gl_progress("limits", 1 + lp->fake_runs, 1 + lp->fake_runs);
-    long usable = 0, low = 0;
+    long usable = 0, low = 0, capped = 0, capped95 = 0;
     for (long i = 0; i < n; i++) {
-        usable += isfinite(r.contrast_c50[i]);
-        low += isfinite(r.noise[i]) && !(r.throughput[i] > 0.01);
+        int thr = isfinite(r.noise[i]) && r.throughput[i] > 0.01;
+        usable += thr;
+        low += isfinite(r.noise[i]) && !thr;
+        capped += thr && isfinite(r.t_threshold[i]) && !isfinite(r.contrast_c50[i]);
+        capped95 += thr && isfinite(r.t_threshold[i]) && !isfinite(r.contrast_cq[i]);
     }
     if (usable == 0) {
+        char level[48];
+        if (lp->fake_level > 0)
+            snprintf(level, sizeof level, "%g x the local noise", lp->fake_level);
+        else
+            snprintf(level, sizeof level, "near the 50%% level");
         st = gl_error_set(GL_ERR_USAGE,
                           "no separation kept a measurable throughput (above 1%%): the fakes "
-                          "(%g x the local noise) were removed by the subtraction; lower "
-                          "--fake-level or use fewer modes",
-                          lp->fake_level);
+                          "(%s) were removed by the subtraction; lower --fake-level or use fewer "
+                          "modes",
+                          level);
         goto cleanup;
     }
     if (low > 0)
         gl_log(GL_LOG_WARN,
                "%ld of %ld separations have a throughput below 1%% and no contrast (plane 1)", low,
                n);
+    if (capped > 0 || capped95 > 0)
+        gl_log(GL_LOG_WARN,
+               "%ld of %ld separations have no 50%% contrast and %ld no %g%% contrast (plane 1): "
+               "a companion's own self-subtraction lobes cap its S/N below the threshold there, "
+               "however bright (more field rotation, --skip-flanking or a lower --threshold help)",
+               capped, n, capped95, 100 * lp->completeness);
     r.image = base.image;
     r.fwhm = fwhm;
     base.image = NULL;
@@ -355,8 +509,7 @@ cleanup:
     gl_free(xs);
     gl_free(ys);
     gl_free(sums);
-    gl_free(fr);
-    gl_free(ft);
+    gl_free(snr_work);
     return st;
 }
 

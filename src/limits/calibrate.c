@@ -1,0 +1,208 @@
+/*
+ * calibrate.c -- the completeness of the detection test at one separation,
+ * calibrated by the fake companions planted around it.
+ *
+ * Model (docs/limits.md, "Completeness"). The detection statistic is the
+ * two-sample t test of Mawet et al. (2014, ApJ 792, 97) at the companion's
+ * position against the other apertures of its ring. A companion of contrast c
+ * changes every aperture of that ring by c F g_k, g_k its noise-free response
+ * per unit contrast and PSF aperture flux F: the fake's own core (g_0, the
+ * throughput) and, in the references, its self-subtraction lobes, wings and
+ * whatever the KL modes it drove did. Each fake measures g on the difference
+ * image (with fakes - without), so noise cancels. With iid normal aperture
+ * noise of std sigma, the statistic is doubly noncentral t with noncentrality
+ *     delta = c F (g_0 - mean g_ref) / (sigma sqrt(1 + 1/n2))
+ * and denominator noncentrality lambda = (c F)^2 sum (g_ref - mean)^2 / sigma^2
+ * (completeness.c). The completeness of Jensen-Clem et al. (2018, AJ 155, 19)
+ * becomes the average over the fakes within 1.5 FWHM of the separation of
+ * that probability, each fake's response moved to the separation by the ratio
+ * of a local linear fit in separation (so the average is over position
+ * angles, not over the radial trend). The contrast at completeness q solves
+ * mean P(c) = q (Brent). The companion's own lobes can make the S/N saturate
+ * with c; when even an infinitely bright companion misses q the contrast is
+ * left empty.
+ *
+ * Assumptions: aperture noise iid normal (the test's own assumption); the
+ * response is linear in c between the fake's contrast and the one solved for
+ * (the fakes are planted around the 50% and 95% levels to keep that small); the fakes
+ * near one separation sample the position-angle dependence of the response.
+ */
+#include "core/internal.h"
+#include "limits/internal.h"
+
+#include <gsl/gsl_errno.h>
+#include <gsl/gsl_roots.h>
+#include <math.h>
+
+#define WINDOW_FWHM 1.5
+#define MAX_WINDOW 64
+
+/* Fakes that calibrate one point: their responses moved to the point. */
+typedef struct window {
+    int n;
+    double a[MAX_WINDOW]; /* signal / sqrt(1 + 1/n2) */
+    double h[MAX_WINDOW]; /* ref_spread */
+    double tau, nu;
+} window;
+
+/* Least-squares line through (x, y), evaluated at xq clamped to the range of
+ * x; the mean when x has no spread. */
+static double line_at(const double *x, const double *y, int n, double xq, double minspread)
+{
+    double mx = 0, my = 0, sxx = 0, sxy = 0, lo = x[0], hi = x[0];
+    for (int i = 0; i < n; i++) {
+        mx += x[i] / n;
+        my += y[i] / n;
+        lo = GL_MIN(lo, x[i]);
+        hi = GL_MAX(hi, x[i]);
+    }
+    for (int i = 0; i < n; i++) {
+        sxx += (x[i] - mx) * (x[i] - mx);
+        sxy += (x[i] - mx) * (y[i] - my);
+    }
+    if (n < 2 || hi - lo < minspread)
+        return my;
+    xq = GL_MIN(GL_MAX(xq, lo), hi);
+    return my + sxy / sxx * (xq - mx);
+}
+
+/* Mean completeness of the window's fakes for an aperture flux of x noise
+ * units (x = c F / sigma). */
+static double mean_completeness(const window *w, double x)
+{
+    double s = 0;
+    for (int i = 0; i < w->n; i++) {
+        double p =
+            gl_limits_completeness_lobes(x * w->a[i], x * x * w->h[i] * w->h[i], w->tau, w->nu);
+        if (isnan(p))
+            return NAN;
+        s += p;
+    }
+    return s / w->n;
+}
+
+typedef struct solve_args {
+    const window *w;
+    double q;
+} solve_args;
+
+static double solve_fn(double x, void *data)
+{
+    const solve_args *a = data;
+    return mean_completeness(a->w, x) - a->q;
+}
+
+/* x with mean completeness q; NaN when none (saturation, numerics). */
+static double solve(const window *w, double q)
+{
+    double amax = 0;
+    for (int i = 0; i < w->n; i++)
+        amax = GL_MAX(amax, w->a[i]);
+    if (!(amax > 0))
+        return NAN;
+    solve_args args = {w, q};
+    /* delta = tau for the best fake: near the answer for small lobes */
+    double lo = 0, hi = w->tau / amax, f;
+    int it = 0;
+    while ((f = solve_fn(hi, &args)) < 0 && it++ < 40) {
+        lo = hi;
+        hi *= 2;
+    }
+    if (!(f >= 0))
+        return NAN; /* saturated: the lobes grow as fast as the signal */
+    gsl_function fn = {solve_fn, &args};
+    gsl_root_fsolver *s = gsl_root_fsolver_alloc(gsl_root_fsolver_brent);
+    if (!s)
+        return NAN;
+    double x = NAN;
+    gsl_root_fsolver_set(s, &fn, lo, hi);
+    for (int k = 0; k < 100; k++) {
+        if (gsl_root_fsolver_iterate(s) != GSL_SUCCESS)
+            break;
+        double a = gsl_root_fsolver_x_lower(s), b = gsl_root_fsolver_x_upper(s);
+        if (gsl_root_test_interval(a, b, 0, 1e-6) == GSL_SUCCESS) {
+            x = gsl_root_fsolver_root(s);
+            break;
+        }
+    }
+    gsl_root_fsolver_free(s);
+    return x;
+}
+
+void gl_limits_calibrate_point(limits_point *pt, const gl_limits_fake *fakes, int nfakes, int plane)
+{
+    pt->throughput = pt->throughput_scatter = pt->fakes_used = NAN;
+    pt->contrast = pt->completeness = pt->contrast_c50 = pt->contrast_cq = NAN;
+    double r[MAX_WINDOW], t[MAX_WINDOW], a[MAX_WINDOW], h[MAX_WINDOW];
+    int n = 0;
+    /* the fakes within the window; at least the two nearest */
+    for (int j = 0; j < nfakes && n < MAX_WINDOW; j++) {
+        const gl_limits_fake *f = &fakes[j];
+        if (fabs(f->sep_px - pt->sep_px) <= WINDOW_FWHM * pt->fwhm + 1e-9 &&
+            isfinite(f->throughput[plane]) && isfinite(f->signal[plane]) &&
+            isfinite(f->ref_spread[plane])) {
+            r[n] = f->sep_px;
+            t[n] = f->throughput[plane];
+            a[n] = f->signal[plane];
+            h[n] = f->ref_spread[plane];
+            n++;
+        }
+    }
+    for (int want = 1; n < 2 && want <= 2; want++) {
+        /* fewer than two in the window: the nearest ones (ends of the curve) */
+        double best = INFINITY;
+        int jb = -1;
+        for (int j = 0; j < nfakes; j++) {
+            const gl_limits_fake *f = &fakes[j];
+            double d = fabs(f->sep_px - pt->sep_px);
+            int used = 0;
+            for (int i = 0; i < n; i++)
+                used |= r[i] == f->sep_px;
+            if (!used && d < best && isfinite(f->throughput[plane]) && isfinite(f->signal[plane]) &&
+                isfinite(f->ref_spread[plane])) {
+                best = d;
+                jb = j;
+            }
+        }
+        if (jb < 0)
+            break;
+        r[n] = fakes[jb].sep_px;
+        t[n] = fakes[jb].throughput[plane];
+        a[n] = fakes[jb].signal[plane];
+        h[n] = fakes[jb].ref_spread[plane];
+        n++;
+    }
+    if (n == 0)
+        return;
+    double minspread = 0.05 * pt->fwhm;
+    double T = line_at(r, t, n, pt->sep_px, minspread);
+    double A = line_at(r, a, n, pt->sep_px, minspread);
+    pt->throughput = T;
+    pt->fakes_used = n;
+    if (n >= 3) {
+        double ss = 0;
+        for (int i = 0; i < n; i++) {
+            /* residual about the fit through all of them at that fake */
+            double d = t[i] - line_at(r, t, n, r[i], minspread);
+            ss += d * d;
+        }
+        pt->throughput_scatter = sqrt(ss / (n - 2));
+    }
+    /* a throughput below 1% leaves nothing to calibrate */
+    if (!(T > 0.01) || !(pt->noise > 0) || !isfinite(pt->tau) || !(pt->nref >= 2))
+        return;
+    double k = sqrt(1 + 1 / pt->nref);
+    window w = {.n = n, .tau = pt->tau, .nu = pt->nref - 1};
+    for (int i = 0; i < n; i++) {
+        /* move the fake's response to this separation by the trend ratio */
+        double at = line_at(r, a, n, r[i], minspread);
+        double s = (at > 0 && A > 0) ? A / at : 1;
+        w.a[i] = a[i] * s / k;
+        w.h[i] = h[i] * s;
+    }
+    double unit = pt->noise / pt->psf_flux; /* contrast of x = 1 */
+    pt->contrast = pt->tau * k * unit / T;  /* Mawet et al. 2014, the classical curve */
+    pt->completeness = mean_completeness(&w, pt->contrast / unit);
+    pt->contrast_c50 = solve(&w, 0.5) * unit;
+    pt->contrast_cq = solve(&w, pt->q) * unit;
+}

@@ -1,0 +1,30 @@
+/*
+ * limits/internal.h -- what the files of the contrast-curve stage share.
+ */
+#ifndef GLOAM_LIMITS_INTERNAL_H
+#define GLOAM_LIMITS_INTERNAL_H
+
+#include "gloam/limits.h"
+
+/* The calibration of one separation of one plane: what the curve knows there
+ * (noise, threshold, references) and where the results go. */
+typedef struct limits_point {
+    double sep_px, fwhm;
+    double noise;    /* sigma: std of the aperture sums (known sources left out) */
+    double tau;      /* t threshold */
+    double nref;     /* n2 */
+    double psf_flux; /* F */
+    double q;        /* completeness of the second curve */
+    /* results */
+    double throughput, throughput_scatter, fakes_used;
+    double contrast, completeness, contrast_c50, contrast_cq;
+} limits_point;
+
+/* Fills the results of pt from the fakes (plane `plane`): throughput by a
+ * local linear fit of the fakes within 1.5 FWHM, the classical contrast, and
+ * the contrasts at 50% and q completeness of the fake-averaged doubly
+ * noncentral t model (calibrate.c). Results NaN where no value exists. */
+void gl_limits_calibrate_point(limits_point *pt, const gl_limits_fake *fakes, int nfakes,
+                               int plane);
+
+#endif
