@@ -498,7 +498,9 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
                  res.fpf, lp.sigma);
         snprintf(n2, sizeof n2, "%s%s%s; FWHM %.2f px = aperture diameter; mask %.1f px",
                  gl_subtract_method_name(setup.p.method), modes_text[0] ? ", modes " : "",
-                 modes_text[0] ? modes_text : "", setup.p.fwhm, setup.p.mask_radius);
+                 modes_text[0] ? modes_text : "", setup.p.fwhm,
+                 gl_subtract_inner_radius(&setup.p, angles, cube->nframe, refs ? refs->nframe : 0,
+                                          cube->nx, cube->ny));
         if (lp.fake_level > 0)
             snprintf(n3, sizeof n3,
                      "throughput from %d fakes in %d runs at %g x noise; PSF scale %g", res.nfakes,
