@@ -18,7 +18,8 @@ static const char help[] =
     "calibrates the throughput with fake companions planted in extra runs of the same\n"
     "subtraction, and reports the contrast at 50% completeness and at a chosen\n"
     "completeness (Jensen-Clem et al. 2018). Writes PREFIX.limits.csv, .limits.fits,\n"
-    "PREFIX.limits.png, .limits.svg and PREFIX.fakes.csv.\n\n"
+    "PREFIX.limits.png, .limits.svg, .limits.pdf (one journal column wide) and\n"
+    "PREFIX.fakes.csv.\n\n"
     "options:\n"
     "  --angles FILE          parallactic angles (deg), one per frame (default: the\n"
     "                         cube's ANGLES table, written by gloam align)\n"
@@ -41,7 +42,10 @@ static const char help[] =
     "  --candidates FILE      a candidates CSV (gloam detect; columns sep_px, pa_deg): left\n"
     "                         out of the noise (apertures within 1 FWHM), fakes keep 2 FWHM\n"
     "                         away from them, and PREFIX.companions.csv gives\n"
-    "                         their throughput-corrected contrast in every plane\n"
+    "                         their throughput-corrected contrast in every plane; the\n"
+    "                         figures mark them (numbered diamonds, plane 1)\n"
+    "  --plot-every-plane     the figures show the 50% curve of every plane (mode count)\n"
+    "                         instead of plane 1's two curves\n"
     "subtraction options:\n";
 
 enum {
@@ -60,7 +64,8 @@ enum {
     OPT_EXCLUDE_OLD,
     OPT_PIXSCALE,
     OPT_TITLE,
-    OPT_CANDIDATES
+    OPT_CANDIDATES,
+    OPT_EVERY_PLANE
 };
 
 static int parse_limits_option(gl_cli *cli, int c, const char *arg, gl_limits_params *lp,
@@ -295,11 +300,13 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
                                          {"pixscale", required_argument, 0, OPT_PIXSCALE},
                                          {"title", required_argument, 0, OPT_TITLE},
                                          {"candidates", required_argument, 0, OPT_CANDIDATES},
+                                         {"plot-every-plane", no_argument, 0, OPT_EVERY_PLANE},
                                          CLI_SUBTRACT_OPTIONS,
                                          CLI_COMMON_OPTIONS,
                                          {0, 0, 0, 0}};
     const char *angles_path = NULL, *psf_path = NULL, *prefix = NULL, *title = NULL,
                *cand_path = NULL;
+    int every_plane = 0;
     cli_subtract_setup setup;
     cli_subtract_setup_init(&setup);
     gl_limits_params lp;
@@ -324,6 +331,7 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
         case OPT_OUT: prefix = optarg; break;
         case OPT_TITLE: title = optarg; break;
         case OPT_CANDIDATES: cand_path = optarg; break;
+        case OPT_EVERY_PLANE: every_plane = 1; break;
         default: return cli_bad_option(cli, argv);
         }
     }
@@ -521,8 +529,57 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
                                .title = ttl,
                                .nnotes = 5,
                                .notes = {n1, n2, n3, n4, n5}};
-        if ((st = gl_limits_plot_write(t_png, t_svg, &plot)) ||
-            (st = gl_limits_plot_write_pdf(t_pdf, &plot)))
+        /* every plane's 50% curve, one colour each */
+        char plane_label[GL_LIMITS_PLOT_MAX_CURVES][96];
+        if (every_plane && res.nplanes > 1) {
+            plot.ncurves =
+                res.nplanes < GL_LIMITS_PLOT_MAX_CURVES ? res.nplanes : GL_LIMITS_PLOT_MAX_CURVES;
+            for (int k = 0; k < plot.ncurves; k++) {
+                snprintf(plane_label[k], sizeof plane_label[k],
+                         "%g sigma, 50%% completeness, %ld modes", lp.sigma, res.modes[k]);
+                plot.curves[k].contrast = res.contrast_c50 + (size_t)k * (size_t)res.n;
+                plot.curves[k].label = plane_label[k];
+            }
+            snprintf(n4, sizeof n4,
+                     "every plane (mode count); star flux = scaled off-axis PSF "
+                     "total");
+        }
+        /* the candidates, at their throughput-corrected contrast in plane 1 */
+        double *mark_c = NULL;
+        char(*mark_l)[16] = NULL;
+        const char **mark_lp = NULL;
+        if (t_comp && lp.navoid > 0) {
+            mark_c = gl_calloc((size_t)lp.navoid, sizeof *mark_c);
+            mark_l = gl_calloc((size_t)lp.navoid, sizeof *mark_l);
+            mark_lp = gl_calloc((size_t)lp.navoid, sizeof *mark_lp);
+            if (!mark_c || !mark_l || !mark_lp) {
+                gl_free(mark_c);
+                gl_free(mark_l);
+                gl_free(mark_lp);
+                st = gl_error_nomem("candidate marks");
+                goto cleanup;
+            }
+            for (int i = 0; i < lp.navoid; i++) {
+                gl_limits_photometry ph;
+                mark_c[i] = gl_limits_photometry_at(&res, 0, cand_sep[i], cand_pa[i], &ph) == GL_OK
+                                ? ph.contrast
+                                : NAN;
+                gl_error_clear();
+                snprintf(mark_l[i], sizeof mark_l[i], "%d", i + 1);
+                mark_lp[i] = mark_l[i];
+            }
+            plot.nmarks = lp.navoid;
+            plot.mark_sep_px = cand_sep;
+            plot.mark_contrast = mark_c;
+            plot.mark_labels = mark_lp;
+        }
+        st = gl_limits_plot_write(t_png, t_svg, &plot);
+        if (!st)
+            st = gl_limits_plot_write_pdf(t_pdf, &plot);
+        gl_free(mark_c);
+        gl_free(mark_l);
+        gl_free(mark_lp);
+        if (st)
             goto cleanup;
     }
     if ((st = gl_outset_commit(outs)))

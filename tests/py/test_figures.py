@@ -66,3 +66,21 @@ def test_assumptions_travel_with_the_figure(pdf):
     assert "50% completeness" in text
     assert "FPF" in text and "Student-t" in text
     assert "throughput" in text
+
+
+def test_every_plane_and_the_candidates_on_the_figure(pdf, tmp_path):
+    """--plot-every-plane draws one 50% curve per mode count (named in the
+    legend), and --candidates marks each candidate, numbered."""
+    d = pdf.parent
+    cand = tmp_path / "cand.csv"
+    cand.write_text("rank,x,y,sep_px,pa_deg,snr\n1,40,40,12.0,45.0,7.0\n")
+    r = run("limits", d / "sim" / "cube.fits", "--angles", d / "sim" / "angles.txt", "--psf",
+            d / "sim" / "psf.fits", "--fwhm", 4, "--method", "klip-frame", "--modes", "3,5",
+            "--mask-radius", 4, "--fake-runs", 1, "--candidates", cand, "--plot-every-plane",
+            "--out", tmp_path / "lim")
+    assert r.returncode == 0, r.stderr
+    text = subprocess.run(["pdftotext", str(tmp_path / "lim.limits.pdf"), "-"], capture_output=True,
+                          text=True).stdout
+    assert "3 modes" in text and "5 modes" in text
+    assert "every plane" in text
+    assert (tmp_path / "lim.limits.png").exists() and (tmp_path / "lim.limits.svg").exists()
