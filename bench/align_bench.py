@@ -1,7 +1,7 @@
 #!/usr/bin/python3
 """Side-by-side timing of aligning a jittered cube by registration.
 
-gloam:  gloam align CUBE --out OUT --method register (process wall time,
+gloam:  gloam align CUBE --out OUT --method reference (process wall time,
         reading and writing FITS included)
 python: the numpy/scipy/scikit-image way: median reference frame,
         skimage.registration.phase_cross_correlation(upsample_factor=100,
@@ -64,7 +64,7 @@ def main():
         fits.PrimaryHDU(cube).writeto(src)
         t0 = time.perf_counter()
         subprocess.run([a.gloam, "align", src, "--out", os.path.join(d, "g.fits"), "--method",
-                        "register", "--table", os.path.join(d, "g.csv"), "--threads",
+                        "reference", "--table", os.path.join(d, "g.csv"), "--threads",
                         str(a.threads), "--quiet"], check=True)
         tg = time.perf_counter() - t0
         t = np.genfromtxt(os.path.join(d, "g.csv"), delimiter=",", names=True, dtype=None,

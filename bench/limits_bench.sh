@@ -44,7 +44,7 @@ yy, xx = np.mgrid[0:25, 0:25] - 12
 fits.PrimaryHDU((1e5 * np.exp(-(xx**2 + yy**2) / (2 * s * s))).astype(np.float32)).writeto(f"{d}/psf.fits")
 PY
 
-OPTS=(--angles "$DIR/angles.txt" --fwhm 4 --method pca --modes 5,10,20,50 --mask-radius 6
+OPTS=(--angles "$DIR/angles.txt" --fwhm 4 --method klip-frame --modes 5,10,20,50 --mask-radius 6
       --threads "$THREADS" --quiet)
 now() { date +%s.%N; }
 t0=$(now)

@@ -157,9 +157,9 @@ def main():
         args = ["subtract", path, "--angles", os.path.join(tmp, f"{case}.txt"), "--fwhm", FWHM,
                 "--out", os.path.join(tmp, f"{case}.out.fits"), "--mask-radius", 4]
         if case == "pca":
-            args += ["--method", "pca", "--modes", ",".join(map(str, modes))]
+            args += ["--method", "klip-frame", "--modes", ",".join(map(str, modes))]
         else:
-            args += ["--method", "annular", "--modes", 10, "--ring", 1, "--gap", 0.75]
+            args += ["--method", "klip-rings", "--modes", 10, "--ring", 1, "--gap", 0.75]
         wall, rss, la = run_gloam(o.gloam, args, o.threads)
         wall_c, _, _ = run_gloam(o.gloam, args + ["--interp", "cubic"], o.threads)
         print(f"\n[{case}] {nf} frames of {n}x{n} (cube {cube_mb:.0f} MB float32)")
