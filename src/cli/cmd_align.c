@@ -297,6 +297,11 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
             snprintf(src, sizeof src, "%s[%s]", in, GL_ANGLES_EXTNAME);
             gl_log(GL_LOG_INFO, "angles: %ld from the %s table of %s", nang, GL_ANGLES_EXTNAME, in);
             cli_check_angles(src, angles, nang);
+        } else {
+            gl_log(GL_LOG_INFO,
+                   "no angles given: the product carries no %s table (give --angles FILE or "
+                   "--angles-from-header for later steps to find them)",
+                   GL_ANGLES_EXTNAME);
         }
     } else {
         if ((st = gl_align_frame_times_read(in, cube->nframe, &mjd)))

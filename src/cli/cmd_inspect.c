@@ -109,6 +109,8 @@ static void print_text(const gl_inspect_report *r)
             printf("  the rotation reaches 1 FWHM at %.1f px\n", r->sep_one_fwhm_px);
         else
             printf("  no field rotation: angular differential imaging cannot work\n");
+    } else {
+        printf("\nangles      none given: the field rotation is not known (give --angles FILE)\n");
     }
 
     const gl_obsinfo *o = &r->obs;

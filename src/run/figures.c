@@ -202,15 +202,15 @@ gl_status run_figure_star_positions(const char *csv_path, const char *png_path)
     if (!(span > 0))
         span = 0.05;
     span *= 1.15;
-    const int W = 640, H = 300, L = 64, R = 16, T = 18, B = 42;
+    const int W = 640, H = 310, L = 64, R = 16, T = 18, B = 52;
     cairo_surface_t *s = cairo_image_surface_create(CAIRO_FORMAT_RGB24, W, H);
     cairo_t *cr = cairo_create(s);
     cairo_set_source_rgb(cr, 1, 1, 1);
     cairo_paint(cr);
-    double fmax = t->data[(size_t)(t->nrows - 1) * (size_t)t->ncols + cf];
-    if (!(fmax > 0))
-        fmax = 1;
-#define PX(f) (L + (W - L - R) * (f) / fmax)
+    double last_frame = t->data[(size_t)(t->nrows - 1) * (size_t)t->ncols + cf];
+    if (!(last_frame > 0))
+        last_frame = 1;
+#define PX(f) (L + (W - L - R) * (f) / last_frame)
 #define PY(d) (T + (H - T - B) * (0.5 - 0.5 * (d) / span))
     cairo_set_source_rgb(cr, 0.8, 0.78, 0.72);
     cairo_set_line_width(cr, 1);
@@ -218,6 +218,24 @@ gl_status run_figure_star_positions(const char *csv_path, const char *png_path)
     cairo_move_to(cr, L, PY(0));
     cairo_line_to(cr, W - R, PY(0));
     cairo_stroke(cr);
+    /* frame ticks: 1, 2 or 5 times a power of ten, about eight of them */
+    cairo_select_font_face(cr, "sans-serif", CAIRO_FONT_SLANT_NORMAL, CAIRO_FONT_WEIGHT_NORMAL);
+    cairo_set_font_size(cr, 11);
+    {
+        double raw = last_frame / 8, p10 = pow(10, floor(log10(raw > 1 ? raw : 1))), m = raw / p10;
+        double step = fmax(1, (m < 1.5 ? 1 : m < 3.5 ? 2 : m < 7.5 ? 5 : 10) * p10);
+        for (double fr = 0; fr <= last_frame + 1e-9; fr += step) {
+            char lab[32];
+            snprintf(lab, sizeof lab, "%.0f", fr);
+            cairo_set_source_rgb(cr, 0.8, 0.78, 0.72);
+            cairo_move_to(cr, PX(fr), H - B);
+            cairo_line_to(cr, PX(fr), H - B + 4);
+            cairo_stroke(cr);
+            cairo_set_source_rgb(cr, 0.14, 0.15, 0.17);
+            cairo_move_to(cr, PX(fr) - 6, H - B + 15);
+            cairo_show_text(cr, lab);
+        }
+    }
     for (int axis = 0; axis < 2; axis++) {
         int col = axis ? cy : cx;
         double m = axis ? my : mx;
@@ -258,11 +276,11 @@ gl_status run_figure_star_positions(const char *csv_path, const char *png_path)
     cairo_move_to(cr, 6, H - B);
     cairo_show_text(cr, label);
     snprintf(label, sizeof label, "frame 0 .. %.0f: star x (slate) and y (copper) minus their",
-             fmax);
-    cairo_move_to(cr, L, H - 22);
+             last_frame);
+    cairo_move_to(cr, L, H - 17);
     cairo_show_text(cr, label);
     snprintf(label, sizeof label, "median (%.2f, %.2f) px; rejected frames: red cross", mx, my);
-    cairo_move_to(cr, L, H - 7);
+    cairo_move_to(cr, L, H - 4);
     cairo_show_text(cr, label);
     cairo_destroy(cr);
     gl_csv_free(t);
