@@ -146,6 +146,17 @@ static int read_curve(const char *csv, int arcsec, curve *c)
     return c->n > 1;
 }
 
+/* Target i's line: a qualitative palette of our own, repeated with dashes. */
+static void curve_style(cairo_t *cr, int i)
+{
+    static const double pal[][3] = {{0.18, 0.23, 0.27}, {0.75, 0.46, 0.16}, {0.20, 0.52, 0.50},
+                                    {0.55, 0.24, 0.45}, {0.45, 0.55, 0.20}, {0.70, 0.22, 0.20}};
+    const double *c = pal[i % 6], dash[] = {6, 3};
+    cairo_set_dash(cr, dash, i / 6 % 2 ? 2 : 0, 0);
+    cairo_set_source_rgb(cr, c[0], c[1], c[2]);
+    cairo_set_line_width(cr, 1.8);
+}
+
 static gl_status contrast_figure(const char *path, const char *const *names, const curve *cv, int n,
                                  int arcsec)
 {
@@ -214,15 +225,8 @@ static gl_status contrast_figure(const char *path, const char *const *names, con
     cairo_save(cr);
     cairo_rectangle(cr, L, T, W - L - R, H - T - B);
     cairo_clip(cr);
-    /* a qualitative palette of our own, then repeated with dashes */
-    static const double pal[][3] = {{0.18, 0.23, 0.27}, {0.75, 0.46, 0.16}, {0.20, 0.52, 0.50},
-                                    {0.55, 0.24, 0.45}, {0.45, 0.55, 0.20}, {0.70, 0.22, 0.20}};
     for (int i = 0; i < n; i++) {
-        const double *c = pal[i % 6];
-        double dash[] = {6, 3};
-        cairo_set_dash(cr, dash, i / 6 % 2 ? 2 : 0, 0);
-        cairo_set_source_rgb(cr, c[0], c[1], c[2]);
-        cairo_set_line_width(cr, 1.8);
+        curve_style(cr, i);
         for (long k = 0; k < cv[i].n; k++) {
             if (k == 0)
                 cairo_move_to(cr, PX(cv[i].x[k]), PY(cv[i].y[k]));
@@ -233,11 +237,7 @@ static gl_status contrast_figure(const char *path, const char *const *names, con
     }
     cairo_restore(cr); /* the legend, outside the plot */
     for (int i = 0; i < n; i++) {
-        const double *c = pal[i % 6];
-        double dash[] = {6, 3};
-        cairo_set_dash(cr, dash, i / 6 % 2 ? 2 : 0, 0);
-        cairo_set_source_rgb(cr, c[0], c[1], c[2]);
-        cairo_set_line_width(cr, 1.8);
+        curve_style(cr, i);
         cairo_move_to(cr, W - R + 12, T + 14 + 18 * i);
         cairo_line_to(cr, W - R + 36, T + 14 + 18 * i);
         cairo_stroke(cr);
