@@ -297,11 +297,6 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
             snprintf(src, sizeof src, "%s[%s]", in, GL_ANGLES_EXTNAME);
             gl_log(GL_LOG_INFO, "angles: %ld from the %s table of %s", nang, GL_ANGLES_EXTNAME, in);
             cli_check_angles(src, angles, nang);
-        } else {
-            gl_log(GL_LOG_INFO,
-                   "no angles given: the product carries no %s table (give --angles FILE or "
-                   "--angles-from-header for later steps to find them)",
-                   GL_ANGLES_EXTNAME);
         }
     } else {
         if ((st = gl_align_frame_times_read(in, cube->nframe, &mjd)))
@@ -357,6 +352,11 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
     gl_log(GL_LOG_INFO, "wrote %s: %ld frame%s of %ldx%ld, star at (%ld, %ld)", out, r->nout,
            r->nout == 1 ? "" : "s", r->aligned->nx, r->aligned->ny, r->aligned->nx / 2,
            r->aligned->ny / 2);
+    if (!angles) /* said after the product, so that an error stays one line */
+        gl_log(GL_LOG_INFO,
+               "no angles given: %s carries no %s table (give --angles FILE or "
+               "--angles-from-header for later steps to find them)",
+               out, GL_ANGLES_EXTNAME);
 
 done:;
     int rc = st ? cli_fail(cli, st) : 0;
