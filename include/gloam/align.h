@@ -28,6 +28,7 @@
 #define GLOAM_ALIGN_H
 
 #include "gloam/core.h"
+#include "gloam/io.h"
 #include "gloam/geometry.h"
 
 #ifdef __cplusplus
@@ -257,6 +258,12 @@ GL_API gl_status gl_align_run(gl_cube *cube, const double *angles, const char *n
  * quality,flux,correlation,kept,reason[,angle]. angles may be NULL. */
 GL_API gl_status gl_align_table_write_csv(const char *path, const gl_align_result *r,
                                           const double *angles);
+
+/* Writes a bad-pixel map (the result's badpix_map, nx x ny) as a FITS image
+ * whose HISTORY explains the bits: 1 hot, 2 cold, 4 NaN, 8 transient.
+ * Errors: GL_ERR_IO naming path, GL_ERR_NOMEM. */
+GL_API gl_status gl_align_badpix_map_write(const char *path, const float *map, long nx, long ny,
+                                           const gl_provenance *prov);
 
 #ifdef __cplusplus
 }

@@ -232,6 +232,18 @@ GL_API gl_status gl_detect_maps_write(const char *path, const gl_detect_maps *ma
                                       const gl_header *header, const gl_detect_params *par,
                                       long plane, const gl_provenance *prov);
 
+/* The candidate table: PREFIX.candidates.csv and its FITS twin (extension
+ * CANDIDATES), one row per candidate best first: rank, x, y, sep_px,
+ * sep_arcsec, pa_deg, dra_arcsec, ddec_arcsec, flux, snr, fpf, sigma, noise,
+ * nref, peak_x, peak_y, peak_snr, gauss_fit, fit_fwhm; with planes (a cube
+ * of more than one plane, NULL: none) also snr_plane1..N, each candidate's
+ * S/N in every plane (at most 256). Errors: GL_ERR_IO naming the file,
+ * GL_ERR_NOMEM. */
+GL_API gl_status gl_detect_candidates_write(const char *csv, const char *fits,
+                                            const gl_candidate *cand, long ncand,
+                                            const gl_cube *planes, const gl_detect_params *par,
+                                            const gl_provenance *prov);
+
 #ifdef __cplusplus
 }
 #endif

@@ -85,6 +85,12 @@ GL_API void gl_obsinfo_from_header(const gl_header *h, gl_obsinfo *info);
  * not finite; empty). */
 GL_API gl_status gl_angles_read(const char *path, long expected, double **angles, long *n);
 
+/* Writes n angles (degrees, 8 decimals, one a line) to a text file that
+ * gl_angles_read reads back, with a comment line naming the product they
+ * belong to. Errors: GL_ERR_IO naming path. */
+GL_API gl_status gl_angles_write(const char *path, const double *angles, long n,
+                                 const char *product);
+
 /* Extension name of the angle table a product carries. */
 #define GL_ANGLES_EXTNAME "ANGLES"
 

@@ -7,6 +7,7 @@
 #define GLOAM_LIMITS_H
 
 #include "gloam/core.h"
+#include "gloam/io.h"
 #include "gloam/inject.h"
 #include "gloam/subtract.h"
 
@@ -124,6 +125,24 @@ typedef struct gl_limits_photometry {
  * aperture off the image or on missing data). */
 GL_API gl_status gl_limits_photometry_at(const gl_limits_result *r, int plane, double sep_px,
                                          double pa_deg, gl_limits_photometry *out);
+
+/* The tables of a contrast curve (see src/limits/products.c); paths are
+ * normally temporary names from gl_outset_add.
+ * gl_limits_tables_write: PREFIX.limits.csv and .fits (extension LIMITS), one
+ *   block of rows per plane, columns in TUNIT, keys (assumptions) in the
+ *   header; q is the chosen completeness (column names contrast_cNN);
+ *   pixscale in mas (<= 0: no arcsec column values).
+ * gl_limits_fakes_write: every fake companion planted and recovered.
+ * gl_limits_companions_write: the throughput-corrected contrast of the n
+ *   candidates at (sep, pa) in every plane, with its statistical error.
+ * Errors: GL_ERR_IO naming the file, GL_ERR_NOMEM. */
+GL_API gl_status gl_limits_tables_write(const char *csv, const char *fits,
+                                        const gl_limits_result *r, double pixscale, double q,
+                                        const gl_header *keys, const gl_provenance *prov);
+GL_API gl_status gl_limits_fakes_write(const char *csv, const gl_limits_result *r);
+GL_API gl_status gl_limits_companions_write(const char *csv, const gl_limits_result *r,
+                                            const double *sep, const double *pa, int n,
+                                            double pixscale);
 
 /* A contrast-curve figure: curves against separation, with notes (the
  * assumptions) printed on the figure. */

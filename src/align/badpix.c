@@ -168,3 +168,20 @@ cleanup:
     gl_free(tsig);
     return st;
 }
+
+gl_status gl_align_badpix_map_write(const char *path, const float *map, long nx, long ny,
+                                    const gl_provenance *prov)
+{
+    gl_cube *c = NULL;
+    gl_status st = gl_cube_new(nx, ny, 1, 1, &c);
+    if (st)
+        return st;
+    memcpy(c->data, map, (size_t)nx * (size_t)ny * sizeof *map);
+    gl_header_set_str(c->header, "BUNIT", "", "bit codes");
+    gl_header_add_history(c->header,
+                          "gloam bad-pixel map: bit 1 hot, 2 cold (both in the "
+                          "median frame), 4 NaN in some frame, 8 transient in some frame");
+    st = gl_fits_write_cube(path, c, prov);
+    gl_cube_free(c);
+    return st;
+}

@@ -72,37 +72,6 @@ enum {
     OPT_ANGLES_OUT
 };
 
-static gl_status write_angles(const char *path, const double *a, long n, const char *product)
-{
-    FILE *fp = fopen(path, "w");
-    if (!fp)
-        return gl_error_set(GL_ERR_IO, "%s: cannot create (%s)", path, strerror(errno));
-    fprintf(fp, "# parallactic angles (degrees) of the frames of %s\n", product);
-    for (long i = 0; i < n; i++)
-        fprintf(fp, "%.8f\n", a[i]);
-    int err = ferror(fp);
-    if (fclose(fp) != 0 || err)
-        return gl_error_set(GL_ERR_IO, "%s: write error", path);
-    return GL_OK;
-}
-
-static gl_status write_map(const char *path, const float *map, long nx, long ny,
-                           const gl_provenance *prov)
-{
-    gl_cube *c = NULL;
-    gl_status st = gl_cube_new(nx, ny, 1, 1, &c);
-    if (st)
-        return st;
-    memcpy(c->data, map, (size_t)nx * (size_t)ny * sizeof *map);
-    gl_header_set_str(c->header, "BUNIT", "", "bit codes");
-    gl_header_add_history(c->header,
-                          "gloam bad-pixel map: bit 1 hot, 2 cold (both in the "
-                          "median frame), 4 NaN in some frame, 8 transient in some frame");
-    st = gl_fits_write_cube(path, c, prov);
-    gl_cube_free(c);
-    return st;
-}
-
 /* --method NAME, with the first release's names still accepted (a note
  * each): gaussian and moffat are the core method with that profile,
  * register is reference, symmetry is halo (docs/names.md). */
@@ -343,9 +312,9 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
         goto done;
     if (t_table && (st = gl_align_table_write_csv(t_table, r, angles)))
         goto done;
-    if (t_map && (st = write_map(t_map, r->badpix_map, nx, ny, &cli->prov)))
+    if (t_map && (st = gl_align_badpix_map_write(t_map, r->badpix_map, nx, ny, &cli->prov)))
         goto done;
-    if (t_angles && (st = write_angles(t_angles, r->angles_out, r->nout, out)))
+    if (t_angles && (st = gl_angles_write(t_angles, r->angles_out, r->nout, out)))
         goto done;
     if ((st = gl_outset_commit(set)))
         goto done;

@@ -146,3 +146,95 @@ cleanup:
     gl_cube_free(c);
     return st;
 }
+
+gl_status gl_detect_candidates_write(const char *csv, const char *fits, const gl_candidate *cand,
+                                     long ncand, const gl_cube *planes, const gl_detect_params *par,
+                                     const gl_provenance *prov)
+{
+    enum { NFIXED = 19 };
+    static const char *fixed[NFIXED] = {
+        "rank",        "x",      "y",        "sep_px",    "sep_arcsec", "pa_deg", "dra_arcsec",
+        "ddec_arcsec", "flux",   "snr",      "fpf",       "sigma",      "noise",  "nref",
+        "peak_x",      "peak_y", "peak_snr", "gauss_fit", "fit_fwhm"};
+    static const char *units[NFIXED] = {"",       "pix", "pix", "pix", "arcsec", "deg", "arcsec",
+                                        "arcsec", "",    "",    "",    "sigma",  "",    "",
+                                        "pix",    "pix", "",    "",    "pix"};
+    gl_status st = GL_OK;
+    double *cols = NULL, *work = NULL;
+    char(*extra_names)[32] = NULL;
+    gl_aperture_plan *plan = NULL;
+    long nplanes = planes ? planes->nchan * planes->nframe : 0;
+    long nextra = nplanes > 1 ? nplanes : 0;
+    if (nextra > 256) {
+        gl_log(GL_LOG_WARN, "--every-plane: only the first 256 planes are reported");
+        nextra = 256;
+    }
+    int ncols = NFIXED + (int)nextra;
+    long nrows = ncand;
+    const char *names[NFIXED + 256], *unit_list[NFIXED + 256];
+    const double *colp[NFIXED + 256];
+    cols = gl_calloc((size_t)ncols * (size_t)(nrows > 0 ? nrows : 1), sizeof *cols);
+    extra_names = gl_calloc((size_t)(nextra > 0 ? nextra : 1), sizeof *extra_names);
+    if (!cols || !extra_names) {
+        st = gl_error_nomem("candidate table");
+        goto cleanup;
+    }
+    for (int k = 0; k < ncols; k++) {
+        colp[k] = cols + (size_t)k * (size_t)nrows;
+        if (k < NFIXED) {
+            names[k] = fixed[k];
+            unit_list[k] = units[k];
+        } else {
+            snprintf(extra_names[k - NFIXED], 32, "snr_plane%ld", (long)(k - NFIXED + 1));
+            names[k] = extra_names[k - NFIXED];
+            unit_list[k] = "";
+        }
+    }
+#define COL(k) (cols + (size_t)(k) * (size_t)nrows)
+    for (long r = 0; r < nrows; r++) {
+        const gl_candidate *cd = &cand[r];
+        double v[NFIXED] = {(double)(r + 1), cd->x,
+                            cd->y,           cd->sep_px,
+                            cd->sep_arcsec,  cd->pa_deg,
+                            cd->dra_arcsec,  cd->ddec_arcsec,
+                            cd->flux,        cd->stat.t,
+                            cd->stat.fpf,    cd->stat.significance,
+                            cd->stat.noise,  (double)cd->stat.nref,
+                            cd->peak_x,      cd->peak_y,
+                            cd->peak_snr,    cd->gaussian_fit,
+                            cd->fit_fwhm};
+        for (int k = 0; k < NFIXED; k++)
+            COL(k)[r] = v[k];
+    }
+    if (nextra > 0 && nrows > 0) {
+        const long nx = planes->nx, ny = planes->ny;
+        double diam = par->diameter > 0 ? par->diameter : par->fwhm;
+        if ((st = gl_detect_aperture_plan_new(0.5 * diam, &plan)))
+            goto cleanup;
+        work = gl_malloc(gl_detect_snr_worksize(plan, nx, ny) * sizeof *work);
+        if (!work) {
+            st = gl_error_nomem("work space");
+            goto cleanup;
+        }
+        for (long p = 0; p < nextra; p++)
+            for (long r = 0; r < nrows; r++) {
+                gl_ttest t;
+                gl_detect_snr_at(plan, par, planes->data + (size_t)p * gl_cube_plane_size(planes),
+                                 nx, ny, cand[r].x, cand[r].y, work, &t);
+                COL(NFIXED + p)[r] = t.t; /* NaN: no statistic in that plane */
+            }
+    }
+#undef COL
+    {
+        gl_table tab = {ncols, nrows, names, unit_list, colp, NULL};
+        if ((st = gl_table_write_csv(csv, &tab)) ||
+            (st = gl_table_write_fits(fits, &tab, "CANDIDATES", prov)))
+            goto cleanup;
+    }
+cleanup:
+    gl_free(work);
+    gl_detect_aperture_plan_free(plan);
+    gl_free(extra_names);
+    gl_free(cols);
+    return st;
+}

@@ -254,3 +254,17 @@ int gl_angles_constant(const double *a, long n)
     }
     return 1;
 }
+
+gl_status gl_angles_write(const char *path, const double *a, long n, const char *product)
+{
+    FILE *fp = fopen(path, "w");
+    if (!fp)
+        return gl_error_set(GL_ERR_IO, "%s: cannot create (%s)", path, strerror(errno));
+    fprintf(fp, "# parallactic angles (degrees) of the frames of %s\n", product);
+    for (long i = 0; i < n; i++)
+        fprintf(fp, "%.8f\n", a[i]);
+    int err = ferror(fp);
+    if (fclose(fp) != 0 || err)
+        return gl_error_set(GL_ERR_IO, "%s: write error", path);
+    return GL_OK;
+}
