@@ -173,10 +173,14 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
     if (!cube_path)
         return 1;
     {
-        const char *names[] = {"--psf", "--fwhm", "--out"}; /* angles: cli_read_cube_angles */
-        const void *vals[] = {psf_path, setup.have_fwhm ? names : NULL, prefix};
-        if (cli_missing(cli, 3, names, vals))
+        const char *names[] = {"--psf", "--out"}; /* angles: cli_read_cube_angles */
+        const void *vals[] = {psf_path, prefix};
+        if (cli_missing(cli, 2, names, vals))
             return 1;
+    }
+    if (!setup.have_fwhm) { /* --fwhm auto: measured on the PSF */
+        setup.p.fwhm = CLI_FWHM_AUTO;
+        setup.have_fwhm = 1;
     }
     if (cli_subtract_check(cli, &setup))
         return 1;

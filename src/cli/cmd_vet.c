@@ -478,10 +478,14 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
         return 1;
     {
         /* angles: cli_read_cube_angles (the cube's ANGLES table without --angles) */
-        const char *names[] = {"--psf", "--fwhm", "--candidates", "--out"};
-        const void *vals[] = {psf_path, setup.have_fwhm ? names : NULL, cand_path, prefix};
-        if (cli_missing(cli, 4, names, vals))
+        const char *names[] = {"--psf", "--candidates", "--out"};
+        const void *vals[] = {psf_path, cand_path, prefix};
+        if (cli_missing(cli, 3, names, vals))
             return 1;
+    }
+    if (!setup.have_fwhm) { /* --fwhm auto: measured on the PSF */
+        setup.p.fwhm = CLI_FWHM_AUTO;
+        setup.have_fwhm = 1;
     }
     if (cli_subtract_check(cli, &setup))
         return 1;

@@ -16,7 +16,8 @@
 
 const char cli_subtract_help[] =
     "  --fwhm PX|auto         PSF full width at half maximum, pixels; auto: measured on\n"
-    "                         --psf (limits, vet), else recorded in the input's header\n"
+    "                         --psf (limits, vet: the default), else recorded in the\n"
+    "                         input's header\n"
     "  --method NAME          how the star's light is modelled and removed (default klip-frame):\n"
     "                           median-frame: each frame minus the median of all frames\n"
     "                             (classical ADI)\n"

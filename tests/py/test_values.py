@@ -125,6 +125,11 @@ def test_fwhm_auto(sim, aligned, tmp_path):
     assert f"FWHM {fwhm_psf:.3f} px, measured on" in p.stderr
     with fits.open(tmp_path / "l.limits.fits") as h:
         assert any(abs(hd.header.get("GLFWHM", -1) - fwhm_psf) < 1e-9 for hd in h)
+    # limits and vet have a PSF: without --fwhm they measure it there too
+    p = gloam("limits", aligned, "--psf", sim / "psf.fits", "--out", tmp_path / "l0",
+              "--modes", "3")
+    assert f"FWHM {fwhm_psf:.3f} px, measured on" in p.stderr
+    assert (tmp_path / "l0.limits.csv").read_bytes() == (tmp_path / "l.limits.csv").read_bytes()
     # recorded by subtract, read by detect (default) and detect --fwhm auto
     gloam("subtract", aligned, "--fwhm", "3.7", "--out", tmp_path / "s.fits", "--quiet")
     assert fits.getheader(tmp_path / "s.fits")["GLSFWHM"] == 3.7
