@@ -13,6 +13,7 @@
  */
 #include "gloam/gloam.h"
 #include "check.h"
+#include "fixtures.h"
 
 #include <gsl/gsl_cdf.h>
 #include <gsl/gsl_randist.h>
@@ -100,32 +101,13 @@ static void test_completeness_lobes(void)
 }
 
 /* White Gaussian noise cube (no star) and a Gaussian PSF stamp. */
-static void make_inputs(long n, long nf, gl_cube **cube, double **angles, gl_cube **psf)
-{
-    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
-    gsl_rng_set(rng, 17);
-    CHECK(gl_cube_new(n, n, 1, nf, cube) == GL_OK, "cube");
-    CHECK(gl_cube_new(15, 15, 1, 1, psf) == GL_OK, "psf");
-    *angles = gl_malloc((size_t)nf * sizeof **angles);
-    for (size_t i = 0; i < gl_cube_size(*cube); i++)
-        (*cube)->data[i] = (float)gsl_ran_gaussian(rng, 1.0);
-    for (long f = 0; f < nf; f++)
-        (*angles)[f] = 90.0 * (double)f / (double)(nf - 1);
-    double s = 3.0 / (2 * sqrt(2 * log(2)));
-    for (long y = 0; y < 15; y++)
-        for (long x = 0; x < 15; x++)
-            (*psf)->data[y * 15 + x] =
-                (float)(50 * exp(-0.5 * ((x - 7) * (x - 7) + (y - 7) * (y - 7)) / (s * s)));
-    gsl_rng_free(rng);
-}
-
 static void test_curves(void)
 {
     gl_cube *cube = NULL, *psfc = NULL;
     double *angles = NULL;
     gl_psf_model *m1 = NULL, *m4 = NULL;
     gl_limits_result r1 = {0}, r4 = {0}, bad = {0};
-    make_inputs(40, 16, &cube, &angles, &psfc);
+    make_inputs(40, 16, 17, &cube, &angles, &psfc);
     gl_subtract_params sp;
     gl_subtract_params_init(&sp);
     sp.method = GL_SUBTRACT_MEDIAN;

@@ -10,6 +10,7 @@
  */
 #include "gloam/gloam.h"
 #include "check.h"
+#include "fixtures.h"
 
 #include <gsl/gsl_randist.h>
 #include <gsl/gsl_rng.h>
@@ -18,32 +19,13 @@
 
 /* White Gaussian noise (sigma 1), angles 0..90 deg, a Gaussian PSF of FWHM
  * 3 px and peak 50. */
-static void make_inputs(long n, long nf, gl_cube **cube, double **angles, gl_cube **psf)
-{
-    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
-    gsl_rng_set(rng, 23);
-    CHECK(gl_cube_new(n, n, 1, nf, cube) == GL_OK, "cube");
-    CHECK(gl_cube_new(15, 15, 1, 1, psf) == GL_OK, "psf");
-    *angles = gl_malloc((size_t)nf * sizeof **angles);
-    for (size_t i = 0; i < gl_cube_size(*cube); i++)
-        (*cube)->data[i] = (float)gsl_ran_gaussian(rng, 1.0);
-    for (long f = 0; f < nf; f++)
-        (*angles)[f] = 90.0 * (double)f / (double)(nf - 1);
-    double s = 3.0 / (2 * sqrt(2 * log(2)));
-    for (long y = 0; y < 15; y++)
-        for (long x = 0; x < 15; x++)
-            (*psf)->data[y * 15 + x] =
-                (float)(50 * exp(-0.5 * ((x - 7) * (x - 7) + (y - 7) * (y - 7)) / (s * s)));
-    gsl_rng_free(rng);
-}
-
 static void test_fit(void)
 {
     gl_cube *cube = NULL, *psfc = NULL;
     double *angles = NULL;
     gl_psf_model *psf = NULL;
     gl_vet_result r = {0}, bad = {0};
-    make_inputs(32, 12, &cube, &angles, &psfc);
+    make_inputs(32, 12, 23, &cube, &angles, &psfc);
     CHECK(gl_psf_model_new(psfc, "psf", 32, 32, 1, 1.0, &psf) == GL_OK, "psf model");
     gl_companion truth = {9, 70, 0.06};
     CHECK(gl_inject_companions(cube, angles, 0, psf, &truth, 1, NULL) == GL_OK, "plant");
