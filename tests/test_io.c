@@ -446,6 +446,61 @@ static void test_csv_roundtrip(void)
           "short row refused: %s", gl_error_message());
 }
 
+/* A CSV product brings its ECSV twin (NAME.ecsv): both committed together,
+ * an existing twin refused like the CSV itself, none left after an abort,
+ * and a stale twin removed when the CSV is replaced without one. */
+static void test_outset_twin(void)
+{
+    const char *sub = path_in("twin");
+    mkdir(sub, 0755);
+    char dest[512], twin[512];
+    snprintf(dest, sizeof dest, "%s/t.csv", sub);
+    snprintf(twin, sizeof twin, "%s/t.ecsv", sub);
+    const double a[] = {1, 2};
+    const char *names[] = {"sep_px"}, *units[] = {"pix"};
+    const double *cols[] = {a};
+    gl_table t = {1, 2, names, units, cols, NULL};
+
+    gl_outset *s = NULL;
+    const char *tmp = NULL;
+    gl_outset_new(0, &s);
+    CHECK(gl_outset_add(s, dest, NULL, &tmp) == GL_OK, "%s", gl_error_message());
+    CHECK(gl_table_write_csv(tmp, &t) == GL_OK, "table written");
+    CHECK(count_entries(sub) == 2, "CSV and twin under temporary names");
+    gl_outset_free(s);
+    CHECK(count_entries(sub) == 0, "abort leaves neither (%d entries)", count_entries(sub));
+
+    gl_outset_new(0, &s);
+    gl_outset_add(s, dest, NULL, &tmp);
+    gl_table_write_csv(tmp, &t);
+    CHECK(gl_outset_commit(s) == GL_OK, "commit: %s", gl_error_message());
+    gl_outset_free(s);
+    CHECK(access(dest, F_OK) == 0 && access(twin, F_OK) == 0 && count_entries(sub) == 2,
+          "CSV and ECSV in place");
+    FILE *fp = fopen(twin, "r");
+    char line[128] = "";
+    CHECK(fp && fgets(line, sizeof line, fp) && strcmp(line, "# %ECSV 1.0\n") == 0,
+          "twin starts with the ECSV signature: %s", line);
+    if (fp)
+        fclose(fp);
+
+    unlink(dest); /* the twin alone is still refused without --overwrite */
+    gl_outset_new(0, &s);
+    CHECK(gl_outset_add(s, dest, NULL, &tmp) == GL_ERR_EXISTS &&
+              strstr(gl_error_message(), "t.ecsv"),
+          "existing twin named: %s", gl_error_message());
+    gl_outset_free(s);
+
+    gl_outset_new(1, &s); /* replaced by a CSV written without a twin */
+    gl_outset_add(s, dest, NULL, &tmp);
+    write_text(tmp, "sep_px\n3\n");
+    CHECK(gl_outset_commit(s) == GL_OK, "commit: %s", gl_error_message());
+    gl_outset_free(s);
+    CHECK(access(dest, F_OK) == 0 && access(twin, F_OK) != 0, "no stale twin beside the CSV");
+    unlink(dest);
+    rmdir(sub);
+}
+
 /* The angle table of a product: written after the image, read back the
  * same; radian-looking and constant lists (issue 10). */
 static void test_angle_table(void)
@@ -495,6 +550,7 @@ int main(void)
     test_obsinfo_cube_wcs();
     test_many_axes();
     test_csv_roundtrip();
+    test_outset_twin();
     test_angle_table();
     /* remove what is left */
     DIR *dp = opendir(dir);

@@ -67,10 +67,11 @@ typedef struct gl_obsinfo {
     char instrument[72];
     char object[72];
     char filter[72];
-    int has_wcs;         /* a celestial WCS was parsed by wcslib */
-    double pixscale_mas; /* from the WCS (geometric mean of axis scales), or NaN */
-    double saturate;     /* SATURATE keyword, or NaN */
-    char found[512];     /* space-separated keywords found */
+    double wavelength_um; /* WAVELEN / WAVELENG / LAMBDA, micrometres (see obsinfo.c), or NaN */
+    int has_wcs;          /* a celestial WCS was parsed by wcslib */
+    double pixscale_mas;  /* from the WCS (geometric mean of axis scales), or NaN */
+    double saturate;      /* SATURATE keyword, or NaN */
+    char found[512];      /* space-separated keywords found */
 } gl_obsinfo;
 
 /* Fills info from a header; never fails (missing items stay NaN/""). */

@@ -9,6 +9,7 @@
  */
 #include "align/internal.h"
 #include "core/internal.h"
+#include "io/internal.h"
 
 #include <errno.h>
 #include <math.h>
@@ -545,5 +546,14 @@ gl_status gl_align_table_write_csv(const char *path, const gl_align_result *r, c
         unlink(path);
         return gl_error_set(GL_ERR_IO, "%s: write error", path);
     }
-    return GL_OK;
+    /* the ECSV twin: types and units of the columns above */
+    static const gl_ecsv_column cols[] = {
+        {"frame", NULL, "int64"},     {"x", "pix", "float64"},     {"y", "pix", "float64"},
+        {"x_err", "pix", "float64"},  {"y_err", "pix", "float64"}, {"method", NULL, "string"},
+        {"quality", NULL, "float64"}, {"flux", NULL, "float64"},   {"correlation", NULL, "float64"},
+        {"kept", NULL, "int64"},      {"reason", NULL, "string"},  {"angle", "deg", "float64"}};
+    gl_status st = gl_table_ecsv_write(path, angles ? 12 : 11, cols, NULL);
+    if (st)
+        unlink(path);
+    return st;
 }

@@ -133,6 +133,8 @@ static void print_text(const gl_inspect_report *r)
         printf("  object    %s\n", o->object);
     if (o->filter[0])
         printf("  filter    %s\n", o->filter);
+    if (isfinite(o->wavelength_um))
+        printf("  wavelength %.4g um\n", o->wavelength_um);
     if (o->has_wcs)
         printf("  WCS       celestial; pixel scale %.4f mas\n", o->pixscale_mas);
     else

@@ -157,7 +157,7 @@ gl_status gl_detect_candidates_write(const char *csv, const char *fits, const gl
         "ddec_arcsec", "flux",   "snr",      "fpf",       "sigma",      "noise",  "nref",
         "peak_x",      "peak_y", "peak_snr", "gauss_fit", "fit_fwhm"};
     static const char *units[NFIXED] = {"",       "pix", "pix", "pix", "arcsec", "deg", "arcsec",
-                                        "arcsec", "",    "",    "",    "sigma",  "",    "",
+                                        "arcsec", "",    "",    "",    "",       "",    "",
                                         "pix",    "pix", "",    "",    "pix"};
     gl_status st = GL_OK;
     double *cols = NULL, *work = NULL;

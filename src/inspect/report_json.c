@@ -65,6 +65,7 @@ static cJSON *header_json(const gl_obsinfo *h)
     cJSON_AddStringToObject(o, "instrument", h->instrument);
     cJSON_AddStringToObject(o, "object", h->object);
     cJSON_AddStringToObject(o, "filter", h->filter);
+    add_num(o, "wavelength_um", h->wavelength_um);
     cJSON_AddBoolToObject(o, "wcs", h->has_wcs);
     add_num(o, "pixscale_mas", h->pixscale_mas);
     add_num(o, "saturate", h->saturate);

@@ -48,4 +48,21 @@ const gl_header *gl_fits_stream_header(const gl_fits_stream *s);
 gl_status gl_fits_stream_frames(gl_fits_stream *s, long f0, long nf, float *dst);
 gl_status gl_fits_stream_rows(gl_fits_stream *s, long y0, long nrows, float *dst);
 
+/* The ECSV twin of a CSV table (table.c): PATH.csv -> PATH.ecsv, any other
+ * name + ".ecsv" (the rule gl_outset_add follows for a CSV product's twin). */
+void gl_table_ecsv_name(const char *csv, char *buf, size_t size);
+
+/* One column of an ECSV header: datatype "float64", "int64", "bool" or
+ * "string"; unit NULL or "" for none. */
+typedef struct gl_ecsv_column {
+    const char *name, *unit, *datatype;
+} gl_ecsv_column;
+
+/* Writes the ECSV twin of the CSV file csv_path (already written, its first
+ * line the column names): the ECSV 1.0 header (delimiter ',', the columns,
+ * meta's keywords as metadata when given) followed by the CSV's lines.
+ * Errors: GL_ERR_IO (naming the file); on error no twin is left. */
+gl_status gl_table_ecsv_write(const char *csv_path, int ncols, const gl_ecsv_column *cols,
+                              const gl_header *meta);
+
 #endif

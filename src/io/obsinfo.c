@@ -1,8 +1,8 @@
 /*
  * obsinfo.c -- observation metadata from a header: time (DATE-OBS, MJD-OBS,
- * EXPTIME), pointing (RA, DEC), site, instrument, saturation level, and the
- * celestial WCS, parsed by wcslib (gl_header_wcs_parse) rather than by hand. Calendar
- * dates become MJD through ERFA (eraDtf2d, UTC scale).
+ * EXPTIME), pointing (RA, DEC), site, instrument, filter and wavelength,
+ * saturation level, and the celestial WCS, parsed by wcslib (gl_header_wcs_parse) rather than by
+ * hand. Calendar dates become MJD through ERFA (eraDtf2d, UTC scale).
  */
 #include "core/internal.h"
 #include "io/internal.h"
@@ -16,6 +16,7 @@
 #include <string.h>
 #include <wcslib/wcs.h>
 #include <wcslib/wcshdr.h>
+#include <wcslib/wcsunits.h>
 
 static void note_found(gl_obsinfo *info, const char *key)
 {
@@ -116,12 +117,70 @@ static void parse_wcs(const gl_header *h, gl_obsinfo *info)
     wcsvfree(&nwcs, &wcs);
 }
 
+/* The unit a keyword's comment gives in square brackets at its start
+ * ("/ [nm] central wavelength", FITS Standard 4.0, section 4.3.2); "" when
+ * none. Typed keywords are looked at before carried cards, as the getters do. */
+static void comment_unit(const gl_header *h, const char *key, char *unit, size_t size)
+{
+    const char *comment = NULL;
+    unit[0] = '\0';
+    for (int k = 0; k < h->nkeys && !comment; k++)
+        if (strcmp(h->keys[k].name, key) == 0)
+            comment = h->keys[k].comment;
+    size_t len = strlen(key);
+    for (int c = 0; c < h->ncards && !comment; c++) {
+        const char *card = h->cards[c];
+        if (strncmp(card, key, len) == 0 && (card[len] == ' ' || card[len] == '=') &&
+            strncmp(card + 8, "= ", 2) == 0) {
+            const char *v = card + 10;
+            while (*v == ' ')
+                v++;
+            if (*v == '\'') /* a text value: its own quotes first */
+                for (v++; *v && !(*v == '\'' && v[1] != '\''); v += *v == '\'' ? 2 : 1)
+                    ;
+            comment = strchr(v, '/');
+            comment = comment ? comment + 1 : "";
+        }
+    }
+    if (!comment)
+        return;
+    while (*comment == ' ')
+        comment++;
+    const char *close = *comment == '[' ? strchr(comment, ']') : NULL;
+    if (close)
+        snprintf(unit, size, "%.*s", (int)(close - comment - 1), comment + 1);
+}
+
+/* The wavelength in micrometres: the unit in the keyword's comment converted
+ * by wcslib (wcsunits); without one, micrometres below 100 and nanometres
+ * above (no coronagraph observes at 100 um or at 100 nm). */
+static double wavelength_key(const gl_header *h, gl_obsinfo *info)
+{
+    static const char *const keys[] = {"WAVELEN", "WAVELENG", "LAMBDA", NULL};
+    for (int i = 0; keys[i]; i++) {
+        double v, scale, offset, power;
+        char unit[72];
+        if (!gl_header_get_dbl(h, keys[i], &v) || !(v > 0) || !isfinite(v))
+            continue;
+        comment_unit(h, keys[i], unit, sizeof unit);
+        if (!unit[0])
+            v = v < 100 ? v : v * 1e-3;
+        else if (wcsunits(unit, "um", &scale, &offset, &power) == 0 && offset == 0 && power == 1)
+            v *= scale;
+        else
+            continue; /* a unit that is not a length */
+        note_found(info, keys[i]);
+        return v;
+    }
+    return NAN;
+}
+
 void gl_obsinfo_from_header(const gl_header *h, gl_obsinfo *info)
 {
     memset(info, 0, sizeof *info);
     info->mjd_obs = info->exptime = info->ra_deg = info->dec_deg = NAN;
     info->site_lat_deg = info->site_lon_deg = info->site_height_m = NAN;
-    info->pixscale_mas = info->saturate = NAN;
+    info->pixscale_mas = info->saturate = info->wavelength_um = NAN;
     if (!h)
         return;
 
@@ -154,6 +213,7 @@ void gl_obsinfo_from_header(const gl_header *h, gl_obsinfo *info)
     first_str(h, info, k_ins, info->instrument, sizeof info->instrument);
     first_str(h, info, k_obj, info->object, sizeof info->object);
     first_str(h, info, k_fil, info->filter, sizeof info->filter);
+    info->wavelength_um = wavelength_key(h, info);
     info->saturate = first_dbl(h, info, k_sat);
     parse_wcs(h, info);
 }

@@ -6,6 +6,8 @@
  * midway leaves no partial product and never replaces an existing file. A
  * destination that exists is refused at registration unless overwriting was
  * asked for; a destination that is one of the inputs is always refused.
+ * A CSV product (NAME.csv) brings its ECSV twin (NAME.ecsv, written by the
+ * table writer beside the CSV's temporary name) under the same rules.
  */
 #include "core/internal.h"
 #include "io/internal.h"
@@ -62,6 +64,7 @@ gl_status gl_outset_error_names(gl_status st)
 typedef struct outfile {
     char *path;
     char *tmp;
+    int twin; /* the ECSV twin of the CSV product before it */
 } outfile;
 
 struct gl_outset {
@@ -88,8 +91,8 @@ static int same_file(const char *a, const char *b)
     return sa.st_dev == sb.st_dev && sa.st_ino == sb.st_ino;
 }
 
-gl_status gl_outset_add(gl_outset *s, const char *path, const gl_provenance *prov,
-                        const char **tmp_path)
+/* The checks a destination must pass before it is registered. */
+static gl_status check_destination(const gl_outset *s, const char *path, const gl_provenance *prov)
 {
     struct stat sb;
     if (!path || !*path)
@@ -111,19 +114,17 @@ gl_status gl_outset_add(gl_outset *s, const char *path, const gl_provenance *pro
     if (!copy)
         return gl_error_nomem("output path");
     char *dir = dirname(copy);
-    if (stat(dir, &sb) != 0 || !S_ISDIR(sb.st_mode)) {
-        gl_status st =
-            gl_error_set(GL_ERR_IO, "%s: the output folder %s does not exist", path, dir);
-        gl_free(copy);
-        return st;
-    }
-    if (access(dir, W_OK | X_OK) != 0) {
-        gl_status st = gl_error_set(GL_ERR_IO, "%s: folder %s is not writable", path, dir);
-        gl_free(copy);
-        return st;
-    }
+    gl_status st = GL_OK;
+    if (stat(dir, &sb) != 0 || !S_ISDIR(sb.st_mode))
+        st = gl_error_set(GL_ERR_IO, "%s: the output folder %s does not exist", path, dir);
+    else if (access(dir, W_OK | X_OK) != 0)
+        st = gl_error_set(GL_ERR_IO, "%s: folder %s is not writable", path, dir);
     gl_free(copy);
+    return st;
+}
 
+static gl_status add_file(gl_outset *s, const char *path, const char *tmp_given, int twin)
+{
     if (s->n == s->cap) {
         int ncap = s->cap ? 2 * s->cap : 8;
         outfile *nf = gl_calloc((size_t)ncap, sizeof *nf);
@@ -143,16 +144,44 @@ gl_status gl_outset_add(gl_outset *s, const char *path, const gl_provenance *pro
         gl_free(p2);
         return gl_error_nomem("output path");
     }
-    /* temporary name beside the destination: DIR/.BASE.tmp-PID-N */
-    const char *slash = strrchr(path, '/');
-    int dirlen = slash ? (int)(slash - path + 1) : 0;
-    snprintf(tmp, len, "%.*s.%s.tmp-%ld-%d", dirlen, path, slash ? slash + 1 : path, (long)getpid(),
-             s->n);
-    s->files[s->n].path = p2;
-    s->files[s->n].tmp = tmp;
+    if (tmp_given) {
+        snprintf(tmp, len, "%s", tmp_given);
+    } else { /* temporary name beside the destination: DIR/.BASE.tmp-PID-N */
+        const char *slash = strrchr(path, '/');
+        int dirlen = slash ? (int)(slash - path + 1) : 0;
+        snprintf(tmp, len, "%.*s.%s.tmp-%ld-%d", dirlen, path, slash ? slash + 1 : path,
+                 (long)getpid(), s->n);
+    }
+    s->files[s->n] = (outfile){.path = p2, .tmp = tmp, .twin = twin};
     remember_names(tmp, path);
     s->n++;
-    *tmp_path = tmp;
+    return GL_OK;
+}
+
+gl_status gl_outset_add(gl_outset *s, const char *path, const gl_provenance *prov,
+                        const char **tmp_path)
+{
+    gl_status st = check_destination(s, path, prov);
+    size_t n = path ? strlen(path) : 0;
+    const int csv = n >= 4 && strcmp(path + n - 4, ".csv") == 0;
+    char twin[4096], twin_tmp[4096 + 80];
+    if (!st && csv) {
+        gl_table_ecsv_name(path, twin, sizeof twin);
+        st = check_destination(s, twin, prov);
+    }
+    if (st || (st = add_file(s, path, NULL, 0)))
+        return st;
+    *tmp_path = s->files[s->n - 1].tmp;
+    if (csv) {
+        gl_table_ecsv_name(*tmp_path, twin_tmp, sizeof twin_tmp);
+        if ((st = add_file(s, twin, twin_tmp, 1))) {
+            s->n--;
+            gl_free(s->files[s->n].path);
+            gl_free(s->files[s->n].tmp);
+            return st;
+        }
+        *tmp_path = s->files[s->n - 2].tmp;
+    }
     return GL_OK;
 }
 
@@ -160,10 +189,18 @@ gl_status gl_outset_commit(gl_outset *s)
 {
     for (int i = 0; i < s->n; i++) {
         struct stat sb;
-        if (stat(s->files[i].tmp, &sb) != 0)
+        if (!s->files[i].twin && stat(s->files[i].tmp, &sb) != 0)
             return gl_error_set(GL_ERR_INTERNAL, "%s: product was not written", s->files[i].path);
     }
     for (int i = 0; i < s->n; i++) {
+        struct stat sb;
+        if (s->files[i].twin && stat(s->files[i].tmp, &sb) != 0) {
+            /* a CSV written without its twin: no stale twin stays beside it */
+            unlink(s->files[i].path);
+            gl_free(s->files[i].tmp);
+            s->files[i].tmp = NULL;
+            continue;
+        }
         if (rename(s->files[i].tmp, s->files[i].path) != 0)
             return gl_error_set(GL_ERR_IO, "%s: cannot rename into place (%s)", s->files[i].path,
                                 strerror(errno));

@@ -3,7 +3,11 @@
  * numbers at full double precision) and the same columns as a FITS binary
  * table extension through cfitsio, optionally led by one column of text (a
  * target's name, quoted in CSV as RFC 4180 says where needed); reading both
- * back (gl_csv).
+ * back (gl_csv). Every CSV file gets an ECSV twin (ECSV 1.0, the Astropy
+ * project's "Enhanced Character Separated Values" format, APE 6): the same
+ * lines under a commented YAML header that gives each column's type and
+ * unit, so that a reader gets the units the FITS twin has in TUNITn while
+ * the CSV keeps its one header line.
  */
 #include "core/internal.h"
 #include "io/internal.h"
@@ -26,6 +30,109 @@ static void print_double(FILE *fp, double v)
 gl_status gl_table_write_csv(const char *path, const gl_table *t)
 {
     return gl_table_write_csv_labelled(path, t, NULL, NULL);
+}
+
+void gl_table_ecsv_name(const char *csv, char *buf, size_t size)
+{
+    size_t n = strlen(csv);
+    if (n >= 4 && strcmp(csv + n - 4, ".csv") == 0)
+        snprintf(buf, size, "%.*s.ecsv", (int)(n - 4), csv);
+    else
+        snprintf(buf, size, "%s.ecsv", csv);
+}
+
+/* A YAML scalar in single quotes ('' stands for a quote; YAML 1.1, 7.3.2). */
+static void yaml_quoted(FILE *fp, const char *s)
+{
+    fputc('\'', fp);
+    for (; *s; s++) {
+        if (*s == '\'')
+            fputc('\'', fp);
+        if ((unsigned char)*s >= 0x20)
+            fputc(*s, fp);
+    }
+    fputc('\'', fp);
+}
+
+gl_status gl_table_ecsv_write(const char *csv_path, int ncols, const gl_ecsv_column *cols,
+                              const gl_header *meta)
+{
+    char path[4096];
+    gl_table_ecsv_name(csv_path, path, sizeof path);
+    FILE *in = fopen(csv_path, "r");
+    if (!in)
+        return gl_error_set(GL_ERR_IO, "%s: cannot read back (%s)", csv_path, strerror(errno));
+    FILE *fp = fopen(path, "w");
+    if (!fp) {
+        fclose(in);
+        return gl_error_set(GL_ERR_IO, "%s: cannot create (%s)", path, strerror(errno));
+    }
+    fputs("# %ECSV 1.0\n# ---\n# delimiter: ','\n# datatype:\n", fp);
+    for (int c = 0; c < ncols; c++) {
+        fputs("# - {name: ", fp);
+        yaml_quoted(fp, cols[c].name);
+        if (cols[c].unit && cols[c].unit[0]) {
+            fputs(", unit: ", fp);
+            yaml_quoted(fp, cols[c].unit);
+        }
+        fprintf(fp, ", datatype: %s}\n", cols[c].datatype ? cols[c].datatype : "float64");
+    }
+    /* the keywords the FITS twin carries for this table, as its metadata */
+    if (meta && meta->nkeys > 0) {
+        fputs("# meta: !!omap\n", fp);
+        for (int k = 0; k < meta->nkeys; k++) {
+            const gl_key *key = &meta->keys[k];
+            fputs("# - ", fp);
+            yaml_quoted(fp, key->name);
+            fputs(": ", fp);
+            switch (key->type) {
+            case GL_KEY_STR: yaml_quoted(fp, key->sval); break;
+            case GL_KEY_DBL:
+                if (isfinite(key->dval))
+                    fprintf(fp, "%.17g", key->dval);
+                else
+                    fputs(".nan", fp);
+                break;
+            case GL_KEY_INT: fprintf(fp, "%ld", key->ival); break;
+            case GL_KEY_BOOL: fputs(key->ival ? "true" : "false", fp); break;
+            }
+            fputc('\n', fp);
+        }
+    }
+    fputs("# schema: astropy-2.0\n", fp);
+    char buf[1 << 15];
+    size_t n;
+    while ((n = fread(buf, 1, sizeof buf, in)) > 0)
+        fwrite(buf, 1, n, fp);
+    int err = ferror(in) || ferror(fp);
+    fclose(in);
+    if (fclose(fp) != 0 || err) {
+        unlink(path);
+        return gl_error_set(GL_ERR_IO, "%s: write error", path);
+    }
+    return GL_OK;
+}
+
+/* The CSV of a table and its ECSV twin; a failure leaves neither. */
+static gl_status write_csv_twin(const char *path, const gl_table *t, const char *label_name,
+                                int labelled)
+{
+    const int n = t->ncols + labelled;
+    gl_ecsv_column *cols = gl_calloc((size_t)n, sizeof *cols);
+    if (!cols) {
+        unlink(path);
+        return gl_error_nomem("table columns");
+    }
+    if (labelled)
+        cols[0] = (gl_ecsv_column){label_name, NULL, "string"};
+    for (int c = 0; c < t->ncols; c++)
+        cols[c + labelled] =
+            (gl_ecsv_column){t->names[c], t->units ? t->units[c] : NULL, "float64"};
+    gl_status st = gl_table_ecsv_write(path, n, cols, t->header);
+    gl_free(cols);
+    if (st)
+        unlink(path);
+    return st;
 }
 
 gl_status gl_table_write_csv_labelled(const char *path, const gl_table *t, const char *label_name,
@@ -74,12 +181,13 @@ gl_status gl_table_write_csv_labelled(const char *path, const gl_table *t, const
         unlink(path);
         return gl_error_set(GL_ERR_IO, "%s: write error", path);
     }
-    return GL_OK;
+    return write_csv_twin(path, t, label_name, lab);
 }
 
 /* What was observed, so that a table read on its own says of what star,
  * when, with which filter and at which pixel scale (FITS Standard 4.0
- * keywords; the scale as GLPIXSC, mas per pixel). */
+ * keywords; the wavelength as WAVELEN, micrometres; the scale as GLPIXSC,
+ * mas per pixel). */
 static void write_observation(fitsfile *f, const gl_provenance *prov, int *status)
 {
     if (!prov || !prov->has_obs)
@@ -97,6 +205,9 @@ static void write_observation(fitsfile *f, const gl_provenance *prov, int *statu
             fits_update_key_str(f, text[i].key, text[i].value, text[i].comment, status);
     if (isfinite(o->mjd_obs))
         fits_update_key_dbl(f, "MJD-OBS", o->mjd_obs, -15, "MJD of the start of the observation",
+                            status);
+    if (isfinite(o->wavelength_um))
+        fits_update_key_dbl(f, "WAVELEN", o->wavelength_um, -12, "[um] wavelength of the data",
                             status);
     if (isfinite(o->pixscale_mas))
         fits_update_key_dbl(f, "GLPIXSC", o->pixscale_mas, -12, "pixel scale, mas (from the WCS)",

@@ -283,3 +283,77 @@ def test_tables_say_what_was_observed(tmp_path):
     w = WCS(cube).celestial
     want = 3.6e6 * np.sqrt(np.prod(proj_plane_pixel_scales(w)))
     assert table["GLPIXSC"] == pytest.approx(want, rel=1e-9)
+
+
+def test_csv_tables_have_ecsv_twins_with_units(tmp_path):
+    """Every CSV table has an ECSV twin (ECSV 1.0, Astropy APE 6) that
+    astropy.table reads with the units the FITS twin gives in TUNITn and the
+    same values as the CSV (read with astropy's plain CSV reader); the limits
+    table's keywords come along as metadata; the star-position table keeps
+    its text columns."""
+    from astropy.table import Table
+    gloam = os.environ["GLOAM"]
+    sim = tmp_path / "sim"
+    run = lambda *a: subprocess.run([gloam, *map(str, a)], capture_output=True, text=True)
+    r = run("simulate", sim, "--frames", 16, "--size", 64, "--seed", 5, "--companion", "12:40:5e-3")
+    assert r.returncode == 0, r.stderr
+    r = run("align", sim / "cube.fits", "--angles", sim / "angles.txt", "--out",
+            tmp_path / "a.fits", "--table", tmp_path / "s.csv")
+    assert r.returncode == 0, r.stderr
+    r = run("subtract", tmp_path / "a.fits", "--fwhm", 4,
+            "--method", "median-frame", "--out", tmp_path / "r.fits")
+    assert r.returncode == 0, r.stderr
+    r = run("detect", tmp_path / "r.fits", "--fwhm", 4, "--threshold", 2, "--out", tmp_path / "d")
+    assert r.returncode == 0, r.stderr
+    r = run("limits", tmp_path / "a.fits", "--psf",
+            sim / "psf.fits", "--fwhm", 4, "--method", "median-frame", "--out", tmp_path / "l")
+    assert r.returncode == 0, r.stderr
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # an unknown unit would warn
+        for stem, ext in (("d.candidates", "CANDIDATES"), ("l.limits", "LIMITS")):
+            e = Table.read(tmp_path / f"{stem}.ecsv", format="ascii.ecsv")
+            c = Table.read(tmp_path / f"{stem}.csv", format="ascii.csv")
+            with fits.open(tmp_path / f"{stem}.fits") as hdul:
+                f = hdul[ext].copy()
+            assert e.colnames == c.colnames == f.columns.names
+            for name in e.colnames:
+                unit = f.columns[name].unit or None
+                assert (str(e[name].unit) if e[name].unit else None) == unit, name
+                a = np.ma.filled(np.ma.asarray(e[name], dtype=float), np.nan)
+                b = np.ma.filled(np.ma.asarray(c[name], dtype=float), np.nan)
+                np.testing.assert_array_equal(a, b, err_msg=name)
+        lim = Table.read(tmp_path / "l.limits.ecsv", format="ascii.ecsv")
+        hdr = fits.getheader(tmp_path / "l.limits.fits", "LIMITS")
+        assert lim.meta, "the limits keywords as metadata"
+        for key, value in lim.meta.items():
+            assert hdr[key] == pytest.approx(value) if isinstance(value, float) else \
+                hdr[key] == value, key
+        s = Table.read(tmp_path / "s.ecsv", format="ascii.ecsv")
+    assert len(s) == 16 and str(s["x"].unit) == "pix" and str(s["angle"].unit) == "deg"
+    assert s["method"].dtype.kind in "US"
+    assert (tmp_path / "s.ecsv").read_text().splitlines()[-16:] == \
+        (tmp_path / "s.csv").read_text().splitlines()[-16:]
+
+
+@pytest.mark.parametrize("card,want_um", [
+    ("WAVELENG= 1650.0 / [nm] central wavelength", (1650, "nm")),
+    ("LAMBDA  = 21800.0 / [Angstrom]", (21800, "Angstrom")),
+    ("WAVELEN = 2.2 / no unit: micrometres", (2.2, "um")),
+    ("WAVELEN = 1250.0 / no unit, too large for micrometres: nanometres", (1250, "nm")),
+])
+def test_tables_carry_the_wavelength(tmp_path, card, want_um):
+    """WAVELEN in micrometres on every FITS table, converted from the unit
+    the keyword's comment gives in brackets (FITS Standard 4.0 sec. 4.3.2);
+    the conversion checked against astropy.units."""
+    import astropy.units as u
+    gloam = os.environ["GLOAM"]
+    rng = np.random.default_rng(1)
+    hdu = fits.PrimaryHDU(rng.normal(size=(64, 64)).astype(np.float32))
+    hdu.header.append(fits.Card.fromstring(card))
+    hdu.writeto(tmp_path / "img.fits")
+    r = subprocess.run([gloam, "detect", str(tmp_path / "img.fits"), "--fwhm", "4",
+                        "--out", str(tmp_path / "d")], capture_output=True, text=True)
+    assert r.returncode == 0, r.stderr
+    got = fits.getheader(tmp_path / "d.candidates.fits", "CANDIDATES")["WAVELEN"]
+    value, unit = want_um
+    assert got == pytest.approx((value * u.Unit(unit)).to_value(u.um), rel=1e-12)
