@@ -132,16 +132,51 @@ static void shear_rows(const gl_geom_plan *p, gl_geom_work *w, double a, long lo
     }
 }
 
-/* y-shear: column i moves by b (i - C). */
-static void shear_cols(const gl_geom_plan *p, gl_geom_work *w, double b, long lo, long hi)
+/* Last row of the batches that shear_rows runs for rows lo..hi. */
+static long batch_end(long lo, long hi, long P)
 {
+    long j0 = batch_start(lo);
+    long e = j0 + ((hi - j0) / GL_GEOM_BATCH + 1) * GL_GEOM_BATCH - 1;
+    return e < P ? e : P - 1;
+}
+
+/* y-shear: column i moves by b (i - C), for columns lo..hi. The columns'
+ * content lies in rows r0..r1 (zero elsewhere) and only rows o0..o1 of the
+ * result are used: each batch of columns is gathered into contiguous lines
+ * (w->lines, zero outside r0..r1), shifted there with the row transforms
+ * (strided column transforms run at half their speed) and the rows o0..o1
+ * written back. */
+static void shear_cols(const gl_geom_plan *p, gl_geom_work *w, double b, long lo, long hi, long r0,
+                       long r1, long o0, long o1)
+{
+    enum { B = GL_GEOM_BATCH };
     long P = p->pad, C = P / 2, i0 = batch_start(lo);
+    float *t = w->lines;
+    for (int q = 0; q < B; q++) {
+        memset(t + (size_t)q * (size_t)P, 0, (size_t)r0 * sizeof *t);
+        memset(t + (size_t)q * (size_t)P + r1 + 1, 0, (size_t)(P - r1 - 1) * sizeof *t);
+    }
     shear_tables(P, b, i0, w->ramp);
-    for (; i0 <= hi; i0 += GL_GEOM_BATCH) {
-        float *cols = w->padded + i0;
-        fftwf_execute_dft_r2c(p->cols_fwd, cols, w->specb);
+    for (; i0 <= hi; i0 += B) {
+        for (long y = r0; y <= r1; y++) {
+            const float *src = w->padded + y * P + i0;
+            for (int q = 0; q < B; q++)
+                t[(size_t)q * (size_t)P + (size_t)y] = src[q];
+        }
+        fftwf_execute_dft_r2c(p->rows_fwd, t, w->specb);
         shear_batch(P, b * (double)(i0 - C), b, w->ramp, w->specb);
-        fftwf_execute_dft_c2r(p->cols_inv, w->specb, cols);
+        fftwf_execute_dft_c2r(p->rows_inv, w->specb, t);
+        for (long y = o0; y <= o1; y++) {
+            float *dst = w->padded + y * P + i0;
+            for (int q = 0; q < B; q++)
+                dst[q] = t[(size_t)q * (size_t)P + (size_t)y];
+        }
+        /* the inverse transform filled every sample: clear the pad again */
+        if (i0 + B <= hi)
+            for (int q = 0; q < B; q++) {
+                memset(t + (size_t)q * (size_t)P, 0, (size_t)r0 * sizeof *t);
+                memset(t + (size_t)q * (size_t)P + r1 + 1, 0, (size_t)(P - r1 - 1) * sizeof *t);
+            }
     }
 }
 
@@ -159,7 +194,12 @@ rotate_fft(const gl_geom_plan *p, gl_geom_work *w, float *img, double angle_deg)
     double phi = (angle_deg - 90.0 * (double)quarter) * M_PI / 180;
     int k = (int)(((quarter % 4) + 4) % 4);
 
-    memset(w->padded, 0, (size_t)P * (size_t)P * sizeof *w->padded);
+    /* Only rows r0..r1 (the batches of the first shear) are ever written;
+     * the rest of the square stays zero from gl_geom_work_new. */
+    long h = (nx > ny ? nx : ny) / 2 + 2;
+    long lo1 = clamp_index(C - h, P), hi1 = clamp_index(C + h, P);
+    long r0 = batch_start(lo1), r1 = batch_end(lo1, hi1, P);
+    memset(w->padded + r0 * P, 0, (size_t)(r1 - r0 + 1) * (size_t)P * sizeof *w->padded);
     /* exact counter-clockwise quarter turn: (u, v) -> (ru, rv) = (cu u + su v, ...) */
     static const int rot[4][4] = {{1, 0, 0, 1}, {0, -1, 1, 0}, {-1, 0, 0, -1}, {0, 1, -1, 0}};
     const int *R = rot[k];
@@ -175,16 +215,17 @@ rotate_fft(const gl_geom_plan *p, gl_geom_work *w, float *img, double angle_deg)
     }
     if (phi != 0) {
         double a = -tan(phi / 2), b = sin(phi);
-        long h = (nx > ny ? nx : ny) / 2 + 2;
         long h1 = (long)ceil((double)h * (1 + fabs(a))) + 2;
         long h2 = (long)ceil((double)h + fabs(b) * (double)h1) + 2;
-        shear_rows(p, w, a, clamp_index(C - h, P), clamp_index(C + h, P));
-        shear_cols(p, w, b, clamp_index(C - h1, P), clamp_index(C + h1, P));
         /* the last shear moves rows independently: only the rows of the
          * output window are needed (the batch around them is shifted whole) */
         long lo = C - h2 > C - cy ? C - h2 : C - cy,
              hi = C + h2 < C - cy + ny - 1 ? C + h2 : C - cy + ny - 1;
-        shear_rows(p, w, a, clamp_index(lo, P), clamp_index(hi, P));
+        long lo3 = clamp_index(lo, P), hi3 = clamp_index(hi, P);
+        shear_rows(p, w, a, lo1, hi1);
+        shear_cols(p, w, b, clamp_index(C - h1, P), clamp_index(C + h1, P), r0, r1,
+                   batch_start(lo3), batch_end(lo3, hi3, P));
+        shear_rows(p, w, a, lo3, hi3);
     }
     for (long y = 0; y < ny; y++)
         memcpy(img + y * nx, w->padded + (C + y - cy) * P + (C - cx), (size_t)nx * sizeof *img);
