@@ -231,6 +231,42 @@ rotate_fft(const gl_geom_plan *p, gl_geom_work *w, float *img, double angle_deg)
         memcpy(img + y * nx, w->padded + (C + y - cy) * P + (C - cx), (size_t)nx * sizeof *img);
 }
 
+/* The NaN pixels of img as bits (pixel j: bit j % 8 of byte j / 8). */
+static void nan_bits_record(const float *img, long n, unsigned char *bits)
+{
+    memset(bits, 0, (size_t)(n + 7) / 8);
+    for (long j = 0; j < n; j++)
+        if (isnan(img[j]))
+            bits[j / 8] |= (unsigned char)(1u << (j % 8));
+}
+
+static void nan_bits_apply(float *img, long n, const unsigned char *bits)
+{
+    for (long b = 0; b < (n + 7) / 8; b++)
+        if (bits[b])
+            for (long j = b * 8; j < b * 8 + 8 && j < n; j++)
+                if (bits[b] >> (j % 8) & 1)
+                    img[j] = NAN;
+}
+
+gl_status gl_geom_rotate_masked(const gl_geom_plan *p, gl_geom_work *w, float *img,
+                                double angle_deg, unsigned char *bits, int *known)
+{
+    long n = p->nx * p->ny;
+    if (!*known || p->interp != GL_INTERP_FFT || !isfinite(angle_deg)) {
+        gl_status st = gl_geom_rotate(p, w, img, angle_deg);
+        if (!st) {
+            nan_bits_record(img, n, bits);
+            *known = 1;
+        }
+        return st;
+    }
+    memcpy(w->copy, img, (size_t)n * sizeof *img);
+    rotate_fft(p, w, img, angle_deg);
+    nan_bits_apply(img, n, bits);
+    return GL_OK;
+}
+
 gl_status gl_geom_rotate(const gl_geom_plan *p, gl_geom_work *w, float *img, double angle_deg)
 {
     if (!isfinite(angle_deg))
