@@ -231,13 +231,25 @@ rotate_fft(const gl_geom_plan *p, gl_geom_work *w, float *img, double angle_deg)
         memcpy(img + y * nx, w->padded + (C + y - cy) * P + (C - cx), (size_t)nx * sizeof *img);
 }
 
-/* The NaN pixels of img as bits (pixel j: bit j % 8 of byte j / 8). */
-static void nan_bits_record(const float *img, long n, unsigned char *bits)
+/* The NaN pixels of img as bits (pixel j: bit j % 8 of byte j / 8), eight
+ * pixels a byte. */
+__attribute__((target_clones("avx2", "default"))) static void
+nan_bits_record(const float *img, long n, unsigned char *bits)
 {
-    memset(bits, 0, (size_t)(n + 7) / 8);
-    for (long j = 0; j < n; j++)
-        if (isnan(img[j]))
-            bits[j / 8] |= (unsigned char)(1u << (j % 8));
+    long n8 = n / 8;
+    for (long b = 0; b < n8; b++) {
+        const float *v = img + 8 * b;
+        unsigned m = 0;
+        for (int q = 0; q < 8; q++)
+            m |= (unsigned)(v[q] != v[q]) << q;
+        bits[b] = (unsigned char)m;
+    }
+    if (n % 8) {
+        unsigned m = 0;
+        for (long j = 8 * n8; j < n; j++)
+            m |= (unsigned)(img[j] != img[j]) << (j % 8);
+        bits[n8] = (unsigned char)m;
+    }
 }
 
 static void nan_bits_apply(float *img, long n, const unsigned char *bits)
@@ -247,6 +259,11 @@ static void nan_bits_apply(float *img, long n, const unsigned char *bits)
             for (long j = b * 8; j < b * 8 + 8 && j < n; j++)
                 if (bits[b] >> (j % 8) & 1)
                     img[j] = NAN;
+}
+
+void gl_geom_nan_bits(const float *img, long n, unsigned char *bits)
+{
+    nan_bits_record(img, n, bits);
 }
 
 gl_status gl_geom_rotate_masked(const gl_geom_plan *p, gl_geom_work *w, float *img,

@@ -96,10 +96,7 @@ static gl_status derotate_frame(sub_sink *s, long i, float *img, double ang)
     long n = s->c->npix;
     unsigned char *in = s->mask_in + nb * (size_t)i,
                   *now = s->mask_scratch + nb * (size_t)omp_get_thread_num();
-    memset(now, 0, nb);
-    for (long j = 0; j < n; j++)
-        if (isnan(img[j]))
-            now[j / 8] |= (unsigned char)(1u << (j % 8));
+    gl_geom_nan_bits(img, n, now);
     if (!s->mask_known[i] || s->mask_angle[i] != ang || memcmp(in, now, nb) != 0) {
         memcpy(in, now, nb);
         s->mask_angle[i] = ang;
