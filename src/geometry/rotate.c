@@ -85,9 +85,9 @@ static void shear_tables(long P, double s, long j0, double *ramp)
  * j0 .. j0 + BATCH - 1 (d0: the shift of line j0, s: its step), then moves
  * the tables one batch on. An even length's Nyquist bin gets the real factor
  * cos(pi d) / P, which keeps the spectrum Hermitian (see shift.c). */
-/* AVX2 where the processor has it: the same IEEE operations (no fused
- * multiply-add), twice the lanes. */
-__attribute__((target_clones("avx2", "default"))) static void
+/* AVX-512 or AVX2 where the processor has it: the same IEEE operations (no
+ * fused multiply-add in ISO C mode), four or two times the lanes. */
+__attribute__((target_clones("avx512f", "avx2", "default"))) static void
 shear_batch(long P, double d0, double s, double *ramp, fftwf_complex *spec)
 {
     long m = P / 2 + 1, kend = P % 2 == 0 ? m - 1 : m;
