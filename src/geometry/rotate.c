@@ -118,26 +118,29 @@ shear_batch(long P, double d0, double s, double *ramp, fftwf_complex *spec)
     }
 }
 
-/* x-shear: row j moves by a (j - C); rows lo..hi hold all the content (the
- * shear of an empty row is empty, so batches may run past hi). */
-static void shear_rows(const gl_geom_plan *p, gl_geom_work *w, double a, long lo, long hi)
+/* The batches of rows that cover rows lo..hi: from *j0 to *j1, whole
+ * batches starting at lo (row offsets keep the planning buffer's alignment,
+ * the side being a multiple of 16), moved back where they would pass the
+ * square's edge. */
+static void row_batches(long lo, long hi, long P, long *j0, long *j1)
 {
-    long P = p->pad, C = P / 2, j0 = batch_start(lo);
+    long n = (hi - lo + GL_GEOM_BATCH) / GL_GEOM_BATCH * GL_GEOM_BATCH;
+    *j0 = lo + n > P ? P - n : lo;
+    *j1 = *j0 + n - 1;
+}
+
+/* x-shear: row j moves by a (j - C), for the batches of rows j0..j1 (the
+ * shear of an empty row is empty, so batches may run past the content). */
+static void shear_rows(const gl_geom_plan *p, gl_geom_work *w, double a, long j0, long j1)
+{
+    long P = p->pad, C = P / 2;
     shear_tables(P, a, j0, w->ramp);
-    for (; j0 <= hi; j0 += GL_GEOM_BATCH) {
+    for (; j0 <= j1; j0 += GL_GEOM_BATCH) {
         float *rows = w->padded + j0 * P;
         fftwf_execute_dft_r2c(p->rows_fwd, rows, w->specb);
         shear_batch(P, a * (double)(j0 - C), a, w->ramp, w->specb);
         fftwf_execute_dft_c2r(p->rows_inv, w->specb, rows);
     }
-}
-
-/* Last row of the batches that shear_rows runs for rows lo..hi. */
-static long batch_end(long lo, long hi, long P)
-{
-    long j0 = batch_start(lo);
-    long e = j0 + ((hi - j0) / GL_GEOM_BATCH + 1) * GL_GEOM_BATCH - 1;
-    return e < P ? e : P - 1;
 }
 
 /* y-shear: column i moves by b (i - C), for columns lo..hi. The columns'
@@ -194,12 +197,17 @@ rotate_fft(const gl_geom_plan *p, gl_geom_work *w, float *img, double angle_deg)
     double phi = (angle_deg - 90.0 * (double)quarter) * M_PI / 180;
     int k = (int)(((quarter % 4) + 4) % 4);
 
-    /* Only rows r0..r1 (the batches of the first shear) are ever written;
-     * the rest of the square stays zero from gl_geom_work_new. */
-    long h = (nx > ny ? nx : ny) / 2 + 2;
-    long lo1 = clamp_index(C - h, P), hi1 = clamp_index(C + h, P);
-    long r0 = batch_start(lo1), r1 = batch_end(lo1, hi1, P);
-    memset(w->padded + r0 * P, 0, (size_t)(r1 - r0 + 1) * (size_t)P * sizeof *w->padded);
+    /* The content after the quarter turn lies in rows C + vlo .. C + vhi;
+     * the first shear runs on the batches r0..r1 around them, the last on
+     * the batches o0..o1 around the output window. Only these rows are ever
+     * written: the rest of the square stays zero from gl_geom_work_new. */
+    long vlo = k == 0 ? -cy : k == 1 ? -cx : k == 2 ? -(ny - 1 - cy) : -(nx - 1 - cx);
+    long vhi = k == 0 ? ny - 1 - cy : k == 1 ? nx - 1 - cx : k == 2 ? cy : cx;
+    long r0, r1, o0, o1;
+    row_batches(C + vlo, C + vhi, P, &r0, &r1);
+    row_batches(C - cy, C - cy + ny - 1, P, &o0, &o1);
+    long z0 = r0 < o0 ? r0 : o0, z1 = r1 > o1 ? r1 : o1;
+    memset(w->padded + z0 * P, 0, (size_t)(z1 - z0 + 1) * (size_t)P * sizeof *w->padded);
     /* exact counter-clockwise quarter turn: (u, v) -> (ru, rv) = (cu u + su v, ...) */
     static const int rot[4][4] = {{1, 0, 0, 1}, {0, -1, 1, 0}, {-1, 0, 0, -1}, {0, 1, -1, 0}};
     const int *R = rot[k];
@@ -215,17 +223,14 @@ rotate_fft(const gl_geom_plan *p, gl_geom_work *w, float *img, double angle_deg)
     }
     if (phi != 0) {
         double a = -tan(phi / 2), b = sin(phi);
+        long h = (nx > ny ? nx : ny) / 2 + 2;
         long h1 = (long)ceil((double)h * (1 + fabs(a))) + 2;
-        long h2 = (long)ceil((double)h + fabs(b) * (double)h1) + 2;
+        shear_rows(p, w, a, r0, r1);
         /* the last shear moves rows independently: only the rows of the
-         * output window are needed (the batch around them is shifted whole) */
-        long lo = C - h2 > C - cy ? C - h2 : C - cy,
-             hi = C + h2 < C - cy + ny - 1 ? C + h2 : C - cy + ny - 1;
-        long lo3 = clamp_index(lo, P), hi3 = clamp_index(hi, P);
-        shear_rows(p, w, a, lo1, hi1);
-        shear_cols(p, w, b, clamp_index(C - h1, P), clamp_index(C + h1, P), r0, r1,
-                   batch_start(lo3), batch_end(lo3, hi3, P));
-        shear_rows(p, w, a, lo3, hi3);
+         * output window are needed (the batches around them are shifted
+         * whole) */
+        shear_cols(p, w, b, clamp_index(C - h1, P), clamp_index(C + h1, P), r0, r1, o0, o1);
+        shear_rows(p, w, a, o0, o1);
     }
     for (long y = 0; y < ny; y++)
         memcpy(img + y * nx, w->padded + (C + y - cy) * P + (C - cx), (size_t)nx * sizeof *img);
