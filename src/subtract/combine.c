@@ -17,6 +17,7 @@
  * Frames are derotated in parallel, each with its own geometry workspace;
  * each output pixel is combined by one thread, in frame order.
  */
+#include "core/internal.h"
 #include "subtract/combine.h"
 
 #include <math.h>
@@ -211,17 +212,22 @@ gl_status sub_sink_put(void *sink, int mode_index, float *resid)
         for (long b = 0; b < nb; b++) {
             float *buf =
                 s->scratch + (size_t)omp_get_thread_num() * COMBINE_BLOCK * (size_t)c->nframe;
-            long j0 = b * COMBINE_BLOCK, nj = GL_SUB_MIN(COMBINE_BLOCK, c->npix - j0), n = 0;
+            long j0 = b * COMBINE_BLOCK, nj = GL_SUB_MIN(COMBINE_BLOCK, c->npix - j0);
+            /* each pixel's stack keeps its non-NaN values only (written
+             * always, counted when not NaN: no branch) */
+            long cnt[COMBINE_BLOCK] = {0};
             for (long i = 0; i < c->nframe; i++) {
                 if (!c->usable[i])
                     continue;
                 const float *r = resid + (size_t)i * plane + (size_t)j0;
-                for (long q = 0; q < nj; q++)
-                    buf[(size_t)q * (size_t)c->nframe + (size_t)n] = r[q];
-                n++;
+                for (long q = 0; q < nj; q++) {
+                    buf[(size_t)q * (size_t)c->nframe + (size_t)cnt[q]] = r[q];
+                    cnt[q] += r[q] == r[q];
+                }
             }
             for (long q = 0; q < nj; q++)
-                out[j0 + q] = sub_nanmedian(buf + (size_t)q * (size_t)c->nframe, n);
+                out[j0 + q] =
+                    gl_stats_median_inplace_float(buf + (size_t)q * (size_t)c->nframe, cnt[q]);
         }
         return GL_OK;
     }
