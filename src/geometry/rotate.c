@@ -7,6 +7,8 @@
  * shift (Larkin, Oldfield & Klemm 1997, Opt. Commun. 139, 99). The image is
  * placed in a zero-padded square twice its size so that no shear wraps; each
  * shear conserves every row's flux, so the rotation conserves total flux.
+ * The y-shear gathers its columns into contiguous lines first (FFTW's strided
+ * column transforms run at half the speed of the row ones; bench/README.md).
  * Cubic: Keys convolution sampled at the inversely rotated position.
  * Either way, output pixels whose source lies outside the input, or whose
  * nearest source pixel is NaN, are NaN.
