@@ -46,9 +46,10 @@ static const char help[] =
     "                         figures mark them (numbered diamonds, plane 1)\n"
     "  --plot-every-plane     the figures show the 50% curve of every plane (mode count)\n"
     "                         instead of plane 1's two curves\n"
-    "  --memory-limit SIZE    limits has no streamed path: it keeps the cube and a copy with\n"
-    "                         the fakes in memory, and refuses to start when that is more\n"
-    "                         than SIZE (without the option it runs whatever the size)\n"
+    "  --memory-limit SIZE    here without the streamed path that the subtraction options\n"
+    "                         below describe: limits keeps the cube and a copy with the\n"
+    "                         fakes in memory and refuses to start when that is more than\n"
+    "                         SIZE (without the option it runs whatever the size)\n"
     "subtraction options:\n";
 
 enum {

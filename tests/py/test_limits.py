@@ -578,7 +578,7 @@ def test_memory_limit_is_checked_not_ignored(tmp_path):
     ok(*args, "--out", tmp_path / "capped", "--memory-limit", "1G")
     for ext in [".limits.csv", ".fakes.csv"]:
         assert (tmp_path / f"free{ext}").read_text() == (tmp_path / f"capped{ext}").read_text()
-    assert "no streamed path" in run("limits", "--help").stdout
+    assert "without the streamed path" in run("limits", "--help").stdout
 
 
 # ---- 6. threads, products -----------------------------------------------------
