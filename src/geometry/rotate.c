@@ -191,7 +191,7 @@ static long clamp_index(long v, long P)
 }
 
 __attribute__((target_clones("avx2", "default"))) static void
-rotate_fft(const gl_geom_plan *p, gl_geom_work *w, float *img, double angle_deg)
+rotate_fft(const gl_geom_plan *p, gl_geom_work *w, const float *in, float *img, double angle_deg)
 {
     long nx = p->nx, ny = p->ny, P = p->pad, C = P / 2;
     long cx = nx / 2, cy = ny / 2;
@@ -214,7 +214,7 @@ rotate_fft(const gl_geom_plan *p, gl_geom_work *w, float *img, double angle_deg)
     static const int rot[4][4] = {{1, 0, 0, 1}, {0, -1, 1, 0}, {-1, 0, 0, -1}, {0, 1, -1, 0}};
     const int *R = rot[k];
     for (long y = 0; y < ny; y++) {
-        const float *src = w->copy + y * nx;
+        const float *src = in + y * nx;
         long v = y - cy;
         for (long x = 0; x < nx; x++) {
             long u = x - cx;
@@ -285,8 +285,8 @@ gl_status gl_geom_rotate_masked(const gl_geom_plan *p, gl_geom_work *w, float *i
         }
         return st;
     }
-    memcpy(w->copy, img, (size_t)n * sizeof *img);
-    rotate_fft(p, w, img, angle_deg);
+    /* the input is read before the output is written: no copy needed */
+    rotate_fft(p, w, img, img, angle_deg);
     nan_bits_apply(img, n, bits);
     return GL_OK;
 }
@@ -314,7 +314,7 @@ gl_status gl_geom_rotate(const gl_geom_plan *p, gl_geom_work *w, float *img, dou
             }
         return GL_OK;
     }
-    rotate_fft(p, w, img, angle_deg);
+    rotate_fft(p, w, w->copy, img, angle_deg);
     mask_rotated(w->copy, img, nx, ny, c, s);
     return GL_OK;
 }
