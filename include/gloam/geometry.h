@@ -49,6 +49,19 @@ GL_API gl_status gl_geom_shift(const gl_geom_plan *p, gl_geom_work *w, float *im
 GL_API gl_status gl_geom_rotate(const gl_geom_plan *p, gl_geom_work *w, float *img,
                                 double angle_deg);
 
+/* gl_geom_rotate for images rotated again by the same angle with the same
+ * NaN pixels (e.g. one frame's residuals for several mode counts): `bits`
+ * (nx*ny bits, bit j%8 of byte j/8 for pixel j) records the output's NaN
+ * pixels. With *known == 0 they are computed as gl_geom_rotate does and
+ * recorded, and *known is set; with *known == 1 they are taken from `bits`
+ * (the caller vouches for the angle and the input's NaN pixels). The output
+ * is identical either way. */
+/* The NaN pixels of img (n pixels) as bits, as gl_geom_rotate_masked keeps
+ * them: pixel j is bit j % 8 of byte j / 8 ((n + 7) / 8 bytes). */
+GL_API void gl_geom_nan_bits(const float *img, long n, unsigned char *bits);
+GL_API gl_status gl_geom_rotate_masked(const gl_geom_plan *p, gl_geom_work *w, float *img,
+                                       double angle_deg, unsigned char *bits, int *known);
+
 /* Magnifies img (in place) by `factor` about the star centre: content at
  * distance d from the star moves to factor * d. Cubic convolution sampling
  * whatever the plan's interpolator (src/geometry/scale.c); surface brightness

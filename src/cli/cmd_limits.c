@@ -46,6 +46,10 @@ static const char help[] =
     "                         figures mark them (numbered diamonds, plane 1)\n"
     "  --plot-every-plane     the figures show the 50% curve of every plane (mode count)\n"
     "                         instead of plane 1's two curves\n"
+    "  --memory-limit SIZE    here without the streamed path that the subtraction options\n"
+    "                         below describe: limits keeps the cube and a copy with the\n"
+    "                         fakes in memory and refuses to start when that is more than\n"
+    "                         SIZE (without the option it runs whatever the size)\n"
     "subtraction options:\n";
 
 enum {
@@ -201,6 +205,27 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
         p_comp[4096];
     const char *t_csv, *t_fits, *t_png, *t_svg, *t_pdf, *t_fakes, *t_comp = NULL;
 
+    /* no streamed path here: the cube and a copy with the fakes stay in
+     * memory, so a --memory-limit below what the runs need is refused */
+    if (setup.memory_limit > 0) {
+        gl_fits_info info;
+        if (!gl_fits_image_info(cube_path, &info) && info.naxis >= 3) {
+            long nchan = info.naxis >= 4 ? info.naxes[2] : 1;
+            long nframe = info.naxis >= 4 ? info.naxes[3] : info.naxes[2];
+            double need =
+                gl_subtract_memory_estimate(info.naxes[0], info.naxes[1], nchan, nframe, &setup.p) +
+                4.0 * (double)info.naxes[0] * (double)info.naxes[1] * (double)nchan *
+                    (double)nframe;
+            if (need > setup.memory_limit) {
+                st = gl_error_set(GL_ERR_USAGE,
+                                  "%s: gloam limits holds the cube and a copy with the fakes in "
+                                  "memory (about %.0f MB), above --memory-limit %.0f MB; it has "
+                                  "no streamed path (gloam subtract has)",
+                                  cube_path, need / 1e6, setup.memory_limit / 1e6);
+                goto cleanup;
+            }
+        }
+    }
     if ((st = cli_read_cube_angles(cli, cube_path, angles_path, &cube, &angles)) ||
         (st = cli_resolve_fwhm(cli, &setup.p.fwhm, setup.p.fwhm > 0 ? NULL : psf_path, cube->header,
                                cube_path)) ||

@@ -16,8 +16,6 @@ struct gl_geom_plan {
     fftwf_plan shift_inv; /* 2-D c2r */
     fftwf_plan rows_fwd;  /* GL_GEOM_BATCH contiguous rows of length pad, r2c */
     fftwf_plan rows_inv;  /* their c2r */
-    fftwf_plan cols_fwd;  /* GL_GEOM_BATCH adjacent columns (stride pad), r2c */
-    fftwf_plan cols_inv;  /* their c2r */
 };
 
 struct gl_geom_work {
@@ -25,6 +23,7 @@ struct gl_geom_work {
     float *real2d;          /* nx*ny */
     fftwf_complex *spec2d;  /* ny*(nx/2+1) */
     float *padded;          /* pad*pad */
+    float *lines;           /* GL_GEOM_BATCH x pad: columns gathered for the y-shear */
     fftwf_complex *specb;   /* GL_GEOM_BATCH spectra of pad/2+1 */
     fftwf_complex *phase_x; /* nx/2+1: phase ramp along x for a 2-D shift */
     fftwf_complex *phase_y; /* ny */
@@ -40,8 +39,7 @@ float gl_geom_cubic_sample(const float *img, long nx, long ny, double x, double 
 void gl_geom_phase_ramp(fftwf_complex *ph, long m, long n, double d);
 
 /* Shears run on batches of this many rows or columns at once, so FFTW can
- * vectorise across transforms. Column batches start at multiples of it, which
- * keeps their alignment equal to the planning buffer's. */
+ * vectorise across transforms (columns are gathered into rows first). */
 #define GL_GEOM_BATCH 8
 
 struct gl_geom_stamp {

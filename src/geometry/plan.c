@@ -85,12 +85,7 @@ gl_status gl_geom_plan_new(long nx, long ny, gl_interp interp, gl_geom_plan **ou
                 fftwf_plan_many_dft_r2c(1, &P, B, r1, NULL, 1, P, c1, NULL, 1, H, FFTW_ESTIMATE);
             p->rows_inv =
                 fftwf_plan_many_dft_c2r(1, &P, B, c1, NULL, 1, H, r1, NULL, 1, P, FFTW_ESTIMATE);
-            p->cols_fwd =
-                fftwf_plan_many_dft_r2c(1, &P, B, r1, NULL, P, 1, c1, NULL, 1, H, FFTW_ESTIMATE);
-            p->cols_inv =
-                fftwf_plan_many_dft_c2r(1, &P, B, c1, NULL, 1, H, r1, NULL, P, 1, FFTW_ESTIMATE);
-            if (!p->shift_fwd || !p->shift_inv || !p->rows_fwd || !p->rows_inv || !p->cols_fwd ||
-                !p->cols_inv)
+            if (!p->shift_fwd || !p->shift_inv || !p->rows_fwd || !p->rows_inv)
                 st =
                     gl_error_set(GL_ERR_INTERNAL, "FFTW could not plan %ldx%ld transforms", nx, ny);
         } else {
@@ -117,8 +112,8 @@ void gl_geom_plan_free(gl_geom_plan *p)
         fftwf_destroy_plan(p->shift_fwd);
     if (p->shift_inv)
         fftwf_destroy_plan(p->shift_inv);
-    fftwf_plan plans[] = {p->rows_fwd, p->rows_inv, p->cols_fwd, p->cols_inv};
-    for (int i = 0; i < 4; i++)
+    fftwf_plan plans[] = {p->rows_fwd, p->rows_inv};
+    for (int i = 0; i < 2; i++)
         if (plans[i])
             fftwf_destroy_plan(plans[i]);
     gl_free(p);
@@ -137,13 +132,15 @@ gl_status gl_geom_work_new(const gl_geom_plan *p, gl_geom_work **out)
         size_t pad = (size_t)p->pad;
         w->real2d = gl_malloc(n * sizeof(float));
         w->spec2d = gl_malloc((size_t)p->ny * (size_t)(p->nx / 2 + 1) * sizeof(fftwf_complex));
-        w->padded = gl_malloc(pad * pad * sizeof(float));
+        /* zero once: a rotation writes only the rows it shears (rotate.c) */
+        w->padded = gl_calloc(pad * pad, sizeof(float));
+        w->lines = gl_malloc((size_t)GL_GEOM_BATCH * pad * sizeof(float));
         w->specb = gl_malloc((size_t)GL_GEOM_BATCH * (pad / 2 + 1) * sizeof(fftwf_complex));
         w->phase_x = gl_malloc((size_t)(p->nx / 2 + 1) * sizeof(fftwf_complex));
         w->phase_y = gl_malloc((size_t)p->ny * sizeof(fftwf_complex));
         w->ramp = gl_malloc(8 * (pad / 2 + 1) * sizeof(double));
-        ok = ok && w->real2d && w->spec2d && w->padded && w->specb && w->phase_x && w->phase_y &&
-             w->ramp;
+        ok = ok && w->real2d && w->spec2d && w->padded && w->lines && w->specb && w->phase_x &&
+             w->phase_y && w->ramp;
     }
     if (!ok) {
         gl_geom_work_free(w);
@@ -161,6 +158,7 @@ void gl_geom_work_free(gl_geom_work *w)
     gl_free(w->real2d);
     gl_free(w->spec2d);
     gl_free(w->padded);
+    gl_free(w->lines);
     gl_free(w->specb);
     gl_free(w->phase_x);
     gl_free(w->phase_y);

@@ -7,6 +7,8 @@
  * shift (Larkin, Oldfield & Klemm 1997, Opt. Commun. 139, 99). The image is
  * placed in a zero-padded square twice its size so that no shear wraps; each
  * shear conserves every row's flux, so the rotation conserves total flux.
+ * The y-shear gathers its columns into contiguous lines first (FFTW's strided
+ * column transforms run at half the speed of the row ones; bench/README.md).
  * Cubic: Keys convolution sampled at the inversely rotated position.
  * Either way, output pixels whose source lies outside the input, or whose
  * nearest source pixel is NaN, are NaN.
@@ -85,9 +87,9 @@ static void shear_tables(long P, double s, long j0, double *ramp)
  * j0 .. j0 + BATCH - 1 (d0: the shift of line j0, s: its step), then moves
  * the tables one batch on. An even length's Nyquist bin gets the real factor
  * cos(pi d) / P, which keeps the spectrum Hermitian (see shift.c). */
-/* AVX2 where the processor has it: the same IEEE operations (no fused
- * multiply-add), twice the lanes. */
-__attribute__((target_clones("avx2", "default"))) static void
+/* AVX-512 or AVX2 where the processor has it: the same IEEE operations (no
+ * fused multiply-add in ISO C mode), four or two times the lanes. */
+__attribute__((target_clones("avx512f", "avx2", "default"))) static void
 shear_batch(long P, double d0, double s, double *ramp, fftwf_complex *spec)
 {
     long m = P / 2 + 1, kend = P % 2 == 0 ? m - 1 : m;
@@ -118,13 +120,24 @@ shear_batch(long P, double d0, double s, double *ramp, fftwf_complex *spec)
     }
 }
 
-/* x-shear: row j moves by a (j - C); rows lo..hi hold all the content (the
- * shear of an empty row is empty, so batches may run past hi). */
-static void shear_rows(const gl_geom_plan *p, gl_geom_work *w, double a, long lo, long hi)
+/* The batches of rows that cover rows lo..hi: from *j0 to *j1, whole
+ * batches starting at lo (row offsets keep the planning buffer's alignment,
+ * the side being a multiple of 16), moved back where they would pass the
+ * square's edge. */
+static void row_batches(long lo, long hi, long P, long *j0, long *j1)
 {
-    long P = p->pad, C = P / 2, j0 = batch_start(lo);
+    long n = (hi - lo + GL_GEOM_BATCH) / GL_GEOM_BATCH * GL_GEOM_BATCH;
+    *j0 = lo + n > P ? P - n : lo;
+    *j1 = *j0 + n - 1;
+}
+
+/* x-shear: row j moves by a (j - C), for the batches of rows j0..j1 (the
+ * shear of an empty row is empty, so batches may run past the content). */
+static void shear_rows(const gl_geom_plan *p, gl_geom_work *w, double a, long j0, long j1)
+{
+    long P = p->pad, C = P / 2;
     shear_tables(P, a, j0, w->ramp);
-    for (; j0 <= hi; j0 += GL_GEOM_BATCH) {
+    for (; j0 <= j1; j0 += GL_GEOM_BATCH) {
         float *rows = w->padded + j0 * P;
         fftwf_execute_dft_r2c(p->rows_fwd, rows, w->specb);
         shear_batch(P, a * (double)(j0 - C), a, w->ramp, w->specb);
@@ -132,16 +145,43 @@ static void shear_rows(const gl_geom_plan *p, gl_geom_work *w, double a, long lo
     }
 }
 
-/* y-shear: column i moves by b (i - C). */
-static void shear_cols(const gl_geom_plan *p, gl_geom_work *w, double b, long lo, long hi)
+/* y-shear: column i moves by b (i - C), for columns lo..hi. The columns'
+ * content lies in rows r0..r1 (zero elsewhere) and only rows o0..o1 of the
+ * result are used: each batch of columns is gathered into contiguous lines
+ * (w->lines, zero outside r0..r1), shifted there with the row transforms
+ * (strided column transforms run at half their speed) and the rows o0..o1
+ * written back. */
+static void shear_cols(const gl_geom_plan *p, gl_geom_work *w, double b, long lo, long hi, long r0,
+                       long r1, long o0, long o1)
 {
+    enum { B = GL_GEOM_BATCH };
     long P = p->pad, C = P / 2, i0 = batch_start(lo);
+    float *t = w->lines;
+    for (int q = 0; q < B; q++) {
+        memset(t + (size_t)q * (size_t)P, 0, (size_t)r0 * sizeof *t);
+        memset(t + (size_t)q * (size_t)P + r1 + 1, 0, (size_t)(P - r1 - 1) * sizeof *t);
+    }
     shear_tables(P, b, i0, w->ramp);
-    for (; i0 <= hi; i0 += GL_GEOM_BATCH) {
-        float *cols = w->padded + i0;
-        fftwf_execute_dft_r2c(p->cols_fwd, cols, w->specb);
+    for (; i0 <= hi; i0 += B) {
+        for (long y = r0; y <= r1; y++) {
+            const float *src = w->padded + y * P + i0;
+            for (int q = 0; q < B; q++)
+                t[(size_t)q * (size_t)P + (size_t)y] = src[q];
+        }
+        fftwf_execute_dft_r2c(p->rows_fwd, t, w->specb);
         shear_batch(P, b * (double)(i0 - C), b, w->ramp, w->specb);
-        fftwf_execute_dft_c2r(p->cols_inv, w->specb, cols);
+        fftwf_execute_dft_c2r(p->rows_inv, w->specb, t);
+        for (long y = o0; y <= o1; y++) {
+            float *dst = w->padded + y * P + i0;
+            for (int q = 0; q < B; q++)
+                dst[q] = t[(size_t)q * (size_t)P + (size_t)y];
+        }
+        /* the inverse transform filled every sample: clear the pad again */
+        if (i0 + B <= hi)
+            for (int q = 0; q < B; q++) {
+                memset(t + (size_t)q * (size_t)P, 0, (size_t)r0 * sizeof *t);
+                memset(t + (size_t)q * (size_t)P + r1 + 1, 0, (size_t)(P - r1 - 1) * sizeof *t);
+            }
     }
 }
 
@@ -151,7 +191,7 @@ static long clamp_index(long v, long P)
 }
 
 __attribute__((target_clones("avx2", "default"))) static void
-rotate_fft(const gl_geom_plan *p, gl_geom_work *w, float *img, double angle_deg)
+rotate_fft(const gl_geom_plan *p, gl_geom_work *w, const float *in, float *img, double angle_deg)
 {
     long nx = p->nx, ny = p->ny, P = p->pad, C = P / 2;
     long cx = nx / 2, cy = ny / 2;
@@ -159,12 +199,22 @@ rotate_fft(const gl_geom_plan *p, gl_geom_work *w, float *img, double angle_deg)
     double phi = (angle_deg - 90.0 * (double)quarter) * M_PI / 180;
     int k = (int)(((quarter % 4) + 4) % 4);
 
-    memset(w->padded, 0, (size_t)P * (size_t)P * sizeof *w->padded);
+    /* The content after the quarter turn lies in rows C + vlo .. C + vhi;
+     * the first shear runs on the batches r0..r1 around them, the last on
+     * the batches o0..o1 around the output window. Only these rows are ever
+     * written: the rest of the square stays zero from gl_geom_work_new. */
+    long vlo = k == 0 ? -cy : k == 1 ? -cx : k == 2 ? -(ny - 1 - cy) : -(nx - 1 - cx);
+    long vhi = k == 0 ? ny - 1 - cy : k == 1 ? nx - 1 - cx : k == 2 ? cy : cx;
+    long r0, r1, o0, o1;
+    row_batches(C + vlo, C + vhi, P, &r0, &r1);
+    row_batches(C - cy, C - cy + ny - 1, P, &o0, &o1);
+    long z0 = r0 < o0 ? r0 : o0, z1 = r1 > o1 ? r1 : o1;
+    memset(w->padded + z0 * P, 0, (size_t)(z1 - z0 + 1) * (size_t)P * sizeof *w->padded);
     /* exact counter-clockwise quarter turn: (u, v) -> (ru, rv) = (cu u + su v, ...) */
     static const int rot[4][4] = {{1, 0, 0, 1}, {0, -1, 1, 0}, {-1, 0, 0, -1}, {0, 1, -1, 0}};
     const int *R = rot[k];
     for (long y = 0; y < ny; y++) {
-        const float *src = w->copy + y * nx;
+        const float *src = in + y * nx;
         long v = y - cy;
         for (long x = 0; x < nx; x++) {
             long u = x - cx;
@@ -177,17 +227,68 @@ rotate_fft(const gl_geom_plan *p, gl_geom_work *w, float *img, double angle_deg)
         double a = -tan(phi / 2), b = sin(phi);
         long h = (nx > ny ? nx : ny) / 2 + 2;
         long h1 = (long)ceil((double)h * (1 + fabs(a))) + 2;
-        long h2 = (long)ceil((double)h + fabs(b) * (double)h1) + 2;
-        shear_rows(p, w, a, clamp_index(C - h, P), clamp_index(C + h, P));
-        shear_cols(p, w, b, clamp_index(C - h1, P), clamp_index(C + h1, P));
+        shear_rows(p, w, a, r0, r1);
         /* the last shear moves rows independently: only the rows of the
-         * output window are needed (the batch around them is shifted whole) */
-        long lo = C - h2 > C - cy ? C - h2 : C - cy,
-             hi = C + h2 < C - cy + ny - 1 ? C + h2 : C - cy + ny - 1;
-        shear_rows(p, w, a, clamp_index(lo, P), clamp_index(hi, P));
+         * output window are needed (the batches around them are shifted
+         * whole) */
+        shear_cols(p, w, b, clamp_index(C - h1, P), clamp_index(C + h1, P), r0, r1, o0, o1);
+        shear_rows(p, w, a, o0, o1);
     }
     for (long y = 0; y < ny; y++)
         memcpy(img + y * nx, w->padded + (C + y - cy) * P + (C - cx), (size_t)nx * sizeof *img);
+}
+
+/* The NaN pixels of img as bits (pixel j: bit j % 8 of byte j / 8), eight
+ * pixels a byte. */
+__attribute__((target_clones("avx2", "default"))) static void
+nan_bits_record(const float *img, long n, unsigned char *bits)
+{
+    long n8 = n / 8;
+    for (long b = 0; b < n8; b++) {
+        const float *v = img + 8 * b;
+        unsigned m = 0;
+        for (int q = 0; q < 8; q++)
+            m |= (unsigned)(v[q] != v[q]) << q;
+        bits[b] = (unsigned char)m;
+    }
+    if (n % 8) {
+        unsigned m = 0;
+        for (long j = 8 * n8; j < n; j++)
+            m |= (unsigned)(img[j] != img[j]) << (j % 8);
+        bits[n8] = (unsigned char)m;
+    }
+}
+
+static void nan_bits_apply(float *img, long n, const unsigned char *bits)
+{
+    for (long b = 0; b < (n + 7) / 8; b++)
+        if (bits[b])
+            for (long j = b * 8; j < b * 8 + 8 && j < n; j++)
+                if (bits[b] >> (j % 8) & 1)
+                    img[j] = NAN;
+}
+
+void gl_geom_nan_bits(const float *img, long n, unsigned char *bits)
+{
+    nan_bits_record(img, n, bits);
+}
+
+gl_status gl_geom_rotate_masked(const gl_geom_plan *p, gl_geom_work *w, float *img,
+                                double angle_deg, unsigned char *bits, int *known)
+{
+    long n = p->nx * p->ny;
+    if (!*known || p->interp != GL_INTERP_FFT || !isfinite(angle_deg)) {
+        gl_status st = gl_geom_rotate(p, w, img, angle_deg);
+        if (!st) {
+            nan_bits_record(img, n, bits);
+            *known = 1;
+        }
+        return st;
+    }
+    /* the input is read before the output is written: no copy needed */
+    rotate_fft(p, w, img, img, angle_deg);
+    nan_bits_apply(img, n, bits);
+    return GL_OK;
 }
 
 gl_status gl_geom_rotate(const gl_geom_plan *p, gl_geom_work *w, float *img, double angle_deg)
@@ -213,7 +314,7 @@ gl_status gl_geom_rotate(const gl_geom_plan *p, gl_geom_work *w, float *img, dou
             }
         return GL_OK;
     }
-    rotate_fft(p, w, img, angle_deg);
+    rotate_fft(p, w, w->copy, img, angle_deg);
     mask_rotated(w->copy, img, nx, ny, c, s);
     return GL_OK;
 }

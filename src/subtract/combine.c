@@ -17,6 +17,7 @@
  * Frames are derotated in parallel, each with its own geometry workspace;
  * each output pixel is combined by one thread, in frame order.
  */
+#include "core/internal.h"
 #include "subtract/combine.h"
 
 #include <math.h>
@@ -71,10 +72,50 @@ fail:
     return st;
 }
 
+gl_status sub_sink_keep_masks(sub_sink *s)
+{
+    const sub_ctx *c = s->c;
+    s->mask_bytes = ((size_t)c->npix + 7) / 8;
+    s->mask_in = gl_malloc(s->mask_bytes * (size_t)c->nframe);
+    s->mask_out = gl_malloc(s->mask_bytes * (size_t)c->nframe);
+    s->mask_scratch = gl_malloc(s->mask_bytes * (size_t)s->nth);
+    s->mask_angle = gl_malloc(sizeof(double) * (size_t)c->nframe);
+    s->mask_known = gl_calloc((size_t)c->nframe, sizeof(int));
+    if (!s->mask_in || !s->mask_out || !s->mask_scratch || !s->mask_angle || !s->mask_known)
+        return gl_error_nomem("derotation masks");
+    return GL_OK;
+}
+
+/* Rotation of frame i by ang, with its NaN mask reused when the last one
+ * was made at the same angle from the same input NaN pixels. */
+static gl_status derotate_frame(sub_sink *s, long i, float *img, double ang)
+{
+    gl_geom_work *w = s->works[omp_get_thread_num()];
+    if (!s->mask_out)
+        return gl_geom_rotate(s->plan, w, img, ang);
+    size_t nb = s->mask_bytes;
+    long n = s->c->npix;
+    unsigned char *in = s->mask_in + nb * (size_t)i,
+                  *now = s->mask_scratch + nb * (size_t)omp_get_thread_num();
+    gl_geom_nan_bits(img, n, now);
+    if (!s->mask_known[i] || s->mask_angle[i] != ang || memcmp(in, now, nb) != 0) {
+        memcpy(in, now, nb);
+        s->mask_angle[i] = ang;
+        s->mask_known[i] = 0;
+    }
+    return gl_geom_rotate_masked(s->plan, w, img, ang, s->mask_out + nb * (size_t)i,
+                                 &s->mask_known[i]);
+}
+
 void sub_sink_free(sub_sink *s)
 {
     if (!s)
         return;
+    gl_free(s->mask_in);
+    gl_free(s->mask_out);
+    gl_free(s->mask_scratch);
+    gl_free(s->mask_angle);
+    gl_free(s->mask_known);
     if (s->works)
         for (int t = 0; t < s->nth; t++)
             gl_geom_work_free(s->works[t]);
@@ -129,8 +170,7 @@ gl_status sub_sink_derotate(sub_sink *s, float *resid)
         if (!c->usable[i])
             continue;
         double ang = -(c->angles[i] + c->p->north_offset);
-        s->fstat[i] =
-            gl_geom_rotate(s->plan, s->works[omp_get_thread_num()], resid + (size_t)i * plane, ang);
+        s->fstat[i] = derotate_frame(s, i, resid + (size_t)i * plane, ang);
     }
     for (long i = 0; i < c->nframe; i++)
         if (s->fstat[i])
@@ -172,17 +212,22 @@ gl_status sub_sink_put(void *sink, int mode_index, float *resid)
         for (long b = 0; b < nb; b++) {
             float *buf =
                 s->scratch + (size_t)omp_get_thread_num() * COMBINE_BLOCK * (size_t)c->nframe;
-            long j0 = b * COMBINE_BLOCK, nj = GL_SUB_MIN(COMBINE_BLOCK, c->npix - j0), n = 0;
+            long j0 = b * COMBINE_BLOCK, nj = GL_SUB_MIN(COMBINE_BLOCK, c->npix - j0);
+            /* each pixel's stack keeps its non-NaN values only (written
+             * always, counted when not NaN: no branch) */
+            long cnt[COMBINE_BLOCK] = {0};
             for (long i = 0; i < c->nframe; i++) {
                 if (!c->usable[i])
                     continue;
                 const float *r = resid + (size_t)i * plane + (size_t)j0;
-                for (long q = 0; q < nj; q++)
-                    buf[(size_t)q * (size_t)c->nframe + (size_t)n] = r[q];
-                n++;
+                for (long q = 0; q < nj; q++) {
+                    buf[(size_t)q * (size_t)c->nframe + (size_t)cnt[q]] = r[q];
+                    cnt[q] += r[q] == r[q];
+                }
             }
             for (long q = 0; q < nj; q++)
-                out[j0 + q] = sub_nanmedian(buf + (size_t)q * (size_t)c->nframe, n);
+                out[j0 + q] =
+                    gl_stats_median_inplace_float(buf + (size_t)q * (size_t)c->nframe, cnt[q]);
         }
         return GL_OK;
     }

@@ -21,12 +21,23 @@ typedef struct sub_sink {
     long nring;
     int *ring;       /* ring of each pixel, 1 FWHM wide */
     double *weights; /* nframe x nring (weighted mean only) */
+    /* NaN masks kept between mode counts (sub_sink_keep_masks), or NULL:
+     * per frame the input's and the derotated output's NaN bits, the angle
+     * and whether they are set; nth scratch rows for the input's bits */
+    unsigned char *mask_in, *mask_out, *mask_scratch;
+    double *mask_angle;
+    int *mask_known;
+    size_t mask_bytes; /* bytes of one frame's bits */
 } sub_sink;
 
 /* Builds the sink for ctx (geometry plan and per-thread work). */
 gl_status sub_sink_new(const sub_ctx *c, gl_cube *image, gl_cube *resid, gl_cube *raw,
                        sub_sink **out);
 void sub_sink_free(sub_sink *s);
+/* Keeps each frame's derotated NaN mask from one mode count to the next
+ * (reused when the frame's angle and input NaN pixels are the same): a
+ * quarter bit per pixel and frame. */
+gl_status sub_sink_keep_masks(sub_sink *s);
 /* Inverse residual variance per frame of s->c and ring (0 where undefined)
  * into s->weights, from resid before derotation. */
 void sub_sink_weights(sub_sink *s, const float *resid);

@@ -111,12 +111,23 @@ static gl_status pca_run(const sub_ctx *c)
             float *out = work + (size_t)i * (size_t)c->npix;
             const float *in = c->sci + (size_t)i * (size_t)c->npix;
             const float *r = M + (size_t)i * (size_t)npr;
-            for (long j = 0; j < c->npix; j++)
-                out[j] = NAN;
-            if (!c->usable[i])
+            if (!c->usable[i]) {
+                for (long j = 0; j < c->npix; j++)
+                    out[j] = NAN;
                 continue;
-            for (long j = 0; j < npr; j++)
-                out[reg.pix[j]] = isnan(in[reg.pix[j]]) ? NAN : r[j];
+            }
+            /* one pass over the frame: the region's pixels come in
+             * increasing order, NaN in the gaps between them */
+            long q0 = 0;
+            for (long j = 0; j < npr; j++) {
+                long q = reg.pix[j];
+                for (; q0 < q; q0++)
+                    out[q0] = NAN;
+                out[q] = isnan(in[q]) ? NAN : r[j];
+                q0 = q + 1;
+            }
+            for (; q0 < c->npix; q0++)
+                out[q0] = NAN;
         }
         st = c->sink(c->sink_data, inv[s], work);
         if (st)

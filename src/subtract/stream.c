@@ -66,6 +66,8 @@ double gl_subtract_memory_estimate(long nx, long ny, long nchan, long nframe,
     if (p->method == GL_SUBTRACT_PCA)
         est += 16.0 * (double)nframe * (double)nframe;
     est += (p->keep_residuals + p->keep_raw_residuals) * planes * frames;
+    if (planes > 1) /* the kept derotation masks: 2 bits per pixel and frame */
+        est += frames / 16;
     return est;
 }
 

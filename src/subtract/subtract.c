@@ -372,6 +372,10 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
     }
     c.work = work;
     st = sub_sink_new(&c, res.image, res.residuals, res.raw_residuals, &sink);
+    /* several mode counts: every frame is derotated once per count, with the
+     * same angle and (for most methods) the same NaN pixels */
+    if (!st && res.image->nframe > 1)
+        st = sub_sink_keep_masks(sink);
     if (st)
         goto cleanup;
     c.sink = sub_sink_put;

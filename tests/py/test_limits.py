@@ -558,6 +558,29 @@ def test_bad_separation_range(tmp_path):
     assert "--min-separation" in msg, msg
 
 
+def test_memory_limit_is_checked_not_ignored(tmp_path):
+    """limits has no streamed path: a --memory-limit below what it holds (the
+    cube and a copy with the fakes) is refused before anything is written; a
+    limit it fits in changes nothing in the products."""
+    c, a, p = noise_inputs(tmp_path, seed=3, n=48, nf=20)
+    rng = np.random.default_rng(5)
+    big = write_cube(tmp_path / "big.fits", rng.normal(0, 1, (64, 128, 128)))  # 4 MB float32
+    write_angles(tmp_path / "big.txt", np.linspace(0, 90, 64))
+    before = sorted(q.name for q in tmp_path.iterdir())
+    r = run("limits", big, "--angles", tmp_path / "big.txt", "--psf", p, "--fwhm", FWHM,
+            "--method", "median-frame", "--out", tmp_path / "o", "--memory-limit", "2M")
+    assert r.returncode == 1 and len(r.stderr.strip().splitlines()) == 1, r.stderr
+    assert "big.fits" in r.stderr and "--memory-limit" in r.stderr, r.stderr
+    assert "no streamed path" in r.stderr, r.stderr
+    assert sorted(q.name for q in tmp_path.iterdir()) == before
+    args = ["limits", c, "--angles", a, "--psf", p, "--fwhm", FWHM, "--method", "median-frame"]
+    ok(*args, "--out", tmp_path / "free")
+    ok(*args, "--out", tmp_path / "capped", "--memory-limit", "1G")
+    for ext in [".limits.csv", ".fakes.csv"]:
+        assert (tmp_path / f"free{ext}").read_text() == (tmp_path / f"capped{ext}").read_text()
+    assert "without the streamed path" in run("limits", "--help").stdout
+
+
 # ---- 6. threads, products -----------------------------------------------------
 
 def test_threads_and_products(tmp_path):

@@ -9,8 +9,12 @@ streamed path must reproduce it:
   - median combination of median ADI: bit-identical (exact medians);
   - full-frame PCA with blocks of 128 frames: bit-identical (same BLAS tiles);
   - full-frame PCA under a quarter of the cube: equal to float rounding of the
-    projections (stated bound: 1e-3 of the image's rms for the median, 1e-5
-    for the mean; measured 2e-4 and 3e-7 on the 400-frame benchmark cube).
+    projections (stated bound: 1e-3 of the image's rms for the median, 2e-4
+    for the mean; measured 2e-4 and 3e-7 on the 400-frame benchmark cube with
+    OpenBLAS's generic kernels, and 5e-5 for the mean here with its AVX-512
+    (SkylakeX) ones, whose summation order follows the shape of the tile:
+    1.8e-6 in absolute terms, below the float32 rounding of the halo's peak,
+    50 x 2^-24 = 3e-6).
 The fixed overhead is measured, not assumed: the peak memory of gloam on a
 tiny cube (libraries, FFTW and OpenBLAS set-up), plus 16 MB for the
 per-thread BLAS and FFT buffers.
@@ -88,7 +92,7 @@ def subtract(d, out, opts, limit=None, cube="cube.fits", threads=1):
 @pytest.mark.parametrize("opts,exact,tol", [
     (["--method", "median-frame", "--combine", "median"], True, 0),
     (["--method", "klip-frame", "--modes", "3,8", "--combine", "median"], False, 1e-3),
-    (["--method", "klip-frame", "--modes", "3,8", "--combine", "mean"], False, 1e-5),
+    (["--method", "klip-frame", "--modes", "3,8", "--combine", "mean"], False, 2e-4),
 ])
 def test_quarter_limit_same_result(inputs, opts, exact, tol):
     d, size, base = inputs
