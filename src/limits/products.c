@@ -126,8 +126,16 @@ gl_status gl_limits_fakes_write(const char *csv, const gl_limits_result *r)
                 buf[(size_t)(5 + q * r->nplanes + k) * nr + (size_t)j] = w[q];
         }
     }
-    gl_table t = {nc, r->nfakes, names, NULL, cols, NULL};
+    const char **units = gl_calloc((size_t)nc, sizeof *units);
+    if (!units) {
+        st = gl_error_nomem("fakes table");
+        goto cleanup;
+    }
+    units[0] = "pix";
+    units[1] = "deg";
+    gl_table t = {nc, r->nfakes, names, units, cols, NULL};
     st = gl_table_write_csv(csv, &t);
+    gl_free(units);
 cleanup:
     gl_free(buf);
     gl_free(names);
@@ -149,6 +157,7 @@ gl_status gl_limits_companions_write(const char *csv, const gl_limits_result *r,
     const char *names[NC] = {
         "candidate", "plane",      "modes",    "sep_px",       "sep_arcsec", "pa_deg",       "flux",
         "noise",     "throughput", "contrast", "contrast_err", "delta_mag",  "delta_mag_err"};
+    const char *units[NC] = {"", "", "", "pix", "arcsec", "deg", "", "", "", "", "", "mag", "mag"};
     const double *cols[NC];
     for (int c = 0; c < NC; c++)
         cols[c] = buf + (size_t)c * (size_t)rows;
@@ -176,7 +185,7 @@ gl_status gl_limits_companions_write(const char *csv, const gl_limits_result *r,
             for (int c = 0; c < NC; c++)
                 buf[(size_t)c * (size_t)rows + j] = isfinite(v[c]) ? v[c] : NAN;
         }
-    gl_table t = {NC, rows, names, NULL, cols, NULL};
+    gl_table t = {NC, rows, names, units, cols, NULL};
     gl_status st = gl_table_write_csv(csv, &t);
     gl_free(buf);
     return st;
