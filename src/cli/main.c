@@ -2,7 +2,7 @@
  * main.c -- the `gloam` executable: dispatches `gloam COMMAND [options]` to
  * the command's function through one table, and handles --help/--version.
  */
-#include "cli/cli.h"
+#include "command/cli.h"
 
 #include <stdio.h>
 #include <string.h>

@@ -1,7 +1,7 @@
 /*
  * cmd_inject.c -- `gloam inject`: plant fake companions into a sequence.
  */
-#include "cli/cli.h"
+#include "command/cli.h"
 
 #include <math.h>
 #include <stdio.h>

@@ -6,7 +6,7 @@
  * sent to files of the run folder, so that each step writes what the single
  * command writes.
  */
-#include "cli/cli.h"
+#include "command/cli.h"
 
 #include <fcntl.h>
 #include <stdio.h>

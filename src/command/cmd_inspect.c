@@ -5,7 +5,7 @@
  * readable summary or the full report as one JSON object on stdout.
  * Nothing is written to disk.
  */
-#include "cli/cli.h"
+#include "command/cli.h"
 
 #include <cjson/cJSON.h>
 #include <math.h>

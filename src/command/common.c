@@ -2,7 +2,7 @@
  * common.c -- option parsing helpers, error printing and the terminal
  * progress bar shared by every command.
  */
-#include "cli/cli.h"
+#include "command/cli.h"
 
 #include <cblas.h>
 #include <errno.h>

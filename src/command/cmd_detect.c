@@ -7,7 +7,7 @@
  * Products: PREFIX.snr.fits (S/N map; extensions FPF and SIGMA),
  * PREFIX.candidates.csv and .fits (best first), PREFIX.snr.png.
  */
-#include "cli/cli.h"
+#include "command/cli.h"
 
 #include <math.h>
 #include <stdio.h>

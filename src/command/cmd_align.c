@@ -3,7 +3,7 @@
  * every frame and move it to (nx/2, ny/2), with the preparation around it
  * (bad pixels, frame selection, crop, binning, angles from the headers).
  */
-#include "cli/cli.h"
+#include "command/cli.h"
 
 #include <errno.h>
 #include <math.h>

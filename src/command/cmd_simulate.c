@@ -5,7 +5,7 @@
  * src/sim; this file parses options, creates DIR and writes the products all
  * or nothing.
  */
-#include "cli/cli.h"
+#include "command/cli.h"
 
 #include <math.h>
 

@@ -6,7 +6,7 @@
  * calls are all here: the library only receives the function that combines
  * the processes' outcomes.
  */
-#include "cli/cli.h"
+#include "command/cli.h"
 
 #include <stdio.h>
 #include <stdlib.h>
