@@ -75,7 +75,7 @@ enum {
 /* --method NAME, with the first release's names still accepted (a note
  * each): gaussian and moffat are the core method with that profile,
  * register is reference, symmetry is halo (docs/names.md). */
-static int parse_method(const gl_cli *cli, const char *name, gl_align_params *p, int *profile_given)
+static int parse_method(gl_cli *cli, const char *name, gl_align_params *p, int *profile_given)
 {
     static const struct {
         const char *old, *now;

@@ -414,12 +414,12 @@ int cmd_simulate(gl_cli *cli, int argc, char **argv)
         if (slash)
             *slash = '\0';
         if (err == ENOENT)
-            fprintf(stderr,
+            fprintf(cli->err,
                     "gloam simulate: %s: cannot create the folder: its parent folder %s does "
                     "not exist\n",
                     dir, slash ? parent : ".");
         else
-            fprintf(stderr, "gloam simulate: %s: cannot create the folder: %s\n", dir,
+            fprintf(cli->err, "gloam simulate: %s: cannot create the folder: %s\n", dir,
                     strerror(err));
         return 1;
     } else {
