@@ -212,7 +212,7 @@ const char *cli_output_name(const gl_cli *cli, const char *out, const char *inpu
 gl_status cli_add_product(gl_cli *cli, gl_outset *outs, const char *prefix, const char *suffix,
                           char *path, size_t size, const char **tmp);
 
-/* Notes on stderr, once per run and spelling, that an old option spelling
+/* Notes on the error stream, once per command run and spelling, that an old option spelling
  * or value (`old`, e.g. "--upsample" or "--method gaussian") still works for
  * this release but is replaced by `now` (e.g. "--precision"); quiet with
  * --quiet. Every renamed option goes through this one note, so the

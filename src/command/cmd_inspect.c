@@ -2,8 +2,8 @@
  * cmd_inspect.c -- `gloam inspect CUBE [--angles FILE] [--fwhm PX] [--json]`:
  * a first look at a science cube. The numbers come from the library
  * (gl_inspect_report_new); this file parses options and prints either a
- * readable summary or the full report as one JSON object on stdout.
- * Nothing is written to disk.
+ * readable summary or the full report as one JSON object on the output stream (stdout for the
+ * program). Nothing is written to disk.
  */
 #include "command/cli.h"
 
