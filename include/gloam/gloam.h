@@ -17,5 +17,6 @@
 #include "gloam/align.h"
 #include "gloam/vet.h"
 #include "gloam/run.h"
+#include "gloam/command.h"
 
 #endif

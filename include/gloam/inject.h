@@ -72,6 +72,16 @@ GL_API gl_status gl_inject_companions(gl_cube *cube, const double *angles_deg,
                                       const gl_companion *comps, int ncompanions,
                                       const double *spectrum);
 
+/* inject's table of planted companions (src/inject/products.c), normally
+ * to a temporary name from gl_outset_add: one row per companion:
+ * companion (from 1), sep_px, pa_deg, contrast, flux (contrast x
+ * star_flux: the PSF's total times the spectrum's first channel), x_frame1,
+ * y_frame1 (gl_companion_position at theta0_deg, the first frame's angle).
+ * Errors: GL_ERR_IO naming the file, GL_ERR_NOMEM. */
+GL_API gl_status gl_inject_planted_write(const char *csv, const gl_companion *comps, int n,
+                                         double theta0_deg, double north_offset_deg, long nx,
+                                         long ny, double star_flux);
+
 #ifdef __cplusplus
 }
 #endif

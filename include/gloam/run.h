@@ -131,21 +131,11 @@ GL_API const char *gl_step_name(gl_step s);
 /* The step of that name, or -1. */
 GL_API int gl_step_from_name(const char *name);
 
-/* Runs one command of a step: argv[0] is "gloam", argv[1] the command, the
- * rest its arguments, exactly as on a command line. stdout_path receives
- * the command's standard output, log_path its messages (both appended).
- * Returns the command's exit status (0, 1 or 2). The command-line program
- * supplies this (it dispatches to the same code as the single commands). */
-typedef int (*gl_run_exec_fn)(void *user, int argc, char **argv, const char *stdout_path,
-                              const char *log_path);
-
 typedef struct gl_run_params {
     /* set by the user */
     const char *folder;   /* the run folder; created when missing */
     int force[GL_NSTEPS]; /* nonzero: run the step even when it is current */
     int dry_run;          /* print each step's command line, run nothing */
-    gl_run_exec_fn exec;  /* runs one command (required unless dry_run) */
-    void *exec_user;
 } gl_run_params;
 
 GL_API void gl_run_params_init(gl_run_params *p);
@@ -170,7 +160,9 @@ typedef struct gl_run_outcome {
 /* Runs the plan's steps for target into rp->folder: each step's command
  * line is composed from the plan (inputs, the step's section and the
  * target's overrides) and the products of the steps before it, is skipped
- * when the ledger says it is current, and is run through rp->exec. Then
+ * when the ledger says it is current, and is run in this process through
+ * gl_command_exec (command.h), its result text going to its file of the
+ * run folder and its messages to RUN/log.txt. Then
  * writes RUN/summary.json and RUN/report.html. Every key of the plan that
  * no step used is an error before anything runs (see gl_plan_check_used).
  * Function return value: GL_OK when every asked step ran or was current

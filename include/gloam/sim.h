@@ -143,6 +143,18 @@ GL_API void gl_sim_result_free(gl_sim_result *r);
 /* Parses a coronagraph name ("none", "perfect", "lyot"). */
 GL_API gl_status gl_sim_coronagraph_parse(const char *text, gl_sim_coronagraph *c);
 
+/* simulate's tables (src/sim/products.c), normally to temporary names from
+ * gl_outset_add; either path may be NULL (not written).
+ * truth_csv: one row per companion: sep_px, pa_deg, contrast, sep_arcsec
+ *   (p->pixscale_mas), x_north_up, y_north_up (where it lands in the
+ *   north-up image), flux (contrast x the total of psf.fits, channel 0).
+ * frames_csv: one row per frame: frame (from 0), angle_deg, star_x, star_y,
+ *   hour_angle_deg, declination_deg, time_s (mid-exposure, seconds from
+ *   DATE-OBS).
+ * Errors: GL_ERR_IO naming the file, GL_ERR_NOMEM. */
+GL_API gl_status gl_sim_tables_write(const gl_sim_params *p, const gl_sim_result *r,
+                                     const char *truth_csv, const char *frames_csv);
+
 #ifdef __cplusplus
 }
 #endif

@@ -51,4 +51,10 @@ float gl_stats_median_inplace_float(float *v, long n);
  * memory. */
 char *gl_strdup(const char *s);
 
+/* The log and progress handlers now installed (gl_log_set_handler,
+ * gl_progress_set_handler), so that a caller that installs its own for a
+ * while (gl_command_exec) can put them back. */
+void gl_log_get_handler(gl_log_fn *fn, void **user, gl_log_level *max_level);
+void gl_progress_get_handler(gl_progress_fn *fn, void **user);
+
 #endif

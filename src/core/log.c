@@ -1,11 +1,12 @@
 /*
  * log.c -- logging and progress reporting through caller-installed callbacks.
  *
- * The library itself never writes to a terminal: the command line installs
- * handlers that print to stderr (and draw a progress bar only on a terminal).
+ * The stages never print: the command layer (src/command/) installs
+ * handlers that print to the error stream it was given (and draw a progress
+ * bar only when that stream is a terminal).
  * Progress may be reported from worker threads, so calls are serialised.
  */
-#include "gloam/core.h"
+#include "core/internal.h"
 
 #include <pthread.h>
 #include <stdarg.h>
@@ -24,6 +25,19 @@ void gl_log_set_handler(gl_log_fn fn, void *user, gl_log_level max_level)
     log_fn = fn;
     log_user = user;
     log_max = max_level;
+}
+
+void gl_log_get_handler(gl_log_fn *fn, void **user, gl_log_level *max_level)
+{
+    *fn = log_fn;
+    *user = log_user;
+    *max_level = log_max;
+}
+
+void gl_progress_get_handler(gl_progress_fn *fn, void **user)
+{
+    *fn = progress_fn;
+    *user = progress_user;
 }
 
 void gl_log(gl_log_level level, const char *fmt, ...)

@@ -7,14 +7,15 @@
  * ledger finds current is not run again; then the summary and the report
  * are written from what the folder holds.
  *
- * The steps run through a caller-supplied function that executes a gloam
- * command in this process (the command-line program passes its own
- * dispatcher), so that a run writes exactly the products, with exactly the
- * code, of the single commands.
+ * Each step is its gloam command run in this process through the command
+ * layer (gl_command_exec, command.h) with the step's files of the run
+ * folder as its streams, so that a run writes exactly the products, with
+ * exactly the code, of the single commands.
  */
 #include "run/internal.h"
 
 #include "core/internal.h"
+#include "gloam/command.h"
 #include "gloam/inject.h"
 #include "gloam/io.h"
 
@@ -475,8 +476,7 @@ static int help_names(const char *help, const char *key)
 
 /* Asks each command that a section feeds for its --help and refuses a key
  * that none of them takes, naming the plan's line. */
-static gl_status check_options(gl_plan *plan, const char *target, const gl_run_params *rp,
-                               const run_cmd *cmds)
+static gl_status check_options(gl_plan *plan, const char *target, const run_cmd *cmds)
 {
     static const struct {
         const char *section;
@@ -489,17 +489,7 @@ static gl_status check_options(gl_plan *plan, const char *target, const gl_run_p
         {"limits", {"limits"}},
         {"vet", {"vet"}},
     };
-    const char *tmpdir = getenv("TMPDIR");
-    char help_path[4300];
-    snprintf(help_path, sizeof help_path, "%s/gloam-help-XXXXXX",
-             tmpdir && *tmpdir ? tmpdir : "/tmp");
-    int fd = mkstemp(help_path);
-    if (fd < 0)
-        return gl_error_set(GL_ERR_IO, "%s: cannot create a temporary file: %s", help_path,
-                            strerror(errno));
-    close(fd);
     gl_status st = GL_OK;
-    char *text = NULL;
     for (size_t k = 0; k < sizeof feeds / sizeof feeds[0] && !st; k++) {
         gl_plan_item it[64];
         int n = gl_plan_items(plan, target, feeds[k].section, it, 64);
@@ -511,24 +501,18 @@ static gl_status check_options(gl_plan *plan, const char *target, const gl_run_p
             int step = gl_step_from_name(feeds[k].commands[c]);
             if (step < 0 || !cmds[step].asked || cmds[step].why_not[0])
                 continue;
-            FILE *clear = fopen(help_path, "w");
-            if (clear)
-                fclose(clear);
+            /* the command's --help, into memory */
+            char *text = NULL;
+            size_t len = 0;
+            FILE *h = open_memstream(&text, &len);
             char *argv[] = {"gloam", (char *)feeds[k].commands[c], "--help", NULL};
-            rp->exec(rp->exec_user, 3, argv, help_path, help_path);
-            FILE *h = fopen(help_path, "rb");
-            free(text);
-            text = NULL;
-            if (h) {
-                text = calloc(1, 1 << 16);
-                if (text)
-                    (void)!fread(text, 1, (1 << 16) - 1, h);
+            int rc = h ? gl_command_exec(3, argv, h, h) : 2;
+            if (h)
                 fclose(h);
-            }
-            if (!text) {
-                st = gl_error_set(GL_ERR_IO, "%s: cannot ask gloam %s for its options", help_path,
-                                  feeds[k].commands[c]);
-                break;
+            if (rc != 0 || !text) {
+                free(text);
+                return gl_error_set(GL_ERR_NOMEM, "cannot ask gloam %s for its options",
+                                    feeds[k].commands[c]);
             }
             for (int i = 0; i < n; i++)
                 if (!help_names(text, it[i].key)) {
@@ -538,10 +522,9 @@ static gl_status check_options(gl_plan *plan, const char *target, const gl_run_p
                                       feeds[k].commands[c]);
                     break;
                 }
+            free(text);
         }
     }
-    free(text);
-    remove(help_path);
     return st;
 }
 
@@ -647,6 +630,26 @@ static long table_rows(const char *path)
     return n;
 }
 
+/* Runs one step's command in this process: its result text appended to
+ * stdout_path (NULL: to the log), its messages to log_path. Returns the
+ * exit status, 2 when a file cannot be opened. */
+static int exec_step(int argc, char **argv, const char *stdout_path, const char *log_path)
+{
+    FILE *log = fopen(log_path, "a");
+    FILE *out = stdout_path ? fopen(stdout_path, "a") : log;
+    int rc = 2;
+    if (log && out)
+        rc = gl_command_exec(argc, argv, out, log);
+    if (!log || !out)
+        gl_error_set(GL_ERR_IO, "%s: cannot be written: %s", !log ? log_path : stdout_path,
+                     strerror(errno));
+    if (out && out != log)
+        fclose(out);
+    if (log)
+        fclose(log);
+    return rc;
+}
+
 static gl_status run_step(gl_step s, run_cmd *c, const gl_run_params *rp, const run_files *f,
                           gl_ledger *led, const char *target, gl_run_outcome *out)
 {
@@ -678,7 +681,7 @@ static gl_status run_step(gl_step s, run_cmd *c, const gl_run_params *rp, const 
     if (c->stdout_path)
         remove(c->stdout_path);
     double t0 = now_s();
-    int rc = rp->exec(rp->exec_user, c->argc + 1, args, c->stdout_path, f->log);
+    int rc = exec_step(c->argc + 1, args, c->stdout_path, f->log);
     out->seconds[s] = now_s() - t0;
     if (rc != 0) {
         out->state[s] = GL_STEP_FAILED;
@@ -707,8 +710,8 @@ gl_status gl_run_target(gl_plan *plan, const char *target, const gl_run_params *
     run_cmd *cmds = NULL, *tmp = NULL;
     gl_ledger *led = NULL;
     memset(out, 0, sizeof *out);
-    if (!rp->folder || (!rp->exec && !rp->dry_run))
-        return gl_error_set(GL_ERR_USAGE, "gl_run_target: no folder or no command runner");
+    if (!rp->folder)
+        return gl_error_set(GL_ERR_USAGE, "gl_run_target: no run folder");
     a = calloc(1, sizeof *a);
     scratch = calloc(1, sizeof *scratch);
     f = calloc(1, sizeof *f);
@@ -733,7 +736,7 @@ gl_status gl_run_target(gl_plan *plan, const char *target, const gl_run_params *
             goto cleanup;
     }
     if ((st = compose(plan, target, f, a, 1, cmds)) || (st = gl_plan_check_used(plan)) ||
-        (rp->exec && (st = check_options(plan, target, rp, cmds))))
+        (st = check_options(plan, target, cmds)))
         goto cleanup;
     if (rp->dry_run) {
         static char line[1 << 15];

@@ -98,6 +98,47 @@ def test_shared_library_is_versioned_and_exports_only_the_api(installed):
     # symbol (.gomp_critical_user_NAME); it is the compiler's, not our API
     stray = [n for n in names if not n.startswith(("gl_", ".gomp_critical_user_"))]
     assert not stray, f"exported symbols outside the gl_ API: {stray[:10]}"
+    # the command layer's entry points are API; its helpers are not
+    for api in ("gl_command_exec", "gl_command_list", "gl_command_set_processes", "gl_run_target"):
+        assert api in names, f"{api} is not exported"
+    assert not [n for n in names if n.startswith(("cli_", "cmd_"))]
+
+
+COMMAND_CLIENT = r"""
+#include <gloam/gloam.h>
+#include <stdio.h>
+#include <stdlib.h>
+int main(int argc, char **argv)
+{
+    char *text = NULL;
+    size_t len = 0;
+    FILE *m = open_memstream(&text, &len);
+    int rc = gl_command_exec(argc, argv, m, m);
+    fclose(m);
+    printf("rc=%d\n%s", rc, text);
+    free(text);
+    return 0;
+}
+"""
+
+
+def test_a_client_runs_a_command_through_the_shared_library(installed, tmp_path):
+    """A program of others runs `gloam inspect` with its own streams."""
+    dest, pc = installed
+    (tmp_path / "client.c").write_text(COMMAND_CLIENT)
+    r = subprocess.run(["cc", "-std=gnu17", "-o", str(tmp_path / "client"), str(tmp_path / "client.c"),
+                        *pkgconfig(dest, pc, "--cflags"), *pkgconfig(dest, pc, "--libs")],
+                       capture_output=True, text=True)
+    assert r.returncode == 0, r.stderr
+    env = dict(os.environ, LD_LIBRARY_PATH=str(shared_lib(dest).parent))
+    out = subprocess.run([str(tmp_path / "client"), "inspect", "--help"], capture_output=True,
+                         text=True, env=env)
+    assert out.returncode == 0 and out.stderr == "", out.stderr
+    assert out.stdout.startswith("rc=0\nusage: gloam inspect")
+    bad = subprocess.run([str(tmp_path / "client"), "inspect", str(tmp_path / "none.fits")],
+                         capture_output=True, text=True, env=env)
+    assert bad.stderr == "" and bad.stdout.startswith("rc=1\ngloam inspect: ")
+    assert "none.fits" in bad.stdout
 
 
 def commands(gloam):
@@ -121,7 +162,7 @@ def test_a_man_page_per_command_renders_cleanly_and_lists_every_option(installed
     assert "subtract" in cmds and "limits" in cmds
     pages = {p.name: p for p in dest.rglob("man1/*.1")}
     assert sorted(pages) == sorted(["gloam.1"] + [f"gloam-{c}.1" for c in cmds]), \
-        "src/cli/meson.build's gloam_commands differs from gloam --help"
+        "the man pages (src/cli/meson.build, read from src/command/command.c) differ from gloam --help"
     for name, page in pages.items():
         r = subprocess.run(["groff", "-man", "-ww", "-z", str(page)], capture_output=True, text=True)
         assert r.returncode == 0 and r.stderr == "", f"{name}: {r.stderr}"

@@ -1,18 +1,14 @@
 /*
  * cmd_run.c -- `gloam run PLAN --out FOLDER`: a whole reduction of one
- * target from a plan file (the library's run stage, gl_run_target). This
- * file parses the options and supplies the stage with the function that
- * runs one gloam command in this process, its standard output and messages
- * sent to files of the run folder, so that each step writes what the single
- * command writes.
+ * target from a plan file (the library's run stage, gl_run_target, which
+ * runs each step through gl_command_exec with the step's files of the run
+ * folder as its streams). This file parses the options.
  */
-#include "cli/cli.h"
+#include "command/cli.h"
 
-#include <fcntl.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
-#include <unistd.h>
 
 static const char help[] =
     "usage: gloam run PLAN --out FOLDER [options]\n"
@@ -32,31 +28,6 @@ static const char help[] =
 
 enum { OPT_OUT = CLI_OPT_FIRST_COMMAND_OPTION, OPT_TARGET, OPT_FORCE, OPT_DRY, OPT_EXAMPLE };
 
-/* Points fd at path (appending), keeping the old descriptor in *saved. */
-static int redirect(int fd, const char *path, int *saved)
-{
-    fflush(fd == 1 ? stdout : stderr);
-    *saved = dup(fd);
-    int f = open(path, O_WRONLY | O_CREAT | O_APPEND, 0666);
-    if (f < 0 || *saved < 0) {
-        if (f >= 0)
-            close(f);
-        return -1;
-    }
-    dup2(f, fd);
-    close(f);
-    return 0;
-}
-
-static void restore(int fd, int saved)
-{
-    fflush(fd == 1 ? stdout : stderr);
-    if (saved >= 0) {
-        dup2(saved, fd);
-        close(saved);
-    }
-}
-
 int cli_parse_force(const gl_cli *cli, const char *arg, int force[GL_NSTEPS])
 {
     int s = gl_step_from_name(arg);
@@ -72,24 +43,6 @@ int cli_parse_force(const gl_cli *cli, const char *arg, int force[GL_NSTEPS])
         force[s] = 1;
     }
     return 0;
-}
-
-int cli_exec_in_process(void *user, int argc, char **argv, const char *stdout_path,
-                        const char *log_path)
-{
-    gl_cli *run_cli = user;
-    int out_saved = -1, err_saved = -1;
-    if (redirect(1, stdout_path ? stdout_path : log_path, &out_saved) ||
-        redirect(2, log_path, &err_saved)) {
-        restore(1, out_saved);
-        restore(2, err_saved);
-        return 2;
-    }
-    int rc = cli_run_command(argc, argv);
-    restore(1, out_saved);
-    restore(2, err_saved);
-    cli_start(run_cli); /* the step installed its own printers */
-    return rc;
 }
 
 int cmd_run(gl_cli *cli, int argc, char **argv)
@@ -121,7 +74,7 @@ int cmd_run(gl_cli *cli, int argc, char **argv)
     if (k < 0)
         return cli_exit_status(k);
     if (example) {
-        fputs(gl_run_example_plan(), stdout);
+        fputs(gl_run_example_plan(), cli->out);
         return 0;
     }
     const char *plan_path = cli_positional(cli, argc, argv, "the plan file");
@@ -159,8 +112,6 @@ int cmd_run(gl_cli *cli, int argc, char **argv)
             goto cleanup;
         }
     }
-    rp.exec = cli_exec_in_process;
-    rp.exec_user = cli;
     gl_run_outcome out;
     st = gl_run_target(plan, target, &rp, &out);
     if (st) {
@@ -168,7 +119,8 @@ int cmd_run(gl_cli *cli, int argc, char **argv)
         goto cleanup;
     }
     if (!rp.dry_run && !cli->quiet)
-        printf("%s: run folder %s (report.html, summary.json, log.txt)\n", target, rp.folder);
+        fprintf(cli->out, "%s: run folder %s (report.html, summary.json, log.txt)\n", target,
+                rp.folder);
 cleanup:
     gl_plan_free(plan);
     return rc;

@@ -1,20 +1,16 @@
 /*
  * cmd_survey.c -- `gloam survey PLAN --out FOLDER`: every target of a plan
- * (gl_survey_run). Started by mpirun in a build with MPI (meson option
- * mpi), the targets are spread over the processes, one process per target
- * when there are as many; otherwise they run one after the other. The MPI
- * calls are all here: the library only receives the function that combines
- * the processes' outcomes.
+ * (gl_survey_run). The library has no MPI: a program that has (the gloam
+ * executable of a build with MPI, src/cli/main.c) installs the processes
+ * with gl_command_set_processes, and under mpirun the targets are spread
+ * over them, one process per target when there are as many; otherwise they
+ * run one after the other.
  */
-#include "cli/cli.h"
+#include "command/cli.h"
 
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
-
-#ifdef GL_HAVE_MPI
-#include <mpi.h>
-#endif
 
 static const char help[] =
     "usage: gloam survey PLAN --out FOLDER [options]\n\n"
@@ -27,30 +23,9 @@ static const char help[] =
     "the targets are spread over the processes; the products are the same.\n\n"
     "options:\n"
     "  --out FOLDER      the survey folder\n"
-    "  --force STEP      run STEP again for every target (repeatable; all: every step)\n"
-#ifdef GL_HAVE_MPI
-    "\nthis build runs targets in parallel under mpirun (MPI)\n"
-#else
-    "\nthis build has no MPI: targets run one after the other\n"
-#endif
-    ;
+    "  --force STEP      run STEP again for every target (repeatable; all: every step)\n";
 
 enum { OPT_OUT = CLI_OPT_FIRST_COMMAND_OPTION, OPT_FORCE };
-
-#ifdef GL_HAVE_MPI
-static int share_mpi(void *user, unsigned char *buf, size_t n)
-{
-    (void)user;
-    return MPI_Allreduce(MPI_IN_PLACE, buf, (int)n, MPI_UNSIGNED_CHAR, MPI_MAX, MPI_COMM_WORLD) !=
-           MPI_SUCCESS;
-}
-
-/* Under mpirun (the launcher sets these), not for a plain start. */
-static int started_by_mpirun(void)
-{
-    return getenv("OMPI_COMM_WORLD_SIZE") || getenv("PMI_SIZE") || getenv("PMIX_RANK");
-}
-#endif
 
 int cmd_survey(gl_cli *cli, int argc, char **argv)
 {
@@ -60,8 +35,13 @@ int cmd_survey(gl_cli *cli, int argc, char **argv)
                                          {0, 0, 0, 0}};
     gl_survey_params sp;
     gl_survey_params_init(&sp);
+    const gl_command_processes *pr = cli_processes();
+    char help_text[sizeof help + 256];
+    snprintf(help_text, sizeof help_text, "%s\n%s\n", help,
+             pr && pr->about ? pr->about
+                             : "this program has no MPI: targets run one after the other");
     int k, c;
-    while ((k = cli_next_option(cli, argc, argv, opts, help, &c)) > 0) {
+    while ((k = cli_next_option(cli, argc, argv, opts, help_text, &c)) > 0) {
         switch (c) {
         case OPT_OUT: sp.folder = optarg; break;
         case OPT_FORCE:
@@ -82,43 +62,38 @@ int cmd_survey(gl_cli *cli, int argc, char **argv)
         if (cli_missing(cli, 1, names, vals))
             return 1;
     }
-    int mpi = 0;
-#ifdef GL_HAVE_MPI
-    if (started_by_mpirun()) {
-        if (MPI_Init(NULL, NULL) != MPI_SUCCESS) {
-            fprintf(stderr, "gloam survey: MPI could not start\n");
+    int group = 0;
+    if (pr && pr->start) {
+        group = pr->start(pr->user, &sp.rank, &sp.size);
+        if (group < 0) {
+            fprintf(cli->err, "gloam survey: the processes of the survey could not start\n");
             return 2;
         }
-        mpi = 1;
-        MPI_Comm_rank(MPI_COMM_WORLD, &sp.rank);
-        MPI_Comm_size(MPI_COMM_WORLD, &sp.size);
-        sp.share = share_mpi;
+        if (sp.size > 1) {
+            sp.share = pr->share;
+            sp.share_user = pr->user;
+        }
         if (sp.rank != 0)
             cli->quiet = 1; /* one voice on the terminal: process 0's */
     }
-#endif
     cli_start(cli);
     int rc = 0, nfailed = 0;
     gl_plan *plan = NULL;
     gl_status st = gl_plan_read(plan_path, &plan);
     if (!st) {
-        sp.run.exec = cli_exec_in_process;
-        sp.run.exec_user = cli;
         st = gl_survey_run(plan, &sp, &nfailed);
     }
     if (st) {
         rc = sp.rank == 0 ? cli_fail(cli, st) : gl_status_exit_code(st);
     } else if (sp.rank == 0 && !cli->quiet) {
         int nt = gl_plan_target_count(plan);
-        printf("%d target%s, %d failed; survey folder %s (survey.csv, survey.html)%s\n", nt,
-               nt == 1 ? "" : "s", nfailed, sp.folder, mpi ? " [MPI]" : "");
+        fprintf(cli->out, "%d target%s, %d failed; survey folder %s (survey.csv, survey.html)%s\n",
+                nt, nt == 1 ? "" : "s", nfailed, sp.folder, group && pr->tag ? pr->tag : "");
     }
     if (!rc && nfailed)
         rc = 1;
     gl_plan_free(plan);
-#ifdef GL_HAVE_MPI
-    if (mpi)
-        MPI_Finalize();
-#endif
+    if (group && pr->finish)
+        pr->finish(pr->user);
     return rc;
 }

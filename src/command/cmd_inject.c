@@ -1,7 +1,7 @@
 /*
  * cmd_inject.c -- `gloam inject`: plant fake companions into a sequence.
  */
-#include "cli/cli.h"
+#include "command/cli.h"
 
 #include <math.h>
 #include <stdio.h>
@@ -170,24 +170,9 @@ int cmd_inject(gl_cli *cli, int argc, char **argv)
         (st = gl_angles_table_append(tmp_cube, angles, cube->nframe)))
         goto cleanup;
 
-    {
-        double sep[MAX_COMPANIONS], pa[MAX_COMPANIONS], con[MAX_COMPANIONS], flux[MAX_COMPANIONS];
-        double x0[MAX_COMPANIONS], y0[MAX_COMPANIONS], idx[MAX_COMPANIONS];
-        for (int k = 0; k < ncompanions; k++) {
-            idx[k] = k + 1;
-            sep[k] = comps[k].sep_px;
-            pa[k] = comps[k].pa_deg;
-            con[k] = comps[k].contrast;
-            flux[k] = comps[k].contrast * psf->flux[0] * (spectrum ? spectrum[0] : 1.0);
-            gl_companion_position(&comps[k], angles[0], north, cube->nx, cube->ny, &x0[k], &y0[k]);
-        }
-        const char *names[] = {"companion", "sep_px",   "pa_deg",  "contrast",
-                               "flux",      "x_frame1", "y_frame1"};
-        const double *cols[] = {idx, sep, pa, con, flux, x0, y0};
-        gl_table t = {7, ncompanions, names, NULL, cols, NULL};
-        if ((st = gl_table_write_csv(tmp_csv, &t)))
-            goto cleanup;
-    }
+    if ((st = gl_inject_planted_write(tmp_csv, comps, ncompanions, angles[0], north, cube->nx,
+                                      cube->ny, psf->flux[0] * (spectrum ? spectrum[0] : 1.0))))
+        goto cleanup;
     if ((st = gl_outset_commit(outs)))
         goto cleanup;
     gl_log(GL_LOG_INFO, "planted %d companion%s into %s; list in %s", ncompanions,

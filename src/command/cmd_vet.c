@@ -4,7 +4,7 @@
  * tests, optional multi-epoch astrometry); writes one table (CSV and FITS),
  * one figure per candidate (PNG and SVG) and a DS9 region file.
  */
-#include "cli/subtract_options.h"
+#include "command/subtract_options.h"
 
 #include <math.h>
 #include <stdio.h>

@@ -2,10 +2,10 @@
  * cmd_inspect.c -- `gloam inspect CUBE [--angles FILE] [--fwhm PX] [--json]`:
  * a first look at a science cube. The numbers come from the library
  * (gl_inspect_report_new); this file parses options and prints either a
- * readable summary or the full report as one JSON object on stdout.
- * Nothing is written to disk.
+ * readable summary or the full report as one JSON object on the output stream (stdout for the
+ * program). Nothing is written to disk.
  */
-#include "cli/cli.h"
+#include "command/cli.h"
 
 #include <cjson/cJSON.h>
 #include <math.h>
@@ -31,114 +31,119 @@ static const char help[] =
 
 enum { OPT_ANGLES = CLI_OPT_FIRST_COMMAND_OPTION, OPT_FWHM, OPT_JSON, OPT_PSF };
 
-static void print_range(const char *name, const gl_inspect_range *rg)
+static void print_range(FILE *o, const char *name, const gl_inspect_range *rg)
 {
     if (isfinite(rg->median))
-        printf("  %-22s min %-12.6g median %-12.6g max %.6g\n", name, rg->min, rg->median, rg->max);
+        fprintf(o, "  %-22s min %-12.6g median %-12.6g max %.6g\n", name, rg->min, rg->median,
+                rg->max);
     else
-        printf("  %-22s n/a (no background pixels)\n", name);
+        fprintf(o, "  %-22s n/a (no background pixels)\n", name);
 }
 
-static void print_text(const gl_inspect_report *r)
+static void print_text(FILE *f, const gl_inspect_report *r)
 {
     const gl_fits_info *fi = &r->fits;
-    printf("file        %s\n", r->path);
-    printf("HDU         %d%s%s%s\n", fi->hdu, fi->hdu == 1 ? " (primary)" : " (extension)",
-           fi->extname[0] ? ", EXTNAME " : "", fi->extname);
-    printf("shape       nx %ld, ny %ld, channels %ld, frames %ld (NAXIS %d)\n", r->nx, r->ny,
-           r->nchan, r->nframe, fi->naxis);
-    printf("BITPIX      %d", fi->bitpix);
+    fprintf(f, "file        %s\n", r->path);
+    fprintf(f, "HDU         %d%s%s%s\n", fi->hdu, fi->hdu == 1 ? " (primary)" : " (extension)",
+            fi->extname[0] ? ", EXTNAME " : "", fi->extname);
+    fprintf(f, "shape       nx %ld, ny %ld, channels %ld, frames %ld (NAXIS %d)\n", r->nx, r->ny,
+            r->nchan, r->nframe, fi->naxis);
+    fprintf(f, "BITPIX      %d", fi->bitpix);
     if (fi->has_bscale || fi->has_bzero)
-        printf(", BSCALE %s%.10g, BZERO %s%.10g", fi->has_bscale ? "" : "(absent) ", fi->bscale,
-               fi->has_bzero ? "" : "(absent) ", fi->bzero);
+        fprintf(f, ", BSCALE %s%.10g, BZERO %s%.10g", fi->has_bscale ? "" : "(absent) ", fi->bscale,
+                fi->has_bzero ? "" : "(absent) ", fi->bzero);
     else
-        printf(", no BSCALE/BZERO");
+        fprintf(f, ", no BSCALE/BZERO");
     if (fi->has_blank)
-        printf(", BLANK %lld", fi->blank);
-    printf("\n");
+        fprintf(f, ", BLANK %lld", fi->blank);
+    fprintf(f, "\n");
     const gl_inspect_plane *w = &r->planes[r->worst_nan_plane];
-    printf("NaN         %.4f%% of all pixels; worst frame %ld", 100 * r->nan_fraction, w->frame);
+    fprintf(f, "NaN         %.4f%% of all pixels; worst frame %ld", 100 * r->nan_fraction,
+            w->frame);
     if (r->nchan > 1)
-        printf(" channel %ld", w->chan);
-    printf(" (%.4f%%)\n", 100 * w->nan_fraction);
+        fprintf(f, " channel %ld", w->chan);
+    fprintf(f, " (%.4f%%)\n", 100 * w->nan_fraction);
     if (r->sat_rule == GL_SAT_NONE)
-        printf("saturation  not assessed: %s\n", gl_saturation_rule_name(r->sat_rule));
+        fprintf(f, "saturation  not assessed: %s\n", gl_saturation_rule_name(r->sat_rule));
     else
-        printf("saturation  %ld pixels >= %.10g (rule: %s)\n", r->nsat, r->sat_level,
-               gl_saturation_rule_name(r->sat_rule));
+        fprintf(f, "saturation  %ld pixels >= %.10g (rule: %s)\n", r->nsat, r->sat_level,
+                gl_saturation_rule_name(r->sat_rule));
 
-    printf("\nper frame (%ld planes; frames count from 0; background: r >= %.1f px from "
-           "(%.0f, %.0f))\n",
-           r->nplanes, r->bg_inner_px, r->center_x, r->center_y);
-    print_range("flux (sum)", &r->flux);
-    print_range("background median", &r->bg_median);
-    print_range("background sigma", &r->bg_sigma);
+    fprintf(f,
+            "\nper frame (%ld planes; frames count from 0; background: r >= %.1f px from "
+            "(%.0f, %.0f))\n",
+            r->nplanes, r->bg_inner_px, r->center_x, r->center_y);
+    print_range(f, "flux (sum)", &r->flux);
+    print_range(f, "background median", &r->bg_median);
+    print_range(f, "background sigma", &r->bg_sigma);
     if (r->noutliers == 0) {
-        printf("  outlier frames         none\n");
+        fprintf(f, "  outlier frames         none\n");
     } else {
-        printf("  outlier frames         %ld:", r->noutliers);
+        fprintf(f, "  outlier frames         %ld:", r->noutliers);
         long shown = 0;
         for (long i = 0; i < r->nplanes && shown < 20; i++) {
             const gl_inspect_plane *ps = &r->planes[i];
             if (!ps->outlier)
                 continue;
             shown++;
-            printf(" %ld", ps->frame);
+            fprintf(f, " %ld", ps->frame);
             if (r->nchan > 1)
-                printf("/%ld", ps->chan);
-            printf("(%s%s%s%s)", ps->outlier & GL_INSPECT_OUT_FLUX ? "F" : "",
-                   ps->outlier & GL_INSPECT_OUT_BG_MEDIAN ? "B" : "",
-                   ps->outlier & GL_INSPECT_OUT_BG_SIGMA ? "S" : "",
-                   ps->outlier & GL_INSPECT_OUT_NAN ? "N" : "");
+                fprintf(f, "/%ld", ps->chan);
+            fprintf(f, "(%s%s%s%s)", ps->outlier & GL_INSPECT_OUT_FLUX ? "F" : "",
+                    ps->outlier & GL_INSPECT_OUT_BG_MEDIAN ? "B" : "",
+                    ps->outlier & GL_INSPECT_OUT_BG_SIGMA ? "S" : "",
+                    ps->outlier & GL_INSPECT_OUT_NAN ? "N" : "");
         }
-        printf("%s\n  (F flux, B background level, S background noise, N missing data;"
-               " --json lists all)\n",
-               r->noutliers > 20 ? " ..." : "");
+        fprintf(f,
+                "%s\n  (F flux, B background level, S background noise, N missing data;"
+                " --json lists all)\n",
+                r->noutliers > 20 ? " ..." : "");
     }
 
     if (r->has_angles) {
-        printf("\nangles      %s: %ld, from %.4f to %.4f deg\n", r->angles_path, r->nangles,
-               r->angle_first_deg, r->angle_last_deg);
-        printf("rotation    %.4f deg in all; FWHM %.3g px%s\n", r->rotation_deg, r->fwhm_px,
-               r->fwhm_assumed ? " (assumed, not measured: give --fwhm or --psf)" : "");
-        printf("  separation    arc of the rotation\n");
+        fprintf(f, "\nangles      %s: %ld, from %.4f to %.4f deg\n", r->angles_path, r->nangles,
+                r->angle_first_deg, r->angle_last_deg);
+        fprintf(f, "rotation    %.4f deg in all; FWHM %.3g px%s\n", r->rotation_deg, r->fwhm_px,
+                r->fwhm_assumed ? " (assumed, not measured: give --fwhm or --psf)" : "");
+        fprintf(f, "  separation    arc of the rotation\n");
         for (int k = 0; k < r->nseps; k++)
-            printf("  %6.1f px  %5.1f FWHM  %8.3f FWHM\n", r->sep_px[k], r->sep_px[k] / r->fwhm_px,
-                   r->rotation_fwhm[k]);
+            fprintf(f, "  %6.1f px  %5.1f FWHM  %8.3f FWHM\n", r->sep_px[k],
+                    r->sep_px[k] / r->fwhm_px, r->rotation_fwhm[k]);
         if (isfinite(r->sep_one_fwhm_px))
-            printf("  the rotation reaches 1 FWHM at %.1f px\n", r->sep_one_fwhm_px);
+            fprintf(f, "  the rotation reaches 1 FWHM at %.1f px\n", r->sep_one_fwhm_px);
         else
-            printf("  no field rotation: angular differential imaging cannot work\n");
+            fprintf(f, "  no field rotation: angular differential imaging cannot work\n");
     } else {
-        printf("\nangles      none given: the field rotation is not known (give --angles FILE)\n");
+        fprintf(f,
+                "\nangles      none given: the field rotation is not known (give --angles FILE)\n");
     }
 
     const gl_obsinfo *o = &r->obs;
-    printf("\nheader      %s\n", o->found[0] ? o->found : "(none of the observation keywords)");
+    fprintf(f, "\nheader      %s\n", o->found[0] ? o->found : "(none of the observation keywords)");
     if (o->date_obs[0])
-        printf("  DATE-OBS  %s\n", o->date_obs);
+        fprintf(f, "  DATE-OBS  %s\n", o->date_obs);
     if (isfinite(o->mjd_obs))
-        printf("  MJD-OBS   %.6f\n", o->mjd_obs);
+        fprintf(f, "  MJD-OBS   %.6f\n", o->mjd_obs);
     if (isfinite(o->exptime))
-        printf("  EXPTIME   %.6g s\n", o->exptime);
+        fprintf(f, "  EXPTIME   %.6g s\n", o->exptime);
     if (isfinite(o->ra_deg) || isfinite(o->dec_deg))
-        printf("  RA, DEC   %.6f, %.6f deg\n", o->ra_deg, o->dec_deg);
+        fprintf(f, "  RA, DEC   %.6f, %.6f deg\n", o->ra_deg, o->dec_deg);
     if (isfinite(o->site_lat_deg) || isfinite(o->site_lon_deg))
-        printf("  site      latitude %.5f, longitude %.5f deg (east +), height %.0f m\n",
-               o->site_lat_deg, o->site_lon_deg, o->site_height_m);
+        fprintf(f, "  site      latitude %.5f, longitude %.5f deg (east +), height %.0f m\n",
+                o->site_lat_deg, o->site_lon_deg, o->site_height_m);
     if (o->telescope[0] || o->instrument[0])
-        printf("  telescope %s, instrument %s\n", o->telescope[0] ? o->telescope : "?",
-               o->instrument[0] ? o->instrument : "?");
+        fprintf(f, "  telescope %s, instrument %s\n", o->telescope[0] ? o->telescope : "?",
+                o->instrument[0] ? o->instrument : "?");
     if (o->object[0])
-        printf("  object    %s\n", o->object);
+        fprintf(f, "  object    %s\n", o->object);
     if (o->filter[0])
-        printf("  filter    %s\n", o->filter);
+        fprintf(f, "  filter    %s\n", o->filter);
     if (isfinite(o->wavelength_um))
-        printf("  wavelength %.4g um\n", o->wavelength_um);
+        fprintf(f, "  wavelength %.4g um\n", o->wavelength_um);
     if (o->has_wcs)
-        printf("  WCS       celestial; pixel scale %.4f mas\n", o->pixscale_mas);
+        fprintf(f, "  WCS       celestial; pixel scale %.4f mas\n", o->pixscale_mas);
     else
-        printf("  WCS       none (give --pixscale to later commands for arcsec)\n");
+        fprintf(f, "  WCS       none (give --pixscale to later commands for arcsec)\n");
 }
 
 int cmd_inspect(gl_cli *cli, int argc, char **argv)
@@ -219,19 +224,20 @@ int cmd_inspect(gl_cli *cli, int argc, char **argv)
         }
         char *out = root ? cJSON_Print(root) : NULL;
         if (out)
-            printf("%s\n", out);
+            fprintf(cli->out, "%s\n", out);
         else if (!st)
             st = gl_error_set(GL_ERR_NOMEM, "out of memory (JSON report)");
         cJSON_free(out);
         cJSON_Delete(root);
         free(text);
     } else {
-        print_text(r);
+        print_text(cli->out, r);
         if (psf)
-            printf("PSF         %s: FWHM %.3f px (azimuthal profile), centre (%.3f, %.3f),\n"
-                   "            total flux %.6g, peak %.6g (with --psf-scale 1)\n",
-                   psf_path, psf->fwhm_px[0], psf->centre_x, psf->centre_y, psf->flux[0],
-                   psf->peak[0]);
+            fprintf(cli->out,
+                    "PSF         %s: FWHM %.3f px (azimuthal profile), centre (%.3f, %.3f),\n"
+                    "            total flux %.6g, peak %.6g (with --psf-scale 1)\n",
+                    psf_path, psf->fwhm_px[0], psf->centre_x, psf->centre_y, psf->flux[0],
+                    psf->peak[0]);
     }
     gl_psf_model_free(psf);
     gl_inspect_report_free(r);

@@ -3,7 +3,7 @@
  * companions, written as a table (CSV and FITS) and a figure (PNG and SVG)
  * that both carry their assumptions.
  */
-#include "cli/subtract_options.h"
+#include "command/subtract_options.h"
 
 #include <math.h>
 #include <stdio.h>

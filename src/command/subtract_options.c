@@ -5,7 +5,7 @@
  * gl_subtract_params, and the checks and loading that need the science cube
  * (reference cube, wavelengths).
  */
-#include "cli/subtract_options.h"
+#include "command/subtract_options.h"
 
 #include <errno.h>
 #include <math.h>

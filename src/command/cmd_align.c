@@ -3,7 +3,7 @@
  * every frame and move it to (nx/2, ny/2), with the preparation around it
  * (bad pixels, frame selection, crop, binning, angles from the headers).
  */
-#include "cli/cli.h"
+#include "command/cli.h"
 
 #include <errno.h>
 #include <math.h>
@@ -75,7 +75,7 @@ enum {
 /* --method NAME, with the first release's names still accepted (a note
  * each): gaussian and moffat are the core method with that profile,
  * register is reference, symmetry is halo (docs/names.md). */
-static int parse_method(const gl_cli *cli, const char *name, gl_align_params *p, int *profile_given)
+static int parse_method(gl_cli *cli, const char *name, gl_align_params *p, int *profile_given)
 {
     static const struct {
         const char *old, *now;

@@ -1,8 +1,9 @@
 /*
- * cli.h -- what the command-line front end shares between commands: the run
- * context (provenance, common options), option-value parsing with messages
- * that name the option, and the mapping from library statuses to one-line
- * messages and exit codes.
+ * cli.h -- what the command layer (src/command/, gl_command_exec) shares
+ * between commands: the run context (provenance, common options, the
+ * streams it prints to), option-value parsing with messages that name the
+ * option, and the mapping from library statuses to one-line messages and
+ * exit codes. Internal to the library: programs use gloam/command.h.
  */
 #ifndef GLOAM_CLI_H
 #define GLOAM_CLI_H
@@ -10,6 +11,9 @@
 #include "gloam/gloam.h"
 
 #include <getopt.h>
+#include <stdio.h>
+
+enum { CLI_SAID = 8, CLI_NOTED = 16 };
 
 typedef struct gl_cli {
     const char *command; /* "simulate", ... */
@@ -23,6 +27,17 @@ typedef struct gl_cli {
     int parsing;        /* set by cli_next_option once getopt has been reset */
     int rotation_sense; /* --rotation-sense: 0 not given, +1 counter-clockwise, -1 clockwise */
     char angles_source[1024]; /* where cli_read_cube_angles found the angles ("" before) */
+    /* where the command writes: its products' text (reports, tables, --help)
+     * to out, messages (log, errors, notes, the progress bar) to err; never
+     * to the process's own stdout/stderr unless these are they */
+    FILE *out, *err;
+    /* the printers' memory, per command run (not per process) */
+    char said[CLI_SAID][512]; /* the last log messages, each said once */
+    int nsaid;
+    char noted[CLI_NOTED][64]; /* old spellings already noted (cli_deprecated) */
+    int nnoted;
+    double bar_last, bar_start; /* the progress bar */
+    char bar_task[32];
 } gl_cli;
 
 /* Option codes shared by every command (above the range of short options). */
@@ -197,12 +212,12 @@ const char *cli_output_name(const gl_cli *cli, const char *out, const char *inpu
 gl_status cli_add_product(gl_cli *cli, gl_outset *outs, const char *prefix, const char *suffix,
                           char *path, size_t size, const char **tmp);
 
-/* Notes on stderr, once per run and spelling, that an old option spelling
+/* Notes on the error stream, once per command run and spelling, that an old option spelling
  * or value (`old`, e.g. "--upsample" or "--method gaussian") still works for
  * this release but is replaced by `now` (e.g. "--precision"); quiet with
  * --quiet. Every renamed option goes through this one note, so the
  * transition table in docs/names.md and the messages agree. */
-void cli_deprecated(const gl_cli *cli, const char *old, const char *now);
+void cli_deprecated(gl_cli *cli, const char *old, const char *now);
 
 /* Applies --threads and installs the log and progress printers. */
 void cli_start(gl_cli *cli);
@@ -223,15 +238,8 @@ int cmd_survey(gl_cli *cli, int argc, char **argv);
  * prints a message and returns -1 for an unknown step. */
 int cli_parse_force(const gl_cli *cli, const char *arg, int force[GL_NSTEPS]);
 
-/* The gl_run_exec_fn of run and survey (cmd_run.c): runs a gloam command in
- * this process with its stdout and stderr sent to files; user is the
- * gl_cli of run or survey, whose printers are put back afterwards. */
-int cli_exec_in_process(void *user, int argc, char **argv, const char *stdout_path,
-                        const char *log_path);
-
-/* Runs `gloam COMMAND ...` in this process (argv[0] is the program, argv[1]
- * the command), as main() does; returns the exit status. Used by `gloam
- * run` so that a step writes exactly what the single command writes. */
-int cli_run_command(int argc, char **argv);
+/* The processes `gloam survey` spreads its targets over, as the program
+ * installed them (gl_command_set_processes); NULL: none. */
+const gl_command_processes *cli_processes(void);
 
 #endif

@@ -7,7 +7,7 @@
  * Products: PREFIX.snr.fits (S/N map; extensions FPF and SIGMA),
  * PREFIX.candidates.csv and .fits (best first), PREFIX.snr.png.
  */
-#include "cli/cli.h"
+#include "command/cli.h"
 
 #include <math.h>
 #include <stdio.h>
@@ -220,19 +220,21 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
     }
 
     if (!cli->quiet) {
-        printf("%ld candidate%s whose S/N-map peak passes %g sigma (FPF %.4g per test aperture) "
-               "in %s plane %ld\n",
-               ncand, ncand == 1 ? "" : "s", par.threshold_sigma,
-               gl_detect_fpf_from_sigma(par.threshold_sigma), input, plane);
+        fprintf(cli->out,
+                "%ld candidate%s whose S/N-map peak passes %g sigma (FPF %.4g per test aperture) "
+                "in %s plane %ld\n",
+                ncand, ncand == 1 ? "" : "s", par.threshold_sigma,
+                gl_detect_fpf_from_sigma(par.threshold_sigma), input, plane);
         if (ncand > 0)
-            printf("(values below at the fitted sub-pixel position; peak values in the table)\n");
+            fprintf(cli->out,
+                    "(values below at the fitted sub-pixel position; peak values in the table)\n");
         if (ncand > 0)
-            printf("%4s %9s %9s %8s %8s %8s %10s %8s\n", "rank", "x", "y", "sep_px", "pa_deg",
-                   "snr", "fpf", "sigma");
+            fprintf(cli->out, "%4s %9s %9s %8s %8s %8s %10s %8s\n", "rank", "x", "y", "sep_px",
+                    "pa_deg", "snr", "fpf", "sigma");
         for (long r = 0; r < ncand; r++)
-            printf("%4ld %9.3f %9.3f %8.3f %8.2f %8.2f %10.3g %8.2f\n", r + 1, cand[r].x, cand[r].y,
-                   cand[r].sep_px, cand[r].pa_deg, cand[r].stat.t, cand[r].stat.fpf,
-                   cand[r].stat.significance);
+            fprintf(cli->out, "%4ld %9.3f %9.3f %8.3f %8.2f %8.2f %10.3g %8.2f\n", r + 1, cand[r].x,
+                    cand[r].y, cand[r].sep_px, cand[r].pa_deg, cand[r].stat.t, cand[r].stat.fpf,
+                    cand[r].stat.significance);
     }
 
 cleanup:

@@ -5,7 +5,7 @@
 #ifndef GLOAM_CLI_SUBTRACT_OPTIONS_H
 #define GLOAM_CLI_SUBTRACT_OPTIONS_H
 
-#include "cli/cli.h"
+#include "command/cli.h"
 
 enum {
     CLI_OPT_FWHM = 1050,

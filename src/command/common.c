@@ -2,7 +2,7 @@
  * common.c -- option parsing helpers, error printing and the terminal
  * progress bar shared by every command.
  */
-#include "cli/cli.h"
+#include "command/cli.h"
 
 #include <cblas.h>
 #include <errno.h>
@@ -22,9 +22,9 @@ int cli_fail(const gl_cli *cli, gl_status st)
     const char *msg = gl_error_message();
     if (cli->angles_source[0] && strstr(msg, "parallactic angles") &&
         !strstr(msg, cli->angles_source))
-        fprintf(stderr, "gloam %s: %s: %s\n", cli->command, cli->angles_source, msg);
+        fprintf(cli->err, "gloam %s: %s: %s\n", cli->command, cli->angles_source, msg);
     else
-        fprintf(stderr, "gloam %s: %s\n", cli->command, msg);
+        fprintf(cli->err, "gloam %s: %s\n", cli->command, msg);
     return gl_status_exit_code(st);
 }
 
@@ -35,7 +35,7 @@ int cli_usage(const gl_cli *cli, const char *fmt, ...)
     va_start(ap, fmt);
     vsnprintf(buf, sizeof buf, fmt, ap);
     va_end(ap);
-    fprintf(stderr, "gloam %s: %s (see gloam %s --help)\n", cli->command, buf, cli->command);
+    fprintf(cli->err, "gloam %s: %s (see gloam %s --help)\n", cli->command, buf, cli->command);
     return 1;
 }
 
@@ -162,8 +162,8 @@ int cli_common_option(gl_cli *cli, int code, const char *arg, const char *help_t
         }
         return 1;
     case CLI_OPT_HELP:
-        fputs(help_text, stdout);
-        fputs(CLI_COMMON_HELP, stdout);
+        fputs(help_text, cli->out);
+        fputs(CLI_COMMON_HELP, cli->out);
         *exit_now = 1;
         return 1;
     default: return 0;
@@ -403,17 +403,15 @@ gl_status cli_add_product(gl_cli *cli, gl_outset *outs, const char *prefix, cons
     return gl_outset_add(outs, path, &cli->prov, tmp);
 }
 
-void cli_deprecated(const gl_cli *cli, const char *old, const char *now)
+void cli_deprecated(gl_cli *cli, const char *old, const char *now)
 {
-    static char said[16][64];
-    static int nsaid;
-    for (int i = 0; i < nsaid; i++)
-        if (strcmp(said[i], old) == 0)
+    for (int i = 0; i < cli->nnoted && i < CLI_NOTED; i++)
+        if (strcmp(cli->noted[i], old) == 0)
             return;
-    if (nsaid < 16)
-        snprintf(said[nsaid++], sizeof said[0], "%s", old);
+    if (cli->nnoted < CLI_NOTED)
+        snprintf(cli->noted[cli->nnoted++], sizeof cli->noted[0], "%s", old);
     if (!cli->quiet)
-        fprintf(stderr,
+        fprintf(cli->err,
                 "gloam %s: note: %s is the old spelling of %s; it will be removed in the next "
                 "release\n",
                 cli->command, old, now);
@@ -423,24 +421,16 @@ void cli_deprecated(const gl_cli *cli, const char *old, const char *now)
 
 static void print_log(gl_log_level level, const char *msg, void *user)
 {
-    const gl_cli *cli = user;
+    gl_cli *cli = user;
     /* a command that runs a step several times (limits: the subtraction
      * with and without fakes) says each thing once */
-    static char said[8][512];
-    static int nsaid;
-    for (int i = 0; i < nsaid && i < 8; i++)
-        if (strncmp(said[i], msg, sizeof said[i] - 1) == 0)
+    for (int i = 0; i < cli->nsaid && i < CLI_SAID; i++)
+        if (strncmp(cli->said[i], msg, sizeof cli->said[i] - 1) == 0)
             return;
-    snprintf(said[nsaid++ % 8], sizeof said[0], "%s", msg);
+    snprintf(cli->said[cli->nsaid++ % CLI_SAID], sizeof cli->said[0], "%s", msg);
     const char *tag = level == GL_LOG_ERROR ? "error: " : level == GL_LOG_WARN ? "warning: " : "";
-    fprintf(stderr, "gloam %s: %s%s\n", cli->command, tag, msg);
+    fprintf(cli->err, "gloam %s: %s%s\n", cli->command, tag, msg);
 }
-
-typedef struct bar_state {
-    double last;
-    double start;
-    char task[32];
-} bar_state;
 
 static double now_s(void)
 {
@@ -449,40 +439,40 @@ static double now_s(void)
     return (double)ts.tv_sec + 1e-9 * (double)ts.tv_nsec;
 }
 
-/* A one-line bar on stderr, redrawn at most ten times a second; only
- * installed when stderr is a terminal, so piped runs stay quiet. */
+/* A one-line bar on the error stream, redrawn at most ten times a second;
+ * only installed when that stream is a terminal, so piped runs and run
+ * folders' logs stay free of it. */
 static void print_progress(const char *task, long done, long total, void *user)
 {
-    bar_state *b = user;
+    gl_cli *cli = user;
     double t = now_s();
-    if (strncmp(b->task, task, sizeof b->task - 1) != 0) {
-        snprintf(b->task, sizeof b->task, "%s", task);
-        b->start = t;
-        b->last = 0;
+    if (strncmp(cli->bar_task, task, sizeof cli->bar_task - 1) != 0) {
+        snprintf(cli->bar_task, sizeof cli->bar_task, "%s", task);
+        cli->bar_start = t;
+        cli->bar_last = 0;
     }
     int end = done >= total;
-    if (!end && t - b->last < 0.1)
+    if (!end && t - cli->bar_last < 0.1)
         return;
-    b->last = t;
+    cli->bar_last = t;
     double frac = total > 0 ? (double)done / (double)total : 1;
     int width = 30, fill = (int)(frac * width + 0.5);
     char bar[64];
     for (int i = 0; i < width; i++)
         bar[i] = i < fill ? '#' : '.';
     bar[width] = '\0';
-    double el = t - b->start, eta = frac > 0 ? el * (1 - frac) / frac : 0;
-    fprintf(stderr, "\r  %-12s [%s] %3.0f%%  %ld/%ld  %.0fs left ", task, bar, 100 * frac, done,
+    double el = t - cli->bar_start, eta = frac > 0 ? el * (1 - frac) / frac : 0;
+    fprintf(cli->err, "\r  %-12s [%s] %3.0f%%  %ld/%ld  %.0fs left ", task, bar, 100 * frac, done,
             total, eta);
     if (end) {
-        fprintf(stderr, "\r%*s\r", 80, "");
-        b->task[0] = '\0';
+        fprintf(cli->err, "\r%*s\r", 80, "");
+        cli->bar_task[0] = '\0';
     }
-    fflush(stderr);
+    fflush(cli->err);
 }
 
 void cli_start(gl_cli *cli)
 {
-    static bar_state bar;
     if (cli->threads > 0) {
         omp_set_num_threads(cli->threads);
     }
@@ -491,6 +481,6 @@ void cli_start(gl_cli *cli)
     openblas_set_num_threads(1);
     gl_log_set_handler(print_log, cli,
                        cli->quiet ? GL_LOG_WARN : (cli->verbose ? GL_LOG_DEBUG : GL_LOG_INFO));
-    if (!cli->quiet && isatty(2))
-        gl_progress_set_handler(print_progress, &bar);
+    int fd = fileno(cli->err);
+    gl_progress_set_handler(!cli->quiet && fd >= 0 && isatty(fd) ? print_progress : NULL, cli);
 }

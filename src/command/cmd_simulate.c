@@ -5,7 +5,7 @@
  * src/sim; this file parses options, creates DIR and writes the products all
  * or nothing.
  */
-#include "cli/cli.h"
+#include "command/cli.h"
 
 #include <math.h>
 
@@ -210,7 +210,6 @@ static gl_status write_products(gl_cli *cli, const char *dir, const gl_sim_param
                             "/truth.csv", "/frames.csv", "/refs.fits"};
     const char *tmp[6] = {0};
     int nout = p->refs ? 6 : 5;
-    double *idx = NULL;
     if ((st = gl_outset_new(cli->overwrite, &set)) != GL_OK)
         return st;
     for (int i = 0; i < nout; i++)
@@ -222,49 +221,12 @@ static gl_status write_products(gl_cli *cli, const char *dir, const gl_sim_param
         goto cleanup;
     if ((st = gl_fits_write_cube(tmp[2], r->psf, &cli->prov)) != GL_OK)
         goto cleanup;
-    {
-        /* truth.csv */
-        int m = r->ncompanions;
-        double sep[GL_SIM_MAX_COMPANIONS], pa[GL_SIM_MAX_COMPANIONS], con[GL_SIM_MAX_COMPANIONS];
-        double sepas[GL_SIM_MAX_COMPANIONS];
-        for (int k = 0; k < m; k++) {
-            sep[k] = p->companions[k].sep_px;
-            pa[k] = p->companions[k].pa_deg;
-            con[k] = p->companions[k].contrast;
-            sepas[k] = sep[k] * p->pixscale_mas / 1000.0;
-        }
-        const char *cn[] = {"sep_px",     "pa_deg",     "contrast", "sep_arcsec",
-                            "x_north_up", "y_north_up", "flux"};
-        const double *cc[] = {sep, pa, con, sepas, r->comp_x_north, r->comp_y_north, r->comp_flux};
-        gl_table t = {7, m, cn, NULL, cc, NULL};
-        if ((st = gl_table_write_csv(tmp[3], &t)) != GL_OK)
-            goto cleanup;
-    }
-    {
-        idx = malloc(2 * (size_t)r->nframes * sizeof(double));
-        if (!idx) {
-            st = gl_error_nomem("frame table");
-            goto cleanup;
-        }
-        double *tsec = idx + r->nframes;
-        for (long i = 0; i < r->nframes; i++) {
-            idx[i] = (double)i;
-            /* seconds from DATE-OBS to mid-exposure (full precision, unlike an MJD) */
-            tsec[i] = 0.5 * p->exptime_s + (double)i * p->cadence_s;
-        }
-        const char *cn[] = {"frame",          "angle_deg",       "star_x", "star_y",
-                            "hour_angle_deg", "declination_deg", "time_s"};
-        const double *cc[] = {idx,       r->angle_deg,   r->star_x, r->star_y,
-                              r->ha_deg, r->obs_dec_deg, tsec};
-        gl_table t = {7, r->nframes, cn, NULL, cc, NULL};
-        if ((st = gl_table_write_csv(tmp[4], &t)) != GL_OK)
-            goto cleanup;
-    }
+    if ((st = gl_sim_tables_write(p, r, tmp[3], tmp[4])) != GL_OK)
+        goto cleanup;
     if (p->refs && (st = gl_fits_write_cube(tmp[5], r->refs, &cli->prov)) != GL_OK)
         goto cleanup;
     st = gl_outset_commit(set);
 cleanup:
-    free(idx);
     gl_outset_free(set);
     return st;
 }
@@ -414,12 +376,12 @@ int cmd_simulate(gl_cli *cli, int argc, char **argv)
         if (slash)
             *slash = '\0';
         if (err == ENOENT)
-            fprintf(stderr,
+            fprintf(cli->err,
                     "gloam simulate: %s: cannot create the folder: its parent folder %s does "
                     "not exist\n",
                     dir, slash ? parent : ".");
         else
-            fprintf(stderr, "gloam simulate: %s: cannot create the folder: %s\n", dir,
+            fprintf(cli->err, "gloam simulate: %s: cannot create the folder: %s\n", dir,
                     strerror(err));
         return 1;
     } else {

@@ -5,7 +5,7 @@
  * gl_subtract_run; writes the image (one plane per mode count) and, when
  * asked, the residual cubes, all or nothing.
  */
-#include "cli/subtract_options.h"
+#include "command/subtract_options.h"
 
 #include <errno.h>
 #include <math.h>
