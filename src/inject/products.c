@@ -29,7 +29,8 @@ gl_status gl_inject_planted_write(const char *csv, const gl_companion *comps, in
     const char *names[] = {"companion", "sep_px",   "pa_deg",  "contrast",
                            "flux",      "x_frame1", "y_frame1"};
     const double *cols[] = {idx, sep, pa, con, flux, x0, y0};
-    gl_table t = {.ncols = 7, .nrows = n, .names = names, .cols = cols};
+    const char *units[] = {"", "pix", "deg", "", "", "pix", "pix"};
+    gl_table t = {.ncols = 7, .nrows = n, .names = names, .units = units, .cols = cols};
     gl_status st = gl_table_write_csv(csv, &t);
     free(col);
     return st;

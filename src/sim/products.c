@@ -28,7 +28,8 @@ gl_status gl_sim_tables_write(const gl_sim_params *p, const gl_sim_result *r, co
         const char *cn[] = {"sep_px",     "pa_deg",     "contrast", "sep_arcsec",
                             "x_north_up", "y_north_up", "flux"};
         const double *cc[] = {sep, pa, con, sepas, r->comp_x_north, r->comp_y_north, r->comp_flux};
-        gl_table t = {.ncols = 7, .nrows = m, .names = cn, .cols = cc};
+        const char *cu[] = {"pix", "deg", "", "arcsec", "pix", "pix", ""};
+        gl_table t = {.ncols = 7, .nrows = m, .names = cn, .units = cu, .cols = cc};
         if ((st = gl_table_write_csv(truth_csv, &t)))
             return st;
     }
@@ -46,7 +47,8 @@ gl_status gl_sim_tables_write(const gl_sim_params *p, const gl_sim_result *r, co
                             "hour_angle_deg", "declination_deg", "time_s"};
         const double *cc[] = {idx,       r->angle_deg,   r->star_x, r->star_y,
                               r->ha_deg, r->obs_dec_deg, tsec};
-        gl_table t = {.ncols = 7, .nrows = r->nframes, .names = cn, .cols = cc};
+        const char *cu[] = {"", "deg", "pix", "pix", "deg", "deg", "s"};
+        gl_table t = {.ncols = 7, .nrows = r->nframes, .names = cn, .units = cu, .cols = cc};
         st = gl_table_write_csv(frames_csv, &t);
     }
     free(idx);
