@@ -15,9 +15,9 @@
  * and denominator noncentrality lambda = (c F)^2 sum (g_ref - mean)^2 / sigma^2
  * (completeness.c). The completeness of Jensen-Clem et al. (2018, AJ 155, 19)
  * becomes the average over the fakes within 1.5 FWHM of the separation of
- * that probability, each fake's response moved to the separation by the ratio
- * of a local linear fit in separation (so the average is over position
- * angles, not over the radial trend). The contrast at completeness q solves
+ * that probability, each fake's core and lobes moved to the separation by
+ * the ratios of their own local linear fits in separation (so the average is
+ * over position angles, not over the radial trend). The contrast at completeness q solves
  * mean P(c) = q (Brent). The companion's own lobes can make the S/N saturate
  * with c; when even an infinitely bright companion misses q the contrast is
  * left empty.
@@ -246,12 +246,18 @@ void gl_limits_calibrate_point(limits_point *pt, const gl_limits_fake *fakes, in
     double k = sqrt(1 + 1 / pt->nref);
     window w = {.n = n, .tau = pt->tau, .nu = pt->nref - 1};
     noise_nodes(&w, pt->noise_dof);
+    double H = line_at(r, h, n, pt->sep_px, minspread);
     for (int i = 0; i < n; i++) {
-        /* move the fake's response to this separation by the trend ratio */
-        double at = line_at(r, a, n, r[i], minspread);
+        /* move the fake's response to this separation, its core and its
+         * lobes each by the ratio of their own trend: the lobes grow with
+         * separation at another rate than the core (the arc a companion
+         * sweeps grows with it), so a fake two FWHM away must not bring its
+         * own lobe-to-core ratio */
+        double at = line_at(r, a, n, r[i], minspread), ht = line_at(r, h, n, r[i], minspread);
         double s = (at > 0 && A > 0) ? A / at : 1;
+        double sh = (ht > 0 && H > 0) ? H / ht : s;
         w.a[i] = a[i] * s / k;
-        w.h[i] = h[i] * s;
+        w.h[i] = h[i] * sh;
     }
     double unit = pt->noise / pt->psf_flux; /* contrast of x = 1 */
     pt->contrast = pt->tau * k * unit / T;  /* Mawet et al. 2014, the classical curve */
