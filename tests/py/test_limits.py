@@ -242,8 +242,10 @@ def test_white_noise_curve_is_analytic(tmp_path, method, sub_opts, lim_opts):
         assert np.all(row["fakes_used"] >= 2)
         # on white noise with 90 degrees of rotation there is little to lose
         # beyond 2 FWHM (closer in, the fakes near the 50% level are bright
-        # enough to be partly absorbed by full-frame PCA)
-        far = row["sep_px"] >= 2 * FWHM
+        # enough to be partly absorbed by full-frame PCA: at 2 FWHM the 8-mode
+        # plane keeps 0.18-0.2, depending on how bright the second run's fakes
+        # are, which is the first run's c95)
+        far = row["sep_px"] > 2 * FWHM
         assert np.all((row["throughput"][far] > 0.2) & (row["throughput"][far] < 1.2))
 
 
@@ -263,8 +265,9 @@ def p_lobes(delta, lam, tau, nu):
 
 
 def model_contrast(row, i, fakes, k, F, q):
-    """docs/limits.md, "Completeness": the fakes around the separation, each
-    moved to it by the ratio of the local line of their signal, give
+    """docs/limits.md, "Completeness": the fakes around the separation, their
+    signal and ref_spread each moved to it by the ratio of its own local line,
+    give
     delta = x signal / sqrt(1 + 1/n2) and lambda = x^2 ref_spread^2 for an
     aperture flux of x noise units; the contrast of completeness q solves the
     fakes' mean P(T > t) = q (scipy.optimize.brentq). The noise is the curve's
@@ -279,9 +282,12 @@ def model_contrast(row, i, fakes, k, F, q):
     A, x, _ = local_line(fr, sig, sep)
     sel = np.isin(fr, x)
     kf = np.sqrt(1 + 1 / (dof + 1))
-    line = np.polyfit(x, sig[sel], 1) if np.ptp(x) >= 0.05 * FWHM else [0, sig[sel].mean()]
-    scale = A / np.polyval(line, x)
-    a, h = sig[sel] * scale / kf, spr[sel] * scale
+    H, _, _ = local_line(fr, spr, sep)
+    lines = [np.polyfit(x, y[sel], 1) if np.ptp(x) >= 0.05 * FWHM else [0, y[sel].mean()]
+             for y in (sig, spr)]
+    # the core and the lobes each moved by the ratio of their own line
+    a = sig[sel] * (A / np.polyval(lines[0], x)) / kf
+    h = spr[sel] * (H / np.polyval(lines[1], x))
     m = row["napertures"][i] - 1
     z, wz = special.roots_genlaguerre(16, m / 2 - 1)  # weight z^(m/2-1) e^-z, z = W / 2
     s_nodes, s_w = np.sqrt(2 * z / m), wz / wz.sum()
