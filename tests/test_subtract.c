@@ -321,6 +321,7 @@ static void test_errors(void)
     gl_subtract_params p;
     gl_subtract_result r;
     gl_subtract_params_init(&p);
+    p.method = GL_SUBTRACT_PCA; /* more modes than frames is refused by klip-frame */
     p.fwhm = 0;
     CHECK(gl_subtract_run(c, ang, NULL, &p, &r) == GL_ERR_USAGE && !r.image, "FWHM 0");
     p.fwhm = -2;

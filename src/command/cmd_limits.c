@@ -342,9 +342,10 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
     gl_header_add_history(keys, "completeness: mean over the fakes within 1.5 FWHM of the doubly "
                                 "noncentral t with their measured signal and reference spread "
                                 "(self-subtraction lobes); empty where the lobes cap the S/N");
-    gl_header_add_history(keys, "caveat: noise of this sequence taken as the true noise (10-20% "
-                                "scatter): c95 applied to another sequence is recovered 80-93% "
-                                "of the time; response taken as linear around the fakes' fluxes "
+    gl_header_add_history(keys, "predictive: averaged over the scatter of this curve's noise "
+                                "estimate (chi2 of n-1 dof), so cNN is the fraction of "
+                                "independent sequences that detect a companion at that contrast");
+    gl_header_add_history(keys, "caveat: response taken as linear around the fakes' fluxes "
                                 "(docs/limits.md)");
     gl_header_add_history(keys, "contrast = t sigma sqrt(1+1/n2) / (throughput x PSF aperture "
                                 "flux); sigma = std of the aperture sums at the separation");

@@ -202,6 +202,7 @@ static double provisional_level(const gl_limits_result *r, int j, int b, double 
                        .noise = interp(r->sep_px, r->noise, r->n, f->sep_px),
                        .tau = interp(r->sep_px, r->t_threshold, r->n, f->sep_px),
                        .nref = dof + 1,
+                       .noise_dof = interp(r->sep_px, r->napertures, r->n, f->sep_px) - 1,
                        .psf_flux = F,
                        .q = 0.95};
     gl_limits_calibrate_point(&pt, done, nd, 0);
@@ -449,6 +450,7 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
                            .noise = r.noise[j],
                            .tau = r.t_threshold[j],
                            .nref = r.dof[j] + 1,
+                           .noise_dof = r.napertures[j] - 1,
                            .psf_flux = F,
                            .q = lp->completeness};
         gl_limits_calibrate_point(&pt, r.fakes, r.nfakes, k);

@@ -10,9 +10,11 @@
  * (noise, threshold, references) and where the results go. */
 typedef struct limits_point {
     double sep_px, fwhm;
-    double noise;    /* sigma: std of the aperture sums (known sources left out) */
-    double tau;      /* t threshold */
-    double nref;     /* n2 */
+    double noise; /* sigma: std of the aperture sums (known sources left out) */
+    double tau;   /* t threshold */
+    double nref;  /* n2 */
+    double
+        noise_dof; /* n - 1 of the noise estimate (its own scatter in the model); 0: exact noise */
     double psf_flux; /* F */
     double q;        /* completeness of the second curve */
     /* results */

@@ -264,6 +264,7 @@ static gl_status write_products(gl_plan *plan, const gl_survey_params *sp, const
     const char **cv_names = calloc((size_t)nt, sizeof *cv_names);
     cJSON **sums = calloc((size_t)nt, sizeof *sums);
     gl_report *r = NULL;
+    gl_outset *os = NULL;
     if (!cols || !labels || !cv || !cv_names || !sums) {
         st = gl_error_nomem("survey");
         goto cleanup;
@@ -284,7 +285,7 @@ static gl_status write_products(gl_plan *plan, const gl_survey_params *sp, const
     for (int c = 0; c < NCOL; c++)
         colp[c] = cols + (size_t)c * (size_t)nt;
     gl_table tab = {NCOL, nt, (const char **)col_names, (const char **)col_units, colp, NULL};
-    char csv[4400], fits[4400], png[4400], html[4400], tmp[4500];
+    char csv[4400], fits[4400], png[4400], html[4400];
     snprintf(csv, sizeof csv, "%s/survey.csv", sp->folder);
     snprintf(fits, sizeof fits, "%s/survey.fits", sp->folder);
     snprintf(png, sizeof png, "%s/contrast.png", sp->folder);
@@ -293,19 +294,16 @@ static gl_status write_products(gl_plan *plan, const gl_survey_params *sp, const
     memset(&prov, 0, sizeof prov);
     prov.program = "gloam survey";
     prov.command = gl_plan_name(plan);
-#define COMMIT(final, call)                                                                        \
-    do {                                                                                           \
-        snprintf(tmp, sizeof tmp, "%s.tmp", final);                                                \
-        if ((st = (call)))                                                                         \
-            goto cleanup;                                                                          \
-        if (rename(tmp, final) != 0) {                                                             \
-            remove(tmp);                                                                           \
-            st = gl_error_set(GL_ERR_IO, "%s: cannot write: %s", final, strerror(errno));          \
-            goto cleanup;                                                                          \
-        }                                                                                          \
-    } while (0)
-    COMMIT(csv, gl_table_write_csv_labelled(tmp, &tab, "target", labels));
-    COMMIT(fits, gl_table_write_fits_labelled(tmp, &tab, "SURVEY", &prov, "target", labels));
+    /* one set: the survey's products replace the previous ones together
+     * (the CSV with its ECSV twin), or none is touched */
+    const char *csv_tmp, *fits_tmp, *png_tmp = NULL, *html_tmp;
+    if ((st = gl_outset_new(1, &os)) || (st = gl_outset_add(os, csv, NULL, &csv_tmp)) ||
+        (st = gl_outset_add(os, fits, NULL, &fits_tmp)) ||
+        (st = gl_outset_add(os, html, NULL, &html_tmp)))
+        goto cleanup;
+    if ((st = gl_table_write_csv_labelled(csv_tmp, &tab, "target", labels)) ||
+        (st = gl_table_write_fits_labelled(fits_tmp, &tab, "SURVEY", &prov, "target", labels)))
+        goto cleanup;
 
     for (int i = 0; i < nt; i++) {
         char path[4400];
@@ -315,15 +313,16 @@ static gl_status write_products(gl_plan *plan, const gl_survey_params *sp, const
         else
             free(cv[ncv].x), free(cv[ncv].y), memset(&cv[ncv], 0, sizeof cv[ncv]);
     }
-    if (ncv > 0)
-        COMMIT(png, contrast_figure(tmp, cv_names, cv, ncv, all_arcsec));
+    if (ncv > 0 && ((st = gl_outset_add(os, png, NULL, &png_tmp)) ||
+                    (st = contrast_figure(png_tmp, cv_names, cv, ncv, all_arcsec))))
+        goto cleanup;
 
     char title[300];
     const char *name = gl_plan_value(plan, NULL, "run", "name", NULL);
     snprintf(title, sizeof title, "Survey %s: %d target%s", name ? name : "", nt,
              nt == 1 ? "" : "s");
     if ((st = gl_report_new(title, &r)) || (st = gl_report_section(r, "Targets")) ||
-        (st = gl_report_table(r, csv, "One row per target (survey.csv)", 10000)))
+        (st = gl_report_table(r, csv_tmp, "One row per target (survey.csv)", 10000)))
         goto cleanup;
     for (int i = 0; i < nt; i++) {
         char href[600], text[900];
@@ -344,7 +343,7 @@ static gl_status write_products(gl_plan *plan, const gl_survey_params *sp, const
             goto cleanup;
     }
     if (ncv > 0 && ((st = gl_report_section(r, "Contrast curves")) ||
-                    (st = gl_report_image(r, png,
+                    (st = gl_report_image(r, png_tmp,
                                           "Every target's 50%-completeness curve "
                                           "(plane 1 of each contrast table)"))))
         goto cleanup;
@@ -353,15 +352,12 @@ static gl_status write_products(gl_plan *plan, const gl_survey_params *sp, const
                 "brightness and subtraction; compare them only with the table's columns in "
                 "view, and each under the assumptions stated in its own report.")))
         goto cleanup;
-    snprintf(tmp, sizeof tmp, "%s.tmp", html);
-    if ((st = gl_report_write(r, tmp)))
+    if ((st = gl_report_write(r, html_tmp)) || (st = gl_outset_commit(os)))
         goto cleanup;
-    if (rename(tmp, html) != 0) {
-        remove(tmp);
-        st = gl_error_set(GL_ERR_IO, "%s: cannot write", html);
-    }
-#undef COMMIT
 cleanup:
+    if (st)
+        gl_outset_error_names(st);
+    gl_outset_free(os);
     gl_report_free(r);
     for (int i = 0; sums && i < nt; i++)
         cJSON_Delete(sums[i]);
