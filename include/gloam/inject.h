@@ -39,7 +39,8 @@ typedef struct gl_psf_model {
  * the peak (exact for a symmetric PSF), then the PSF is moved there with the
  * FFT shift. name is used in messages.
  * Errors: GL_ERR_USAGE (psf_scale not positive), GL_ERR_INPUT (no positive
- * signal, NaN-only, larger than the frame, channel count mismatch). */
+ * signal, NaN-only, larger than the frame, channel count mismatch, less than
+ * half of the light within 3 FWHM of the peak: not an off-axis PSF). */
 GL_API gl_status gl_psf_model_new(const gl_cube *psf, const char *name, long nx, long ny,
                                   long nchan, double psf_scale, gl_psf_model **out);
 GL_API void gl_psf_model_free(gl_psf_model *m);

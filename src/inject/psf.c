@@ -8,7 +8,9 @@
  * centre (nx/2, ny/2) with the FFT shift, and multiplied by psf_scale. Its
  * total flux, before any cropping, is then the star's flux per frame. The FWHM
  * is read off the azimuthally averaged profile (first crossing of half the
- * peak, linearly interpolated).
+ * peak, linearly interpolated). An image with less than half of its light
+ * within 3 FWHM of the peak is refused: a science or coronagraphic cube given
+ * as the PSF would set every contrast wrong by orders of magnitude.
  */
 #include "core/internal.h"
 #include "geometry/internal.h"
@@ -16,6 +18,9 @@
 
 #include <math.h>
 #include <string.h>
+
+/* the least fraction of the light within 3 FWHM of the peak of an off-axis PSF */
+#define GL_PSF_MIN_CORE_FRACTION 0.5
 
 void gl_psf_model_free(gl_psf_model *m)
 {
@@ -92,6 +97,23 @@ static void light_centre(const float *img, long nx, long ny, double *cx, double 
         if (hypot(ddx, ddy) < 1e-6)
             return;
     }
+}
+
+/* Fraction of `flux` (the finite sum of the image) within radius r of
+ * (cx, cy), whole pixels by their centres. */
+static double encircled_fraction(const float *img, long nx, long ny, double cx, double cy,
+                                 double r, double flux)
+{
+    double s = 0;
+    for (long y = GL_MAX((long)floor(cy - r), 0); y <= GL_MIN((long)ceil(cy + r), ny - 1); y++)
+        for (long x = GL_MAX((long)floor(cx - r), 0); x <= GL_MIN((long)ceil(cx + r), nx - 1);
+             x++) {
+            float v = img[y * nx + x];
+            double dx = (double)x - cx, dy = (double)y - cy;
+            if (!isnan(v) && dx * dx + dy * dy <= r * r)
+                s += v;
+        }
+    return s / flux;
 }
 
 /* Mean of the finite values of planes [first, first + count) of stride n. */
@@ -195,6 +217,21 @@ gl_status gl_psf_model_new(const gl_cube *psf, const char *name, long nx, long n
                               "%s: no PSF-like peak: the light around the brightest pixel never "
                               "falls to half of it (noise, or not a PSF image?)",
                               name);
+            goto cleanup;
+        }
+        /* an off-axis PSF holds most of its light near its core (an Airy
+         * pattern 91% within 3.2 lambda/D, about 3 FWHM: Born & Wolf, the
+         * encircled energy of the Airy disc; with an AO halo 80-90% in the
+         * simulated and demo PSFs), a coronagraphic or science frame a few
+         * per cent to a quarter of it around its brightest speckle, and an
+         * image with its background left in less the larger it is */
+        double ee = encircled_fraction(plane, pw, ph, cx, cy, 3 * fwhm, flux);
+        if (!(ee >= GL_PSF_MIN_CORE_FRACTION)) {
+            st = gl_error_set(GL_ERR_INPUT,
+                              "%s: only %.0f%% of the light lies within 3 FWHM (%.1f px) of the "
+                              "peak%s, not an off-axis PSF (a science cube, or a background "
+                              "left in?)",
+                              name, 100 * ee, 3 * fwhm, nchan > 1 ? " in a channel" : "");
             goto cleanup;
         }
         if (c == 0) {

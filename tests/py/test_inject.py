@@ -8,6 +8,7 @@ analytic Gaussians computed here with numpy. Flux: the planted companion's
 total equals contrast x psf_scale x PSF total (conventions.md, Photometry).
 """
 import os
+import re
 import subprocess
 
 import numpy as np
@@ -125,6 +126,44 @@ def test_bad_inputs(tmp_path):
     (tmp_path / "short.txt").write_text("1\n2\n")
     assert "holds 2 angles but the cube has 6 frames" in bad(tmp_path, *comp, angles=tmp_path / "short.txt")
     assert "unknown option" in bad(tmp_path, *comp, "--bogus")
+
+
+def test_a_frame_that_is_not_an_off_axis_psf_is_refused(tmp_path):
+    """A coronagraphic or science frame given as --psf would set every
+    contrast wrong by orders of magnitude. An off-axis PSF holds most of its
+    light near the core (the Airy pattern 91% within 3.2 lambda/D, about 3
+    FWHM: Born & Wolf, encircled energy of the Airy disc); the threshold is
+    half of it. The fraction is computed here with numpy on the same images
+    (whole pixels by their centres)."""
+    make_inputs(tmp_path, 48, 48)
+    comp = ["--companion", "10:0:1e-3"]
+    y, x = np.mgrid[0:41, 0:41].astype(float)
+    r = np.hypot(x - 20, y - 20)
+    fwhm = 2.0 * np.sqrt(2 * np.log(2)) * 1.2
+    for halo, refused in ((0.0, False), (0.002, False), (0.1, True)):
+        # a sharp core on a broad halo: the residual starlight of a coronagraph
+        img = gaussian(41, 41, 20, 20, 1.2) + halo * np.exp(-r / 12.0)
+        ee = img[r <= 3 * fwhm].sum() / img.sum()
+        assert (ee < 0.5) == refused, ee
+        name = f"halo{halo}.fits"
+        fits.PrimaryHDU(img.astype(np.float32)).writeto(tmp_path / name)
+        if refused:
+            msg = bad(tmp_path, *comp, psf=tmp_path / name)
+            assert name in msg and "not an off-axis PSF" in msg, msg
+            # the fraction within the radius gloam states (3 x its measured
+            # FWHM, which the halo widens a little), by numpy
+            m = re.search(r"only (\d+)% of the light lies within 3 FWHM \(([\d.]+) px\)", msg)
+            assert m, msg
+            rad = float(m.group(2))
+            assert abs(rad - 3 * fwhm) < 0.15 * 3 * fwhm, (rad, fwhm)
+            ee_at = img[r <= rad].sum() / img.sum()
+            assert abs(int(m.group(1)) - 100 * ee_at) <= 1.0, (msg, ee_at)
+        else:
+            out = tmp_path / f"ok{halo}.fits"
+            r_ok = run("inject", tmp_path / "cube.fits", "--angles", tmp_path / "angles.txt",
+                       "--psf", tmp_path / name, "--out", out, *comp)
+            assert r_ok.returncode == 0, r_ok.stderr
+            out.unlink()
 
 
 def test_negative_contrast_removes_a_planted_companion(tmp_path):
