@@ -41,6 +41,11 @@ typedef struct run_files {
 
 gl_status run_files_init(run_files *f, const char *folder);
 
+/* Parses every asked step's command line with its command's own parser,
+ * without running it (gl_command_check); GL_ERR_INPUT naming the plan's
+ * line, section and key of the first option refused (see check.c). */
+gl_status run_check_options(gl_plan *plan, const char *target, const run_cmd *cmds);
+
 /* RUN/summary.json from the products present (see summary.c). */
 gl_status run_summary_write(const run_files *f, const char *target, const char *plan_name,
                             const run_cmd *cmds, const gl_run_outcome *out, const char *path);

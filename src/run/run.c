@@ -2,10 +2,10 @@
  * run.c -- a whole reduction of one target from a plan: the command line of
  * each step is composed from the plan (the target's inputs, the step's
  * section, the target's overrides) and from the products of the steps
- * before it, under fixed names in the run folder; every option is checked
- * against the command's own --help before anything runs; a step that the
- * ledger finds current is not run again; then the summary and the report
- * are written from what the folder holds.
+ * before it, under fixed names in the run folder; every option (name and
+ * value) is checked by the command's own parser before anything runs
+ * (check.c); a step that the ledger finds current is not run again; then
+ * the summary and the report are written from what the folder holds.
  *
  * Each step is its gloam command run in this process through the command
  * layer (gl_command_exec, command.h) with the step's files of the run
@@ -456,78 +456,6 @@ static gl_status compose(gl_plan *plan, const char *target, run_files *f, arena 
     return GL_OK;
 }
 
-/* ---- checking the options against the commands ---------------------------- */
-
-/* 1 when `--key` is an option named in the text of `gloam CMD --help`. */
-static int help_names(const char *help, const char *key)
-{
-    size_t n = strlen(key);
-    for (const char *p = strstr(help, "--"); p; p = strstr(p + 2, "--")) {
-        if (p > help && (p[-1] == '-' || (p[-1] >= 'a' && p[-1] <= 'z')))
-            continue;
-        if (strncmp(p + 2, key, n) == 0) {
-            char next = p[2 + n];
-            if (!(next == '-' || (next >= 'a' && next <= 'z') || (next >= '0' && next <= '9')))
-                return 1;
-        }
-    }
-    return 0;
-}
-
-/* Asks each command that a section feeds for its --help and refuses a key
- * that none of them takes, naming the plan's line. */
-static gl_status check_options(gl_plan *plan, const char *target, const run_cmd *cmds)
-{
-    static const struct {
-        const char *section;
-        const char *commands[3];
-    } feeds[] = {
-        {"inspect", {"inspect"}},
-        {"align", {"align"}},
-        {"subtract", {"subtract", "limits", "vet"}},
-        {"detect", {"detect"}},
-        {"limits", {"limits"}},
-        {"vet", {"vet"}},
-    };
-    gl_status st = GL_OK;
-    for (size_t k = 0; k < sizeof feeds / sizeof feeds[0] && !st; k++) {
-        gl_plan_item it[64];
-        int n = gl_plan_items(plan, target, feeds[k].section, it, 64);
-        if (n < 0)
-            return GL_ERR_USAGE;
-        if (n == 0)
-            continue;
-        for (int c = 0; c < 3 && feeds[k].commands[c] && !st; c++) {
-            int step = gl_step_from_name(feeds[k].commands[c]);
-            if (step < 0 || !cmds[step].asked || cmds[step].why_not[0])
-                continue;
-            /* the command's --help, into memory */
-            char *text = NULL;
-            size_t len = 0;
-            FILE *h = open_memstream(&text, &len);
-            char *argv[] = {"gloam", (char *)feeds[k].commands[c], "--help", NULL};
-            int rc = h ? gl_command_exec(3, argv, h, h) : 2;
-            if (h)
-                fclose(h);
-            if (rc != 0 || !text) {
-                free(text);
-                return gl_error_set(GL_ERR_NOMEM, "cannot ask gloam %s for its options",
-                                    feeds[k].commands[c]);
-            }
-            for (int i = 0; i < n; i++)
-                if (!help_names(text, it[i].key)) {
-                    st = gl_error_set(GL_ERR_INPUT,
-                                      "%s:%d: '%s' in [%s] is not an option of gloam %s",
-                                      gl_plan_name(plan), it[i].line, it[i].key, feeds[k].section,
-                                      feeds[k].commands[c]);
-                    break;
-                }
-            free(text);
-        }
-    }
-    return st;
-}
-
 /* ---- running ----------------------------------------------------------------- */
 
 static double now_s(void)
@@ -630,23 +558,43 @@ static long table_rows(const char *path)
     return n;
 }
 
-/* Runs one step's command in this process: its result text appended to
- * stdout_path (NULL: to the log), its messages to log_path. Returns the
- * exit status, 2 when a file cannot be opened. */
+/* Runs one step's command in this process: its result text to stdout_path
+ * (NULL: to the log) through an output set, so that the file appears, whole,
+ * only when the command succeeds; its messages to log_path. Returns the exit
+ * status, 2 when a file cannot be opened. */
 static int exec_step(int argc, char **argv, const char *stdout_path, const char *log_path)
 {
-    FILE *log = fopen(log_path, "a");
-    FILE *out = stdout_path ? fopen(stdout_path, "a") : log;
+    gl_outset *os = NULL;
+    const char *tmp = NULL;
+    FILE *log = fopen(log_path, "a"), *out = NULL;
     int rc = 2;
-    if (log && out)
-        rc = gl_command_exec(argc, argv, out, log);
-    if (!log || !out)
-        gl_error_set(GL_ERR_IO, "%s: cannot be written: %s", !log ? log_path : stdout_path,
-                     strerror(errno));
+    if (!log) {
+        gl_error_set(GL_ERR_IO, "%s: cannot be written: %s", log_path, strerror(errno));
+        goto cleanup;
+    }
+    if (!stdout_path) {
+        out = log;
+    } else if (gl_outset_new(1, &os) || gl_outset_add(os, stdout_path, NULL, &tmp)) {
+        goto cleanup;
+    } else if (!(out = fopen(tmp, "w"))) {
+        gl_error_set(GL_ERR_IO, "%s: cannot be written: %s", stdout_path, strerror(errno));
+        goto cleanup;
+    }
+    rc = gl_command_exec(argc, argv, out, log);
+    if (out != log) {
+        int bad = fclose(out) != 0;
+        out = NULL;
+        if (rc == 0 && (bad || gl_outset_commit(os))) {
+            gl_error_set(GL_ERR_IO, "%s: cannot be written", stdout_path);
+            rc = 2;
+        }
+    }
+cleanup:
     if (out && out != log)
         fclose(out);
     if (log)
         fclose(log);
+    gl_outset_free(os); /* deletes the temporary file of a failed step */
     return rc;
 }
 
@@ -678,8 +626,6 @@ static gl_status run_step(gl_step s, run_cmd *c, const gl_run_params *rp, const 
     char stamp[32];
     strftime(stamp, sizeof stamp, "%Y-%m-%dT%H:%M:%SZ", gmtime(&wall));
     append_log(f->log, "== %s %s: %s\n", stamp, step_names[s], options);
-    if (c->stdout_path)
-        remove(c->stdout_path);
     double t0 = now_s();
     int rc = exec_step(c->argc + 1, args, c->stdout_path, f->log);
     out->seconds[s] = now_s() - t0;
@@ -736,7 +682,7 @@ gl_status gl_run_target(gl_plan *plan, const char *target, const gl_run_params *
             goto cleanup;
     }
     if ((st = compose(plan, target, f, a, 1, cmds)) || (st = gl_plan_check_used(plan)) ||
-        (st = check_options(plan, target, cmds)))
+        (st = run_check_options(plan, target, cmds)))
         goto cleanup;
     if (rp->dry_run) {
         static char line[1 << 15];
