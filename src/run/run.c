@@ -153,6 +153,17 @@ static gl_status add_section(gl_plan *plan, const char *target, const char *sect
     return st;
 }
 
+/* Figures of a run are titled with the plan's target name, unless the
+ * step's section gives a title of its own. */
+static gl_status add_title(gl_plan *plan, const char *target, const char *section, arena *a,
+                           run_cmd *c)
+{
+    if (gl_plan_value(plan, target, section, "title", NULL))
+        return GL_OK;
+    gl_status st = add_arg(c, keep(a, "--title"));
+    return st ? st : add_arg(c, keep(a, "%s", target));
+}
+
 /* The inputs of a target: resolved paths (relative to the plan), or NULL. */
 typedef struct target_inputs {
     const char *cube, *angles, *psf, *refs, *psf_scale, *pixscale;
@@ -398,7 +409,8 @@ static gl_status compose(gl_plan *plan, const char *target, run_files *f, arena 
         ARG("--pixscale");
         ARG("%s", in.pixscale);
     }
-    if ((st = add_section(plan, target, "detect", a, c)))
+    if ((st = add_section(plan, target, "detect", a, c)) ||
+        (st = add_title(plan, target, "detect", a, c)))
         return st;
     add_file(c->inputs, &c->ninputs, f->result);
     add_file(c->products, &c->nproducts, f->snr_fits);
@@ -442,7 +454,8 @@ static gl_status compose(gl_plan *plan, const char *target, run_files *f, arena 
             ARG("%s", in.pixscale);
         }
         if ((st = add_section(plan, target, "subtract", a, c)) ||
-            (st = add_section(plan, target, step_names[s], a, c)))
+            (st = add_section(plan, target, step_names[s], a, c)) ||
+            (st = add_title(plan, target, step_names[s], a, c)))
             return st;
         add_file(c->inputs, &c->ninputs, cube);
         add_file(c->inputs, &c->ninputs, angles);
@@ -626,10 +639,15 @@ static gl_status run_step(gl_step s, run_cmd *c, const gl_run_params *rp, const 
     char stamp[32];
     strftime(stamp, sizeof stamp, "%Y-%m-%dT%H:%M:%SZ", gmtime(&wall));
     append_log(f->log, "== %s %s: %s\n", stamp, step_names[s], options);
+    run_snapshot *before = NULL;
+    gl_status sst = run_snapshot_take(f->folder, &before);
+    if (sst)
+        return sst;
     double t0 = now_s();
     int rc = exec_step(c->argc + 1, args, c->stdout_path, f->log);
     out->seconds[s] = now_s() - t0;
     if (rc != 0) {
+        run_snapshot_free(before);
         out->state[s] = GL_STEP_FAILED;
         out->exit_status = rc;
         char msg[400];
@@ -640,8 +658,27 @@ static gl_status run_step(gl_step s, run_cmd *c, const gl_run_params *rp, const 
     }
     out->state[s] = GL_STEP_RAN;
     gl_log(GL_LOG_INFO, "%s: %s: done in %.1f s", target, step_names[s], out->seconds[s]);
-    gl_status st = gl_ledger_record(led, step_names[s], options, c->inputs, c->ninputs, c->products,
-                                    c->nproducts, out->seconds[s]);
+    /* every file the step wrote is its product, with those it must write */
+    enum { MAXP = 256 };
+    static char wrote[MAXP][4400];
+    static const char *prods[MAXP + RUN_MAX_FILES];
+    run_snapshot *after = NULL;
+    gl_status st = run_snapshot_take(f->folder, &after);
+    int np = 0, nw = st ? 0 : run_snapshot_changed(before, after, f->folder, wrote, MAXP);
+    run_snapshot_free(after);
+    run_snapshot_free(before);
+    for (int i = 0; i < c->nproducts; i++)
+        prods[np++] = c->products[i];
+    for (int i = 0; i < nw; i++) {
+        int dup = 0;
+        for (int k = 0; k < c->nproducts; k++)
+            dup |= strcmp(wrote[i], c->products[k]) == 0;
+        if (!dup)
+            prods[np++] = wrote[i];
+    }
+    if (!st)
+        st = gl_ledger_record(led, step_names[s], options, c->inputs, c->ninputs, prods, np,
+                              out->seconds[s]);
     if (!st)
         st = gl_ledger_save(led);
     return st;
