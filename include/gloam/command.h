@@ -44,6 +44,17 @@ GL_API const gl_command_info *gl_command_list(void);
  * handlers, OpenMP's thread count), so run one at a time. */
 GL_API int gl_command_exec(int argc, char **argv, FILE *out, FILE *err);
 
+/* Checks a command line without running the command: the command parses
+ * argv exactly as gl_command_exec would (every option name, written out in
+ * full, and every value, with the same code and the same messages) and
+ * stops where it would start work, before any file is opened.
+ * Given and returned as gl_command_exec, except that nothing is read or
+ * written and only err receives text (the one-line error).
+ * Function return value: 0 when the command line is valid, else the exit
+ * status gl_command_exec would give for it (1 for a bad option or value).
+ * `--help` is a valid command line (its text goes to err). */
+GL_API int gl_command_check(int argc, char **argv, FILE *err);
+
 /* ---- surveys over several processes ---------------------------------------- */
 
 /* How `gloam survey` spreads targets over processes: the library has no

@@ -45,7 +45,7 @@ typedef struct gl_inspect_plane {
     long frame, chan; /* 0-based */
     long npix, nnan, nsat;
     double nan_fraction;
-    double flux;      /* sum of the finite pixels */
+    double flux;      /* sum of the finite pixels (NaN for an empty plane) */
     double peak;      /* largest finite pixel */
     double bg_median; /* median of the background region (NaN if it is empty) */
     double bg_sigma;  /* 1.4826 * MAD there */
@@ -57,7 +57,8 @@ enum {
     GL_INSPECT_OUT_FLUX = 1,
     GL_INSPECT_OUT_BG_MEDIAN = 2,
     GL_INSPECT_OUT_BG_SIGMA = 4,
-    GL_INSPECT_OUT_NAN = 8
+    GL_INSPECT_OUT_NAN = 8,
+    GL_INSPECT_OUT_EMPTY = 16 /* no finite pixel at all: the plane holds no data */
 };
 
 /* min, median, max over planes (finite values only). */
@@ -83,6 +84,7 @@ typedef struct gl_inspect_report {
 
     gl_inspect_range flux, bg_median, bg_sigma;
     long noutliers;
+    long nempty; /* planes with no finite pixel (also flagged GL_INSPECT_OUT_EMPTY) */
 
     /* field rotation; has_angles == 0 when no angles were given */
     int has_angles;
@@ -107,9 +109,10 @@ GL_API double gl_inspect_rotation_total(const double *angles_deg, long n);
 /* Reads cube_path (first image HDU; 2-D, 3-D or 4-D) and, when angles_path is
  * not NULL, its parallactic angles, and computes the report.
  * Errors: those of gl_fits_read_cube and gl_angles_read (missing file, not
- * FITS, no image HDU, 1-D image, wrong angle count, bad angle line), and
- * GL_ERR_INPUT for a frame with no finite pixel (the message names it),
- * GL_ERR_USAGE for bad params, GL_ERR_NOMEM. */
+ * FITS, no image HDU, 1-D image, wrong angle count, bad angle line),
+ * GL_ERR_USAGE for bad params, GL_ERR_NOMEM. A frame with no finite pixel
+ * is not an error: it is reported (GL_INSPECT_OUT_EMPTY, nempty), as the
+ * report is a description of the data, not a judgement of it. */
 GL_API gl_status gl_inspect_report_new(const char *cube_path, const char *angles_path,
                                        const gl_inspect_params *p, gl_inspect_report **out);
 GL_API void gl_inspect_report_free(gl_inspect_report *r);

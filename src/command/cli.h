@@ -24,7 +24,11 @@ typedef struct gl_cli {
     char cmdline[4096];
     char program[64];
     gl_provenance prov;
-    int parsing;        /* set by cli_next_option once getopt has been reset */
+    int parsing; /* set by cli_next_option once getopt has been reset */
+    /* gl_command_check: parse only; cli_start returns to the caller there,
+     * through check_done, before the command touches a file */
+    int check_only;
+    void *check_done;   /* jmp_buf * */
     int rotation_sense; /* --rotation-sense: 0 not given, +1 counter-clockwise, -1 clockwise */
     char angles_source[1024]; /* where cli_read_cube_angles found the angles ("" before) */
     /* where the command writes: its products' text (reports, tables, --help)

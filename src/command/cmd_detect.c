@@ -34,7 +34,8 @@ static const char help[] =
     "                       (negative self-subtraction wings of ADI)\n"
     "  --merge-radius PX    maxima closer than this are one candidate (default 1 FWHM)\n"
     "  --pixscale MAS       pixel scale in mas (default: from the WCS, if any)\n"
-    "  --every-plane        report each candidate's S/N in every plane (snr_plane1..N)\n";
+    "  --every-plane        report each candidate's S/N in every plane (snr_plane1..N)\n"
+    "  --title TEXT         title of PREFIX.snr.png (default: the input file and plane)\n";
 
 enum {
     OPT_FWHM = CLI_OPT_FIRST_COMMAND_OPTION,
@@ -47,7 +48,8 @@ enum {
     OPT_EXCL_OLD,
     OPT_MERGE,
     OPT_PIXSCALE,
-    OPT_EVERY
+    OPT_EVERY,
+    OPT_TITLE
 };
 
 /* Prefixes the library's last message with the input file name. */
@@ -69,11 +71,12 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
                                          {"merge-radius", required_argument, 0, OPT_MERGE},
                                          {"pixscale", required_argument, 0, OPT_PIXSCALE},
                                          {"every-plane", no_argument, 0, OPT_EVERY},
+                                         {"title", required_argument, 0, OPT_TITLE},
                                          CLI_COMMON_OPTIONS,
                                          {0, 0, 0, 0}};
     gl_detect_params par;
     gl_detect_params_init(&par);
-    const char *prefix = NULL;
+    const char *prefix = NULL, *title_given = NULL;
     long plane = 1;
     int every = 0, c;
     int k;
@@ -114,6 +117,7 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
                 return 1;
             break;
         case OPT_EVERY: every = 1; break;
+        case OPT_TITLE: title_given = optarg; break;
         default: return cli_bad_option(cli, argv);
         }
     }
@@ -209,7 +213,8 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
     }
 
     char title[512];
-    snprintf(title, sizeof title, "%s  (plane %ld of %ld)", input, plane, nplanes);
+    snprintf(title, sizeof title, "%s  (plane %ld of %ld)", title_given ? title_given : input,
+             plane, nplanes);
     if ((st = gl_detect_maps_write(tmp_map, maps, cube->header, &par, plane, &cli->prov)) ||
         (st = gl_detect_candidates_write(tmp_csv, tmp_tab, cand, ncand,
                                          every && nplanes > 1 ? cube : NULL, &par, &cli->prov)) ||
@@ -231,10 +236,20 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
         if (ncand > 0)
             fprintf(cli->out, "%4s %9s %9s %8s %8s %8s %10s %8s\n", "rank", "x", "y", "sep_px",
                     "pa_deg", "snr", "fpf", "sigma");
-        for (long r = 0; r < ncand; r++)
-            fprintf(cli->out, "%4ld %9.3f %9.3f %8.3f %8.2f %8.2f %10.3g %8.2f\n", r + 1, cand[r].x,
-                    cand[r].y, cand[r].sep_px, cand[r].pa_deg, cand[r].stat.t, cand[r].stat.fpf,
-                    cand[r].stat.significance);
+        /* a peak that passes may fall below at the fitted position: say so */
+        long nbelow = 0;
+        for (long r = 0; r < ncand; r++) {
+            int below = !(cand[r].stat.significance >= par.threshold_sigma);
+            nbelow += below;
+            fprintf(cli->out, "%4ld %9.3f %9.3f %8.3f %8.2f %8.2f %10.3g %8.2f%s\n", r + 1,
+                    cand[r].x, cand[r].y, cand[r].sep_px, cand[r].pa_deg, cand[r].stat.t,
+                    cand[r].stat.fpf, cand[r].stat.significance, below ? "  below" : "");
+        }
+        if (nbelow)
+            fprintf(cli->out,
+                    "(%ld marked below: under %g sigma at the fitted position, though the "
+                    "S/N-map peak passes)\n",
+                    nbelow, par.threshold_sigma);
     }
 
 cleanup:

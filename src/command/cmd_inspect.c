@@ -17,8 +17,9 @@ static const char help[] =
     "usage: gloam inspect CUBE [--angles FILE] [--fwhm PX | --psf PSF.fits] [--json]\n\n"
     "Reports what a science cube holds: HDU, shape, BITPIX and scaling, NaN\n"
     "fraction, saturated pixels, per-frame flux and background (median and\n"
-    "1.4826*MAD far from the star), outlier frames, field rotation, and the\n"
-    "observation keywords found in the header. Writes no file.\n\n"
+    "1.4826*MAD far from the star), outlier and empty (all-NaN) frames, field\n"
+    "rotation, and the observation keywords found in the header. Writes no file;\n"
+    "exits 0 whatever the data hold, 1 only when the input cannot be read.\n\n"
     "options:\n"
     "  --angles FILE      parallactic angles (degrees, one a line, or 1-D FITS;\n"
     "                     default: the cube's ANGLES table, if any)\n"
@@ -73,6 +74,21 @@ static void print_text(FILE *f, const gl_inspect_report *r)
             "\nper frame (%ld planes; frames count from 0; background: r >= %.1f px from "
             "(%.0f, %.0f))\n",
             r->nplanes, r->bg_inner_px, r->center_x, r->center_y);
+    if (r->nempty) {
+        fprintf(
+            f, "  empty frames           %ld (all NaN, no data; drop them before use):", r->nempty);
+        long shown = 0;
+        for (long i = 0; i < r->nplanes && shown < 20; i++) {
+            const gl_inspect_plane *ps = &r->planes[i];
+            if (!(ps->outlier & GL_INSPECT_OUT_EMPTY))
+                continue;
+            shown++;
+            fprintf(f, " %ld", ps->frame);
+            if (r->nchan > 1)
+                fprintf(f, "/%ld", ps->chan);
+        }
+        fprintf(f, "%s\n", r->nempty > 20 ? " ..." : "");
+    }
     print_range(f, "flux (sum)", &r->flux);
     print_range(f, "background median", &r->bg_median);
     print_range(f, "background sigma", &r->bg_sigma);
@@ -89,14 +105,15 @@ static void print_text(FILE *f, const gl_inspect_report *r)
             fprintf(f, " %ld", ps->frame);
             if (r->nchan > 1)
                 fprintf(f, "/%ld", ps->chan);
-            fprintf(f, "(%s%s%s%s)", ps->outlier & GL_INSPECT_OUT_FLUX ? "F" : "",
+            fprintf(f, "(%s%s%s%s%s)", ps->outlier & GL_INSPECT_OUT_FLUX ? "F" : "",
                     ps->outlier & GL_INSPECT_OUT_BG_MEDIAN ? "B" : "",
                     ps->outlier & GL_INSPECT_OUT_BG_SIGMA ? "S" : "",
-                    ps->outlier & GL_INSPECT_OUT_NAN ? "N" : "");
+                    ps->outlier & GL_INSPECT_OUT_NAN ? "N" : "",
+                    ps->outlier & GL_INSPECT_OUT_EMPTY ? "E" : "");
         }
         fprintf(f,
-                "%s\n  (F flux, B background level, S background noise, N missing data;"
-                " --json lists all)\n",
+                "%s\n  (F flux, B background level, S background noise, N missing data,"
+                " E empty; --json lists all)\n",
                 r->noutliers > 20 ? " ..." : "");
     }
 

@@ -9,6 +9,7 @@
 
 #include "core/internal.h"
 
+#include <setjmp.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -75,7 +76,8 @@ static void print_peak_memory(const gl_cli *cli)
                 (double)kb / 1024.0, kb);
 }
 
-int gl_command_exec(int argc, char **argv, FILE *out, FILE *err)
+/* Runs (check 0) or checks (check 1, gl_command_check) one command. */
+static int command_run(int argc, char **argv, FILE *out, FILE *err, int check)
 {
     if (!out || !err || argc < 2 || !argv || !argv[1]) {
         if (err)
@@ -120,8 +122,17 @@ int gl_command_exec(int argc, char **argv, FILE *out, FILE *err)
     gl_log_get_handler(&log_fn, &log_user, &log_max);
     gl_progress_get_handler(&progress_fn, &progress_user);
 
-    int rc = cmd->run(cli, argc - 1, argv + 1);
-    if (cli->verbose)
+    int rc;
+    jmp_buf done;
+    cli->check_only = check;
+    cli->check_done = &done;
+    if (!check)
+        rc = cmd->run(cli, argc - 1, argv + 1);
+    else if (setjmp(done) == 0)
+        rc = cmd->run(cli, argc - 1, argv + 1);
+    else
+        rc = 0; /* cli_start reached: every option and value was accepted */
+    if (cli->verbose && !check)
         print_peak_memory(cli);
     fflush(out);
     fflush(err);
@@ -130,4 +141,14 @@ int gl_command_exec(int argc, char **argv, FILE *out, FILE *err)
     gl_progress_set_handler(progress_fn, progress_user);
     free(cli);
     return rc;
+}
+
+int gl_command_exec(int argc, char **argv, FILE *out, FILE *err)
+{
+    return command_run(argc, argv, out, err, 0);
+}
+
+int gl_command_check(int argc, char **argv, FILE *err)
+{
+    return command_run(argc, argv, err, err, 1);
 }

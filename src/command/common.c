@@ -9,6 +9,7 @@
 #include <math.h>
 #include <omp.h>
 #include <stdarg.h>
+#include <setjmp.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -47,9 +48,23 @@ int cli_next_option(gl_cli *cli, int argc, char **argv, const struct option *opt
         opterr = 0;
         optind = 1;
     }
-    int c;
-    while ((c = getopt_long(argc, argv, "", opts, NULL)) != -1) {
+    int c, which = -1;
+    while ((c = getopt_long(argc, argv, "", opts, &which)) != -1) {
         int exit_now = 0;
+        /* a checked command line (a plan's) names options in full: getopt's
+         * abbreviations would let a misspelt key pass for another option */
+        if (cli->check_only && c != '?' && which >= 0) {
+            /* the option's own element: before its value when that is separate */
+            int at = optind - (optarg && optind >= 2 && optarg == argv[optind - 1] ? 2 : 1);
+            const char *given = at >= 1 && strncmp(argv[at], "--", 2) == 0 ? argv[at] + 2 : NULL;
+            size_t len = given ? strcspn(given, "=") : 0;
+            if (given &&
+                (len != strlen(opts[which].name) || strncmp(given, opts[which].name, len) != 0)) {
+                cli_usage(cli, "unknown option '--%.*s'", (int)len, given);
+                return CLI_EXIT_FAIL;
+            }
+        }
+        which = -1;
         int r = cli_common_option(cli, c, optarg, help_text, &exit_now);
         if (r < 0)
             return CLI_EXIT_FAIL;
@@ -473,6 +488,8 @@ static void print_progress(const char *task, long done, long total, void *user)
 
 void cli_start(gl_cli *cli)
 {
+    if (cli->check_only) /* gl_command_check: the command line was valid */
+        longjmp(*(jmp_buf *)cli->check_done, 1);
     if (cli->threads > 0) {
         omp_set_num_threads(cli->threads);
     }

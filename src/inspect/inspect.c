@@ -7,9 +7,10 @@
  * 1.4826 * MAD (robust; core/stats.c) of the pixels far from the star (at a
  * distance >= bg_inner_frac * min(nx, ny)/2 from (nx/2, ny/2): the outer
  * annulus and the corners, where the stellar halo is faintest), and saturated
- * pixels. Across planes: min/median/max of those numbers, and outlier frames
- * that lie more than outlier_nsigma robust sigmas from the median frame
- * (common practice for frame selection; no single published rule).
+ * pixels; a plane with no finite pixel at all is reported as empty (not an
+ * error: the report describes what a later step will have to drop). Across planes: min/median/max
+ * of those numbers, and outlier frames that lie more than outlier_nsigma robust sigmas from the
+ * median frame (common practice for frame selection; no single published rule).
  *
  * Saturation: a SATURATE (or SATLEVEL) keyword, taken in data units, wins;
  * otherwise integer data are saturated at the largest raw value BITPIX can
@@ -121,7 +122,7 @@ static void plane_stats(const gl_inspect_report *r, const float *img, const unsi
     ps->nnan = nnan;
     ps->nsat = nsat;
     ps->nan_fraction = (double)nnan / (double)n;
-    ps->flux = flux;
+    ps->flux = nnan == (long)n ? NAN : flux; /* no data: no number, out of the summaries */
     ps->peak = nnan == (long)n ? NAN : peak;
     ps->bg_count = nbg;
     gl_stats_robust(work, (size_t)nbg, work + n, &ps->bg_median, &ps->bg_sigma);
@@ -276,17 +277,9 @@ gl_status gl_inspect_report_new(const char *cube_path, const char *angles_path,
             ps->frame = f;
             ps->chan = ch;
             plane_stats(r, gl_cube_plane(c, ch, f), bgmask, work, ps);
-            if (ps->nnan == ps->npix) {
-                if (c->nchan > 1)
-                    st = gl_error_set(GL_ERR_INPUT,
-                                      "%s: frame %ld, channel %ld (counting from 0) is all NaN "
-                                      "(no data)",
-                                      cube_path, f, ch);
-                else
-                    st = gl_error_set(GL_ERR_INPUT,
-                                      "%s: frame %ld (counting from 0) is all NaN (no data)",
-                                      cube_path, f);
-                goto cleanup;
+            if (ps->nnan == ps->npix) { /* no data: reported, not refused */
+                ps->outlier |= GL_INSPECT_OUT_EMPTY;
+                r->nempty++;
             }
             total_nan += ps->nnan;
             r->nsat += ps->nsat;

@@ -87,6 +87,7 @@ static cJSON *plane_json(const gl_inspect_plane *ps)
     add_num(o, "background_sigma", ps->bg_sigma);
     cJSON_AddNumberToObject(o, "background_pixels", (double)ps->bg_count);
     cJSON_AddNumberToObject(o, "saturated_pixels", (double)ps->nsat);
+    cJSON_AddBoolToObject(o, "empty", (ps->outlier & GL_INSPECT_OUT_EMPTY) != 0);
     return o;
 }
 
@@ -104,7 +105,8 @@ static cJSON *outlier_json(const gl_inspect_plane *ps)
     } reasons[] = {{GL_INSPECT_OUT_FLUX, "flux"},
                    {GL_INSPECT_OUT_BG_MEDIAN, "background_median"},
                    {GL_INSPECT_OUT_BG_SIGMA, "background_sigma"},
-                   {GL_INSPECT_OUT_NAN, "nan_fraction"}};
+                   {GL_INSPECT_OUT_NAN, "nan_fraction"},
+                   {GL_INSPECT_OUT_EMPTY, "empty"}};
     for (size_t k = 0; why && k < sizeof reasons / sizeof reasons[0]; k++)
         if (ps->outlier & reasons[k].bit)
             cJSON_AddItemToArray(why, cJSON_CreateString(reasons[k].name));
@@ -195,6 +197,16 @@ gl_status gl_inspect_report_json(const gl_inspect_report *r, char **json)
     for (long i = 0; outl && i < r->nplanes; i++)
         if (r->planes[i].outlier)
             cJSON_AddItemToArray(outl, outlier_json(&r->planes[i]));
+    cJSON *empty = cJSON_AddArrayToObject(o, "empty_frames");
+    for (long i = 0; empty && i < r->nplanes; i++)
+        if (r->planes[i].outlier & GL_INSPECT_OUT_EMPTY) {
+            cJSON *e = cJSON_CreateObject();
+            if (!e)
+                break;
+            cJSON_AddNumberToObject(e, "frame", (double)r->planes[i].frame);
+            cJSON_AddNumberToObject(e, "channel", (double)r->planes[i].chan);
+            cJSON_AddItemToArray(empty, e);
+        }
     cJSON *frames = cJSON_AddArrayToObject(o, "frames");
     for (long i = 0; frames && i < r->nplanes; i++)
         cJSON_AddItemToArray(frames, plane_json(&r->planes[i]));

@@ -44,6 +44,23 @@ gl_status run_png_finish(cairo_surface_t *s, const char *path)
     return GL_OK;
 }
 
+/* A figure as a product of the run folder: written under a temporary name
+ * and renamed into place only when whole (gl_outset). */
+static gl_status png_product(cairo_surface_t *s, const char *path)
+{
+    gl_outset *os = NULL;
+    const char *tmp = NULL;
+    gl_status st = gl_outset_new(1, &os);
+    if (!st)
+        st = gl_outset_add(os, path, NULL, &tmp);
+    if (st)
+        cairo_surface_destroy(s);
+    else if (!(st = run_png_finish(s, tmp)))
+        st = gl_outset_commit(os);
+    gl_outset_free(os);
+    return st ? gl_outset_error_names(st) : GL_OK;
+}
+
 /* The robust noise (1.4826 MAD) of each 2-px ring about the star, so that
  * the stretch shows a faint companion far out as well as near the star;
  * rings with fewer than 8 values take the noise of the whole image. */
@@ -159,7 +176,7 @@ gl_status run_figure_residual(const char *fits_path, const char *png_path)
     cairo_show_text(cr, label);
     cairo_destroy(cr);
     gl_cube_free(c);
-    return run_png_finish(s, png_path);
+    return png_product(s, png_path);
 }
 
 gl_status run_figure_star_positions(const char *csv_path, const char *png_path)
@@ -284,5 +301,5 @@ gl_status run_figure_star_positions(const char *csv_path, const char *png_path)
     cairo_show_text(cr, label);
     cairo_destroy(cr);
     gl_csv_free(t);
-    return run_png_finish(s, png_path);
+    return png_product(s, png_path);
 }

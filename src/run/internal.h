@@ -41,6 +41,21 @@ typedef struct run_files {
 
 gl_status run_files_init(run_files *f, const char *folder);
 
+/* The regular files of a run folder (not the run's own log, ledger,
+ * summary and report), to find what a step wrote (see ledger.c). */
+typedef struct run_snapshot run_snapshot;
+gl_status run_snapshot_take(const char *folder, run_snapshot **out);
+void run_snapshot_free(run_snapshot *s);
+/* Full paths (folder/NAME) of the files of after that are new or replaced
+ * since before, at most max; returns their count. */
+int run_snapshot_changed(const run_snapshot *before, const run_snapshot *after, const char *folder,
+                         char (*paths)[4400], int max);
+
+/* Parses every asked step's command line with its command's own parser,
+ * without running it (gl_command_check); GL_ERR_INPUT naming the plan's
+ * line, section and key of the first option refused (see check.c). */
+gl_status run_check_options(gl_plan *plan, const char *target, const run_cmd *cmds);
+
 /* RUN/summary.json from the products present (see summary.c). */
 gl_status run_summary_write(const run_files *f, const char *target, const char *plan_name,
                             const run_cmd *cmds, const gl_run_outcome *out, const char *path);

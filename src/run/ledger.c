@@ -3,19 +3,23 @@
  * options, on which inputs, leaving which products (RUN/ledger.json, read
  * and written with cJSON). It makes a run resumable: a step whose options
  * and inputs are unchanged, and whose products are still there as it left
- * them, is not run again. Files are compared by CRC-32 (zlib) of their
- * bytes, not by dates, so that a copied or touched file does not rerun a
+ * them, is not run again. A step's products are every file it wrote into
+ * the folder (found by listing the folder before and after it), figures and
+ * ECSV twins included, so that a deleted or edited one reruns the step. Files are compared by
+ * CRC-32 (zlib) of their bytes, not by dates, so that a copied or touched file does not rerun a
  * step and an edited one always does.
  */
-#include "gloam/run.h"
+#include "run/internal.h"
 
 #include "gloam/io.h"
 
 #include <cjson/cJSON.h>
+#include <dirent.h>
 #include <errno.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <sys/stat.h>
 
 struct gl_ledger {
     char path[4096];
@@ -206,4 +210,104 @@ gl_status gl_ledger_save(const gl_ledger *l)
     }
     cJSON_free(text);
     return st;
+}
+
+/* ---- what a step wrote ---------------------------------------------------- */
+
+/* A step's products are every file of the run folder it created or
+ * replaced (products are renamed into place, so a rewritten file has a new
+ * inode), found by comparing the folder before and after the step: the
+ * ledger then tracks every figure and ECSV twin a command writes, without a
+ * list to keep in step with each command. */
+typedef struct snap_entry {
+    char name[256];
+    ino_t ino;
+    off_t size;
+    struct timespec mtime;
+} snap_entry;
+
+struct run_snapshot {
+    snap_entry *e;
+    int n;
+};
+
+/* Files of the run itself, not of a step. */
+static int run_own_file(const char *name)
+{
+    static const char *const own[] = {"log.txt", "ledger.json", "ledger.json.tmp", "summary.json",
+                                      "report.html"};
+    for (size_t i = 0; i < sizeof own / sizeof own[0]; i++)
+        if (strcmp(name, own[i]) == 0)
+            return 1;
+    return name[0] == '.'; /* temporary names of an output set */
+}
+
+gl_status run_snapshot_take(const char *folder, run_snapshot **out)
+{
+    *out = NULL;
+    run_snapshot *s = calloc(1, sizeof *s);
+    if (!s)
+        return gl_error_nomem("run folder listing");
+    DIR *d = opendir(folder);
+    if (!d) {
+        free(s);
+        return gl_error_set(GL_ERR_IO, "%s: cannot read the folder: %s", folder, strerror(errno));
+    }
+    gl_status st = GL_OK;
+    int cap = 0;
+    for (struct dirent *de; (de = readdir(d)) && !st;) {
+        char path[4400];
+        struct stat sb;
+        if (run_own_file(de->d_name) || strlen(de->d_name) >= sizeof s->e[0].name)
+            continue;
+        snprintf(path, sizeof path, "%s/%s", folder, de->d_name);
+        if (stat(path, &sb) != 0 || !S_ISREG(sb.st_mode))
+            continue;
+        if (s->n == cap) {
+            cap = cap ? 2 * cap : 64;
+            snap_entry *e = realloc(s->e, sizeof *e * (size_t)cap);
+            if (!e) {
+                st = gl_error_nomem("run folder listing");
+                break;
+            }
+            s->e = e;
+        }
+        snap_entry *e = &s->e[s->n++];
+        snprintf(e->name, sizeof e->name, "%s", de->d_name);
+        e->ino = sb.st_ino;
+        e->size = sb.st_size;
+        e->mtime = sb.st_mtim;
+    }
+    closedir(d);
+    if (st)
+        run_snapshot_free(s);
+    else
+        *out = s;
+    return st;
+}
+
+void run_snapshot_free(run_snapshot *s)
+{
+    if (!s)
+        return;
+    free(s->e);
+    free(s);
+}
+
+int run_snapshot_changed(const run_snapshot *before, const run_snapshot *after, const char *folder,
+                         char (*paths)[4400], int max)
+{
+    int n = 0;
+    for (int i = 0; i < after->n && n < max; i++) {
+        const snap_entry *a = &after->e[i];
+        int same = 0;
+        for (int k = 0; k < before->n && !same; k++) {
+            const snap_entry *b = &before->e[k];
+            same = strcmp(a->name, b->name) == 0 && a->ino == b->ino && a->size == b->size &&
+                   a->mtime.tv_sec == b->mtime.tv_sec && a->mtime.tv_nsec == b->mtime.tv_nsec;
+        }
+        if (!same)
+            snprintf(paths[n++], sizeof paths[0], "%s/%s", folder, a->name);
+    }
+    return n;
 }

@@ -2,10 +2,10 @@
  * run.c -- a whole reduction of one target from a plan: the command line of
  * each step is composed from the plan (the target's inputs, the step's
  * section, the target's overrides) and from the products of the steps
- * before it, under fixed names in the run folder; every option is checked
- * against the command's own --help before anything runs; a step that the
- * ledger finds current is not run again; then the summary and the report
- * are written from what the folder holds.
+ * before it, under fixed names in the run folder; every option (name and
+ * value) is checked by the command's own parser before anything runs
+ * (check.c); a step that the ledger finds current is not run again; then
+ * the summary and the report are written from what the folder holds.
  *
  * Each step is its gloam command run in this process through the command
  * layer (gl_command_exec, command.h) with the step's files of the run
@@ -151,6 +151,17 @@ static gl_status add_section(gl_plan *plan, const char *target, const char *sect
             st = add_arg(c, keep(a, "%s", it[i].value));
     }
     return st;
+}
+
+/* Figures of a run are titled with the plan's target name, unless the
+ * step's section gives a title of its own. */
+static gl_status add_title(gl_plan *plan, const char *target, const char *section, arena *a,
+                           run_cmd *c)
+{
+    if (gl_plan_value(plan, target, section, "title", NULL))
+        return GL_OK;
+    gl_status st = add_arg(c, keep(a, "--title"));
+    return st ? st : add_arg(c, keep(a, "%s", target));
 }
 
 /* The inputs of a target: resolved paths (relative to the plan), or NULL. */
@@ -398,7 +409,8 @@ static gl_status compose(gl_plan *plan, const char *target, run_files *f, arena 
         ARG("--pixscale");
         ARG("%s", in.pixscale);
     }
-    if ((st = add_section(plan, target, "detect", a, c)))
+    if ((st = add_section(plan, target, "detect", a, c)) ||
+        (st = add_title(plan, target, "detect", a, c)))
         return st;
     add_file(c->inputs, &c->ninputs, f->result);
     add_file(c->products, &c->nproducts, f->snr_fits);
@@ -442,7 +454,8 @@ static gl_status compose(gl_plan *plan, const char *target, run_files *f, arena 
             ARG("%s", in.pixscale);
         }
         if ((st = add_section(plan, target, "subtract", a, c)) ||
-            (st = add_section(plan, target, step_names[s], a, c)))
+            (st = add_section(plan, target, step_names[s], a, c)) ||
+            (st = add_title(plan, target, step_names[s], a, c)))
             return st;
         add_file(c->inputs, &c->ninputs, cube);
         add_file(c->inputs, &c->ninputs, angles);
@@ -454,78 +467,6 @@ static gl_status compose(gl_plan *plan, const char *target, run_files *f, arena 
     }
 #undef ARG
     return GL_OK;
-}
-
-/* ---- checking the options against the commands ---------------------------- */
-
-/* 1 when `--key` is an option named in the text of `gloam CMD --help`. */
-static int help_names(const char *help, const char *key)
-{
-    size_t n = strlen(key);
-    for (const char *p = strstr(help, "--"); p; p = strstr(p + 2, "--")) {
-        if (p > help && (p[-1] == '-' || (p[-1] >= 'a' && p[-1] <= 'z')))
-            continue;
-        if (strncmp(p + 2, key, n) == 0) {
-            char next = p[2 + n];
-            if (!(next == '-' || (next >= 'a' && next <= 'z') || (next >= '0' && next <= '9')))
-                return 1;
-        }
-    }
-    return 0;
-}
-
-/* Asks each command that a section feeds for its --help and refuses a key
- * that none of them takes, naming the plan's line. */
-static gl_status check_options(gl_plan *plan, const char *target, const run_cmd *cmds)
-{
-    static const struct {
-        const char *section;
-        const char *commands[3];
-    } feeds[] = {
-        {"inspect", {"inspect"}},
-        {"align", {"align"}},
-        {"subtract", {"subtract", "limits", "vet"}},
-        {"detect", {"detect"}},
-        {"limits", {"limits"}},
-        {"vet", {"vet"}},
-    };
-    gl_status st = GL_OK;
-    for (size_t k = 0; k < sizeof feeds / sizeof feeds[0] && !st; k++) {
-        gl_plan_item it[64];
-        int n = gl_plan_items(plan, target, feeds[k].section, it, 64);
-        if (n < 0)
-            return GL_ERR_USAGE;
-        if (n == 0)
-            continue;
-        for (int c = 0; c < 3 && feeds[k].commands[c] && !st; c++) {
-            int step = gl_step_from_name(feeds[k].commands[c]);
-            if (step < 0 || !cmds[step].asked || cmds[step].why_not[0])
-                continue;
-            /* the command's --help, into memory */
-            char *text = NULL;
-            size_t len = 0;
-            FILE *h = open_memstream(&text, &len);
-            char *argv[] = {"gloam", (char *)feeds[k].commands[c], "--help", NULL};
-            int rc = h ? gl_command_exec(3, argv, h, h) : 2;
-            if (h)
-                fclose(h);
-            if (rc != 0 || !text) {
-                free(text);
-                return gl_error_set(GL_ERR_NOMEM, "cannot ask gloam %s for its options",
-                                    feeds[k].commands[c]);
-            }
-            for (int i = 0; i < n; i++)
-                if (!help_names(text, it[i].key)) {
-                    st = gl_error_set(GL_ERR_INPUT,
-                                      "%s:%d: '%s' in [%s] is not an option of gloam %s",
-                                      gl_plan_name(plan), it[i].line, it[i].key, feeds[k].section,
-                                      feeds[k].commands[c]);
-                    break;
-                }
-            free(text);
-        }
-    }
-    return st;
 }
 
 /* ---- running ----------------------------------------------------------------- */
@@ -630,23 +571,43 @@ static long table_rows(const char *path)
     return n;
 }
 
-/* Runs one step's command in this process: its result text appended to
- * stdout_path (NULL: to the log), its messages to log_path. Returns the
- * exit status, 2 when a file cannot be opened. */
+/* Runs one step's command in this process: its result text to stdout_path
+ * (NULL: to the log) through an output set, so that the file appears, whole,
+ * only when the command succeeds; its messages to log_path. Returns the exit
+ * status, 2 when a file cannot be opened. */
 static int exec_step(int argc, char **argv, const char *stdout_path, const char *log_path)
 {
-    FILE *log = fopen(log_path, "a");
-    FILE *out = stdout_path ? fopen(stdout_path, "a") : log;
+    gl_outset *os = NULL;
+    const char *tmp = NULL;
+    FILE *log = fopen(log_path, "a"), *out = NULL;
     int rc = 2;
-    if (log && out)
-        rc = gl_command_exec(argc, argv, out, log);
-    if (!log || !out)
-        gl_error_set(GL_ERR_IO, "%s: cannot be written: %s", !log ? log_path : stdout_path,
-                     strerror(errno));
+    if (!log) {
+        gl_error_set(GL_ERR_IO, "%s: cannot be written: %s", log_path, strerror(errno));
+        goto cleanup;
+    }
+    if (!stdout_path) {
+        out = log;
+    } else if (gl_outset_new(1, &os) || gl_outset_add(os, stdout_path, NULL, &tmp)) {
+        goto cleanup;
+    } else if (!(out = fopen(tmp, "w"))) {
+        gl_error_set(GL_ERR_IO, "%s: cannot be written: %s", stdout_path, strerror(errno));
+        goto cleanup;
+    }
+    rc = gl_command_exec(argc, argv, out, log);
+    if (out != log) {
+        int bad = fclose(out) != 0;
+        out = NULL;
+        if (rc == 0 && (bad || gl_outset_commit(os))) {
+            gl_error_set(GL_ERR_IO, "%s: cannot be written", stdout_path);
+            rc = 2;
+        }
+    }
+cleanup:
     if (out && out != log)
         fclose(out);
     if (log)
         fclose(log);
+    gl_outset_free(os); /* deletes the temporary file of a failed step */
     return rc;
 }
 
@@ -678,12 +639,15 @@ static gl_status run_step(gl_step s, run_cmd *c, const gl_run_params *rp, const 
     char stamp[32];
     strftime(stamp, sizeof stamp, "%Y-%m-%dT%H:%M:%SZ", gmtime(&wall));
     append_log(f->log, "== %s %s: %s\n", stamp, step_names[s], options);
-    if (c->stdout_path)
-        remove(c->stdout_path);
+    run_snapshot *before = NULL;
+    gl_status sst = run_snapshot_take(f->folder, &before);
+    if (sst)
+        return sst;
     double t0 = now_s();
     int rc = exec_step(c->argc + 1, args, c->stdout_path, f->log);
     out->seconds[s] = now_s() - t0;
     if (rc != 0) {
+        run_snapshot_free(before);
         out->state[s] = GL_STEP_FAILED;
         out->exit_status = rc;
         char msg[400];
@@ -694,8 +658,27 @@ static gl_status run_step(gl_step s, run_cmd *c, const gl_run_params *rp, const 
     }
     out->state[s] = GL_STEP_RAN;
     gl_log(GL_LOG_INFO, "%s: %s: done in %.1f s", target, step_names[s], out->seconds[s]);
-    gl_status st = gl_ledger_record(led, step_names[s], options, c->inputs, c->ninputs, c->products,
-                                    c->nproducts, out->seconds[s]);
+    /* every file the step wrote is its product, with those it must write */
+    enum { MAXP = 256 };
+    static char wrote[MAXP][4400];
+    static const char *prods[MAXP + RUN_MAX_FILES];
+    run_snapshot *after = NULL;
+    gl_status st = run_snapshot_take(f->folder, &after);
+    int np = 0, nw = st ? 0 : run_snapshot_changed(before, after, f->folder, wrote, MAXP);
+    run_snapshot_free(after);
+    run_snapshot_free(before);
+    for (int i = 0; i < c->nproducts; i++)
+        prods[np++] = c->products[i];
+    for (int i = 0; i < nw; i++) {
+        int dup = 0;
+        for (int k = 0; k < c->nproducts; k++)
+            dup |= strcmp(wrote[i], c->products[k]) == 0;
+        if (!dup)
+            prods[np++] = wrote[i];
+    }
+    if (!st)
+        st = gl_ledger_record(led, step_names[s], options, c->inputs, c->ninputs, prods, np,
+                              out->seconds[s]);
     if (!st)
         st = gl_ledger_save(led);
     return st;
@@ -736,7 +719,7 @@ gl_status gl_run_target(gl_plan *plan, const char *target, const gl_run_params *
             goto cleanup;
     }
     if ((st = compose(plan, target, f, a, 1, cmds)) || (st = gl_plan_check_used(plan)) ||
-        (st = check_options(plan, target, cmds)))
+        (st = run_check_options(plan, target, cmds)))
         goto cleanup;
     if (rp->dry_run) {
         static char line[1 << 15];

@@ -51,15 +51,19 @@ double run_rotation_deg(const run_cmd *cmds)
 }
 
 /* Writes the rejected rows of the star-position table as their own CSV
- * (the header line and every row whose kept column is 0); returns the count. */
-static long write_rejected(const char *starpos, const char *out)
+ * (the header line and every row whose kept column is 0), whole or not at
+ * all (gl_outset); returns the count, -1 when it cannot be written. */
+static long write_rejected(const char *starpos, const char *path)
 {
-    FILE *in = fopen(starpos, "r");
-    if (!in)
-        return -1;
-    FILE *o = fopen(out, "w");
-    if (!o) {
-        fclose(in);
+    gl_outset *os = NULL;
+    const char *tmp = NULL;
+    FILE *in = fopen(starpos, "r"), *o = NULL;
+    if (!in || gl_outset_new(1, &os) || gl_outset_add(os, path, NULL, &tmp) ||
+        !(o = fopen(tmp, "w"))) {
+        if (in)
+            fclose(in);
+        gl_outset_free(os);
+        gl_error_clear();
         return -1;
     }
     char line[4096];
@@ -87,7 +91,10 @@ static long write_rejected(const char *starpos, const char *out)
         }
     }
     fclose(in);
-    fclose(o);
+    if (fclose(o) != 0 || gl_outset_commit(os))
+        n = -1;
+    gl_outset_free(os);
+    gl_error_clear();
     return n;
 }
 
@@ -136,6 +143,7 @@ gl_status run_report_write(const run_files *f, const char *target, const run_cmd
     static const char *const step_title[GL_NSTEPS] = {"inspect", "align",  "subtract",
                                                       "detect",  "limits", "vet"};
     gl_report *r = NULL;
+    gl_outset *os = NULL;
     char title[400];
     snprintf(title, sizeof title, "%s: gloam reduction", target);
     gl_status st = gl_report_new(title, &r);
@@ -297,15 +305,12 @@ gl_status run_report_write(const run_files *f, const char *target, const run_cmd
                 "inspect and align products before quoting a result.")))
         goto cleanup;
 
-    char tmp[4300];
-    snprintf(tmp, sizeof tmp, "%s.tmp", path);
-    if ((st = gl_report_write(r, tmp)))
-        goto cleanup;
-    if (rename(tmp, path) != 0) {
-        remove(tmp);
-        st = gl_error_set(GL_ERR_IO, "%s: cannot write the report", path);
-    }
+    const char *tmp = NULL;
+    if ((st = gl_outset_new(1, &os)) || (st = gl_outset_add(os, path, NULL, &tmp)) ||
+        (st = gl_report_write(r, tmp)) || (st = gl_outset_commit(os)))
+        gl_outset_error_names(st);
 cleanup:
+    gl_outset_free(os);
     gl_report_free(r);
     return st;
 }

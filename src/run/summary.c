@@ -224,16 +224,20 @@ gl_status run_summary_write(const run_files *f, const char *target, const char *
     cJSON_Delete(root);
     if (!text)
         return gl_error_nomem("summary");
-    char tmp[4300];
-    snprintf(tmp, sizeof tmp, "%s.tmp", path);
-    gl_status st = GL_OK;
-    FILE *fp = fopen(tmp, "wb");
-    if (!fp || fputs(text, fp) == EOF || fputc('\n', fp) == EOF || fclose(fp) != 0 ||
-        rename(tmp, path) != 0) {
-        if (fp)
-            remove(tmp);
-        st = gl_error_set(GL_ERR_IO, "%s: cannot write the run summary", path);
+    gl_outset *os = NULL;
+    const char *tmp = NULL;
+    gl_status st = gl_outset_new(1, &os);
+    if (!st)
+        st = gl_outset_add(os, path, NULL, &tmp);
+    FILE *fp = st ? NULL : fopen(tmp, "wb");
+    if (!st) {
+        int bad = !fp || fputs(text, fp) == EOF || fputc('\n', fp) == EOF;
+        if (fp && fclose(fp) != 0)
+            bad = 1;
+        if (bad || gl_outset_commit(os))
+            st = gl_error_set(GL_ERR_IO, "%s: cannot write the run summary", path);
     }
+    gl_outset_free(os);
     cJSON_free(text);
     return st;
 }

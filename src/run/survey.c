@@ -419,7 +419,6 @@ gl_status gl_survey_run(gl_plan *plan, const gl_survey_params *sp, int *nfailed)
         if (ts) {
             rec[i].status = (unsigned char)(1 + ts);
             snprintf(rec[i].message, sizeof rec[i].message, "%s", gl_error_message());
-            gl_log(GL_LOG_WARN, "target %s failed: %s", name, rec[i].message);
             gl_error_clear();
         }
     }
@@ -428,6 +427,19 @@ gl_status gl_survey_run(gl_plan *plan, const gl_survey_params *sp, int *nfailed)
         st = gl_error_set(GL_ERR_INTERNAL, "the survey's processes could not share their results");
     for (int i = 0; i < nt && !st; i++)
         *nfailed += rec[i].status != 0;
+    /* process 0 speaks for every target, those of the other processes too
+     * (they are quiet: one voice on the terminal) */
+    for (int i = 0; i < nt && !st && sp->rank == 0; i++) {
+        char who[64] = "";
+        if (sp->size > 1)
+            snprintf(who, sizeof who, " (process %d)", i % sp->size);
+        if (rec[i].status)
+            gl_log(GL_LOG_WARN, "target %s%s failed: %s", gl_plan_target_name(plan, i), who,
+                   rec[i].message);
+        else
+            gl_log(GL_LOG_INFO, "target %s%s: done, run folder %s/%s", gl_plan_target_name(plan, i),
+                   who, sp->folder, gl_plan_target_name(plan, i));
+    }
     if (!st && sp->rank == 0)
         st = write_products(plan, sp, rec);
     free(rec);

@@ -355,3 +355,23 @@ def test_too_long_prefix_refused(tmp_path):
     lines = res.stderr.strip().splitlines()
     assert len(lines) == 1 and "too long" in lines[0], res.stderr
     assert sorted(os.listdir(tmp_path)) == ["a.fits"]
+
+
+def test_summary_marks_candidates_below_the_threshold(tmp_path):
+    """The printed table says which candidates fall under the threshold at
+    their fitted position (their S/N-map peak passed): exactly the rows whose
+    sigma is below it, and a note says what the mark means."""
+    rng = np.random.default_rng(8)
+    path = write(tmp_path / "n.fits", rng.normal(0, 1, (96, 96)))
+    thr = 2.5
+    r = gloam("detect", path, "--fwhm", 3, "--threshold", thr, "--out", tmp_path / "d",
+              "--title", "Tarn-12")
+    rows = [ln.split() for ln in r.stdout.splitlines() if ln[:4].strip().isdigit()]
+    assert rows, r.stdout
+    marked = 0
+    for row in rows:
+        below = float(row[7]) < thr
+        assert (row[-1] == "below") == below, row
+        marked += below
+    assert ("marked below" in r.stdout) == (marked > 0)
+    assert r.stdout.splitlines()[0].startswith(f"{len(rows)} candidate")

@@ -269,11 +269,35 @@ def test_bad_missing_angles(good):
     check_bad(good, ["good.fits", "--angles", "none.txt"], "none.txt")
 
 
-def test_bad_all_nan_frame(good):
-    d = make_cube(nframe=4)
+def test_all_nan_frame_reported(good):
+    """A frame with no data is a finding, not an error: inspect reports it as
+    empty (JSON and text), keeps the other frames' numbers (numpy on the same
+    finite frames) and exits 0, writing nothing."""
+    d = make_cube(nframe=5)
     d[2] = np.nan
     fits.PrimaryHDU(d).writeto(good / "hole.fits")
-    check_bad(good, ["hole.fits"], "hole.fits", "frame 2", "all NaN")
+    before = sorted((p.name, p.stat().st_mtime_ns) for p in good.iterdir())
+    rep = inspect_json(str(good / "hole.fits"))
+    assert rep["empty_frames"] == [{"frame": 2, "channel": 0}]
+    assert [f["empty"] for f in rep["frames"]] == [False, False, True, False, False]
+    outl = {o["frame"]: o["reasons"] for o in rep["outliers"]}
+    assert "empty" in outl[2]
+    assert rep["nan_worst_frame"]["frame"] == 2
+    assert rep["nan_fraction"] == pytest.approx(np.isnan(d).mean(), rel=1e-12)
+    fluxes = [np.nansum(d[i].astype(np.float64)) for i in (0, 1, 3, 4)]
+    assert rep["summary"]["flux"]["min"] == pytest.approx(min(fluxes), rel=1e-9)
+    assert rep["summary"]["flux"]["max"] == pytest.approx(max(fluxes), rel=1e-9)
+    assert rep["frames"][2]["peak"] is None
+    r = run("hole.fits", cwd=good)
+    assert r.returncode == 0 and r.stderr == "", r.stderr
+    line = [ln for ln in r.stdout.splitlines() if "empty frames" in ln]
+    assert len(line) == 1 and line[0].split(":")[-1].split() == ["2"], r.stdout
+    assert "2(" in r.stdout and "E)" in r.stdout  # among the outliers, marked E
+    assert sorted((p.name, p.stat().st_mtime_ns) for p in good.iterdir()) == before
+    # a cube whose every frame is empty is still described, not refused
+    fits.PrimaryHDU(np.full((3, 8, 9), np.nan, np.float32)).writeto(good / "void.fits")
+    rep = inspect_json(str(good / "void.fits"))
+    assert len(rep["empty_frames"]) == 3 and rep["nan_fraction"] == 1
 
 
 def test_bad_unknown_option(good):

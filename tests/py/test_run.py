@@ -360,6 +360,103 @@ def test_a_failed_step_is_reported_and_the_run_stops(sequence, tmp_path):
     assert not (tmp_path / "no").exists()
 
 
+def test_an_empty_frame_is_reported_and_the_run_goes_on(sequence, tmp_path):
+    """inspect reports an all-NaN frame (as empty) instead of failing the run."""
+    import json
+    import numpy as np
+    from astropy.io import fits as afits
+    d = tmp_path / "seq"
+    shutil.copytree(sequence / "sim", d / "sim")
+    with afits.open(sequence / "sim" / "cube.fits") as h:
+        data, hdr = h[0].data.copy(), h[0].header
+    data[3] = np.nan
+    afits.PrimaryHDU(data, hdr).writeto(d / "sim" / "cube.fits", overwrite=True)
+    plan = write_plan(d, steps=("inspect",))
+    r = gloam("run", plan, "--out", tmp_path / "run")
+    assert r.returncode == 0, r.stderr
+    rep = json.loads((tmp_path / "run" / "inspect.json").read_text())
+    assert rep["empty_frames"] == [{"frame": 3, "channel": 0}]
+
+
+def test_a_failed_step_leaves_no_partial_product(sequence, tmp_path):
+    (tmp_path / "sim").mkdir()
+    (tmp_path / "sim" / "cube.fits").write_text("not FITS")
+    for f in ("angles.txt", "psf.fits"):
+        shutil.copy(sequence / "sim" / f, tmp_path / "sim" / f)
+    plan = write_plan(tmp_path, steps=("inspect", "align"))
+    out = tmp_path / "run"
+    r = gloam("run", plan, "--out", out)
+    assert r.returncode == 1 and "step inspect failed" in r.stderr
+    names = sorted(p.name for p in out.iterdir())
+    # the run's own record of what happened, and no product (not even an empty one)
+    assert names == ["ledger.json", "log.txt", "report.html", "summary.json"], names
+
+
+def test_a_missing_or_changed_product_reruns_its_step(sequence, tmp_path):
+    """Every file a step wrote is in the ledger: figures and ECSV twins too."""
+    import json
+    plan = write_plan(sequence, steps=("inspect", "align", "subtract", "detect"))
+    out = tmp_path / "run"
+    r = gloam("run", plan, "--out", out)
+    assert r.returncode == 0, r.stderr
+    led = json.loads((out / "ledger.json").read_text())["steps"]
+    det = {Path(p).name for p in led["detect"]["products"]}
+    assert {"detect.snr.fits", "detect.snr.png", "detect.candidates.csv",
+            "detect.candidates.ecsv", "detect.candidates.fits"} <= det, det
+    assert {"aligned.fits", "star-positions.csv", "star-positions.ecsv", "angles.txt"} <= {
+        Path(p).name for p in led["align"]["products"]}
+    assert all(Path(p).name not in ("log.txt", "ledger.json", "summary.json", "report.html")
+               for s in led.values() for p in s["products"])
+    (out / "detect.snr.png").unlink()
+    r = gloam("run", plan, "--out", out)
+    assert r.returncode == 0, r.stderr
+    s = json.loads((out / "summary.json").read_text())
+    assert [s["steps"][k]["state"] for k in ("inspect", "align", "subtract", "detect")] == [
+        "unchanged", "unchanged", "unchanged", "ran"]
+    assert (out / "detect.snr.png").exists()
+    (out / "star-positions.ecsv").write_text("# edited\n")
+    r = gloam("run", plan, "--out", out)
+    assert r.returncode == 0, r.stderr
+    s = json.loads((out / "summary.json").read_text())
+    assert s["steps"]["align"]["state"] == "ran" and s["steps"]["inspect"]["state"] == "unchanged"
+    assert (out / "star-positions.ecsv").read_text() != "# edited\n"
+
+
+def test_option_values_are_checked_before_anything_runs(sequence, tmp_path):
+    """Each step's command line is parsed by its own command first: a bad value
+    is one line naming the plan's line, section and key, and nothing is written."""
+    cases = [
+        ("method = pca", "method = klip-ringz",
+         "[subtract] method = klip-ringz: --method: 'klip-ringz' is not"),
+        ("modes = 3,6", "modes = 3,x", "[subtract] modes = 3,x: --modes:"),
+        ("[limits]\nfake-runs = 1", "[limits]\nfake-runs = many", "[limits] fake-runs = many:"),
+        ("[detect]\nmask-radius = 4", "[detect]\nmask-rad = 4",
+         "'mask-rad' in [detect] is not an option of gloam detect"),  # no abbreviations
+    ]
+    for old, new, message in cases:
+        plan = write_plan(sequence, name="bad.ini", modes="3,6")
+        text = plan.read_text()
+        assert old in text, old
+        plan.write_text(text.replace(old, new))
+        out = tmp_path / "never"
+        r = gloam("run", plan, "--out", out)
+        assert r.returncode == 1, (new, r.stderr)
+        lines = r.stderr.strip().splitlines()
+        assert len(lines) == 1 and "bad.ini:" in lines[0] and message in lines[0], (new, r.stderr)
+        assert not out.exists()
+        r = gloam("run", plan, "--dry-run")
+        assert r.returncode == 1 and message in r.stderr
+
+
+def test_figures_are_titled_with_the_target(sequence, tmp_path):
+    plan = write_plan(sequence)
+    r = gloam("run", plan, "--dry-run")
+    assert r.returncode == 0, r.stderr
+    for step in ("detect", "limits"):
+        line = next(x for x in r.stderr.splitlines() if f" gloam {step} " in x)
+        assert "--title Tarn-12" in line, line
+
+
 # ---- gloam survey ----------------------------------------------------------------
 
 SURVEY_PLAN = """[run]
@@ -428,6 +525,8 @@ def test_survey_serial_writes_one_row_and_one_report_per_target(survey, tmp_path
     assert r.returncode == 0, r.stderr
     rows = list(csv.DictReader((out / "survey.csv").open()))
     assert [row["target"] for row in rows] == ["Orlen-7", "Tarn-12"]  # the folders, sorted
+    for name in ("Orlen-7", "Tarn-12"):  # process 0 logs every target's outcome
+        assert f"target {name}: done, run folder {out}/{name}" in r.stderr, r.stderr
     import json
     from astropy.io import fits
     for row in rows:
