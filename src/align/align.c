@@ -513,41 +513,6 @@ cleanup:
     return st;
 }
 
-/* Whether the centring is uncertain: an absolute centre that rests on the
- * halo's symmetry alone, a typical error above 0.1 px (common practice: a
- * tenth of a pixel is where centring starts to cost contrast at a few
- * lambda/D), or an error above the pointing motion itself. */
-static void judge_uncertain(gl_centre_assessment *a)
-{
-    double e = hypot(a->err[0], a->err[1]) / sqrt(2.0);
-    a->uncertain = a->symmetry_only || (isfinite(e) && e > 0.1) ||
-                   (a->assessed && isfinite(e) && e > 0.05 && e > a->motion);
-}
-
-/* The warnings behind judge_uncertain, logged once the product is made (an
- * error stays one line). */
-static void warn_uncertain(const char *name, const gl_align_result *r,
-                           const gl_centre_assessment *a)
-{
-    double e = hypot(a->err[0], a->err[1]) / sqrt(2.0);
-    if (a->symmetry_only)
-        gl_log(GL_LOG_WARN,
-               "%s: no satellite spots used and no unsaturated core (a coronagraph without "
-               "spots?): the absolute centre is only as good as the point symmetry of the halo, "
-               "which no comparison of methods can check",
-               name);
-    if (isfinite(e) && e > 0.1)
-        gl_log(GL_LOG_WARN,
-               "%s: centring uncertain: the %s centres are off by %.2f px (x) and %.2f px (y) "
-               "per frame (median reported error)",
-               name, gl_centre_method_name(r->method), a->err[0], a->err[1]);
-    if (a->assessed && isfinite(e) && e > 0.05 && e > a->motion)
-        gl_log(GL_LOG_WARN,
-               "%s: the centring error (%.2f px) exceeds the pointing motion (%.2f px rms): "
-               "the alignment does not follow the star better than leaving the frames alone",
-               name, e, a->motion);
-}
-
 /* Centres every frame with the method asked for, or with the automatic
  * choice and its fallbacks: a method that keeps fewer than half of the
  * frames (no centre, or a centre that jumps away from the others) has not
@@ -639,7 +604,7 @@ static gl_status centre_frames(const gl_align_stack *s, const gl_align_params *p
     if (!st)
         st = compare_methods(s, p, r, a);
     if (!st)
-        judge_uncertain(a);
+        gl_centre_judge(a);
     return st;
 }
 
@@ -744,7 +709,7 @@ gl_status gl_align_run(gl_cube *cube, const double *angles, const char *name,
         gl_log(GL_LOG_INFO, "%ld of %ld frames kept", r->nkept, nf);
     st = assemble(cube, p, name, angles, &assessment, r);
     if (!st)
-        warn_uncertain(name, r, &assessment);
+        gl_centre_warn(name, r, &assessment);
 
 cleanup:
     if (owned)

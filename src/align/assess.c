@@ -18,6 +18,7 @@
  * gsl_multifit_wlinear_tsvd), iterated with weights from the fitted model;
  * a negative variance is fixed at zero and the rest refitted (an active set);
  * a variance so fixed gets half of the smallest pair variance it enters.
+ * Also the judgement of the result (uncertain or not) and its warnings.
  * Assumption: the estimates' errors are uncorrelated with each other and
  * with the pointing motion. A systematic shared by all of them (a halo
  * asymmetric about the star in every frame) is invisible to the hat.
@@ -141,4 +142,38 @@ cleanup:
     gsl_vector_free(y);
     gsl_matrix_free(X);
     return st;
+}
+
+/* Whether the centring is uncertain: an absolute centre that rests on the
+ * halo's symmetry alone, a typical error above 0.1 px (common practice: a
+ * tenth of a pixel is where centring starts to cost contrast at a few
+ * lambda/D), or an error above the pointing motion itself. */
+void gl_centre_judge(gl_centre_assessment *a)
+{
+    double e = hypot(a->err[0], a->err[1]) / sqrt(2.0);
+    a->uncertain = a->symmetry_only || (isfinite(e) && e > 0.1) ||
+                   (a->assessed && isfinite(e) && e > 0.05 && e > a->motion);
+}
+
+/* The warnings behind judge_uncertain, logged once the product is made (an
+ * error stays one line). */
+void gl_centre_warn(const char *name, const gl_align_result *r, const gl_centre_assessment *a)
+{
+    double e = hypot(a->err[0], a->err[1]) / sqrt(2.0);
+    if (a->symmetry_only)
+        gl_log(GL_LOG_WARN,
+               "%s: no satellite spots used and no unsaturated core (a coronagraph without "
+               "spots?): the absolute centre is only as good as the point symmetry of the halo, "
+               "which no comparison of methods can check",
+               name);
+    if (isfinite(e) && e > 0.1)
+        gl_log(GL_LOG_WARN,
+               "%s: centring uncertain: the %s centres are off by %.2f px (x) and %.2f px (y) "
+               "per frame (median reported error)",
+               name, gl_centre_method_name(r->method), a->err[0], a->err[1]);
+    if (a->assessed && isfinite(e) && e > 0.05 && e > a->motion)
+        gl_log(GL_LOG_WARN,
+               "%s: the centring error (%.2f px) exceeds the pointing motion (%.2f px rms): "
+               "the alignment does not follow the star better than leaving the frames alone",
+               name, e, a->motion);
 }

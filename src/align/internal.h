@@ -76,6 +76,12 @@ typedef struct gl_centre_assessment {
     char compared[256]; /* "halo 0.69/0.71 px, reference 0.07/0.08 px" */
 } gl_centre_assessment;
 
+/* Sets a->uncertain: an absolute centre resting on the halo's symmetry
+ * alone, a typical error above 0.1 px, or one above the pointing motion. */
+void gl_centre_judge(gl_centre_assessment *a);
+/* Logs the warnings behind a->uncertain for the input `name`. */
+void gl_centre_warn(const char *name, const gl_align_result *r, const gl_centre_assessment *a);
+
 /* The DFT upsampling factor of a registration precision in pixels
  * (1 / precision, rounded, within [1, 1000]). */
 static inline int gl_align_upsample(const gl_align_params *p)
