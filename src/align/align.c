@@ -135,7 +135,7 @@ static gl_status shift_frames(gl_cube *c, const gl_align_params *p, const double
 
 /* Kept frames, binned and cropped, into a new cube; angles averaged. */
 static gl_status assemble(const gl_cube *c, const gl_align_params *p, const char *name,
-                          const double *angles, gl_align_result *r)
+                          const double *angles, const gl_centre_assessment *a, gl_align_result *r)
 {
     long cs_x = p->crop > 0 ? p->crop : c->nx, cs_y = p->crop > 0 ? p->crop : c->ny;
     long x0 = c->nx / 2 - cs_x / 2, y0 = c->ny / 2 - cs_y / 2;
@@ -238,6 +238,24 @@ static gl_status assemble(const gl_cube *c, const gl_align_params *p, const char
                       "[pix] registration / symmetry precision");
     if (r->method_note[0])
         gl_header_add_history(h, r->method_note);
+    if (isfinite(a->err[0]) && isfinite(a->err[1])) {
+        gl_header_set_dbl(h, "GLALERRX", a->err[0], "[pix] median centring error, x");
+        gl_header_set_dbl(h, "GLALERRY", a->err[1], "[pix] median centring error, y");
+    }
+    if (a->assessed) {
+        gl_header_set_dbl(h, "GLALMOTN", a->motion, "[pix] pointing motion rms per axis");
+        char line[320];
+        snprintf(line, sizeof line, "gloam align: centring errors by method (x/y): %s",
+                 a->compared);
+        gl_header_add_history(h, line);
+    }
+    gl_header_set_bool(h, "GLALUNCE", a->uncertain, "centring uncertain (see HISTORY)");
+    if (a->symmetry_only)
+        gl_header_add_history(h, "gloam align: no satellite spots and no unsaturated core: the "
+                                 "absolute centre is only as good as the halo's point symmetry");
+    if (a->uncertain)
+        gl_header_add_history(h, "gloam align: centring uncertain: check GLALERRX/GLALERRY and "
+                                 "the star table");
     gl_header_set_str(h, "GLALINTP", gl_interp_name(p->interp), "sub-pixel shift interpolator");
     gl_header_set_int(h, "GLALNIN", c->nframe, "frames in the input");
     gl_header_set_int(h, "GLALNKEP", r->nkept, "frames kept");
@@ -313,6 +331,188 @@ static gl_status reject_jumps(const gl_align_stack *s, const gl_align_params *p,
     return GL_OK;
 }
 
+/* Median of the finite values of v (n values; reorders a copy in w). */
+static double median_finite(const double *v, long n, double *w)
+{
+    long m = 0;
+    for (long i = 0; i < n; i++)
+        if (isfinite(v[i]))
+            w[m++] = v[i];
+    return gl_median_d(w, m);
+}
+
+/* The other centring estimates of every frame (halo, reference, and core
+ * when the reference shows an unsaturated core: on a coronagraphic image a
+ * core fit catches any speckle and estimates nothing),
+ * compared with the chosen one by the N-cornered hat (assess.c) together with
+ * the fixed pointing: each method's frame-to-frame error per axis, and the
+ * pointing motion. The reference method's single absolute centre gets the
+ * standard error of the mean of the per-frame halo-minus-registration
+ * differences (single-frame absolute centres scatter by their spread; their
+ * mean by that over sqrt(n)). With auto, a method whose error is under 2/3
+ * of the chosen one's, when that is above 0.05 px, replaces it. The reported
+ * x_err, y_err are the quadrature sum of the method's formal per-frame error,
+ * the hat's error and the absolute-centre error. Satellite spots are left
+ * out: without spots to lock on, the other methods follow the coronagraph's
+ * axis as much as the star, errors correlated with the motion that the hat
+ * cannot separate (their own errors add the spots' geometric residual,
+ * measure_spots). */
+static gl_status compare_methods(const gl_align_stack *s, const gl_align_params *p,
+                                 gl_align_result *r, gl_centre_assessment *a)
+{
+    enum { NM = 4, NV = 5 };
+    long nf = s->nframe;
+    gl_centre_method list[NM] = {r->method};
+    int nm = 1, usable[NM] = {1};
+    const gl_centre_method others[3] = {GL_CENTRE_HALO, GL_CENTRE_REFERENCE, GL_CENTRE_CORE};
+    int core = gl_star_core_visible(s, p);
+    for (int k = 0; k < 3; k++)
+        if (others[k] != r->method && (others[k] != GL_CENTRE_CORE || core))
+            list[nm++] = others[k];
+    double *v = gl_malloc((size_t)nf * NV * NM * sizeof *v), *w = gl_malloc((size_t)nf * sizeof *w);
+    int *ok = gl_malloc((size_t)nf * (NM + 1) * sizeof *ok), *mask = ok + (size_t)nf * NM;
+    gl_status st = GL_OK;
+    memset(a, 0, sizeof *a);
+    a->err[0] = a->err[1] = a->motion = NAN;
+    a->symmetry_only = (r->method == GL_CENTRE_HALO || r->method == GL_CENTRE_REFERENCE) && !core;
+    if (!v || !w || !ok) {
+        st = gl_error_nomem("centring comparison");
+        goto cleanup;
+    }
+    if (r->method == GL_CENTRE_SPOTS)
+        goto cleanup;
+#define COL(k, j) (v + ((size_t)(k)*NV + (j)) * (size_t)nf)
+    memcpy(COL(0, 0), r->x, (size_t)nf * sizeof *v);
+    memcpy(COL(0, 1), r->y, (size_t)nf * sizeof *v);
+    memcpy(COL(0, 2), r->err_x, (size_t)nf * sizeof *v);
+    memcpy(COL(0, 3), r->err_y, (size_t)nf * sizeof *v);
+    memcpy(COL(0, 4), r->quality, (size_t)nf * sizeof *v);
+    long nkept = 0;
+    for (long f = 0; f < nf; f++) {
+        ok[f] = r->status[f] == GL_FRAME_KEPT;
+        nkept += ok[f];
+    }
+    for (int k = 1; k < nm; k++) {
+        gl_centres c = {COL(k, 0), COL(k, 1), COL(k, 2), COL(k, 3), COL(k, 4), ok + (size_t)k * nf};
+        st = gl_centre_ops_get(list[k])->measure(s, p, &c);
+        if (st == GL_ERR_INPUT) {
+            gl_error_clear();
+            st = GL_OK;
+            usable[k] = 0;
+            continue;
+        }
+        if (st)
+            goto cleanup;
+        long n = 0;
+        for (long f = 0; f < nf; f++)
+            n += ok[f] && c.ok[f];
+        /* a method that loses frames would shrink the comparison */
+        usable[k] = n >= nkept - nkept / 10;
+    }
+    int nest = 0, idx[NM];
+    long nmask = 0;
+    for (long f = 0; f < nf; f++) {
+        mask[f] = ok[f];
+        for (int k = 1; k < nm; k++)
+            if (usable[k] && !ok[(size_t)k * nf + f])
+                mask[f] = 0;
+        nmask += mask[f];
+    }
+    for (int k = 0; k < nm; k++)
+        if (usable[k])
+            idx[nest++] = k;
+    if (nest < 2 || nmask < 5) {
+        gl_log(GL_LOG_INFO, "centring error: no second method to compare with on enough "
+                            "frames; the errors are the method's own");
+        goto cleanup;
+    }
+    double var[2][NM + 1], absv[2][NM] = {{0}};
+    for (int ax = 0; ax < 2; ax++) {
+        const double *est[NM + 1];
+        for (int i = 0; i < nest; i++)
+            est[i] = COL(idx[i], ax);
+        est[nest] = NULL; /* the fixed pointing */
+        if ((st = gl_centre_hat(nest + 1, nf, est, mask, var[ax])))
+            goto cleanup;
+        /* the registration's single absolute centre, checked by the halo */
+        int ih = -1, ir = -1;
+        for (int i = 0; i < nest; i++) {
+            ih = list[idx[i]] == GL_CENTRE_HALO ? i : ih;
+            ir = list[idx[i]] == GL_CENTRE_REFERENCE ? i : ir;
+        }
+        if (ih >= 0 && ir >= 0) {
+            double sm = 0, s2 = 0;
+            for (long f = 0; f < nf; f++)
+                if (mask[f])
+                    sm += est[ih][f] - est[ir][f];
+            sm /= (double)nmask;
+            for (long f = 0; f < nf; f++)
+                if (mask[f])
+                    s2 += pow(est[ih][f] - est[ir][f] - sm, 2);
+            absv[ax][ir] = s2 / (double)(nmask - 1) / (double)nmask;
+        }
+    }
+    /* choice: total error variance of each method over both axes */
+    int best = 0;
+    double tot[NM];
+    for (int i = 0; i < nest; i++) {
+        tot[i] = var[0][i] + var[1][i] + absv[0][i] + absv[1][i];
+        if (tot[i] < tot[best])
+            best = i;
+        snprintf(a->compared + strlen(a->compared), sizeof a->compared - strlen(a->compared),
+                 "%s%s %.3f/%.3f px", i ? ", " : "", gl_centre_method_name(list[idx[i]]),
+                 sqrt(var[0][i] + absv[0][i]), sqrt(var[1][i] + absv[1][i]));
+    }
+    a->assessed = 1;
+    a->motion = sqrt(0.5 * (var[0][nest] + var[1][nest]));
+    gl_log(GL_LOG_INFO,
+           "centring error per frame (x/y), from the comparison of %d methods and the fixed "
+           "pointing (N-cornered hat): %s; pointing motion %.3f px rms",
+           nest, a->compared, a->motion);
+    if (best != 0 && p->method == GL_CENTRE_AUTO && tot[best] < tot[0] / 2.25 &&
+        sqrt(0.5 * tot[0]) > 0.05) {
+        int k = idx[best];
+        gl_log(GL_LOG_INFO,
+               "centring method: %s, chosen because its error (%.3f px) is under that of %s "
+               "(%.3f px) in the comparison above",
+               gl_centre_method_name(list[k]), sqrt(0.5 * tot[best]),
+               gl_centre_method_name(r->method), sqrt(0.5 * tot[0]));
+        memcpy(r->x, COL(k, 0), (size_t)nf * sizeof *v);
+        memcpy(r->y, COL(k, 1), (size_t)nf * sizeof *v);
+        memcpy(r->err_x, COL(k, 2), (size_t)nf * sizeof *v);
+        memcpy(r->err_y, COL(k, 3), (size_t)nf * sizeof *v);
+        memcpy(r->quality, COL(k, 4), (size_t)nf * sizeof *v);
+        for (long f = 0; f < nf; f++)
+            if (r->status[f] == GL_FRAME_KEPT && !ok[(size_t)k * nf + f])
+                r->status[f] = GL_FRAME_NO_CENTRE;
+        r->method = list[k];
+        double mx, my;
+        if ((st = reject_jumps(s, p, r, nf, &mx, &my)))
+            goto cleanup;
+        a->symmetry_only =
+            (r->method == GL_CENTRE_HALO || r->method == GL_CENTRE_REFERENCE) && !core;
+    } else {
+        best = 0;
+    }
+    for (int ax = 0; ax < 2; ax++) {
+        double *e = ax ? r->err_y : r->err_x;
+        for (long f = 0; f < nf; f++)
+            e[f] = isfinite(r->x[f])
+                       ? sqrt((isfinite(e[f]) ? e[f] * e[f] : 0.0) + var[ax][best] + absv[ax][best])
+                       : NAN;
+    }
+#undef COL
+cleanup:
+    if (w) {
+        a->err[0] = median_finite(r->err_x, nf, w);
+        a->err[1] = median_finite(r->err_y, nf, w);
+    }
+    gl_free(v);
+    gl_free(w);
+    gl_free(ok);
+    return st;
+}
+
 /* Centres every frame with the method asked for, or with the automatic
  * choice and its fallbacks: a method that keeps fewer than half of the
  * frames (no centre, or a centre that jumps away from the others) has not
@@ -320,7 +520,7 @@ static gl_status reject_jumps(const gl_align_stack *s, const gl_align_params *p,
  * (a method asked for). Fills r->x, y, err_x, err_y, quality, status and
  * r->method. */
 static gl_status centre_frames(const gl_align_stack *s, const gl_align_params *p, const char *name,
-                               gl_align_result *r)
+                               gl_align_result *r, gl_centre_assessment *a)
 {
     long nf = s->nframe;
     int tried[GL_CENTRE_NMETHODS] = {0};
@@ -401,6 +601,10 @@ static gl_status centre_frames(const gl_align_stack *s, const gl_align_params *p
                  "gloam align: centring fell back to %s (%s)", gl_centre_method_name(r->method),
                  left);
     gl_free(ok);
+    if (!st)
+        st = compare_methods(s, p, r, a);
+    if (!st)
+        gl_centre_judge(a);
     return st;
 }
 
@@ -477,7 +681,8 @@ gl_status gl_align_run(gl_cube *cube, const double *angles, const char *name,
     if ((st = gl_sharp_reference(&stack, p, sharp)))
         goto cleanup;
     stack.sharp = sharp;
-    if ((st = centre_frames(&stack, p, name, r)))
+    gl_centre_assessment assessment;
+    if ((st = centre_frames(&stack, p, name, r, &assessment)))
         goto cleanup;
     if ((st = shift_frames(cube, p, r->x, r->y, r->status)))
         goto cleanup;
@@ -502,7 +707,9 @@ gl_status gl_align_run(gl_cube *cube, const double *angles, const char *name,
     }
     if (r->nkept < nf)
         gl_log(GL_LOG_INFO, "%ld of %ld frames kept", r->nkept, nf);
-    st = assemble(cube, p, name, angles, r);
+    st = assemble(cube, p, name, angles, &assessment, r);
+    if (!st)
+        gl_centre_warn(name, r, &assessment);
 
 cleanup:
     if (owned)

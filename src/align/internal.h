@@ -52,6 +52,36 @@ gl_status gl_sharp_reference(const gl_align_stack *s, const gl_align_params *p, 
 gl_centre_method gl_centre_auto(const gl_align_stack *s, const gl_align_params *p, const int *tried,
                                 char *reason, size_t size);
 
+/* 1 when the sharp reference shows an unsaturated compact star near its
+ * centre of symmetry (the core a fit can use), 0 for a saturated or
+ * coronagraphic image (methods.c). */
+int gl_star_core_visible(const gl_align_stack *s, const gl_align_params *p);
+
+/* ---- assessment of the centring (assess.c) ------------------------------ */
+
+/* N-cornered hat: est[0..nest-1] are nf-frame estimates of one coordinate
+ * (NULL: the fixed pointing, all zero); frames with mask set are compared.
+ * var[k] gets the error variance of estimate k (>= 0). 3 <= nest <= 8.
+ * GL_ERR_INPUT with fewer than 3 frames. */
+gl_status gl_centre_hat(int nest, long nf, const double *const *est, const int *mask, double *var);
+
+/* What the comparison of methods found, for the log and the header. */
+typedef struct gl_centre_assessment {
+    int assessed;       /* 0: no second method to compare with, or spots */
+    int symmetry_only;  /* no spots, no visible core: the absolute centre rests on
+                           the halo's point symmetry */
+    int uncertain;      /* typical error above 0.1 px, or above the motion */
+    double err[2];      /* median reported error per axis, px */
+    double motion;      /* pointing motion rms per axis, px (fixed pointing's error) */
+    char compared[256]; /* "halo 0.69/0.71 px, reference 0.07/0.08 px" */
+} gl_centre_assessment;
+
+/* Sets a->uncertain: an absolute centre resting on the halo's symmetry
+ * alone, a typical error above 0.1 px, or one above the pointing motion. */
+void gl_centre_judge(gl_centre_assessment *a);
+/* Logs the warnings behind a->uncertain for the input `name`. */
+void gl_centre_warn(const char *name, const gl_align_result *r, const gl_centre_assessment *a);
+
 /* The DFT upsampling factor of a registration precision in pixels
  * (1 / precision, rounded, within [1, 1000]). */
 static inline int gl_align_upsample(const gl_align_params *p)

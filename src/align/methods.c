@@ -103,6 +103,19 @@ static int compact_star(const float *img, long nx, long ny, const gl_align_param
     return nflat <= 2;
 }
 
+int gl_star_core_visible(const gl_align_stack *s, const gl_align_params *p)
+{
+    gl_profile_fit fit;
+    double sx, sy;
+    int ok = compact_star(s->sharp, s->nx, s->ny, p, &fit);
+    if (ok &&
+        gl_align_symmetry_centre(s->sharp, s->nx, s->ny, gl_align_upsample(p), &sx, &sy) == GL_OK &&
+        hypot(fit.x - sx, fit.y - sy) > 3 * GL_MAX(fit.fwhm, 1.0))
+        ok = 0;
+    gl_error_clear();
+    return ok;
+}
+
 /* ---- registration ------------------------------------------------------- */
 
 /* A sharp reference: up to 64 frames spread over the sequence, registered to
@@ -317,10 +330,6 @@ static gl_status measure_spots(const gl_align_stack *s, const gl_align_params *p
                     guess.y[k] -= dy;
                 }
                 if (gl_align_spots_refit(img, s->nx, s->ny, &guess, p->spot_search, &sp) == GL_OK) {
-                    c->x[f] = sp.cx;
-                    c->y[f] = sp.cy;
-                    c->err_x[f] = sp.err_cx;
-                    c->err_y[f] = sp.err_cy;
                     /* relative spread of the four spot distances from the centre */
                     double r[4], m = 0, v = 0;
                     for (int k = 0; k < 4; k++) {
@@ -330,6 +339,21 @@ static gl_status measure_spots(const gl_align_stack *s, const gl_align_params *p
                     for (int k = 0; k < 4; k++)
                         v += (r[k] - m) * (r[k] - m) / 3;
                     c->quality[f] = sqrt(v) / m;
+                    /* the fits' errors miss what displaces the spots (speckles
+                     * under them): the two diagonals' midpoints, two
+                     * independent centres, then disagree. Their difference d
+                     * has twice the variance of each, four times that of
+                     * their mean: |d| / 2 per axis (the x and y parts pooled,
+                     * 2 degrees of freedom per frame). A radial bias common to
+                     * the four spots (the halo's slope) moves no midpoint and
+                     * no centre. */
+                    double dx = 0.5 * (sp.x[0] + sp.x[2] - sp.x[1] - sp.x[3]);
+                    double dy = 0.5 * (sp.y[0] + sp.y[2] - sp.y[1] - sp.y[3]);
+                    double closure = 0.5 * sqrt(0.5 * (dx * dx + dy * dy));
+                    c->x[f] = sp.cx;
+                    c->y[f] = sp.cy;
+                    c->err_x[f] = hypot(sp.err_cx, closure);
+                    c->err_y[f] = hypot(sp.err_cy, closure);
                     c->ok[f] = isfinite(sp.cx) && isfinite(sp.cy);
                 }
             }
