@@ -438,9 +438,9 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
 
     /* throughput and completeness on the grid, from the fakes around each
      * separation: every point on its own (static schedule, one thread per
-     * point: the same numbers at any thread count) */
+     * point, interleaved: the same numbers at any thread count) */
     gsl_set_error_handler_off();
-#pragma omp parallel for schedule(static)
+#pragma omp parallel for schedule(static, 1)
     for (long ki = 0; ki < (long)np * n; ki++) {
         int k = (int)(ki / n);
         long i = ki % n;
