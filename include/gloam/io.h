@@ -154,6 +154,10 @@ GL_API void gl_provenance_add_observation(gl_provenance *p, const gl_header *h);
 /* Adds an input file and its CRC-32 (silently ignores more than 16). */
 GL_API gl_status gl_provenance_add_input(gl_provenance *p, const char *path);
 
+/* The same with the CRC-32 already computed (gl_file_crc32), for a caller
+ * that computes it beside the read of the file. */
+GL_API void gl_provenance_add_input_crc(gl_provenance *p, const char *path, unsigned long crc);
+
 /* ---- writing ----------------------------------------------------------- */
 
 /* A set of products written together: each file goes to a temporary name in

@@ -252,19 +252,33 @@ void gl_provenance_add_observation(gl_provenance *p, const gl_header *h)
     p->has_obs = 1;
 }
 
-gl_status gl_provenance_add_input(gl_provenance *p, const char *path)
+/* Whether path is already listed, or the list is full. */
+static int provenance_has(const gl_provenance *p, const char *path)
 {
     if (p->ninputs >= 16)
-        return GL_OK;
+        return 1;
     for (int i = 0; i < p->ninputs; i++)
         if (strcmp(p->inputs[i], path) == 0) /* read twice: listed once */
-            return GL_OK;
-    unsigned long crc = 0;
-    gl_status st = gl_file_crc32(path, &crc);
-    if (st)
-        return st;
+            return 1;
+    return 0;
+}
+
+void gl_provenance_add_input_crc(gl_provenance *p, const char *path, unsigned long crc)
+{
+    if (provenance_has(p, path))
+        return;
     p->inputs[p->ninputs] = path;
     p->crc32[p->ninputs] = crc;
     p->ninputs++;
-    return GL_OK;
+}
+
+gl_status gl_provenance_add_input(gl_provenance *p, const char *path)
+{
+    if (provenance_has(p, path))
+        return GL_OK;
+    unsigned long crc = 0;
+    gl_status st = gl_file_crc32(path, &crc);
+    if (!st)
+        gl_provenance_add_input_crc(p, path, crc);
+    return st;
 }
