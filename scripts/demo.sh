@@ -68,7 +68,7 @@ cut -d, -f1-5,12,13,30,31 "$out/klip.vet.csv" | sed 's/,/\t/g'
 echo
 echo "products in $out/: aligned.fits, starpos.csv, klip.fits (north-up, one plane per mode count), klip.snr.fits"
 echo "and klip.snr.png (S/N maps), klip.candidates.csv, klip5.limits.csv/.png/.svg"
-echo "(contrast curve; the real companions in the field raise the noise at 16 and 31 px),"
+echo "(contrast curve; the two candidates are left out of its noise estimate and kept away from its fakes),"
 echo "klip.vet.csv/.fits/.reg and klip.vet-N.png/.svg (position, contrast and tests of each candidate)"
 
 echo
