@@ -170,6 +170,12 @@ GL_API gl_status gl_outset_new(int overwrite, gl_outset **out);
  * Errors: GL_ERR_EXISTS, GL_ERR_IO, GL_ERR_USAGE (output equals an input). */
 GL_API gl_status gl_outset_add(gl_outset *s, const char *path, const gl_provenance *prov,
                                const char **tmp_path);
+/* The folder rule of every product (gl_outset_add, and the folders simulate
+ * and run create): GL_OK when dir is an existing folder; else GL_ERR_IO with
+ * a message naming path and either the part of dir that is a file ("PATH:
+ * some.txt is a file, not a folder") or the missing folder ("PATH: the
+ * output folder DIR does not exist"); GL_ERR_NOMEM. */
+GL_API gl_status gl_outset_folder_check(const char *path, const char *dir);
 /* Rewrites the last error message so that it names products, not the
  * temporary names gl_outset_add handed out for them (in this process);
  * returns st. The CLI calls it before printing any error. */

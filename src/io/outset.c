@@ -114,12 +114,34 @@ static gl_status check_destination(const gl_outset *s, const char *path, const g
     if (!copy)
         return gl_error_nomem("output path");
     char *dir = dirname(copy);
-    gl_status st = GL_OK;
-    if (stat(dir, &sb) != 0 || !S_ISDIR(sb.st_mode))
-        st = gl_error_set(GL_ERR_IO, "%s: the output folder %s does not exist", path, dir);
-    else if (access(dir, W_OK | X_OK) != 0)
+    gl_status st = gl_outset_folder_check(path, dir);
+    if (!st && access(dir, W_OK | X_OK) != 0)
         st = gl_error_set(GL_ERR_IO, "%s: folder %s is not writable", path, dir);
     gl_free(copy);
+    return st;
+}
+
+gl_status gl_outset_folder_check(const char *path, const char *dir)
+{
+    struct stat sb;
+    if (stat(dir, &sb) == 0 && S_ISDIR(sb.st_mode))
+        return GL_OK;
+    /* missing, or it (or a folder above it) is a file: find the nearest
+     * part of the path that exists, and name it when it is a file */
+    char *up = gl_strdup(dir);
+    gl_status st = GL_OK;
+    while (up && stat(up, &sb) != 0 && strcmp(up, ".") != 0 && strcmp(up, "/") != 0) {
+        char *parent = gl_strdup(dirname(up));
+        gl_free(up);
+        up = parent;
+    }
+    if (!up)
+        st = gl_error_nomem("output path");
+    else if (stat(up, &sb) == 0 && !S_ISDIR(sb.st_mode))
+        st = gl_error_set(GL_ERR_IO, "%s: %s is a file, not a folder", path, up);
+    else
+        st = gl_error_set(GL_ERR_IO, "%s: the output folder %s does not exist", path, dir);
+    gl_free(up);
     return st;
 }
 

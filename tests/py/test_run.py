@@ -356,7 +356,8 @@ def test_a_failed_step_is_reported_and_the_run_stops(sequence, tmp_path):
     assert s["steps"]["align"]["state"] == "ran"
     # like every product, a run folder needs its parent folder
     r = gloam("run", plan, "--out", tmp_path / "no" / "such")
-    assert r.returncode == 1 and "its parent folder does not exist" in r.stderr
+    assert r.returncode == 1 and "the output folder" in r.stderr
+    assert str(tmp_path / "no") in r.stderr and "does not exist" in r.stderr
     assert not (tmp_path / "no").exists()
 
 

@@ -213,3 +213,38 @@ def test_missing_output_folder_is_named(sim, tmp_path, cmd):
     assert str(missing) in lines[0] and "does not exist" in lines[0], lines[0]
     assert ".tmp-" not in lines[0]
     assert os.listdir(tmp_path) == []
+
+
+@pytest.mark.parametrize("cmd", [
+    ["align", "{cube}", "--out", "{file}/a.fits"],
+    ["subtract", "{cube}", "--angles", "{angles}", "--fwhm", "4", "--out", "{file}/s.fits"],
+    ["subtract", "{cube}", "--angles", "{angles}", "--fwhm", "4", "--out", "{file}/"],
+    ["subtract", "{cube}", "--angles", "{angles}", "--fwhm", "4", "--out", "{file}/sub/s.fits"],
+    ["detect", "{cube}", "--fwhm", "4", "--out", "{file}/d"],
+    ["inject", "{cube}", "--angles", "{angles}", "--psf", "{psf}", "--companion", "10:0:1e-3",
+     "--out", "{file}/i.fits"],
+    ["limits", "{cube}", "--angles", "{angles}", "--psf", "{psf}", "--fwhm", "4", "--out",
+     "{file}/l"],
+    ["simulate", "{file}/dir", "--frames", "3", "--size", "32"],
+    ["simulate", "{file}/sub/dir", "--frames", "3", "--size", "32"],
+    ["run", "{plan}", "--out", "{file}/run"],
+])
+def test_output_folder_that_is_a_file_is_named(sim, tmp_path, cmd):
+    """The folder part of --out (or a folder above it) is an existing
+    regular file: the one line says that path is a file, not a folder (not
+    that a folder is missing), exit 1, nothing written, the file untouched."""
+    blocker = tmp_path / "some.txt"
+    blocker.write_text("notes\n")
+    plan = tmp_path / "plan.ini"
+    plan.write_text(f"[inputs]\ncube = {sim / 'cube.fits'}\nangles = {sim / 'angles.txt'}\n"
+                    f"psf = {sim / 'psf.fits'}\nfwhm = 4\n[steps]\nrun = subtract\n")
+    args = [a.format(cube=sim / "cube.fits", angles=sim / "angles.txt", psf=sim / "psf.fits",
+                     file=blocker, plan=plan) for a in cmd]
+    p = gloam(*args, ok=False)
+    assert p.returncode == 1
+    lines = p.stderr.strip().splitlines()
+    assert len(lines) == 1, p.stderr
+    assert f"{blocker} is a file, not a folder" in lines[0], lines[0]
+    assert "does not exist" not in lines[0] and ".tmp-" not in lines[0]
+    assert sorted(os.listdir(tmp_path)) == ["plan.ini", "some.txt"]
+    assert blocker.read_text() == "notes\n"
