@@ -144,8 +144,11 @@ int cmd_subtract(gl_cli *cli, int argc, char **argv)
         (tmp_raw && (st = gl_fits_write_cube(tmp_raw, res.raw_residuals, &cli->prov))) ||
         (st = gl_outset_commit(outs)))
         goto cleanup;
-    gl_log(GL_LOG_INFO, "%s: %s subtraction of %ld frames%s, %ld plane%s, from %.1f px out",
-           out_path, gl_subtract_method_name(pp->method), res.nframes_used,
+    char of[48] = ""; /* frames left out were named in a warning */
+    if (res.nframes_used < cube->nframe)
+        snprintf(of, sizeof of, " of %ld", cube->nframe);
+    gl_log(GL_LOG_INFO, "%s: %s subtraction of %ld%s frames%s, %ld plane%s, from %.1f px out",
+           out_path, gl_subtract_method_name(pp->method), res.nframes_used, of,
            res.nrefs_used ? " with reference frames" : "", res.image->nframe,
            res.image->nframe > 1 ? "s" : "", res.inner_radius);
 
