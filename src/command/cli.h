@@ -179,10 +179,13 @@ int cli_parse_fwhm(const gl_cli *cli, const char *arg, double *out);
  * given): measured on psf_path when given (the PSF's azimuthal profile, the
  * code behind inspect --psf), else read from the header h of product_path
  * where a previous step recorded it (GLSFWHM from subtract, GLFWHM).
- * Errors: GL_ERR_USAGE when neither is there (naming the file), the PSF's
+ * psf_option: 1 when the command has a --psf option (the message then
+ * offers it).
+ * Errors: GL_ERR_USAGE when neither is there (naming the file, saying that
+ * no earlier step recorded one and what to give instead), the PSF's
  * reading errors. */
-gl_status cli_resolve_fwhm(gl_cli *cli, double *fwhm, const char *psf_path, const gl_header *h,
-                           const char *product_path);
+gl_status cli_resolve_fwhm(gl_cli *cli, double *fwhm, const char *psf_path, int psf_option,
+                           const gl_header *h, const char *product_path);
 /* The off-axis PSF measured on its own grid (one channel, scale 1): FWHM,
  * centre, flux; recorded in the provenance. Shared by inspect and
  * cli_resolve_fwhm. */

@@ -151,7 +151,7 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
         goto cleanup;
     }
     gl_provenance_add_observation(&cli->prov, cube->header);
-    if ((st = cli_resolve_fwhm(cli, &par.fwhm, NULL, cube->header, input))) {
+    if ((st = cli_resolve_fwhm(cli, &par.fwhm, NULL, 0, cube->header, input))) {
         rc = cli_fail(cli, st);
         goto cleanup;
     }

@@ -513,8 +513,8 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
     const char **t_png = NULL, **t_svg = NULL;
 
     if ((st = cli_read_cube_angles(cli, cube_path, angles_path, &cube, &angles)) ||
-        (st = cli_resolve_fwhm(cli, &setup.p.fwhm, setup.p.fwhm > 0 ? NULL : psf_path, cube->header,
-                               cube_path)) || /* --fwhm auto */
+        (st = cli_resolve_fwhm(cli, &setup.p.fwhm, setup.p.fwhm > 0 ? NULL : psf_path, 1,
+                               cube->header, cube_path)) || /* --fwhm auto */
         (st = cli_read_input(cli, psf_path, 2, &psfc)) ||
         (st = cli_subtract_prepare(cli, &setup, cube_path, cube, &refs)) ||
         (st = gl_psf_model_new(psfc, psf_path, cube->nx, cube->ny, cube->nchan, o.psf_scale, &psf)))

@@ -307,8 +307,8 @@ gl_status cli_psf_measure(gl_cli *cli, const char *psf_path, gl_psf_model **out)
     return st;
 }
 
-gl_status cli_resolve_fwhm(gl_cli *cli, double *fwhm, const char *psf_path, const gl_header *h,
-                           const char *product_path)
+gl_status cli_resolve_fwhm(gl_cli *cli, double *fwhm, const char *psf_path, int psf_option,
+                           const gl_header *h, const char *product_path)
 {
     static const char *const keys[] = {"GLSFWHM", "GLFWHM"};
     if (*fwhm > 0) {
@@ -336,9 +336,17 @@ gl_status cli_resolve_fwhm(gl_cli *cli, double *fwhm, const char *psf_path, cons
             return GL_OK;
         }
     }
+    if (psf_option)
+        return gl_error_set(GL_ERR_USAGE,
+                            "%s: --fwhm auto: no FWHM to use: no --psf was given to measure it "
+                            "on, and no earlier gloam step recorded one in this file (keyword "
+                            "GLSFWHM or GLFWHM); give --fwhm PX (the PSF's FWHM in pixels) or "
+                            "--psf PSF.fits (the off-axis PSF, measured)",
+                            product_path);
     return gl_error_set(GL_ERR_USAGE,
-                        "%s: --fwhm auto: the file records no FWHM (keyword GLSFWHM, written by "
-                        "gloam subtract) and no --psf was given to measure it; give --fwhm PX",
+                        "%s: --fwhm auto: no FWHM to use: no earlier gloam step recorded one in "
+                        "this file (keyword GLSFWHM or GLFWHM); give --fwhm PX (the PSF's FWHM "
+                        "in pixels; gloam inspect --psf PSF.fits measures it)",
                         product_path);
 }
 
