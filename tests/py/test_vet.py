@@ -201,6 +201,40 @@ def test_products(recovered):
     assert reg.startswith("# Region file format: DS9 version 4.1") and "circle(" in reg
 
 
+def test_log_and_table_agree(recovered, tmp_path):
+    """The log's numbers are the table's, each named: the candidate table's
+    position (table_sep_px, table_pa_deg, equal to what was given), the start
+    of the fit (start_*) and the fit (sep_px, pa_deg, contrast), rounded as
+    printed (0.01 px, 0.01 deg, 3 significant digits)."""
+    import re
+    d = TRIAL_DIRS[6]
+    cands = tmp_path / "c.csv"
+    cands.write_text("sep_px,pa_deg\n10.4,148.7\n")
+    r = ok("vet", f"{d}/cube.fits", "--angles", f"{d}/angles.txt", "--psf", f"{d}/psf.fits",
+           *SUB, "--candidates", cands, "--error-fakes", 2, "--threads", 1, "--out",
+           tmp_path / "v")
+    row = read_csv(tmp_path / "v.vet.csv")[0]
+    assert row["table_sep_px"] == 10.4 and row["table_pa_deg"] == 148.7
+    m = re.search(r"candidate 1: ([\d.]+) px, ([\d.]+) deg in (\S+) \(table_sep_px", r.stderr)
+    assert m and m.group(3) == str(cands), r.stderr
+    assert float(m.group(1)) == round(row["table_sep_px"], 2)
+    assert float(m.group(2)) == round(row["table_pa_deg"], 2)
+    m = re.search(r"start of the fit ([\d.]+) px, ([\d.]+) deg, contrast ([\d.e+-]+):", r.stderr)
+    assert m, r.stderr
+    assert float(m.group(1)) == round(row["start_sep_px"], 2)
+    assert float(m.group(2)) == round(row["start_pa_deg"], 2)
+    assert float(m.group(3)) == float(f"{row['start_contrast']:.3g}")
+    m = re.search(r"fitted sep ([\d.]+) \+- [\d.]+ px, PA ([\d.]+) \+- [\d.]+ deg, "
+                  r"contrast ([\d.e+-]+) ", r.stderr)
+    assert m, r.stderr
+    assert float(m.group(1)) == round(row["sep_px"], 2)
+    assert float(m.group(2)) == round(row["pa_deg"], 2)
+    assert float(m.group(3)) == float(f"{row['contrast']:.3g}")
+    with fits.open(tmp_path / "v.vet.fits") as h:
+        assert h["VET"].columns["table_sep_px"].unit == "pix"
+        assert h["VET"].data["table_pa_deg"][0] == 148.7
+
+
 def apparent_offsets(star, bg, mjds):
     """astropy: the star moved along its space motion, both to the GCRS of
     the date, the background's offset from the star in mas."""
