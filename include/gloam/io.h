@@ -182,6 +182,13 @@ GL_API gl_status gl_outset_folder_check(const char *path, const char *dir);
 GL_API gl_status gl_outset_error_names(gl_status st);
 /* Renames every temporary file into place. */
 GL_API gl_status gl_outset_commit(gl_outset *s);
+/* The products of a set, in the order registered (a CSV's ECSV twin after
+ * it): gl_outset_count gives how many were registered, gl_outset_written
+ * the name of product i when the commit put it in place (NULL before the
+ * commit, and for a CSV twin its writer did not write), so that a command
+ * can list exactly what it wrote. */
+GL_API int gl_outset_count(const gl_outset *s);
+GL_API const char *gl_outset_written(const gl_outset *s, int i);
 /* Deletes uncommitted temporary files and frees the set; NULL is a no-op. */
 GL_API void gl_outset_free(gl_outset *s);
 

@@ -211,6 +211,11 @@ gl_status cli_error_in_file(const char *path, gl_status st);
 const char *cli_output_name(const gl_cli *cli, const char *out, const char *input,
                             const char *suffix, char *buf, size_t size);
 
+/* Logs every product of a committed set, a product and its twins of the
+ * same name on one line ("wrote l.limits.csv (.ecsv, .fits, .png), ...");
+ * what was not written (a CSV without its twin) is not listed. */
+void cli_log_written(const gl_outset *outs);
+
 /* Registers the product PREFIX SUFFIX (an --out prefix, or "DIR" and
  * "/NAME") in outs: the name is written into path[size] (refused with
  * GL_ERR_USAGE when it does not fit) and *tmp gets the temporary name to

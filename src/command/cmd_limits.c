@@ -459,7 +459,7 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
             gl_log(GL_LOG_INFO, "  %6.1f px: throughput %.2f, no contrast reaches 50%% at %g sigma",
                    res.sep_px[i], res.throughput[i], lp.sigma);
     }
-    gl_log(GL_LOG_INFO, "wrote %s (.fits, .png, .svg) and %s", p_csv, p_fakes);
+    cli_log_written(outs);
 
 cleanup:
     gl_outset_free(outs);

@@ -685,8 +685,7 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
         (st = write_regions(t_reg, res, ncand, cube->nx, cube->ny)) ||
         (st = gl_outset_commit(outs)))
         goto cleanup;
-    gl_log(GL_LOG_INFO, "wrote %s (.fits, .reg) and %ld figure%s %s.vet-N.png/.svg", p_csv, ncand,
-           ncand == 1 ? "" : "s", prefix);
+    cli_log_written(outs);
 
 cleanup:
     gl_outset_free(outs);

@@ -426,6 +426,51 @@ gl_status cli_add_product(gl_cli *cli, gl_outset *outs, const char *prefix, cons
     return gl_outset_add(outs, path, &cli->prov, tmp);
 }
 
+/* The length of path without its last extension ("a/b.limits.csv" ->
+ * "a/b.limits"), the key that groups a product with its twins. */
+static size_t product_stem(const char *path)
+{
+    const char *dot = strrchr(path, '.'), *slash = strrchr(path, '/');
+    return dot && (!slash || dot > slash) ? (size_t)(dot - path) : strlen(path);
+}
+
+void cli_log_written(const gl_outset *outs)
+{
+    int n = gl_outset_count(outs);
+    char line[900] = "";
+    size_t len = 0;
+    for (int i = 0; i < n; i++) {
+        const char *p = gl_outset_written(outs, i);
+        size_t stem = p ? product_stem(p) : 0;
+        int seen = 0; /* grouped already with an earlier product of its stem */
+        for (int j = 0; p && j < i && !seen; j++) {
+            const char *q = gl_outset_written(outs, j);
+            seen = q && product_stem(q) == stem && strncmp(p, q, stem) == 0;
+        }
+        if (!p || seen)
+            continue;
+        char group[1200];
+        size_t g = (size_t)snprintf(group, sizeof group, "%s", p);
+        int twins = 0;
+        for (int j = i + 1; j < n && g < sizeof group; j++) {
+            const char *q = gl_outset_written(outs, j);
+            if (q && product_stem(q) == stem && strncmp(p, q, stem) == 0)
+                g += (size_t)snprintf(group + g, sizeof group - g, "%s%s", twins++ ? ", " : " (",
+                                      q + stem);
+        }
+        if (twins && g < sizeof group)
+            snprintf(group + g, sizeof group - g, ")");
+        if (len && len + strlen(group) + 2 >= sizeof line) { /* a long list: more lines */
+            gl_log(GL_LOG_INFO, "wrote %s", line);
+            len = 0;
+            line[0] = '\0';
+        }
+        len += (size_t)snprintf(line + len, sizeof line - len, "%s%s", len ? ", " : "", group);
+    }
+    if (len)
+        gl_log(GL_LOG_INFO, "wrote %s", line);
+}
+
 void cli_deprecated(gl_cli *cli, const char *old, const char *now)
 {
     for (int i = 0; i < cli->nnoted && i < CLI_NOTED; i++)

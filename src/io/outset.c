@@ -64,7 +64,8 @@ gl_status gl_outset_error_names(gl_status st)
 typedef struct outfile {
     char *path;
     char *tmp;
-    int twin; /* the ECSV twin of the CSV product before it */
+    int twin;    /* the ECSV twin of the CSV product before it */
+    int written; /* renamed into place by gl_outset_commit */
 } outfile;
 
 struct gl_outset {
@@ -228,9 +229,20 @@ gl_status gl_outset_commit(gl_outset *s)
                                 strerror(errno));
         gl_free(s->files[i].tmp);
         s->files[i].tmp = NULL;
+        s->files[i].written = 1;
     }
     s->committed = 1;
     return GL_OK;
+}
+
+int gl_outset_count(const gl_outset *s)
+{
+    return s ? s->n : 0;
+}
+
+const char *gl_outset_written(const gl_outset *s, int i)
+{
+    return s && i >= 0 && i < s->n && s->files[i].written ? s->files[i].path : NULL;
 }
 
 void gl_outset_free(gl_outset *s)

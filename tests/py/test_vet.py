@@ -230,6 +230,13 @@ def test_log_and_table_agree(recovered, tmp_path):
     assert float(m.group(1)) == round(row["sep_px"], 2)
     assert float(m.group(2)) == round(row["pa_deg"], 2)
     assert float(m.group(3)) == float(f"{row['contrast']:.3g}")
+    # the log lists every product written (the ECSV twin too), nothing else
+    written = re.search(r"gloam vet: wrote (.*)", r.stderr).group(1)
+    assert written == (f"{tmp_path / 'v.vet.csv'} (.ecsv, .fits, .reg), "
+                       f"{tmp_path / 'v.vet-1.png'} (.svg)"), written
+    assert sorted(os.listdir(tmp_path)) == sorted(
+        ["c.csv", "v.vet.csv", "v.vet.ecsv", "v.vet.fits", "v.vet.reg", "v.vet-1.png",
+         "v.vet-1.svg"])
     with fits.open(tmp_path / "v.vet.fits") as h:
         assert h["VET"].columns["table_sep_px"].unit == "pix"
         assert h["VET"].data["table_pa_deg"][0] == 148.7
