@@ -53,7 +53,7 @@ enum {
 };
 
 /* Prefixes the library's last message with the input file name. */
-static int fail_file(const gl_cli *cli, const char *path, gl_status st)
+static int fail_file(gl_cli *cli, const char *path, gl_status st)
 {
     return cli_fail(cli, cli_error_in_file(path, st));
 }

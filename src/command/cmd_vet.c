@@ -600,6 +600,7 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
 
     for (long i = 0; i < ncand; i++) {
         gl_vet_epochs ep = {0};
+        gl_progress("vet", i, ncand); /* the bar; the fits and fakes inside it are its label */
         if (epochs_path) {
             long nr = et.t->nrows;
             ep.n = epochs_of(&et, i + 1, ebuf);
@@ -648,6 +649,7 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
         if ((st = gl_vet_figure_write(t_png[i], t_svg[i], v, ttl)))
             goto cleanup;
     }
+    gl_progress("vet", ncand, ncand);
 
     if (!(keys = gl_header_new())) {
         st = gl_error_nomem("vet header");
