@@ -14,7 +14,7 @@
 #include <string.h>
 
 static const char help[] =
-    "usage: gloam subtract CUBE --angles FILE --fwhm PX --out RESULT.fits [options]\n\n"
+    "usage: gloam subtract CUBE --angles FILE --fwhm PX|auto --out RESULT.fits [options]\n\n"
     "Removes the star's speckle halo, derotates the residuals to north-up (east left)\n"
     "and combines them. RESULT.fits holds one plane per mode count, in the order given\n"
     "(one plane for --method median-frame or derotate-only).\n\n"
