@@ -117,6 +117,8 @@ typedef struct gl_subtract_params {
     const char *angles_name;   /* the angle list's file, named in messages (NULL: "the angles") */
     const char *cube_name;     /* the science cube's file, named in messages (NULL: "the science
                                   cube") */
+    long frame_offset;         /* index in that file of the cube's first frame (the cube a part
+                                  of the sequence, as vet's halves): added to the frames named */
     int keep_residuals;        /* also return the derotated residual cube */
     int keep_raw_residuals;    /* also return the residual cube before derotation */
 } gl_subtract_params;

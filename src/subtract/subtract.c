@@ -96,9 +96,9 @@ static gl_status record_rings(gl_header *h, const sub_report *r)
     return st;
 }
 
-/* The frames with usable[i] == 0 as "3, 7, 10-14" (0-based), cut short
- * with "..." when it does not fit. */
-static void frame_list(const unsigned char *usable, long n, char *text, size_t size)
+/* The frames with usable[i] == 0 as "3, 7, 10-14" (0-based, plus offset),
+ * cut short with "..." when it does not fit. */
+static void frame_list(const unsigned char *usable, long n, long offset, char *text, size_t size)
 {
     size_t len = 0;
     text[0] = '\0';
@@ -109,7 +109,8 @@ static void frame_list(const unsigned char *usable, long n, char *text, size_t s
         while (j + 1 < n && !usable[j + 1])
             j++;
         char piece[48];
-        snprintf(piece, sizeof piece, j > i ? "%s%ld-%ld" : "%s%ld", len ? ", " : "", i, j);
+        snprintf(piece, sizeof piece, j > i ? "%s%ld-%ld" : "%s%ld", len ? ", " : "", i + offset,
+                 j + offset);
         if (len + strlen(piece) + 6 >= size) {
             snprintf(text + len, size - len, ", ...");
             return;
@@ -125,7 +126,7 @@ gl_status sub_usable_check(const sub_ctx *c, const char *name)
     if (nempty == 0)
         return GL_OK;
     char list[400];
-    frame_list(c->usable, c->nframe, list, sizeof list);
+    frame_list(c->usable, c->nframe, c->p->frame_offset, list, sizeof list);
     if (!name)
         name = "the science cube";
     /* the rule of align's frame selection: a sequence needs at least half
@@ -200,7 +201,7 @@ gl_status sub_record_params(gl_header *h, const gl_subtract_params *p, const sub
                           "frames left out: no finite pixel in the region"));
     if (c->nusable < c->nframe) {
         char list[400], hist[480];
-        frame_list(c->usable, c->nframe, list, sizeof list);
+        frame_list(c->usable, c->nframe, p->frame_offset, list, sizeof list);
         snprintf(hist, sizeof hist, "frames left out (no finite pixel in the region, from 0): %s",
                  list);
         SET(gl_header_add_history(h, hist));

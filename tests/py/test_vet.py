@@ -242,6 +242,29 @@ def test_log_and_table_agree(recovered, tmp_path):
         assert h["VET"].data["table_pa_deg"][0] == 148.7
 
 
+def test_empty_frames_named_in_the_whole_sequence(recovered, tmp_path):
+    """All-NaN frames: vet's subtractions warn once each, naming the file and
+    the frames as frames of the whole sequence, also for the halves test
+    (whose subtractions run on a part of it)."""
+    d = TRIAL_DIRS[7]
+    with fits.open(f"{d}/cube.fits") as h:
+        data = h[0].data.astype(np.float32)
+        data[[3, 12]] = np.nan
+        fits.PrimaryHDU(data, h[0].header).writeto(tmp_path / "holed.fits")
+    (tmp_path / "c.csv").write_text("sep_px,pa_deg\n9,280\n")
+    r = ok("vet", tmp_path / "holed.fits", "--angles", f"{d}/angles.txt", "--psf",
+           f"{d}/psf.fits", *SUB, "--candidates", tmp_path / "c.csv", "--error-fakes", 2,
+           "--threads", 1, "--out", tmp_path / "v")
+    warned = [l for l in r.stderr.splitlines() if "left out" in l]
+    f = str(tmp_path / "holed.fits")
+    assert any(f"{f}: 2 of 16 frames" in l and "frames 3, 12 (counted from 0)" in l
+               for l in warned), warned
+    assert any(f"{f}, first half (frames 0-7): 1 of 8" in l and "frame 3 (" in l
+               for l in warned), warned
+    assert any(f"{f}, second half (frames 8-15): 1 of 8" in l and "frame 12 (" in l
+               for l in warned), warned
+
+
 def apparent_offsets(star, bg, mjds):
     """astropy: the star moved along its space motion, both to the GCRS of
     the date, the background's offset from the star in mas."""
