@@ -174,12 +174,25 @@ GL_API gl_status gl_outset_new(int overwrite, gl_outset **out);
  * Errors: GL_ERR_EXISTS, GL_ERR_IO, GL_ERR_USAGE (output equals an input). */
 GL_API gl_status gl_outset_add(gl_outset *s, const char *path, const gl_provenance *prov,
                                const char **tmp_path);
+/* The folder rule of every product (gl_outset_add, and the folders simulate
+ * and run create): GL_OK when dir is an existing folder; else GL_ERR_IO with
+ * a message naming path and either the part of dir that is a file ("PATH:
+ * some.txt is a file, not a folder") or the missing folder ("PATH: the
+ * output folder DIR does not exist"); GL_ERR_NOMEM. */
+GL_API gl_status gl_outset_folder_check(const char *path, const char *dir);
 /* Rewrites the last error message so that it names products, not the
  * temporary names gl_outset_add handed out for them (in this process);
  * returns st. The CLI calls it before printing any error. */
 GL_API gl_status gl_outset_error_names(gl_status st);
 /* Renames every temporary file into place. */
 GL_API gl_status gl_outset_commit(gl_outset *s);
+/* The products of a set, in the order registered (a CSV's ECSV twin after
+ * it): gl_outset_count gives how many were registered, gl_outset_written
+ * the name of product i when the commit put it in place (NULL before the
+ * commit, and for a CSV twin its writer did not write), so that a command
+ * can list exactly what it wrote. */
+GL_API int gl_outset_count(const gl_outset *s);
+GL_API const char *gl_outset_written(const gl_outset *s, int i);
 /* Deletes uncommitted temporary files and frees the set; NULL is a no-op. */
 GL_API void gl_outset_free(gl_outset *s);
 

@@ -115,6 +115,10 @@ typedef struct gl_subtract_params {
     int nwave;       /* number of wavelengths given (0: none) */
     const double *wavelengths; /* one per channel, any unit (SDI), not owned */
     const char *angles_name;   /* the angle list's file, named in messages (NULL: "the angles") */
+    const char *cube_name;     /* the science cube's file, named in messages (NULL: "the science
+                                  cube") */
+    long frame_offset;         /* index in that file of the cube's first frame (the cube a part
+                                  of the sequence, as vet's halves): added to the frames named */
     int keep_residuals;        /* also return the derotated residual cube */
     int keep_raw_residuals;    /* also return the residual cube before derotation */
 } gl_subtract_params;
@@ -144,12 +148,18 @@ typedef struct gl_subtract_result {
  * Returned: *out filled (free with gl_subtract_result_free). The image
  *        header carries the input's cards, every parameter (GLSUB* keys) and
  *        a north-up WCS when the input had a simple celestial one.
+ *        A frame with no finite pixel in the region is left out, with one
+ *        warning (gl_log) naming params->cube_name and the frames, and
+ *        GLSNDROP plus a HISTORY card in the header. The channels of a 4-D
+ *        cube without the spectral step are averaged (NaN ignored), said in
+ *        one log line and in GLSSDI/GLSNCHAN.
  * Function return value: GL_OK; GL_ERR_USAGE (a parameter out of range: FWHM
  *        not positive, modes larger than the usable frames of a klip-frame
  *        basis that holds the target, zero field rotation with an ADI method,
  *        missing wavelengths for SDI); GL_ERR_INPUT (reference cube of another
- *        size, no usable frame); GL_ERR_NOMEM; GL_ERR_NUMERIC (eigensolver
- *        failure). On failure *out holds nothing. */
+ *        size, fewer than half of the frames with data in the region);
+ *        GL_ERR_NOMEM; GL_ERR_NUMERIC (eigensolver failure). On failure *out
+ *        holds nothing. */
 GL_API gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cube *refs,
                                  const gl_subtract_params *params, gl_subtract_result *out);
 /* Peak memory, bytes, that gl_subtract_run is expected to need for a cube of

@@ -137,7 +137,9 @@ GL_API void gl_vet_epoch_fit_free(gl_vet_epoch_fit *f);
 /* A candidate characterised and tested. Positions are north-up: sep in px,
  * PA in degrees north through east. */
 typedef struct gl_vet_result {
-    double start_sep, start_pa, start_contrast; /* start of the fit */
+    double given_sep, given_pa;                 /* the position given (the candidate table's) */
+    double start_sep, start_pa, start_contrast; /* start of the fit: the brightest pixel near
+                                                   it (centre of light), its corrected flux */
     double sep_px, pa_deg, contrast;            /* the fit */
     double merit, merit_start;                  /* sum of squares / pixel variance */
     int nevals, converged;

@@ -40,8 +40,14 @@ typedef struct gl_cli {
     int nsaid;
     char noted[CLI_NOTED][64]; /* old spellings already noted (cli_deprecated) */
     int nnoted;
-    double bar_last, bar_start; /* the progress bar */
-    char bar_task[32];
+    /* the progress bar: one line for the outermost task (the first reported
+     * and not finished), the latest task inside it as a label */
+    struct {
+        char task[32], inner[32];
+        long done, total, inner_done, inner_total;
+        double start, last;
+        int shown; /* a bar is on the line now */
+    } bar;
 } gl_cli;
 
 /* Option codes shared by every command (above the range of short options). */
@@ -108,7 +114,7 @@ int cli_common_option(gl_cli *cli, int code, const char *arg, const char *help_t
 /* Prints "gloam CMD: <library message>" and returns the exit code. A
  * message about the parallactic angles that does not name a file gets the
  * angles' source (cli->angles_source) in front. */
-int cli_fail(const gl_cli *cli, gl_status st);
+int cli_fail(gl_cli *cli, gl_status st);
 /* Prints "gloam CMD: <message>" plus a hint to --help; returns 1. */
 int cli_usage(const gl_cli *cli, const char *fmt, ...) __attribute__((format(printf, 2, 3)));
 
@@ -179,10 +185,13 @@ int cli_parse_fwhm(const gl_cli *cli, const char *arg, double *out);
  * given): measured on psf_path when given (the PSF's azimuthal profile, the
  * code behind inspect --psf), else read from the header h of product_path
  * where a previous step recorded it (GLSFWHM from subtract, GLFWHM).
- * Errors: GL_ERR_USAGE when neither is there (naming the file), the PSF's
+ * psf_option: 1 when the command has a --psf option (the message then
+ * offers it).
+ * Errors: GL_ERR_USAGE when neither is there (naming the file, saying that
+ * no earlier step recorded one and what to give instead), the PSF's
  * reading errors. */
-gl_status cli_resolve_fwhm(gl_cli *cli, double *fwhm, const char *psf_path, const gl_header *h,
-                           const char *product_path);
+gl_status cli_resolve_fwhm(gl_cli *cli, double *fwhm, const char *psf_path, int psf_option,
+                           const gl_header *h, const char *product_path);
 /* The off-axis PSF measured on its own grid (one channel, scale 1): FWHM,
  * centre, flux; recorded in the provenance. Shared by inspect and
  * cli_resolve_fwhm. */
@@ -208,6 +217,11 @@ gl_status cli_error_in_file(const char *path, gl_status st);
 const char *cli_output_name(const gl_cli *cli, const char *out, const char *input,
                             const char *suffix, char *buf, size_t size);
 
+/* Logs every product of a committed set, a product and its twins of the
+ * same name on one line ("wrote l.limits.csv (.ecsv, .fits, .png), ...");
+ * what was not written (a CSV without its twin) is not listed. */
+void cli_log_written(const gl_outset *outs);
+
 /* Registers the product PREFIX SUFFIX (an --out prefix, or "DIR" and
  * "/NAME") in outs: the name is written into path[size] (refused with
  * GL_ERR_USAGE when it does not fit) and *tmp gets the temporary name to
@@ -223,7 +237,14 @@ gl_status cli_add_product(gl_cli *cli, gl_outset *outs, const char *prefix, cons
  * transition table in docs/names.md and the messages agree. */
 void cli_deprecated(gl_cli *cli, const char *old, const char *now);
 
-/* Applies --threads and installs the log and progress printers. */
+/* Removes the progress bar from the terminal line (if one is drawn), so
+ * that a message starts on a clean line; the next report draws it again. */
+void cli_bar_clear(gl_cli *cli);
+
+/* Applies --threads and installs the log and progress printers. The bar
+ * is drawn only on a terminal and not with --quiet; a command run inside
+ * another (a run's steps) leaves the enclosing command's bar in place, so
+ * its progress shows there as the inner label, never as a second bar. */
 void cli_start(gl_cli *cli);
 
 /* Every command (one file each: cmd_NAME.c). */

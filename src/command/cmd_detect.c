@@ -53,7 +53,7 @@ enum {
 };
 
 /* Prefixes the library's last message with the input file name. */
-static int fail_file(const gl_cli *cli, const char *path, gl_status st)
+static int fail_file(gl_cli *cli, const char *path, gl_status st)
 {
     return cli_fail(cli, cli_error_in_file(path, st));
 }
@@ -151,7 +151,7 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
         goto cleanup;
     }
     gl_provenance_add_observation(&cli->prov, cube->header);
-    if ((st = cli_resolve_fwhm(cli, &par.fwhm, NULL, cube->header, input))) {
+    if ((st = cli_resolve_fwhm(cli, &par.fwhm, NULL, 0, cube->header, input))) {
         rc = cli_fail(cli, st);
         goto cleanup;
     }

@@ -215,7 +215,7 @@ int cmd_inspect(gl_cli *cli, int argc, char **argv)
         double v = 0;
         st = gl_fits_read_cube(in, 2, &c);
         if (!st)
-            st = cli_resolve_fwhm(cli, &v, NULL, c->header, in);
+            st = cli_resolve_fwhm(cli, &v, NULL, 1, c->header, in);
         gl_cube_free(c);
         if (st)
             return cli_fail(cli, st);

@@ -227,8 +227,8 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
         }
     }
     if ((st = cli_read_cube_angles(cli, cube_path, angles_path, &cube, &angles)) ||
-        (st = cli_resolve_fwhm(cli, &setup.p.fwhm, setup.p.fwhm > 0 ? NULL : psf_path, cube->header,
-                               cube_path)) ||
+        (st = cli_resolve_fwhm(cli, &setup.p.fwhm, setup.p.fwhm > 0 ? NULL : psf_path, 1,
+                               cube->header, cube_path)) ||
         (st = cli_read_input(cli, psf_path, 2, &psfc)) ||
         (st = cli_subtract_prepare(cli, &setup, cube_path, cube, &refs)) ||
         (st = gl_psf_model_new(psfc, psf_path, cube->nx, cube->ny, cube->nchan, psf_scale, &psf)))
@@ -459,7 +459,7 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
             gl_log(GL_LOG_INFO, "  %6.1f px: throughput %.2f, no contrast reaches 50%% at %g sigma",
                    res.sep_px[i], res.throughput[i], lp.sigma);
     }
-    gl_log(GL_LOG_INFO, "wrote %s (.fits, .png, .svg) and %s", p_csv, p_fakes);
+    cli_log_written(outs);
 
 cleanup:
     gl_outset_free(outs);

@@ -375,14 +375,10 @@ int cmd_simulate(gl_cli *cli, int argc, char **argv)
         }
         if (slash)
             *slash = '\0';
-        if (err == ENOENT)
-            fprintf(cli->err,
-                    "gloam simulate: %s: cannot create the folder: its parent folder %s does "
-                    "not exist\n",
-                    dir, slash ? parent : ".");
-        else
-            fprintf(cli->err, "gloam simulate: %s: cannot create the folder: %s\n", dir,
-                    strerror(err));
+        if ((err == ENOENT || err == ENOTDIR) &&
+            (st = gl_outset_folder_check(dir, slash ? (slash == parent ? "/" : parent) : ".")))
+            return cli_fail(cli, st); /* the --out rule: a missing folder, or a file */
+        fprintf(cli->err, "gloam simulate: %s: cannot create the folder: %s\n", dir, strerror(err));
         return 1;
     } else {
         made_dir = 1;

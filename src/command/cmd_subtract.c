@@ -14,7 +14,7 @@
 #include <string.h>
 
 static const char help[] =
-    "usage: gloam subtract CUBE --angles FILE --fwhm PX --out RESULT.fits [options]\n\n"
+    "usage: gloam subtract CUBE --angles FILE --fwhm PX|auto --out RESULT.fits [options]\n\n"
     "Removes the star's speckle halo, derotates the residuals to north-up (east left)\n"
     "and combines them. RESULT.fits holds one plane per mode count, in the order given\n"
     "(one plane for --method median-frame or derotate-only).\n\n"
@@ -22,11 +22,13 @@ static const char help[] =
     "  --angles FILE          parallactic angles (deg), one per frame (default: the\n"
     "                         cube's ANGLES table, written by gloam align)\n"
     "  --out FILE             the north-up product\n"
+    "  --psf FILE             the off-axis PSF, to measure the FWHM on (--fwhm auto; --psf\n"
+    "                         alone implies it)\n"
     "  --residuals FILE       also write the derotated residual cube\n"
     "  --raw-residuals FILE   also write the residuals before derotation\n"
     "subtraction options:\n";
 
-enum { OPT_ANGLES = CLI_OPT_FIRST_COMMAND_OPTION, OPT_OUT, OPT_RESID, OPT_RAW };
+enum { OPT_ANGLES = CLI_OPT_FIRST_COMMAND_OPTION, OPT_OUT, OPT_RESID, OPT_RAW, OPT_PSF };
 
 int cmd_subtract(gl_cli *cli, int argc, char **argv)
 {
@@ -34,10 +36,12 @@ int cmd_subtract(gl_cli *cli, int argc, char **argv)
                                          {"out", required_argument, 0, OPT_OUT},
                                          {"residuals", required_argument, 0, OPT_RESID},
                                          {"raw-residuals", required_argument, 0, OPT_RAW},
+                                         {"psf", required_argument, 0, OPT_PSF},
                                          CLI_SUBTRACT_OPTIONS,
                                          CLI_COMMON_OPTIONS,
                                          {0, 0, 0, 0}};
     const char *angles_path = NULL, *out_path = NULL, *resid_path = NULL, *raw_path = NULL;
+    const char *psf_path = NULL;
     cli_subtract_setup setup;
     cli_subtract_setup_init(&setup);
     gl_subtract_params *pp = &setup.p;
@@ -58,6 +62,7 @@ int cmd_subtract(gl_cli *cli, int argc, char **argv)
         case OPT_OUT: out_path = optarg; break;
         case OPT_RESID: resid_path = optarg; break;
         case OPT_RAW: raw_path = optarg; break;
+        case OPT_PSF: psf_path = optarg; break;
         default: return cli_bad_option(cli, argv);
         }
     }
@@ -66,6 +71,15 @@ int cmd_subtract(gl_cli *cli, int argc, char **argv)
     const char *cube_path = cli_positional(cli, argc, argv, "the input cube");
     if (!cube_path)
         return 1;
+    if (psf_path && !setup.have_fwhm) { /* --psf alone: the FWHM measured on it */
+        pp->fwhm = CLI_FWHM_AUTO;
+        setup.have_fwhm = 1;
+    }
+    if (psf_path && pp->fwhm > 0)
+        return cli_usage(cli,
+                         "--psf is read only to measure the FWHM (--fwhm auto); with --fwhm %g "
+                         "it would not be used: give one of them",
+                         pp->fwhm);
     {
         const char *names[] = {"--fwhm", "--out"}; /* angles: cli_read_cube_angles */
         const void *vals[] = {setup.have_fwhm ? names : NULL, out_path};
@@ -112,11 +126,11 @@ int cmd_subtract(gl_cli *cli, int argc, char **argv)
         if ((st = gl_fits_read_header(cube_path, &cube->header)) ||
             (st = gl_provenance_add_input(&cli->prov, cube_path)) ||
             (st = cli_read_angles_of(cli, cube_path, cube, angles_path, &angles)) ||
-            (st = cli_resolve_fwhm(cli, &pp->fwhm, NULL, cube->header, cube_path)))
+            (st = cli_resolve_fwhm(cli, &pp->fwhm, psf_path, 1, cube->header, cube_path)))
             goto cleanup;
     } else {
         if ((st = cli_read_cube_angles(cli, cube_path, angles_path, &cube, &angles)) ||
-            (st = cli_resolve_fwhm(cli, &pp->fwhm, NULL, cube->header, cube_path)))
+            (st = cli_resolve_fwhm(cli, &pp->fwhm, psf_path, 1, cube->header, cube_path)))
             goto cleanup;
         if ((st = cli_subtract_prepare(cli, &setup, cube_path, cube, &refs)))
             goto cleanup;
@@ -144,8 +158,11 @@ int cmd_subtract(gl_cli *cli, int argc, char **argv)
         (tmp_raw && (st = gl_fits_write_cube(tmp_raw, res.raw_residuals, &cli->prov))) ||
         (st = gl_outset_commit(outs)))
         goto cleanup;
-    gl_log(GL_LOG_INFO, "%s: %s subtraction of %ld frames%s, %ld plane%s, from %.1f px out",
-           out_path, gl_subtract_method_name(pp->method), res.nframes_used,
+    char of[48] = ""; /* frames left out were named in a warning */
+    if (res.nframes_used < cube->nframe)
+        snprintf(of, sizeof of, " of %ld", cube->nframe);
+    gl_log(GL_LOG_INFO, "%s: %s subtraction of %ld%s frames%s, %ld plane%s, from %.1f px out",
+           out_path, gl_subtract_method_name(pp->method), res.nframes_used, of,
            res.nrefs_used ? " with reference frames" : "", res.image->nframe,
            res.image->nframe > 1 ? "s" : "", res.inner_radius);
 

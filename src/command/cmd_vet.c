@@ -294,7 +294,7 @@ static long epochs_of(const epoch_table *e, long cand, double *buf)
 }
 
 /* The table: one row per candidate. */
-enum { NFIX = 31, NCOLS = NFIX + 4 * GL_VET_NTESTS };
+enum { NFIX = 33, NCOLS = NFIX + 4 * GL_VET_NTESTS };
 
 static gl_status write_table(const char *csv, const char *fits, const gl_vet_result *r, long n,
                              const gl_header *keys, const gl_provenance *prov)
@@ -306,11 +306,11 @@ static gl_status write_table(const char *csv, const char *fits, const gl_vet_res
         "snr",          "throughput",       "start_sep_px",  "start_pa_deg", "start_contrast",
         "fit_merit",    "fit_evals",        "fit_converged", "error_fakes",  "sep_err_fit",
         "pa_err_fit",   "contrast_err_fit", "snr_half1",     "snr_half2",    "tests_possible",
-        "tests_passed"};
-    static const char *funits[NFIX] = {"",    "pix", "pix", "deg", "deg", "mas", "mas", "mas",
-                                       "mas", "mas", "mas", "",    "",    "mag", "mag", "",
-                                       "",    "pix", "deg", "",    "",    "",    "",    "",
-                                       "pix", "deg", "",    "",    "",    "",    ""};
+        "tests_passed", "table_sep_px",     "table_pa_deg"};
+    static const char *funits[NFIX] = {
+        "", "pix", "pix", "deg", "deg", "mas", "mas", "mas", "mas", "mas", "mas",
+        "", "",    "mag", "mag", "",    "",    "pix", "deg", "",    "",    "",
+        "", "",    "pix", "deg", "",    "",    "",    "",    "",    "pix", "deg"};
     char tn[4 * GL_VET_NTESTS][32];
     const char *names[NCOLS], *units[NCOLS];
     const double *cols[NCOLS];
@@ -364,7 +364,9 @@ static gl_status write_table(const char *csv, const char *fits, const gl_vet_res
                           v->tests[GL_VET_TEST_HALVES].possible ? v->snr_half[0] : NAN,
                           v->tests[GL_VET_TEST_HALVES].possible ? v->snr_half[1] : NAN,
                           v->npossible,
-                          v->npassed};
+                          v->npassed,
+                          v->given_sep,
+                          v->given_pa};
         for (int c = 0; c < NFIX; c++)
             buf[(size_t)c * (size_t)n + (size_t)i] = isfinite(f[c]) ? f[c] : NAN;
         for (int k = 0; k < GL_VET_NTESTS; k++) {
@@ -513,8 +515,8 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
     const char **t_png = NULL, **t_svg = NULL;
 
     if ((st = cli_read_cube_angles(cli, cube_path, angles_path, &cube, &angles)) ||
-        (st = cli_resolve_fwhm(cli, &setup.p.fwhm, setup.p.fwhm > 0 ? NULL : psf_path, cube->header,
-                               cube_path)) || /* --fwhm auto */
+        (st = cli_resolve_fwhm(cli, &setup.p.fwhm, setup.p.fwhm > 0 ? NULL : psf_path, 1,
+                               cube->header, cube_path)) || /* --fwhm auto */
         (st = cli_read_input(cli, psf_path, 2, &psfc)) ||
         (st = cli_subtract_prepare(cli, &setup, cube_path, cube, &refs)) ||
         (st = gl_psf_model_new(psfc, psf_path, cube->nx, cube->ny, cube->nchan, o.psf_scale, &psf)))
@@ -598,6 +600,7 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
 
     for (long i = 0; i < ncand; i++) {
         gl_vet_epochs ep = {0};
+        gl_progress("vet", i, ncand); /* the bar; the fits and fakes inside it are its label */
         if (epochs_path) {
             long nr = et.t->nrows;
             ep.n = epochs_of(&et, i + 1, ebuf);
@@ -607,7 +610,8 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
             ep.dra_err = ebuf + 3 * nr;
             ep.ddec_err = ebuf + 4 * nr;
         }
-        gl_log(GL_LOG_INFO, "candidate %ld: start %.2f px, %.1f deg", i + 1, sep[i], pa[i]);
+        gl_log(GL_LOG_INFO, "candidate %ld: %.2f px, %.2f deg in %s (table_sep_px, table_pa_deg)",
+               i + 1, sep[i], pa[i], cand_path);
         if ((st = gl_vet_candidate(cube, angles, refs, &setup.p, psf, &o.vp, sep[i], pa[i],
                                    epochs_path ? &o.star : NULL, epochs_path ? &ep : NULL,
                                    &res[i]))) {
@@ -617,8 +621,13 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
         }
         const gl_vet_result *v = &res[i];
         gl_log(GL_LOG_INFO,
-               "  sep %.2f +- %.2f px, PA %.2f +- %.2f deg, contrast %.3g +- %.2g (%.2f +- %.2f "
-               "mag), S/N %.1f; tests passed %d of %d possible",
+               "  start of the fit %.2f px, %.2f deg, contrast %.3g: the brightest pixel near "
+               "it, its aperture flux over the throughput (start_sep_px, start_pa_deg, "
+               "start_contrast)",
+               v->start_sep, v->start_pa, v->start_contrast);
+        gl_log(GL_LOG_INFO,
+               "  fitted sep %.2f +- %.2f px, PA %.2f +- %.2f deg, contrast %.3g +- %.2g (%.2f +- "
+               "%.2f mag), S/N %.1f; tests passed %d of %d possible",
                v->sep_px, v->sep_err, v->pa_deg, v->pa_err, v->contrast, v->contrast_err, v->dmag,
                v->dmag_err, v->snr, v->npassed, v->npossible);
         for (int q = 0; q < GL_VET_NTESTS; q++) {
@@ -640,6 +649,7 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
         if ((st = gl_vet_figure_write(t_png[i], t_svg[i], v, ttl)))
             goto cleanup;
     }
+    gl_progress("vet", ncand, ncand);
 
     if (!(keys = gl_header_new())) {
         st = gl_error_nomem("vet header");
@@ -677,8 +687,7 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
         (st = write_regions(t_reg, res, ncand, cube->nx, cube->ny)) ||
         (st = gl_outset_commit(outs)))
         goto cleanup;
-    gl_log(GL_LOG_INFO, "wrote %s (.fits, .reg) and %ld figure%s %s.vet-N.png/.svg", p_csv, ncand,
-           ncand == 1 ? "" : "s", prefix);
+    cli_log_written(outs);
 
 cleanup:
     gl_outset_free(outs);

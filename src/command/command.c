@@ -131,7 +131,8 @@ static int command_run(int argc, char **argv, FILE *out, FILE *err, int check)
     else if (setjmp(done) == 0)
         rc = cmd->run(cli, argc - 1, argv + 1);
     else
-        rc = 0; /* cli_start reached: every option and value was accepted */
+        rc = 0;         /* cli_start reached: every option and value was accepted */
+    cli_bar_clear(cli); /* a task left unfinished by an error leaves no bar behind */
     if (cli->verbose && !check)
         print_peak_memory(cli);
     fflush(out);

@@ -4,6 +4,8 @@
  */
 #include "command/cli.h"
 
+#include "core/internal.h"
+
 #include <cblas.h>
 #include <errno.h>
 #include <math.h>
@@ -17,9 +19,10 @@
 #include <time.h>
 #include <unistd.h>
 
-int cli_fail(const gl_cli *cli, gl_status st)
+int cli_fail(gl_cli *cli, gl_status st)
 {
     gl_outset_error_names(st); /* name products, never their temporary names */
+    cli_bar_clear(cli);
     const char *msg = gl_error_message();
     if (cli->angles_source[0] && strstr(msg, "parallactic angles") &&
         !strstr(msg, cli->angles_source))
@@ -330,8 +333,8 @@ gl_status cli_psf_measure(gl_cli *cli, const char *psf_path, gl_psf_model **out)
     return st;
 }
 
-gl_status cli_resolve_fwhm(gl_cli *cli, double *fwhm, const char *psf_path, const gl_header *h,
-                           const char *product_path)
+gl_status cli_resolve_fwhm(gl_cli *cli, double *fwhm, const char *psf_path, int psf_option,
+                           const gl_header *h, const char *product_path)
 {
     static const char *const keys[] = {"GLSFWHM", "GLFWHM"};
     if (*fwhm > 0) {
@@ -359,9 +362,17 @@ gl_status cli_resolve_fwhm(gl_cli *cli, double *fwhm, const char *psf_path, cons
             return GL_OK;
         }
     }
+    if (psf_option)
+        return gl_error_set(GL_ERR_USAGE,
+                            "%s: --fwhm auto: no FWHM to use: no --psf was given to measure it "
+                            "on, and no earlier gloam step recorded one in this file (keyword "
+                            "GLSFWHM or GLFWHM); give --fwhm PX (the PSF's FWHM in pixels) or "
+                            "--psf PSF.fits (the off-axis PSF, measured)",
+                            product_path);
     return gl_error_set(GL_ERR_USAGE,
-                        "%s: --fwhm auto: the file records no FWHM (keyword GLSFWHM, written by "
-                        "gloam subtract) and no --psf was given to measure it; give --fwhm PX",
+                        "%s: --fwhm auto: no FWHM to use: no earlier gloam step recorded one in "
+                        "this file (keyword GLSFWHM or GLFWHM); give --fwhm PX (the PSF's FWHM "
+                        "in pixels; gloam inspect --psf PSF.fits measures it)",
                         product_path);
 }
 
@@ -441,6 +452,51 @@ gl_status cli_add_product(gl_cli *cli, gl_outset *outs, const char *prefix, cons
     return gl_outset_add(outs, path, &cli->prov, tmp);
 }
 
+/* The length of path without its last extension ("a/b.limits.csv" ->
+ * "a/b.limits"), the key that groups a product with its twins. */
+static size_t product_stem(const char *path)
+{
+    const char *dot = strrchr(path, '.'), *slash = strrchr(path, '/');
+    return dot && (!slash || dot > slash) ? (size_t)(dot - path) : strlen(path);
+}
+
+void cli_log_written(const gl_outset *outs)
+{
+    int n = gl_outset_count(outs);
+    char line[900] = "";
+    size_t len = 0;
+    for (int i = 0; i < n; i++) {
+        const char *p = gl_outset_written(outs, i);
+        size_t stem = p ? product_stem(p) : 0;
+        int seen = 0; /* grouped already with an earlier product of its stem */
+        for (int j = 0; p && j < i && !seen; j++) {
+            const char *q = gl_outset_written(outs, j);
+            seen = q && product_stem(q) == stem && strncmp(p, q, stem) == 0;
+        }
+        if (!p || seen)
+            continue;
+        char group[1200];
+        size_t g = (size_t)snprintf(group, sizeof group, "%s", p);
+        int twins = 0;
+        for (int j = i + 1; j < n && g < sizeof group; j++) {
+            const char *q = gl_outset_written(outs, j);
+            if (q && product_stem(q) == stem && strncmp(p, q, stem) == 0)
+                g += (size_t)snprintf(group + g, sizeof group - g, "%s%s", twins++ ? ", " : " (",
+                                      q + stem);
+        }
+        if (twins && g < sizeof group)
+            snprintf(group + g, sizeof group - g, ")");
+        if (len && len + strlen(group) + 2 >= sizeof line) { /* a long list: more lines */
+            gl_log(GL_LOG_INFO, "wrote %s", line);
+            len = 0;
+            line[0] = '\0';
+        }
+        len += (size_t)snprintf(line + len, sizeof line - len, "%s%s", len ? ", " : "", group);
+    }
+    if (len)
+        gl_log(GL_LOG_INFO, "wrote %s", line);
+}
+
 void cli_deprecated(gl_cli *cli, const char *old, const char *now)
 {
     for (int i = 0; i < cli->nnoted && i < CLI_NOTED; i++)
@@ -467,6 +523,7 @@ static void print_log(gl_log_level level, const char *msg, void *user)
             return;
     snprintf(cli->said[cli->nsaid++ % CLI_SAID], sizeof cli->said[0], "%s", msg);
     const char *tag = level == GL_LOG_ERROR ? "error: " : level == GL_LOG_WARN ? "warning: " : "";
+    cli_bar_clear(cli);
     fprintf(cli->err, "gloam %s: %s%s\n", cli->command, tag, msg);
 }
 
@@ -477,36 +534,70 @@ static double now_s(void)
     return (double)ts.tv_sec + 1e-9 * (double)ts.tv_nsec;
 }
 
+enum { BAR_LINE = 79 }; /* characters: one line of an 80-column terminal */
+
+void cli_bar_clear(gl_cli *cli)
+{
+    if (!cli->bar.shown)
+        return;
+    fprintf(cli->err, "\r%*s\r", BAR_LINE, "");
+    fflush(cli->err);
+    cli->bar.shown = 0;
+}
+
 /* A one-line bar on the error stream, redrawn at most ten times a second;
  * only installed when that stream is a terminal, so piped runs and run
- * folders' logs stay free of it. */
+ * folders' logs stay free of it. Tasks nest (limits runs subtractions, a
+ * run runs whole commands): the first task reported is the bar until it
+ * finishes, and a task reported meanwhile is shown as its label, so there
+ * is never more than one bar on the line. */
 static void print_progress(const char *task, long done, long total, void *user)
 {
     gl_cli *cli = user;
     double t = now_s();
-    if (strncmp(cli->bar_task, task, sizeof cli->bar_task - 1) != 0) {
-        snprintf(cli->bar_task, sizeof cli->bar_task, "%s", task);
-        cli->bar_start = t;
-        cli->bar_last = 0;
+    int first = 0;
+    if (!cli->bar.task[0]) {
+        snprintf(cli->bar.task, sizeof cli->bar.task, "%s", task);
+        cli->bar.start = t;
+        cli->bar.inner[0] = '\0';
+        first = 1;
     }
-    int end = done >= total;
-    if (!end && t - cli->bar_last < 0.1)
+    if (strncmp(cli->bar.task, task, sizeof cli->bar.task - 1) == 0) {
+        cli->bar.done = done;
+        cli->bar.total = total;
+        if (done >= total) { /* the outer task is over: the line is free */
+            cli_bar_clear(cli);
+            cli->bar.task[0] = '\0';
+            cli->bar.inner[0] = '\0';
+            return;
+        }
+    } else if (done >= total) {
+        cli->bar.inner[0] = '\0';
+    } else {
+        snprintf(cli->bar.inner, sizeof cli->bar.inner, "%s", task);
+        cli->bar.inner_done = done;
+        cli->bar.inner_total = total;
+    }
+    if (!first && t - cli->bar.last < 0.1)
         return;
-    cli->bar_last = t;
-    double frac = total > 0 ? (double)done / (double)total : 1;
-    int width = 30, fill = (int)(frac * width + 0.5);
-    char bar[64];
+    cli->bar.last = t;
+    double frac = cli->bar.total > 0 ? (double)cli->bar.done / (double)cli->bar.total : 1;
+    frac = frac < 0 ? 0 : frac;
+    char bar[32], line[160], inner[64] = "";
+    int width = 24, fill = (int)(frac * width + 0.5);
     for (int i = 0; i < width; i++)
         bar[i] = i < fill ? '#' : '.';
     bar[width] = '\0';
-    double el = t - cli->bar_start, eta = frac > 0 ? el * (1 - frac) / frac : 0;
-    fprintf(cli->err, "\r  %-12s [%s] %3.0f%%  %ld/%ld  %.0fs left ", task, bar, 100 * frac, done,
-            total, eta);
-    if (end) {
-        fprintf(cli->err, "\r%*s\r", 80, "");
-        cli->bar_task[0] = '\0';
-    }
+    double el = t - cli->bar.start, eta = frac > 0 ? el * (1 - frac) / frac : 0;
+    if (cli->bar.inner[0])
+        snprintf(inner, sizeof inner, "  (%s %ld/%ld)", cli->bar.inner, cli->bar.inner_done,
+                 cli->bar.inner_total);
+    snprintf(line, sizeof line, "  %-12.12s [%s] %3.0f%%  %ld/%ld  %.0fs left%s", cli->bar.task,
+             bar, 100 * frac, cli->bar.done, cli->bar.total, eta, inner);
+    line[BAR_LINE] = '\0'; /* never wider than the line: a wrapped bar cannot be redrawn */
+    fprintf(cli->err, "\r%-*s", BAR_LINE, line);
     fflush(cli->err);
+    cli->bar.shown = 1;
 }
 
 void cli_start(gl_cli *cli)
@@ -521,6 +612,11 @@ void cli_start(gl_cli *cli)
     openblas_set_num_threads(1);
     gl_log_set_handler(print_log, cli,
                        cli->quiet ? GL_LOG_WARN : (cli->verbose ? GL_LOG_DEBUG : GL_LOG_INFO));
+    gl_progress_fn outer;
+    void *outer_user;
+    gl_progress_get_handler(&outer, &outer_user);
+    if (outer) /* inside another command: its bar shows this one's progress */
+        return;
     int fd = fileno(cli->err);
     gl_progress_set_handler(!cli->quiet && fd >= 0 && isatty(fd) ? print_progress : NULL, cli);
 }

@@ -340,6 +340,7 @@ gl_status cli_subtract_prepare(gl_cli *cli, cli_subtract_setup *s, const char *c
     gl_cube *refs = NULL;
     gl_status st = GL_OK;
     *refs_out = NULL;
+    s->p.cube_name = cube_path; /* named in the subtraction's warnings */
     if (s->refs_path) {
         if ((st = cli_read_input(cli, s->refs_path, 3, &refs)))
             goto cleanup;

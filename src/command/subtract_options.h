@@ -85,7 +85,8 @@ int cli_subtract_option(gl_cli *cli, int code, const char *arg, cli_subtract_set
  * returns 1 on a problem, else 0. */
 int cli_subtract_check(const gl_cli *cli, const cli_subtract_setup *s);
 /* With the science cube read: loads the reference cube (added to the
- * provenance), checks its size, resolves the wavelengths for --sdi. */
+ * provenance), checks its size, resolves the wavelengths for --sdi, and
+ * names cube_path in the subtraction's messages (params cube_name). */
 gl_status cli_subtract_prepare(gl_cli *cli, cli_subtract_setup *s, const char *cube_path,
                                const gl_cube *cube, gl_cube **refs);
 /* The memory limit in force (--memory-limit, else half the machine's

@@ -64,7 +64,8 @@ gl_status gl_outset_error_names(gl_status st)
 typedef struct outfile {
     char *path;
     char *tmp;
-    int twin; /* the ECSV twin of the CSV product before it */
+    int twin;    /* the ECSV twin of the CSV product before it */
+    int written; /* renamed into place by gl_outset_commit */
 } outfile;
 
 struct gl_outset {
@@ -114,12 +115,34 @@ static gl_status check_destination(const gl_outset *s, const char *path, const g
     if (!copy)
         return gl_error_nomem("output path");
     char *dir = dirname(copy);
-    gl_status st = GL_OK;
-    if (stat(dir, &sb) != 0 || !S_ISDIR(sb.st_mode))
-        st = gl_error_set(GL_ERR_IO, "%s: the output folder %s does not exist", path, dir);
-    else if (access(dir, W_OK | X_OK) != 0)
+    gl_status st = gl_outset_folder_check(path, dir);
+    if (!st && access(dir, W_OK | X_OK) != 0)
         st = gl_error_set(GL_ERR_IO, "%s: folder %s is not writable", path, dir);
     gl_free(copy);
+    return st;
+}
+
+gl_status gl_outset_folder_check(const char *path, const char *dir)
+{
+    struct stat sb;
+    if (stat(dir, &sb) == 0 && S_ISDIR(sb.st_mode))
+        return GL_OK;
+    /* missing, or it (or a folder above it) is a file: find the nearest
+     * part of the path that exists, and name it when it is a file */
+    char *up = gl_strdup(dir);
+    gl_status st = GL_OK;
+    while (up && stat(up, &sb) != 0 && strcmp(up, ".") != 0 && strcmp(up, "/") != 0) {
+        char *parent = gl_strdup(dirname(up));
+        gl_free(up);
+        up = parent;
+    }
+    if (!up)
+        st = gl_error_nomem("output path");
+    else if (stat(up, &sb) == 0 && !S_ISDIR(sb.st_mode))
+        st = gl_error_set(GL_ERR_IO, "%s: %s is a file, not a folder", path, up);
+    else
+        st = gl_error_set(GL_ERR_IO, "%s: the output folder %s does not exist", path, dir);
+    gl_free(up);
     return st;
 }
 
@@ -206,9 +229,20 @@ gl_status gl_outset_commit(gl_outset *s)
                                 strerror(errno));
         gl_free(s->files[i].tmp);
         s->files[i].tmp = NULL;
+        s->files[i].written = 1;
     }
     s->committed = 1;
     return GL_OK;
+}
+
+int gl_outset_count(const gl_outset *s)
+{
+    return s ? s->n : 0;
+}
+
+const char *gl_outset_written(const gl_outset *s, int i)
+{
+    return s && i >= 0 && i < s->n && s->files[i].written ? s->files[i].path : NULL;
 }
 
 void gl_outset_free(gl_outset *s)

@@ -26,6 +26,7 @@
 #include <stdlib.h>
 #include <string.h>
 #include <dirent.h>
+#include <libgen.h>
 #include <sys/stat.h>
 #include <time.h>
 #include <unistd.h>
@@ -483,12 +484,17 @@ static gl_status make_folder(const char *path)
 {
     if (mkdir(path, 0777) == 0 || errno == EEXIST)
         return GL_OK;
-    if (errno == ENOENT)
-        return gl_error_set(GL_ERR_IO,
-                            "%s: cannot create the run folder: its parent folder does "
-                            "not exist",
-                            path);
-    return gl_error_set(GL_ERR_IO, "%s: cannot create the run folder: %s", path, strerror(errno));
+    int err = errno;
+    if (err == ENOENT || err == ENOTDIR) { /* the --out rule: a missing folder, or a file */
+        char *copy = gl_strdup(path);
+        if (!copy)
+            return gl_error_nomem("run folder");
+        gl_status st = gl_outset_folder_check(path, dirname(copy));
+        gl_free(copy);
+        if (st)
+            return st;
+    }
+    return gl_error_set(GL_ERR_IO, "%s: cannot create the run folder: %s", path, strerror(err));
 }
 
 /* A folder is a run folder when it has a ledger, or is empty. */

@@ -55,6 +55,7 @@ typedef struct sub_ctx {
     const gl_subtract_params *p;
     long nx, ny, npix;           /* plane geometry */
     long nframe;                 /* science frames */
+    long nchan;                  /* wavelength channels per input frame (1: a 3-D cube) */
     const float *sci;            /* nframe x npix (channels already combined) */
     const double *angles;        /* nframe, degrees */
     const unsigned char *usable; /* nframe: 1 when the frame holds data */
@@ -199,6 +200,11 @@ gl_status sub_sdi_frames(const gl_cube *cube, const gl_subtract_params *p, doubl
 gl_status sub_wcs_north_up(gl_header *h, long nx, long ny);
 
 /* ---- product header (subtract.c) ---------------------------------------- */
+
+/* The frames without data in the region (c->usable 0): one warning naming
+ * the cube (name, NULL: "the science cube") and the frames; GL_ERR_INPUT
+ * when fewer than half of the frames hold data. */
+gl_status sub_usable_check(const sub_ctx *c, const char *name);
 
 /* Records every parameter of the run (GLS* keys, HISTORY) in h. */
 gl_status sub_record_params(gl_header *h, const gl_subtract_params *p, const sub_ctx *c,

@@ -570,6 +570,7 @@ gl_status gl_subtract_run_streamed(const char *path, const double *angles,
     r.c.ny = r.ny;
     r.c.npix = r.npix;
     r.c.nframe = r.nf;
+    r.c.nchan = 1;
     r.c.angles = angles;
     r.c.r_in = p->mask_radius >= 0 ? p->mask_radius : 0.0; /* automatic: 0 for these methods */
     r.c.r_out = p->outer_radius > 0 ? GL_SUB_MIN(p->outer_radius, rmax) : rmax;
@@ -641,12 +642,8 @@ gl_status gl_subtract_run_streamed(const char *path, const double *angles,
     r.c.usable = usable;
     for (long i = 0; i < r.nf; i++)
         r.c.nusable += usable[i];
-    if (r.c.nusable == 0) {
-        st =
-            gl_error_set(GL_ERR_INPUT, "%s: no frame holds data between %g and %g px from the star",
-                         path, r.c.r_in, r.c.r_out);
+    if ((st = sub_usable_check(&r.c, path)))
         goto cleanup;
-    }
     if ((st = check_sequence(&r, kmax)))
         goto cleanup;
 

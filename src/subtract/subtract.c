@@ -96,6 +96,54 @@ static gl_status record_rings(gl_header *h, const sub_report *r)
     return st;
 }
 
+/* The frames with usable[i] == 0 as "3, 7, 10-14" (0-based, plus offset),
+ * cut short with "..." when it does not fit. */
+static void frame_list(const unsigned char *usable, long n, long offset, char *text, size_t size)
+{
+    size_t len = 0;
+    text[0] = '\0';
+    for (long i = 0; i < n; i++) {
+        if (usable[i])
+            continue;
+        long j = i;
+        while (j + 1 < n && !usable[j + 1])
+            j++;
+        char piece[48];
+        snprintf(piece, sizeof piece, j > i ? "%s%ld-%ld" : "%s%ld", len ? ", " : "", i + offset,
+                 j + offset);
+        if (len + strlen(piece) + 6 >= size) {
+            snprintf(text + len, size - len, ", ...");
+            return;
+        }
+        len += (size_t)snprintf(text + len, size - len, "%s", piece);
+        i = j;
+    }
+}
+
+gl_status sub_usable_check(const sub_ctx *c, const char *name)
+{
+    long nempty = c->nframe - c->nusable;
+    if (nempty == 0)
+        return GL_OK;
+    char list[400];
+    frame_list(c->usable, c->nframe, c->p->frame_offset, list, sizeof list);
+    if (!name)
+        name = "the science cube";
+    /* the rule of align's frame selection: a sequence needs at least half
+     * of its frames */
+    if (2 * c->nusable < c->nframe)
+        return gl_error_set(GL_ERR_INPUT,
+                            "%s: only %ld of %ld frames hold data between %.1f and %.1f px from "
+                            "the star (frames %s, counted from 0, have no finite pixel there): "
+                            "at least half are needed; check the cube or leave those frames out",
+                            name, c->nusable, c->nframe, c->r_in, c->r_out, list);
+    gl_log(GL_LOG_WARN,
+           "%s: %ld of %ld frames hold no data between %.1f and %.1f px from the star (no "
+           "finite pixel) and are left out: frame%s %s (counted from 0)",
+           name, nempty, c->nframe, c->r_in, c->r_out, nempty > 1 ? "s" : "", list);
+    return GL_OK;
+}
+
 gl_status sub_record_params(gl_header *h, const gl_subtract_params *p, const sub_ctx *c,
                             int nplanes, int uses_modes, const gl_subtract_result *res)
 {
@@ -149,11 +197,31 @@ gl_status sub_record_params(gl_header *h, const gl_subtract_params *p, const sub
     SET(gl_header_set_str(h, "GLSINTRP", gl_interp_name(p->interp), "derotation interpolator"));
     SET(gl_header_set_str(h, "GLSCOMB", gl_combine_name(p->combine), "frame combination"));
     SET(gl_header_set_int(h, "GLSNFRM", c->nusable, "science frames used"));
+    SET(gl_header_set_int(h, "GLSNDROP", c->nframe - c->nusable,
+                          "frames left out: no finite pixel in the region"));
+    if (c->nusable < c->nframe) {
+        char list[400], hist[480];
+        frame_list(c->usable, c->nframe, p->frame_offset, list, sizeof list);
+        snprintf(hist, sizeof hist, "frames left out (no finite pixel in the region, from 0): %s",
+                 list);
+        SET(gl_header_add_history(h, hist));
+    }
     SET(gl_header_set_int(h, "GLSNREF", c->nref, "reference frames used (RDI)"));
     if (c->nref > 0) {
         SET(gl_header_set_str(h, "GLSREFS", p->refs_use == GL_REFS_ONLY ? "refs" : "both",
                               "frames in the basis"));
         SET(gl_header_set_int(h, "GLSRBEST", p->refs_best, "best-correlated refs kept (0 all)"));
+    }
+    if (c->nchan > 1) {
+        SET(gl_header_set_int(h, "GLSNCHAN", c->nchan, "wavelength channels per input frame"));
+        if (p->sdi != GL_SDI_CHANNELS) {
+            SET(gl_header_set_str(h, "GLSSDI", "average", "channels averaged, no spectral step"));
+            snprintf(text, sizeof text,
+                     "the %ld wavelength channels of each frame averaged (NaN ignored) before "
+                     "the subtraction (no --spectral-step)",
+                     c->nchan);
+            SET(gl_header_add_history(h, text));
+        }
     }
     if (p->sdi == GL_SDI_CHANNELS) {
         SET(gl_header_set_str(h, "GLSSDI", "channels", "spectral step"));
@@ -225,6 +293,7 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
     c.ny = ny;
     c.npix = (long)np;
     c.nframe = nf;
+    c.nchan = cube->nchan;
     c.angles = angles;
     double cx = (double)(nx / 2), cy = (double)(ny / 2);
     double rmax = GL_SUB_MIN(GL_SUB_MIN(cx, cy), GL_SUB_MIN((double)nx - cx, (double)ny - cy));
@@ -238,6 +307,19 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
     if (cube->nchan == 1)
         c.sci = cube->data;
     else {
+        if (p->sdi != GL_SDI_CHANNELS)
+            gl_log(GL_LOG_INFO,
+                   "%s: %ld wavelength channels per frame, averaged into one image per frame "
+                   "(NaN ignored)%s before the subtraction; --spectral-step subtracts the star "
+                   "across the channels first",
+                   p->cube_name ? p->cube_name : "the science cube", cube->nchan,
+                   refs && refs->nchan > 1 ? ", as are the reference cube's," : "");
+        else
+            gl_log(GL_LOG_INFO,
+                   "%s: %ld wavelength channels per frame: the spectral step (%ld KL mode%s "
+                   "across the channels of each frame), then the channels averaged",
+                   p->cube_name ? p->cube_name : "the science cube", cube->nchan, p->sdi_modes,
+                   p->sdi_modes > 1 ? "s" : "");
         st = p->sdi == GL_SDI_CHANNELS ? sub_sdi_frames(cube, p, c.r_in, c.r_out, &sci_owned)
                                        : gl_cube_channels_average(cube, &sci_owned);
         if (st)
@@ -280,11 +362,8 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
         }
     }
     c.usable = usable;
-    if (c.nusable == 0) {
-        st = gl_error_set(GL_ERR_INPUT, "no frame holds data between %g and %g px from the star",
-                          c.r_in, c.r_out);
+    if ((st = sub_usable_check(&c, p->cube_name)))
         goto cleanup;
-    }
 
     /* reference frames */
     if (refs && p->method != GL_SUBTRACT_NONE) {

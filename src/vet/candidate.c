@@ -129,6 +129,8 @@ gl_status gl_vet_candidate(const gl_cube *cube, const double *angles, const gl_c
     float *model = NULL;
     gl_status st;
     memset(out, 0, sizeof *out);
+    out->given_sep = sep0;
+    out->given_pa = pa0;
     if (!(vp->merit_radius_fwhm > 0.2 && vp->merit_radius_fwhm <= 3) ||
         !(vp->ring_half_fwhm >= 1.5 && vp->ring_half_fwhm <= 10) || vp->error_fakes < 0 ||
         vp->error_fakes > 64 || vp->max_evals < 10 || !(vp->threshold_sigma > 0) ||

@@ -177,7 +177,15 @@ gl_status vet_stats_run(vet_problem *p, const gl_cube *cube, double x, double y,
             return st;
         half->naxis = cube->naxis;
         memcpy(half->data, gl_cube_plane(cube, 0, f0), gl_cube_size(half) * sizeof *half->data);
-        if (snr_of_run(p, half, p->angles + f0, &pl->half_sp, x, y, v, &np, pl->why_halves,
+        /* messages about its frames name them as frames of the whole sequence */
+        gl_subtract_params hs = pl->half_sp;
+        char name[1200];
+        snprintf(name, sizeof name, "%s, %s half (frames %ld-%ld)",
+                 hs.cube_name ? hs.cube_name : "the science cube", k ? "second" : "first", f0,
+                 f1 - 1);
+        hs.cube_name = name;
+        hs.frame_offset = f0;
+        if (snr_of_run(p, half, p->angles + f0, &hs, x, y, v, &np, pl->why_halves,
                        sizeof pl->why_halves))
             s->half[k] = v[0];
         gl_cube_free(half);

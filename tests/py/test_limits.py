@@ -386,6 +386,38 @@ def test_throughput_matches_numpy_injection(sim, tmp_path, method, opts):
     print(method, "fake sep, plane, gloam throughput, numpy injection:", checked)
 
 
+def written_files(stderr):
+    """The products a command's "wrote ..." log lines list: each group is a
+    file and its twins of the same name, "a.limits.csv (.ecsv, .fits)"."""
+    import re
+    files = []
+    for line in stderr.splitlines():
+        m = re.match(r"gloam \w+: wrote (.*)$", line)
+        if not m:
+            continue
+        for first, twins in re.findall(r"(\S+?)(?: \(([^)]*)\))?(?:, |$)", m.group(1)):
+            files.append(first)
+            stem = first[:first.rindex(".")]
+            files += [stem + t for t in twins.split(", ") if t]
+    return files
+
+
+def test_log_lists_every_product(sim, tmp_path):
+    """The log names every file limits wrote (the .pdf and the ECSV twins
+    included), each once, and nothing it did not write."""
+    d, fwhm, amp, angles = sim
+    (tmp_path / "c.csv").write_text("sep_px,pa_deg\n12,40\n")
+    out = tmp_path / "out"
+    out.mkdir()
+    r = ok("limits", d / "s" / "cube.fits", "--angles", d / "s" / "angles.txt", "--fwhm", fwhm,
+           "--method", "median-frame", "--mask-radius", 4, "--psf", d / "gpsf.fits",
+           "--candidates", tmp_path / "c.csv", "--out", out / "l")
+    listed = written_files(r.stderr)
+    assert len(listed) == len(set(listed)), listed
+    assert sorted(listed) == sorted(str(p) for p in out.iterdir()), (listed, r.stderr)
+    assert str(out / "l.limits.pdf") in listed and str(out / "l.companions.ecsv") in listed
+
+
 # ---- 4. statistical calibration ----------------------------------------------
 
 CAL_N, CAL_NF = 64, 30

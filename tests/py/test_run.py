@@ -356,7 +356,8 @@ def test_a_failed_step_is_reported_and_the_run_stops(sequence, tmp_path):
     assert s["steps"]["align"]["state"] == "ran"
     # like every product, a run folder needs its parent folder
     r = gloam("run", plan, "--out", tmp_path / "no" / "such")
-    assert r.returncode == 1 and "its parent folder does not exist" in r.stderr
+    assert r.returncode == 1 and "the output folder" in r.stderr
+    assert str(tmp_path / "no") in r.stderr and "does not exist" in r.stderr
     assert not (tmp_path / "no").exists()
 
 
@@ -587,3 +588,93 @@ def test_survey_under_mpirun_equals_the_serial_survey(survey, tmp_path):
     assert (serial / "survey.csv").read_bytes() == (parallel / "survey.csv").read_bytes()
     for name in ("Orlen-7", "Tarn-12"):
         same_products(serial / name, parallel / name)
+
+
+# ---- progress on a terminal ----------------------------------------------------
+
+BAR = __import__("re").compile(r"^  (\S.{0,11}?) *\[[#.]{24}\] +\d+%")
+
+
+def run_on_terminal(*args):
+    """Runs gloam with stderr on a pseudo-terminal (Python's pty module), as
+    a user at a terminal would; returns the exit status and what the
+    terminal received."""
+    import pty
+    import select
+    master, slave = pty.openpty()
+    p = subprocess.Popen([GLOAM, *map(str, args)], stdin=subprocess.DEVNULL,
+                         stdout=subprocess.DEVNULL, stderr=slave)
+    os.close(slave)
+    got = b""
+    while True:
+        ready, _, _ = select.select([master], [], [], 0.2)
+        if ready:
+            try:
+                chunk = os.read(master, 1 << 16)
+            except OSError:  # the child closed the terminal
+                break
+            if not chunk:
+                break
+            got += chunk
+        elif p.poll() is not None:
+            break
+    p.wait()
+    os.close(master)
+    return p.returncode, got.decode()
+
+
+def bars(text):
+    """The pieces of terminal output between carriage returns and newlines,
+    and the task named by each progress bar among them."""
+    pieces = [s for line in text.replace("\r\n", "\n").split("\n") for s in line.split("\r")]
+    return pieces, [m.group(1) for m in map(BAR.match, pieces) if m]
+
+
+@pytest.mark.parametrize("what", ["limits", "vet", "run"])
+def test_one_progress_bar_on_a_terminal_none_when_piped(sequence, tmp_path, what):
+    """Commands that run other stages inside (limits its subtractions, vet
+    its fits and fakes, run whole commands) draw one bar at a time on a
+    terminal: the outer task's, the inner one only as its label, never a
+    second bar, never a message on the bar's line, no line wider than 79
+    characters. Piped, stderr holds no progress at all (no carriage return,
+    no bar), and neither does a run folder's log.txt."""
+    d = sequence
+    common = ["--angles", d / "sim" / "angles.txt", "--psf", d / "sim" / "psf.fits",
+              "--method", "median-frame", "--mask-radius", 4]
+    if what == "limits":
+        args = ["limits", d / "sim" / "cube.fits", *common, "--out", tmp_path / "l"]
+    elif what == "vet":
+        (tmp_path / "c.csv").write_text("sep_px,pa_deg\n14,60\n")
+        args = ["vet", d / "sim" / "cube.fits", *common, "--candidates", tmp_path / "c.csv",
+                "--error-fakes", 2, "--out", tmp_path / "v"]
+    else:
+        plan = write_plan(d, name="bars.ini", steps=("subtract", "detect", "limits", "vet"))
+        args = ["run", plan, "--out", tmp_path / "run"]
+    rc, text = run_on_terminal(*args)
+    assert rc == 0, text
+    pieces, tasks = bars(text)
+    assert tasks, text  # on a terminal the progress is shown
+    drawn = [p for p in pieces if BAR.match(p) or (p and not p.strip())]  # bars, clearings
+    assert all(len(p) <= 79 for p in drawn), [p for p in drawn if len(p) > 79]
+    for p in pieces:  # a message never shares the bar's line
+        assert not (BAR.match(p) and "gloam " in p), p
+        assert p.count("] ") <= 1 and p.count("[") <= 2, p  # one bar (and one label)
+    outer = {"limits": "limits", "vet": "vet", "run": "run"}[what]
+    assert outer in tasks
+    # once the outer task has started, every bar is the outer one until it ends
+    first = tasks.index(outer)
+    assert set(tasks[first:]) == {outer}, tasks
+    if what == "run":
+        assert set(tasks) == {"run"}, tasks
+    # piped: nothing of the bar
+    out = tmp_path / "piped"
+    out.mkdir()
+    args = [str(a).replace(str(tmp_path / "l"), str(out / "l"))
+            .replace(str(tmp_path / "v"), str(out / "v"))
+            .replace(str(tmp_path / "run"), str(out / "run")) for a in args]
+    r = gloam(*args)
+    assert r.returncode == 0, r.stderr
+    assert "\r" not in r.stderr and not bars(r.stderr)[1], r.stderr
+    if what == "run":
+        log = (out / "run" / "log.txt").read_text()
+        assert "\r" not in log and not bars(log)[1]

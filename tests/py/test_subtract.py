@@ -512,6 +512,90 @@ def test_no_overwrite_without_flag(tmp_path):
     assert fits.getdata(tmp_path / "o.fits").shape == (32, 32)
 
 
+# ---- frames without data, channels ---------------------------------------------
+
+@pytest.mark.parametrize("streamed", [False, True], ids=["in-memory", "streamed"])
+def test_empty_frames_are_named_and_left_out(tmp_path, streamed):
+    """All-NaN frames: one warning naming the file and the frames (0-based,
+    ranges joined), GLSNDROP and a HISTORY card in the header, and the same
+    product as the sequence with those frames deleted by numpy (an invariant:
+    a frame without data takes no part in the subtraction)."""
+    cube, angles, _ = make_sequence(n=48, nf=30, sep=10)
+    empty = [4, 11, 12]
+    holed = cube.copy()
+    holed[empty] = np.nan
+    c, a = write_inputs(tmp_path, holed, angles, name="holed")
+    keep = [i for i in range(len(angles)) if i not in empty]
+    c2, a2 = write_inputs(tmp_path, cube[keep], angles[keep], name="kept")
+    extra = ["--memory-limit", "1M"] if streamed else []
+    opts = ["--fwhm", FWHM, "--method", "klip-frame", "--modes", 3, *extra]
+    r = run("subtract", c, "--angles", a, "--out", tmp_path / "o.fits", *opts)
+    assert r.returncode == 0, r.stderr
+    warn = [l for l in r.stderr.splitlines() if "left out" in l]
+    assert len(warn) == 1, r.stderr
+    assert "warning" in warn[0] and str(c) in warn[0], warn[0]
+    assert "3 of 30 frames" in warn[0] and "frames 4, 11-12 (counted from 0)" in warn[0]
+    assert "27 of 30 frames" in r.stderr  # the summary line
+    h = fits.getheader(tmp_path / "o.fits")
+    assert h["GLSNDROP"] == 3 and h["GLSNFRM"] == 27
+    assert any("frames left out" in t and "4, 11-12" in t for t in h["HISTORY"])
+    r = run("subtract", c2, "--angles", a2, "--out", tmp_path / "k.fits", *opts)
+    assert r.returncode == 0, r.stderr
+    assert "left out" not in r.stderr and fits.getheader(tmp_path / "k.fits")["GLSNDROP"] == 0
+    got, ref = fits.getdata(tmp_path / "o.fits"), fits.getdata(tmp_path / "k.fits")
+    assert np.array_equal(np.isnan(got), np.isnan(ref))
+    assert rel_diff(got[np.isfinite(ref)], ref[np.isfinite(ref)]) < 1e-5
+
+
+@pytest.mark.parametrize("streamed", [False, True], ids=["in-memory", "streamed"])
+def test_mostly_empty_sequence_is_refused(tmp_path, streamed):
+    """Fewer than half of the frames with data (the rule of align's frame
+    selection): exit 1, one line naming the file, the count and the frames,
+    nothing written."""
+    cube, angles, _ = make_sequence(n=48, nf=30, sep=10)
+    cube[:16] = np.nan
+    c, a = write_inputs(tmp_path, cube, angles)
+    before = sorted(p.name for p in tmp_path.iterdir())
+    extra = ["--memory-limit", "1M"] if streamed else []
+    r = run("subtract", c, "--angles", a, "--fwhm", FWHM, "--out", tmp_path / "o.fits", *extra)
+    assert r.returncode == 1, r.stderr
+    lines = r.stderr.strip().splitlines()
+    assert len(lines) == 1, r.stderr
+    assert str(c) in lines[0] and "only 14 of 30 frames hold data" in lines[0], lines[0]
+    assert "frames 0-15" in lines[0] and "at least half" in lines[0]
+    assert sorted(p.name for p in tmp_path.iterdir()) == before
+
+
+def test_channels_averaged_are_said(tmp_path):
+    """A 4-D cube without --spectral-step: one log line naming the file says
+    the channels are averaged, the header says it (GLSSDI = 'average',
+    GLSNCHAN, HISTORY), and the product equals that of the numpy nanmean
+    over the channels (NaN ignored, as docs/subtract.md states)."""
+    cube, angles, _ = make_sequence(n=48, nf=20, sep=10)
+    rng = np.random.default_rng(7)
+    four = np.stack([cube * s for s in (0.9, 1.0, 1.1)], axis=1)
+    four += 0.01 * rng.standard_normal(four.shape).astype(np.float32)
+    four[3, 1, 10:14, 10:14] = np.nan  # a hole in one channel
+    c, a = write_inputs(tmp_path, four.astype(np.float32), angles, name="four")
+    mean = np.nanmean(four.astype(np.float64), axis=1).astype(np.float32)
+    c3, a3 = write_inputs(tmp_path, mean, angles, name="mean")
+    opts = ["--fwhm", FWHM, "--method", "klip-frame", "--modes", 3]
+    r = run("subtract", c, "--angles", a, "--out", tmp_path / "o.fits", *opts)
+    assert r.returncode == 0, r.stderr
+    said = [l for l in r.stderr.splitlines() if "wavelength channels" in l]
+    assert len(said) == 1 and str(c) in said[0], r.stderr
+    assert "3 wavelength channels per frame, averaged" in said[0] and "--spectral-step" in said[0]
+    h = fits.getheader(tmp_path / "o.fits")
+    assert h["GLSSDI"] == "average" and h["GLSNCHAN"] == 3
+    assert any("channels of each frame averaged" in t for t in h["HISTORY"])
+    r = run("subtract", c3, "--angles", a3, "--out", tmp_path / "m.fits", *opts)
+    assert r.returncode == 0, r.stderr
+    assert "wavelength channels" not in r.stderr and "GLSSDI" not in fits.getheader(tmp_path / "m.fits")
+    got, ref = fits.getdata(tmp_path / "o.fits"), fits.getdata(tmp_path / "m.fits")
+    ok = np.isfinite(ref)
+    assert np.array_equal(np.isnan(got), ~ok) and rel_diff(got[ok], ref[ok]) < 1e-4
+
+
 # ---- on the project's simulator ------------------------------------------------
 
 @pytest.fixture(scope="module")

@@ -159,6 +159,41 @@ def test_fwhm_auto(sim, aligned, tmp_path):
     assert len(p.stderr.strip().splitlines()) == 1, p.stderr
 
 
+def test_fwhm_auto_says_what_to_do(sim, aligned, tmp_path):
+    """--fwhm auto with neither a PSF nor a recorded FWHM: one line naming the
+    file, saying that no earlier step recorded one, and offering --fwhm PX and
+    (where the command has it) --psf; exit 1, nothing written. subtract --psf
+    measures the FWHM (alone it implies --fwhm auto), the value inspect --psf
+    reports; --psf beside a number is refused as unused."""
+    import json
+    before = sorted(os.listdir(tmp_path))
+    for cmd, has_psf in ((["subtract", sim / "cube.fits", "--angles", sim / "angles.txt",
+                           "--fwhm", "auto", "--out", tmp_path / "x.fits"], True),
+                         (["inspect", sim / "cube.fits", "--fwhm", "auto"], True),
+                         (["detect", sim / "cube.fits", "--fwhm", "auto", "--out",
+                           tmp_path / "d"], False)):
+        p = gloam(*cmd, ok=False)
+        lines = p.stderr.strip().splitlines()
+        assert p.returncode == 1 and len(lines) == 1, p.stderr
+        line = lines[0]
+        assert f"{sim / 'cube.fits'}: --fwhm auto" in line, line
+        assert "no earlier gloam step recorded one in this file" in line, line
+        assert "give --fwhm PX" in line, line
+        assert ("--psf PSF.fits" in line) and (("no --psf was given" in line) == has_psf), line
+    assert sorted(os.listdir(tmp_path)) == before
+    fwhm_psf = json.loads(gloam("inspect", sim / "cube.fits", "--psf", sim / "psf.fits",
+                                "--json").stdout)["psf"]["fwhm_px"]
+    for opts in (["--fwhm", "auto", "--psf", sim / "psf.fits"], ["--psf", sim / "psf.fits"]):
+        out = tmp_path / f"s{len(opts)}.fits"
+        p = gloam("subtract", aligned, *opts, "--out", out)
+        assert f"FWHM {fwhm_psf:.3f} px, measured on {sim / 'psf.fits'}" in p.stderr
+        assert abs(fits.getheader(out)["GLSFWHM"] - fwhm_psf) < 1e-9
+    p = gloam("subtract", aligned, "--fwhm", "4", "--psf", sim / "psf.fits", "--out",
+              tmp_path / "y.fits", ok=False)
+    assert p.returncode == 1 and "--psf is read only to measure the FWHM" in p.stderr
+    assert not (tmp_path / "y.fits").exists()
+
+
 def test_detect_maps_and_old_spelling(aligned, tmp_path):
     gloam("subtract", aligned, "--fwhm", "4", "--out", tmp_path / "s.fits", "--quiet")
     gloam("detect", tmp_path / "s.fits", "--out", tmp_path / "new", "--skip-flanking", "--quiet")
@@ -213,3 +248,38 @@ def test_missing_output_folder_is_named(sim, tmp_path, cmd):
     assert str(missing) in lines[0] and "does not exist" in lines[0], lines[0]
     assert ".tmp-" not in lines[0]
     assert os.listdir(tmp_path) == []
+
+
+@pytest.mark.parametrize("cmd", [
+    ["align", "{cube}", "--out", "{file}/a.fits"],
+    ["subtract", "{cube}", "--angles", "{angles}", "--fwhm", "4", "--out", "{file}/s.fits"],
+    ["subtract", "{cube}", "--angles", "{angles}", "--fwhm", "4", "--out", "{file}/"],
+    ["subtract", "{cube}", "--angles", "{angles}", "--fwhm", "4", "--out", "{file}/sub/s.fits"],
+    ["detect", "{cube}", "--fwhm", "4", "--out", "{file}/d"],
+    ["inject", "{cube}", "--angles", "{angles}", "--psf", "{psf}", "--companion", "10:0:1e-3",
+     "--out", "{file}/i.fits"],
+    ["limits", "{cube}", "--angles", "{angles}", "--psf", "{psf}", "--fwhm", "4", "--out",
+     "{file}/l"],
+    ["simulate", "{file}/dir", "--frames", "3", "--size", "32"],
+    ["simulate", "{file}/sub/dir", "--frames", "3", "--size", "32"],
+    ["run", "{plan}", "--out", "{file}/run"],
+])
+def test_output_folder_that_is_a_file_is_named(sim, tmp_path, cmd):
+    """The folder part of --out (or a folder above it) is an existing
+    regular file: the one line says that path is a file, not a folder (not
+    that a folder is missing), exit 1, nothing written, the file untouched."""
+    blocker = tmp_path / "some.txt"
+    blocker.write_text("notes\n")
+    plan = tmp_path / "plan.ini"
+    plan.write_text(f"[inputs]\ncube = {sim / 'cube.fits'}\nangles = {sim / 'angles.txt'}\n"
+                    f"psf = {sim / 'psf.fits'}\nfwhm = 4\n[steps]\nrun = subtract\n")
+    args = [a.format(cube=sim / "cube.fits", angles=sim / "angles.txt", psf=sim / "psf.fits",
+                     file=blocker, plan=plan) for a in cmd]
+    p = gloam(*args, ok=False)
+    assert p.returncode == 1
+    lines = p.stderr.strip().splitlines()
+    assert len(lines) == 1, p.stderr
+    assert f"{blocker} is a file, not a folder" in lines[0], lines[0]
+    assert "does not exist" not in lines[0] and ".tmp-" not in lines[0]
+    assert sorted(os.listdir(tmp_path)) == ["plan.ini", "some.txt"]
+    assert blocker.read_text() == "notes\n"

@@ -201,6 +201,70 @@ def test_products(recovered):
     assert reg.startswith("# Region file format: DS9 version 4.1") and "circle(" in reg
 
 
+def test_log_and_table_agree(recovered, tmp_path):
+    """The log's numbers are the table's, each named: the candidate table's
+    position (table_sep_px, table_pa_deg, equal to what was given), the start
+    of the fit (start_*) and the fit (sep_px, pa_deg, contrast), rounded as
+    printed (0.01 px, 0.01 deg, 3 significant digits)."""
+    import re
+    d = TRIAL_DIRS[6]
+    cands = tmp_path / "c.csv"
+    cands.write_text("sep_px,pa_deg\n10.4,148.7\n")
+    r = ok("vet", f"{d}/cube.fits", "--angles", f"{d}/angles.txt", "--psf", f"{d}/psf.fits",
+           *SUB, "--candidates", cands, "--error-fakes", 2, "--threads", 1, "--out",
+           tmp_path / "v")
+    row = read_csv(tmp_path / "v.vet.csv")[0]
+    assert row["table_sep_px"] == 10.4 and row["table_pa_deg"] == 148.7
+    m = re.search(r"candidate 1: ([\d.]+) px, ([\d.]+) deg in (\S+) \(table_sep_px", r.stderr)
+    assert m and m.group(3) == str(cands), r.stderr
+    assert float(m.group(1)) == round(row["table_sep_px"], 2)
+    assert float(m.group(2)) == round(row["table_pa_deg"], 2)
+    m = re.search(r"start of the fit ([\d.]+) px, ([\d.]+) deg, contrast ([\d.e+-]+):", r.stderr)
+    assert m, r.stderr
+    assert float(m.group(1)) == round(row["start_sep_px"], 2)
+    assert float(m.group(2)) == round(row["start_pa_deg"], 2)
+    assert float(m.group(3)) == float(f"{row['start_contrast']:.3g}")
+    m = re.search(r"fitted sep ([\d.]+) \+- [\d.]+ px, PA ([\d.]+) \+- [\d.]+ deg, "
+                  r"contrast ([\d.e+-]+) ", r.stderr)
+    assert m, r.stderr
+    assert float(m.group(1)) == round(row["sep_px"], 2)
+    assert float(m.group(2)) == round(row["pa_deg"], 2)
+    assert float(m.group(3)) == float(f"{row['contrast']:.3g}")
+    # the log lists every product written (the ECSV twin too), nothing else
+    written = re.search(r"gloam vet: wrote (.*)", r.stderr).group(1)
+    assert written == (f"{tmp_path / 'v.vet.csv'} (.ecsv, .fits, .reg), "
+                       f"{tmp_path / 'v.vet-1.png'} (.svg)"), written
+    assert sorted(os.listdir(tmp_path)) == sorted(
+        ["c.csv", "v.vet.csv", "v.vet.ecsv", "v.vet.fits", "v.vet.reg", "v.vet-1.png",
+         "v.vet-1.svg"])
+    with fits.open(tmp_path / "v.vet.fits") as h:
+        assert h["VET"].columns["table_sep_px"].unit == "pix"
+        assert h["VET"].data["table_pa_deg"][0] == 148.7
+
+
+def test_empty_frames_named_in_the_whole_sequence(recovered, tmp_path):
+    """All-NaN frames: vet's subtractions warn once each, naming the file and
+    the frames as frames of the whole sequence, also for the halves test
+    (whose subtractions run on a part of it)."""
+    d = TRIAL_DIRS[7]
+    with fits.open(f"{d}/cube.fits") as h:
+        data = h[0].data.astype(np.float32)
+        data[[3, 12]] = np.nan
+        fits.PrimaryHDU(data, h[0].header).writeto(tmp_path / "holed.fits")
+    (tmp_path / "c.csv").write_text("sep_px,pa_deg\n9,280\n")
+    r = ok("vet", tmp_path / "holed.fits", "--angles", f"{d}/angles.txt", "--psf",
+           f"{d}/psf.fits", *SUB, "--candidates", tmp_path / "c.csv", "--error-fakes", 2,
+           "--threads", 1, "--out", tmp_path / "v")
+    warned = [l for l in r.stderr.splitlines() if "left out" in l]
+    f = str(tmp_path / "holed.fits")
+    assert any(f"{f}: 2 of 16 frames" in l and "frames 3, 12 (counted from 0)" in l
+               for l in warned), warned
+    assert any(f"{f}, first half (frames 0-7): 1 of 8" in l and "frame 3 (" in l
+               for l in warned), warned
+    assert any(f"{f}, second half (frames 8-15): 1 of 8" in l and "frame 12 (" in l
+               for l in warned), warned
+
+
 def apparent_offsets(star, bg, mjds):
     """astropy: the star moved along its space motion, both to the GCRS of
     the date, the background's offset from the star in mas."""
