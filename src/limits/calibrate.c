@@ -179,6 +179,18 @@ static double solve(window *w, double q)
     }
     if (!(f >= 0))
         return NAN; /* saturated: the lobes grow as fast as the signal */
+    /* the values already computed at this point (the other root's solve, the
+     * classical contrast) narrow the bracket; it stays one: f(lo) < 0 <=
+     * f(hi) */
+    for (int k = 0; k < w->nkept; k++) {
+        double xk = w->kept_x[k], pk = w->kept_p[k];
+        if (xk > lo && xk < hi && !isnan(pk)) {
+            if (pk < q)
+                lo = xk;
+            else
+                hi = xk;
+        }
+    }
     gsl_function fn = {solve_fn, &args};
     gsl_root_fsolver *s = gsl_root_fsolver_alloc(gsl_root_fsolver_brent);
     if (!s)
