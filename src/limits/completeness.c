@@ -232,6 +232,7 @@ typedef struct dnct_args {
     double tau, nu, delta, lambda;
     double sl, o, alpha; /* sqrt(lambda), nu/2 - 1, tau / sqrt(nu) */
     limits_bessel_table *table;
+    int miss; /* 1: the integrand with 1 - Q (the probability of a miss) */
 } dnct_args;
 
 /* The integrand in u = sqrt(v): Q(tau u / sqrt(nu) - delta) times the density
@@ -239,13 +240,13 @@ typedef struct dnct_args {
  * (u / sqrt(lambda))^(nu/2 - 1) exp(-x) I_(nu/2 - 1)(x), x = sqrt(lambda) u,
  * that is u exp(-(u - sqrt(lambda))^2 / 2 + o log(u / sqrt(lambda)) + H(x)).
  * Q(t) = erfc(t / sqrt 2) / 2 (A&S 26.2.29); below t = -8.3, Q = 1 - 5e-17
- * is 1 in double precision. */
+ * is 1 in double precision (and 1 - Q above t = 8.3). */
 static double lobes_integrand(double u, const dnct_args *a)
 {
     double d = u - a->sl;
     double f =
         u * exp(-0.5 * d * d + a->o * log(u / a->sl) + log_bessel_at(a->table, a->o, a->sl * u));
-    double t = a->alpha * u - a->delta;
+    double t = a->miss ? a->delta - a->alpha * u : a->alpha * u - a->delta;
     return t < -8.3 ? f : 0.5 * erfc(t * M_SQRT1_2) * f;
 }
 
@@ -297,17 +298,29 @@ double gl_limits_completeness_lobes_tabled(limits_bessel_table *table, double de
      * tails at least as light as exp(-t^2 / 2): 10 on either side leave out
      * less than 1e-20. Q's step (centre u0, width w in u) is a piece of its
      * own, 8 w on either side; beyond it Q is within 6.2e-16 of 0 or 1, and
-     * the piece where it is 0 is left out. */
+     * the piece where it is 0 is left out. Where the step covers the whole
+     * side of [lo, hi] where Q would be 0, P = 1 - the integral of (1 - Q)
+     * times the density over the step (the density's integral over [lo, hi]
+     * is 1 within 1e-20): one piece instead of two. */
     double m = sqrt(nu + lambda), lo = GL_MAX(0.0, m - 10), hi = m + 10;
     double result;
     if (tau != 0) {
         double w = sqrt(nu) / fabs(tau), u0 = delta * sqrt(nu) / tau;
         double c1 = GL_MIN(GL_MAX(u0 - 8 * w, lo), hi), c2 = GL_MIN(GL_MAX(u0 + 8 * w, lo), hi);
-        result = gauss_legendre(&a, c1, c2, t);
-        if (tau > 0)
-            result += gauss_legendre(&a, lo, c1, t);
-        else
-            result += gauss_legendre(&a, c2, hi, t);
+        if (tau > 0 && c1 > lo && c2 == hi) {
+            /* Q's step reaches past the density: one piece, of the miss */
+            a.miss = 1;
+            result = 1 - gauss_legendre(&a, c1, hi, t);
+        } else if (tau < 0 && c2 < hi && c1 == lo) {
+            a.miss = 1;
+            result = 1 - gauss_legendre(&a, lo, c2, t);
+        } else {
+            result = gauss_legendre(&a, c1, c2, t);
+            if (tau > 0)
+                result += gauss_legendre(&a, lo, c1, t);
+            else
+                result += gauss_legendre(&a, c2, hi, t);
+        }
     } else {
         result = gauss_legendre(&a, lo, hi, t);
     }
