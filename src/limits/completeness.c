@@ -221,7 +221,7 @@ static double log_bessel_at(limits_bessel_table *t, double o, double x)
     const double *c = t->coef[k];
     double b1 = 0, b2 = 0, y2 = 2 * y;
     for (int n = t->nterms[k] - 1; n >= 1; n--) {
-        double b0 = y2 * b1 - b2 + c[n];
+        double b0 = (c[n] - b2) + y2 * b1; /* the subtraction off the chain of b1 */
         b2 = b1;
         b1 = b0;
     }
