@@ -101,8 +101,8 @@ static void light_centre(const float *img, long nx, long ny, double *cx, double 
 
 /* Fraction of `flux` (the finite sum of the image) within radius r of
  * (cx, cy), whole pixels by their centres. */
-static double encircled_fraction(const float *img, long nx, long ny, double cx, double cy,
-                                 double r, double flux)
+static double encircled_fraction(const float *img, long nx, long ny, double cx, double cy, double r,
+                                 double flux)
 {
     double s = 0;
     for (long y = GL_MAX((long)floor(cy - r), 0); y <= GL_MIN((long)ceil(cy + r), ny - 1); y++)
