@@ -28,6 +28,9 @@
  * p = 1/2 exp(-(v + lambda) / 2) (v / lambda)^(nu/4 - 1/2) I_(nu/2 - 1)(sqrt(lambda v)),
  * GSL's scaled modified Bessel functions keeping it finite; integrated in
  * u = sqrt(v) by fixed Gauss-Legendre pieces (gl_limits_completeness_lobes).
+ * The calibration asks for many integrals of one order nu/2 - 1: there the
+ * logarithm of the Bessel function comes from a Chebyshev table of that order
+ * built piece by piece from GSL's values (gl_limits_completeness_lobes_tabled).
  */
 #include "core/internal.h"
 #include "gloam/limits.h"
