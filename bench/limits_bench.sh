@@ -1,8 +1,8 @@
 #!/usr/bin/env bash
 # Contrast-curve benchmark: one `gloam subtract` (pca, modes 5,10,20,50) and
 # one `gloam limits` with the same options on the same cube; prints both wall
-# times and their ratio (issue 13 target: limits <= 3x subtract). Not part of
-# the test suite.
+# and CPU (user + system) times, their ratios and the load average (issue 13
+# target: limits <= 3x subtract). Not part of the test suite.
 #
 # Usage: bench/limits_bench.sh [FRAMES [SIZE [THREADS]]]   (default 400 200 2)
 #
@@ -46,15 +46,19 @@ PY
 
 OPTS=(--angles "$DIR/angles.txt" --fwhm 4 --method klip-frame --modes 5,10,20,50 --mask-radius 6
       --threads "$THREADS" --quiet)
-now() { date +%s.%N; }
-t0=$(now)
-"$GLOAM" subtract "$DIR/cube.fits" "${OPTS[@]}" --out "$DIR/sub.fits"
-t1=$(now)
-"$GLOAM" limits "$DIR/cube.fits" "${OPTS[@]}" --psf "$DIR/psf.fits" --out "$DIR/lim"
-t2=$(now)
+# wall, user and system seconds of one command (bash's `time`)
+TIMEFORMAT='%R %U %S'
+timed() { { time "$@" 2>>"$DIR/stderr"; } 2>&1 | tail -1; }
+load0=$(cut -d' ' -f1-3 /proc/loadavg)
+read -r sw su ss < <(timed "$GLOAM" subtract "$DIR/cube.fits" "${OPTS[@]}" --out "$DIR/sub.fits")
+read -r lw lu ls < <(timed "$GLOAM" limits "$DIR/cube.fits" "${OPTS[@]}" --psf "$DIR/psf.fits" --out "$DIR/lim")
+load1=$(cut -d' ' -f1-3 /proc/loadavg)
+[ -s "$DIR/stderr" ] && cat "$DIR/stderr" >&2
 nf=$(($(wc -l <"$DIR/lim.fakes.csv") - 1))
-awk -v a="$t0" -v b="$t1" -v c="$t2" -v f="$FRAMES" -v s="$SIZE" -v t="$THREADS" -v k="$nf" 'BEGIN {
+awk -v sw="$sw" -v su="$su" -v ss="$ss" -v lw="$lw" -v lu="$lu" -v ls="$ls" -v f="$FRAMES" \
+    -v s="$SIZE" -v t="$THREADS" -v k="$nf" -v l0="$load0" -v l1="$load1" 'BEGIN {
     printf "cube %d frames of %dx%d, pca modes 5,10,20,50, --threads %d\n", f, s, s, t
-    printf "gloam subtract: %7.2f s\n", b - a
-    printf "gloam limits:   %7.2f s  (%d fakes, 2 runs with fakes)\n", c - b, k
-    printf "ratio limits / subtract: %.2f (target <= 3)\n", (c - b) / (b - a) }'
+    printf "load average before %s, after %s\n", l0, l1
+    printf "gloam subtract: %7.2f s wall, %7.2f s CPU\n", sw, su + ss
+    printf "gloam limits:   %7.2f s wall, %7.2f s CPU  (%d fakes, 2 runs with fakes)\n", lw, lu + ls, k
+    printf "ratio limits / subtract: %.2f wall, %.2f CPU (target <= 3)\n", lw / sw, (lu + ls) / (su + ss) }'

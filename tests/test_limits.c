@@ -14,6 +14,7 @@
 #include "gloam/gloam.h"
 #include "check.h"
 #include "fixtures.h"
+#include "limits/internal.h"
 
 #include <gsl/gsl_cdf.h>
 #include <gsl/gsl_randist.h>
@@ -100,6 +101,50 @@ static void test_completeness_lobes(void)
     gsl_rng_free(rng);
 }
 
+/* The tabulated Bessel function (one table per order, as the calibration
+ * uses it) against GSL's modified Bessel functions evaluated at every node
+ * (gl_limits_completeness_lobes without a table): random parameter sets over
+ * the range the curves meet (nu 1-250, tau 1-41, lambda 1e-10 to 1e12, delta
+ * from below the threshold to far above it), and the scipy cases above. */
+static void test_completeness_lobes_table(void)
+{
+    static const double cases[][5] = {
+        {5, 3, 5, 4, 0.300891456916811},   {8, 20, 6, 10, 0.130927141574529},
+        {3, 0.5, 2, 1, 0.736827587903615}, {10, 100, 7, 26, 0.000519987545854053},
+        {6, 2, 5.5, 2, 0.404569143333792},
+    };
+    for (size_t i = 0; i < sizeof cases / sizeof cases[0]; i++) {
+        limits_bessel_table *t = gl_limits_bessel_table_new(cases[i][3] / 2 - 1);
+        CHECK(t != NULL, "table of order %g", cases[i][3] / 2 - 1);
+        CHECK_CLOSE(gl_limits_completeness_lobes_tabled(t, cases[i][0], cases[i][1], cases[i][2],
+                                                        cases[i][3]),
+                    cases[i][4], 1e-8, "tabled doubly noncentral t vs scipy ncx2 + quad");
+        gl_limits_bessel_table_free(t);
+    }
+    gsl_rng *rng = gsl_rng_alloc(gsl_rng_mt19937);
+    gsl_rng_set(rng, 11);
+    double worst = 0;
+    for (int k = 0; k < 40; k++) {
+        double nu = (double)(1 + gsl_rng_uniform_int(rng, 250));
+        limits_bessel_table *t = gl_limits_bessel_table_new(nu / 2 - 1);
+        for (int i = 0; i < 25; i++) {
+            double tau = 1 + 40 * gsl_rng_uniform(rng);
+            double lambda = pow(10, -10 + 22 * gsl_rng_uniform(rng));
+            double delta =
+                tau * (0.5 + 2 * gsl_rng_uniform(rng)) + sqrt(lambda) * gsl_rng_uniform(rng);
+            double p0 = gl_limits_completeness_lobes(delta, lambda, tau, nu);
+            double p1 = gl_limits_completeness_lobes_tabled(t, delta, lambda, tau, nu);
+            worst = fmax(worst, fabs(p1 - p0));
+        }
+        gl_limits_bessel_table_free(t);
+    }
+    CHECK(worst < 1e-12, "tabled vs direct Bessel: largest difference %g", worst);
+    CHECK(gl_limits_bessel_table_new(-1) == NULL, "order -1 refused");
+    CHECK_CLOSE(gl_limits_completeness_lobes_tabled(NULL, 8, 20, 6, 10),
+                gl_limits_completeness_lobes(8, 20, 6, 10), 0, "no table: direct");
+    gsl_rng_free(rng);
+}
+
 /* White Gaussian noise cube (no star) and a Gaussian PSF stamp. */
 static void test_curves(void)
 {
@@ -171,6 +216,7 @@ int main(void)
 {
     test_completeness();
     test_completeness_lobes();
+    test_completeness_lobes_table();
     test_curves();
     CHECK_DONE();
 }

@@ -38,6 +38,7 @@
 #include "core/internal.h"
 #include "limits/internal.h"
 
+#include <gsl/gsl_cdf.h>
 #include <gsl/gsl_errno.h>
 #include <gsl/gsl_integration.h>
 #include <gsl/gsl_roots.h>
@@ -47,6 +48,9 @@
 #define MAX_WINDOW 64
 /* Gauss-Laguerre nodes for the scatter of the curve's own noise estimate */
 #define NOISE_NODES 16
+/* mean completeness values kept per point (the root finders of the 50% and
+ * q contrasts ask again for the values of their common bracket) */
+#define KEPT_VALUES 64
 
 /* Fakes that calibrate one point: their responses moved to the point. */
 typedef struct window {
@@ -59,6 +63,9 @@ typedef struct window {
      * summing to 1); one node s = 1 when the noise is taken as exact */
     int ns;
     double s[NOISE_NODES], ws[NOISE_NODES];
+    limits_bessel_table *bessel; /* of order nu/2 - 1; NULL: direct */
+    int nkept;
+    double kept_x[KEPT_VALUES], kept_p[KEPT_VALUES];
 } window;
 
 /* Least-squares line through (x, y), evaluated at xq clamped to the range of
@@ -116,36 +123,57 @@ static void noise_nodes(window *w, double m)
  * contrast has x s units of the true noise, s = sigma_hat / sigma, and the
  * detection test on an independent sequence sees it against that sequence's
  * own noise; averaged over s (the predictive completeness). */
-static double mean_completeness(const window *w, double x)
+static double mean_completeness(window *w, double x)
 {
+    for (int k = 0; k < w->nkept; k++)
+        if (w->kept_x[k] == x)
+            return w->kept_p[k];
     double s = 0;
     for (int j = 0; j < w->ns; j++) {
         double xs = x * w->s[j], sj = 0;
         for (int i = 0; i < w->n; i++) {
-            double p = gl_limits_completeness_lobes(xs * w->a[i], xs * xs * w->h[i] * w->h[i],
-                                                    w->tau, w->nu);
-            if (isnan(p))
-                return NAN;
+            double p = gl_limits_completeness_lobes_tabled(
+                w->bessel, xs * w->a[i], xs * xs * w->h[i] * w->h[i], w->tau, w->nu);
+            if (isnan(p)) {
+                s = NAN;
+                break;
+            }
             sj += p;
         }
+        if (isnan(s))
+            break;
         s += w->ws[j] * sj / w->n;
+    }
+    if (w->nkept < KEPT_VALUES) {
+        w->kept_x[w->nkept] = x;
+        w->kept_p[w->nkept++] = s;
     }
     return s;
 }
 
 typedef struct solve_args {
-    const window *w;
+    window *w;
     double q;
 } solve_args;
+
+/* The probit of the mean completeness minus that of q: the same root as
+ * P - q (the probit is increasing), but nearly straight in x where P is a
+ * sigmoid, so the root finder needs about half the steps near q = 0.95. P
+ * is held within [1e-300, 1 - 2^-53], where the probit is finite. */
+static double probit(double p)
+{
+    return gsl_cdf_ugaussian_Pinv(GL_MIN(GL_MAX(p, 1e-300), 1 - 0x1p-53));
+}
 
 static double solve_fn(double x, void *data)
 {
     const solve_args *a = data;
-    return mean_completeness(a->w, x) - a->q;
+    double p = mean_completeness(a->w, x);
+    return isnan(p) ? NAN : probit(p) - probit(a->q);
 }
 
 /* x with mean completeness q; NaN when none (saturation, numerics). */
-static double solve(const window *w, double q)
+static double solve(window *w, double q)
 {
     double amax = 0;
     for (int i = 0; i < w->n; i++)
@@ -162,6 +190,18 @@ static double solve(const window *w, double q)
     }
     if (!(f >= 0))
         return NAN; /* saturated: the lobes grow as fast as the signal */
+    /* the values already computed at this point (the other root's solve, the
+     * classical contrast) narrow the bracket; it stays one: f(lo) < 0 <=
+     * f(hi) */
+    for (int k = 0; k < w->nkept; k++) {
+        double xk = w->kept_x[k], pk = w->kept_p[k];
+        if (xk > lo && xk < hi && !isnan(pk)) {
+            if (pk < q)
+                lo = xk;
+            else
+                hi = xk;
+        }
+    }
     gsl_function fn = {solve_fn, &args};
     gsl_root_fsolver *s = gsl_root_fsolver_alloc(gsl_root_fsolver_brent);
     if (!s)
@@ -172,7 +212,7 @@ static double solve(const window *w, double q)
         if (gsl_root_fsolver_iterate(s) != GSL_SUCCESS)
             break;
         double a = gsl_root_fsolver_x_lower(s), b = gsl_root_fsolver_x_upper(s);
-        if (gsl_root_test_interval(a, b, 0, 1e-6) == GSL_SUCCESS) {
+        if (gsl_root_test_interval(a, b, 0, 1e-12) == GSL_SUCCESS) {
             x = gsl_root_fsolver_root(s);
             break;
         }
@@ -245,6 +285,7 @@ void gl_limits_calibrate_point(limits_point *pt, const gl_limits_fake *fakes, in
         return;
     double k = sqrt(1 + 1 / pt->nref);
     window w = {.n = n, .tau = pt->tau, .nu = pt->nref - 1};
+    w.bessel = gl_limits_bessel_table_new(w.nu / 2 - 1);
     noise_nodes(&w, pt->noise_dof);
     double H = line_at(r, h, n, pt->sep_px, minspread);
     for (int i = 0; i < n; i++) {
@@ -264,4 +305,5 @@ void gl_limits_calibrate_point(limits_point *pt, const gl_limits_fake *fakes, in
     pt->completeness = mean_completeness(&w, pt->contrast / unit);
     pt->contrast_c50 = solve(&w, 0.5) * unit;
     pt->contrast_cq = solve(&w, pt->q) * unit;
+    gl_limits_bessel_table_free(w.bessel);
 }

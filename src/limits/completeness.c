@@ -28,9 +28,13 @@
  * p = 1/2 exp(-(v + lambda) / 2) (v / lambda)^(nu/4 - 1/2) I_(nu/2 - 1)(sqrt(lambda v)),
  * GSL's scaled modified Bessel functions keeping it finite; integrated in
  * u = sqrt(v) by fixed Gauss-Legendre pieces (gl_limits_completeness_lobes).
+ * The calibration asks for many integrals of one order nu/2 - 1: there the
+ * logarithm of the Bessel function comes from a Chebyshev table of that order
+ * built piece by piece from GSL's values (gl_limits_completeness_lobes_tabled).
  */
 #include "core/internal.h"
 #include "gloam/limits.h"
+#include "limits/internal.h"
 
 #include <gsl/gsl_cdf.h>
 #include <gsl/gsl_errno.h>
@@ -71,10 +75,6 @@ double gl_limits_completeness(double delta, double tau, double nu)
     return result < 0 ? 0 : (result > 1 ? 1 : result);
 }
 
-typedef struct dnct_args {
-    double tau, nu, delta, lambda;
-} dnct_args;
-
 /* exp(-x) I_a(x) for any real order a (x > 0): I_(-b) = I_b + (2 / pi)
  * sin(b pi) K_b (Abramowitz & Stegun 9.6.2) for the orders below 0. */
 static double bessel_i_scaled(double a, double x)
@@ -90,9 +90,6 @@ static double bessel_i_scaled(double a, double x)
     return i + 2 / M_PI * sin(b * M_PI) * k * exp(-2 * x);
 }
 
-/* The integrand in u = sqrt(v): Q(tau u / sqrt(nu) - delta) times the density
- * of U = sqrt(V), 2 u p(u^2) = u exp(-(u - sqrt(lambda))^2 / 2)
- * (u / sqrt(lambda))^(nu/2 - 1) exp(-x) I_(nu/2 - 1)(x), x = sqrt(lambda) u. */
 /* log(exp(-x) I_a(x)); where GSL's value underflows (x small against the
  * order) the power series I_a(x) = (x/2)^a sum_k (x^2/4)^k / (k! Gamma(a + k
  * + 1)) (Abramowitz & Stegun 9.6.10) in logarithms. */
@@ -109,14 +106,151 @@ static double log_bessel_i_scaled(double a, double x)
     return a * log(0.5 * x) - lgamma(a + 1) - x + log(sum);
 }
 
+/* The table: H(x) = log(exp(-x) I_o(x)) by Chebyshev interpolation on eighths of octaves, x in
+ * 2^e [1/2 + k/16, 1/2 + (k + 1)/16), e = BESSEL_EMIN..BESSEL_EMAX - 1, every
+ * piece built the first time the quadrature needs it from BESSEL_NODES values
+ * at the Chebyshev points of the first kind (Press et al., Numerical Recipes,
+ * 3rd ed., 5.8). H is analytic off the imaginary axis: I_o(z) z^-o is
+ * entire, with zeros only on the imaginary axis for o > -1 (those of J_o;
+ * Abramowitz & Stegun 9.5.2, 9.6.3), and z^o adds the branch point at 0. Seen from
+ * a piece of half-width h centred at c >= 17 h, the nearest singularity is at
+ * least c away: the coefficients fall at least as 34^-n (the Bernstein
+ * ellipse through the origin; 60-100 per term measured), to the rounding of
+ * the values themselves (the level of the last four of the 16) by n = 9-11.
+ * The coefficients above BESSEL_FLOOR times that level are kept. A piece
+ * whose last four exceed BESSEL_TAIL of its scale (not converged), or whose
+ * values are not all finite, and x outside the octaves, are evaluated
+ * directly. */
+#define BESSEL_EMIN (-60)
+#define BESSEL_EMAX 1024
+#define BESSEL_SPLIT 8
+#define BESSEL_PIECES ((BESSEL_EMAX - BESSEL_EMIN) * BESSEL_SPLIT)
+#define BESSEL_NODES 16
+#define BESSEL_TAIL 1e-14
+#define BESSEL_FLOOR 4
+
+struct limits_bessel_table {
+    double order;
+    double cosines[BESSEL_NODES][BESSEL_NODES]; /* T_n(y_j) = cos(pi n (2j + 1) / 2N) */
+    signed char state[BESSEL_PIECES];           /* 0 not built, 1 table, -1 direct */
+    unsigned char nterms[BESSEL_PIECES];
+    double *coef[BESSEL_PIECES];
+};
+
+limits_bessel_table *gl_limits_bessel_table_new(double order)
+{
+    if (!(order > -1) || !isfinite(order))
+        return NULL;
+    limits_bessel_table *t = gl_calloc(1, sizeof *t);
+    if (!t)
+        return NULL;
+    t->order = order;
+    for (int n = 0; n < BESSEL_NODES; n++)
+        for (int j = 0; j < BESSEL_NODES; j++)
+            t->cosines[n][j] =
+                cos(M_PI * ((n * (2 * j + 1)) % (4 * BESSEL_NODES)) / (2 * BESSEL_NODES));
+    return t;
+}
+
+void gl_limits_bessel_table_free(limits_bessel_table *t)
+{
+    if (!t)
+        return;
+    for (int k = 0; k < BESSEL_PIECES; k++)
+        gl_free(t->coef[k]);
+    gl_free(t);
+}
+
+/* piece k covers 2^e [lo, lo + 1/16) */
+static void bessel_piece_build(limits_bessel_table *t, int k)
+{
+    int e = k / BESSEL_SPLIT + BESSEL_EMIN, sub = k % BESSEL_SPLIT;
+    double mid = ldexp(0.5 + (sub + 0.5) / 16.0, e), half = ldexp(1 / 32.0, e);
+    double f[BESSEL_NODES], mean = 0;
+    double *c = gl_malloc(BESSEL_NODES * sizeof *c);
+    t->state[k] = -1;
+    if (!c)
+        return;
+    for (int j = 0; j < BESSEL_NODES; j++) {
+        f[j] = log_bessel_i_scaled(t->order, mid + half * t->cosines[1][j]);
+        if (!isfinite(f[j])) {
+            gl_free(c);
+            return;
+        }
+        mean += f[j] / BESSEL_NODES;
+    }
+    /* c_n = 2/N sum_j (f_j - mean) T_n(y_j) */
+    for (int n = 0; n < BESSEL_NODES; n++) {
+        double s = 0;
+        for (int j = 0; j < BESSEL_NODES; j++)
+            s += (f[j] - mean) * t->cosines[n][j];
+        c[n] = 2.0 / BESSEL_NODES * s;
+    }
+    c[0] = 0.5 * c[0] + mean;
+    /* the last coefficients are the values' own rounding; keep those above
+     * BESSEL_FLOOR times it */
+    double floor_ = 0;
+    for (int n = BESSEL_NODES - 4; n < BESSEL_NODES; n++)
+        floor_ = GL_MAX(floor_, fabs(c[n]));
+    if (!(floor_ <= BESSEL_TAIL * GL_MAX(1.0, fabs(c[0])))) { /* not converged */
+        gl_free(c);
+        return;
+    }
+    int m = BESSEL_NODES - 4;
+    while (m > 1 && fabs(c[m - 1]) <= BESSEL_FLOOR * floor_)
+        m--;
+    t->coef[k] = c;
+    t->nterms[k] = (unsigned char)m;
+    t->state[k] = 1;
+}
+
+/* H(x) from the table (built as needed), or directly without one */
+static double log_bessel_at(limits_bessel_table *t, double o, double x)
+{
+    if (!t || !(x > 0) || !isfinite(x))
+        return log_bessel_i_scaled(o, x);
+    int e;
+    double mant = frexp(x, &e); /* x = mant 2^e, mant in [1/2, 1) */
+    if (e < BESSEL_EMIN || e >= BESSEL_EMAX)
+        return log_bessel_i_scaled(o, x);
+    int sub = (int)(mant * 16) - 8;
+    int k = (e - BESSEL_EMIN) * BESSEL_SPLIT + sub;
+    if (t->state[k] == 0)
+        bessel_piece_build(t, k);
+    if (t->state[k] < 0)
+        return log_bessel_i_scaled(o, x);
+    /* Clenshaw's recurrence in y in [-1, 1) (exact: mant 32 is) */
+    double y = mant * 32 - (2 * sub + 17);
+    const double *c = t->coef[k];
+    double b1 = 0, b2 = 0, y2 = 2 * y;
+    for (int n = t->nterms[k] - 1; n >= 1; n--) {
+        double b0 = (c[n] - b2) + y2 * b1; /* the subtraction off the chain of b1 */
+        b2 = b1;
+        b1 = b0;
+    }
+    return y * b1 - b2 + c[0];
+}
+
+typedef struct dnct_args {
+    double tau, nu, delta, lambda;
+    double sl, o, alpha; /* sqrt(lambda), nu/2 - 1, tau / sqrt(nu) */
+    limits_bessel_table *table;
+    int miss; /* 1: the integrand with 1 - Q (the probability of a miss) */
+} dnct_args;
+
 /* The integrand in u = sqrt(v): Q(tau u / sqrt(nu) - delta) times the density
  * of U = sqrt(V), 2 u p(u^2) = u exp(-(u - sqrt(lambda))^2 / 2)
- * (u / sqrt(lambda))^(nu/2 - 1) exp(-x) I_(nu/2 - 1)(x), x = sqrt(lambda) u. */
+ * (u / sqrt(lambda))^(nu/2 - 1) exp(-x) I_(nu/2 - 1)(x), x = sqrt(lambda) u,
+ * that is u exp(-(u - sqrt(lambda))^2 / 2 + o log(u / sqrt(lambda)) + H(x)).
+ * Q(t) = erfc(t / sqrt 2) / 2 (A&S 26.2.29); below t = -8.3, Q = 1 - 5e-17
+ * is 1 in double precision (and 1 - Q above t = 8.3). */
 static double lobes_integrand(double u, const dnct_args *a)
 {
-    double sl = sqrt(a->lambda), d = u - sl, o = a->nu / 2 - 1;
-    double f = u * exp(-0.5 * d * d + o * log(u / sl) + log_bessel_i_scaled(o, sl * u));
-    return gsl_cdf_ugaussian_Q(a->tau * u / sqrt(a->nu) - a->delta) * f;
+    double d = u - a->sl;
+    double f =
+        u * exp(-0.5 * d * d + a->o * log(u / a->sl) + log_bessel_at(a->table, a->o, a->sl * u));
+    double t = a->miss ? a->delta - a->alpha * u : a->alpha * u - a->delta;
+    return t < -8.3 ? f : 0.5 * erfc(t * M_SQRT1_2) * f;
 }
 
 /* Gauss-Legendre nodes per piece of the u axis: 64 keep the integral within
@@ -139,7 +273,8 @@ static double gauss_legendre(const dnct_args *a, double lo, double hi,
     return s;
 }
 
-double gl_limits_completeness_lobes(double delta, double lambda, double tau, double nu)
+double gl_limits_completeness_lobes_tabled(limits_bessel_table *table, double delta, double lambda,
+                                           double tau, double nu)
 {
     if (!(lambda >= 0) || !isfinite(lambda))
         return NAN;
@@ -147,27 +282,48 @@ double gl_limits_completeness_lobes(double delta, double lambda, double tau, dou
         return gl_limits_completeness(delta, tau, nu);
     if (!(nu > 0) || !isfinite(delta) || !isfinite(tau))
         return NAN;
+    if (table && table->order != nu / 2 - 1)
+        table = NULL;
     gsl_set_error_handler_off();
     gsl_integration_glfixed_table *t = gsl_integration_glfixed_table_alloc(LOBES_NODES);
     if (!t)
         return NAN;
-    dnct_args a = {tau, nu, delta, lambda};
+    dnct_args a = {.tau = tau,
+                   .nu = nu,
+                   .delta = delta,
+                   .lambda = lambda,
+                   .sl = sqrt(lambda),
+                   .o = nu / 2 - 1,
+                   .alpha = tau / sqrt(nu),
+                   .table = table};
     /* U = sqrt(V) has mean near sqrt(nu + lambda) and a standard deviation
      * below 1 (var V / (4 E V) = (nu + 2 lambda) / (2 (nu + lambda))), and
      * tails at least as light as exp(-t^2 / 2): 10 on either side leave out
      * less than 1e-20. Q's step (centre u0, width w in u) is a piece of its
      * own, 8 w on either side; beyond it Q is within 6.2e-16 of 0 or 1, and
-     * the piece where it is 0 is left out. */
+     * the piece where it is 0 is left out. Where the step covers the whole
+     * side of [lo, hi] where Q would be 0, P = 1 - the integral of (1 - Q)
+     * times the density over the step (the density's integral over [lo, hi]
+     * is 1 within 1e-20): one piece instead of two. */
     double m = sqrt(nu + lambda), lo = GL_MAX(0.0, m - 10), hi = m + 10;
     double result;
     if (tau != 0) {
         double w = sqrt(nu) / fabs(tau), u0 = delta * sqrt(nu) / tau;
         double c1 = GL_MIN(GL_MAX(u0 - 8 * w, lo), hi), c2 = GL_MIN(GL_MAX(u0 + 8 * w, lo), hi);
-        result = gauss_legendre(&a, c1, c2, t);
-        if (tau > 0)
-            result += gauss_legendre(&a, lo, c1, t);
-        else
-            result += gauss_legendre(&a, c2, hi, t);
+        if (tau > 0 && c1 > lo && c2 == hi) {
+            /* Q's step reaches past the density: one piece, of the miss */
+            a.miss = 1;
+            result = 1 - gauss_legendre(&a, c1, hi, t);
+        } else if (tau < 0 && c2 < hi && c1 == lo) {
+            a.miss = 1;
+            result = 1 - gauss_legendre(&a, lo, c2, t);
+        } else {
+            result = gauss_legendre(&a, c1, c2, t);
+            if (tau > 0)
+                result += gauss_legendre(&a, lo, c1, t);
+            else
+                result += gauss_legendre(&a, c2, hi, t);
+        }
     } else {
         result = gauss_legendre(&a, lo, hi, t);
     }
@@ -175,6 +331,11 @@ double gl_limits_completeness_lobes(double delta, double lambda, double tau, dou
     if (isnan(result))
         return NAN;
     return result < 0 ? 0 : (result > 1 ? 1 : result);
+}
+
+double gl_limits_completeness_lobes(double delta, double lambda, double tau, double nu)
+{
+    return gl_limits_completeness_lobes_tabled(NULL, delta, lambda, tau, nu);
 }
 
 typedef struct root_args {

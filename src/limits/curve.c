@@ -403,27 +403,32 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
         st = gl_error_nomem("fake S/N");
         goto cleanup;
     }
+    /* one copy of the cube for the runs with fakes, refilled for each */
+    if ((st = gl_cube_new(nx, ny, cube->nchan, cube->nframe, &work_cube)))
+        goto cleanup;
+    work_cube->naxis = cube->naxis;
     for (int b = 0; b < lp->fake_runs; b++) {
+        /* automatic level: from the second run on, the fakes go in at the
+         * 95% contrast the earlier runs give (the subtraction is not linear
+         * in the companion's flux: calibrate where the curve will be); each
+         * fake's level from the earlier runs only, so in parallel */
+        if (b > 0 && !(lp->fake_level > 0)) {
+#pragma omp parallel for schedule(static, 1)
+            for (int j = 0; j < r.nfakes; j++)
+                if (r.fakes[j].run == b)
+                    comps[j].contrast = provisional_level(&r, j, b, fwhm, F);
+            for (int j = 0; j < r.nfakes; j++)
+                if (r.fakes[j].run == b)
+                    r.fakes[j].contrast = comps[j].contrast;
+        }
         int nc = 0;
         for (int j = 0; j < r.nfakes; j++)
-            if (r.fakes[j].run == b) {
-                /* automatic level: from the second run on, the fakes go in at
-                 * the 95% contrast the earlier runs give (the subtraction is
-                 * not linear in the companion's flux: calibrate where the
-                 * curve will be) */
-                if (b > 0 && !(lp->fake_level > 0))
-                    r.fakes[j].contrast = provisional_level(&r, j, b, fwhm, F);
+            if (r.fakes[j].run == b)
                 comps[nc++] =
                     (gl_companion){r.fakes[j].sep_px, r.fakes[j].pa_deg, r.fakes[j].contrast};
-            }
         if (nc == 0)
             continue;
-        gl_cube_free(work_cube);
-        work_cube = NULL;
-        if ((st = gl_cube_new(nx, ny, cube->nchan, cube->nframe, &work_cube)))
-            goto cleanup;
         memcpy(work_cube->data, cube->data, gl_cube_size(cube) * sizeof(float));
-        work_cube->naxis = cube->naxis;
         if ((st = gl_inject_companions(work_cube, angles, sp->north_offset, psf, comps, nc, NULL)))
             goto cleanup;
         gl_subtract_result_free(&run);

@@ -29,4 +29,16 @@ typedef struct limits_point {
 void gl_limits_calibrate_point(limits_point *pt, const gl_limits_fake *fakes, int nfakes,
                                int plane);
 
+/* log(exp(-x) I_o(x) / x^o) of one order o, tabulated piece by piece as
+ * the quadrature asks for it (completeness.c); one per thread. NULL for an
+ * order <= -1 or on allocation failure. */
+typedef struct limits_bessel_table limits_bessel_table;
+limits_bessel_table *gl_limits_bessel_table_new(double order);
+void gl_limits_bessel_table_free(limits_bessel_table *t);
+
+/* gl_limits_completeness_lobes with the Bessel function from the table of
+ * order nu/2 - 1 (evaluated directly when t is NULL or of another order). */
+double gl_limits_completeness_lobes_tabled(limits_bessel_table *t, double delta, double lambda,
+                                           double tau, double nu);
+
 #endif
