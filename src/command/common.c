@@ -7,6 +7,10 @@
 #include "core/internal.h"
 
 #include <cblas.h>
+/* OpenBLAS's own: stops its pool of server threads (exported for its fork
+ * handler; it starts the pool again when more threads are asked for). Weak,
+ * so that a BLAS without it still links and runs. */
+extern int blas_thread_shutdown_(void) __attribute__((weak));
 #include <errno.h>
 #include <math.h>
 #include <omp.h>
@@ -610,6 +614,12 @@ void cli_start(gl_cli *cli)
     /* BLAS runs single-threaded inside our own parallel loops; this also
      * keeps results independent of the thread count */
     openblas_set_num_threads(1);
+    /* ... and its idle server threads, which spin for a while after the
+     * library starts, are stopped: beside the read of the input and the
+     * first parallel loops they cost about 4% of a subtraction
+     * (bench/README.md, issue 13 fifth round) */
+    if (blas_thread_shutdown_)
+        blas_thread_shutdown_();
     gl_log_set_handler(print_log, cli,
                        cli->quiet ? GL_LOG_WARN : (cli->verbose ? GL_LOG_DEBUG : GL_LOG_INFO));
     gl_progress_fn outer;
