@@ -84,6 +84,41 @@ static int blame(gl_plan *plan, const char *target, gl_step s, const char *msg, 
     return found;
 }
 
+/* Options that the run sets for every step itself: a plan cannot give them
+ * (a step that printed its help, or wrote where the run does not look,
+ * would leave the run without its product). */
+static const struct {
+    const char *key, *why;
+} run_owned[] = {
+    {"out", "the run names every product in its folder"},
+    {"overwrite", "the run replaces its own products (gloam run --overwrite, --force)"},
+    {"help", "a step that prints its help makes no product"},
+    {"dry-run", "use gloam run --dry-run"},
+    {"quiet", "use gloam run --quiet"},
+    {"verbose", "use gloam run --verbose"},
+};
+
+/* The first key of step s's sections that the run owns: an error naming
+ * the plan's line, or GL_OK. */
+static gl_status check_run_owned(gl_plan *plan, const char *target, gl_step s)
+{
+    const char *secs[2];
+    int nsec = sections_of(s, secs);
+    for (int k = 0; k < nsec; k++) {
+        gl_plan_item it[64];
+        int n = gl_plan_items(plan, target, secs[k], it, 64);
+        for (int i = 0; i < n; i++)
+            for (size_t j = 0; j < sizeof run_owned / sizeof run_owned[0]; j++)
+                if (strcmp(it[i].key, run_owned[j].key) == 0)
+                    return gl_error_set(GL_ERR_INPUT,
+                                        "%s:%d: '%s' in [%s] is set by the run itself, not by a "
+                                        "plan: %s",
+                                        gl_plan_name(plan), it[i].line, it[i].key, secs[k],
+                                        run_owned[j].why);
+    }
+    return GL_OK;
+}
+
 gl_status run_check_options(gl_plan *plan, const char *target, const run_cmd *cmds)
 {
     gl_status st = GL_OK;
@@ -91,6 +126,8 @@ gl_status run_check_options(gl_plan *plan, const char *target, const run_cmd *cm
         const run_cmd *c = &cmds[s];
         if (!c->asked || c->why_not[0] || c->argc < 2)
             continue;
+        if ((st = check_run_owned(plan, target, (gl_step)s)))
+            break;
         char *args[RUN_MAX_ARGS + 1]; /* getopt permutes its argument list */
         memcpy(args, c->argv, sizeof(char *) * (size_t)(c->argc + 1));
         char *text = NULL;

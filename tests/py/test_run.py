@@ -433,6 +433,14 @@ def test_option_values_are_checked_before_anything_runs(sequence, tmp_path):
         ("[limits]\nfake-runs = 1", "[limits]\nfake-runs = many", "[limits] fake-runs = many:"),
         ("[detect]\nmask-radius = 4", "[detect]\nmask-rad = 4",
          "'mask-rad' in [detect] is not an option of gloam detect"),  # no abbreviations
+        # what the run sets for every step itself: a step printing its help,
+        # or writing elsewhere, would leave the run without its product
+        ("[detect]\nmask-radius = 4", "[detect]\nmask-radius = 4\nhelp = yes",
+         "'help' in [detect] is set by the run itself"),
+        ("[limits]\nfake-runs = 1", "[limits]\nfake-runs = 1\nout = elsewhere",
+         "'out' in [limits] is set by the run itself"),
+        ("method = pca", "method = pca\noverwrite = yes",
+         "'overwrite' in [subtract] is set by the run itself"),
     ]
     for old, new, message in cases:
         plan = write_plan(sequence, name="bad.ini", modes="3,6")
