@@ -114,7 +114,7 @@ cleanup:
     return st;
 }
 
-gl_status run_figure_residual(const char *fits_path, const char *png_path)
+gl_status run_figure_residual(const char *fits_path, const char *png_path, const char *title)
 {
     gl_cube *c = NULL;
     double *ring_sig = NULL;
@@ -126,7 +126,10 @@ gl_status run_figure_residual(const char *fits_path, const char *png_path)
     const long nx = c->nx, ny = c->ny;
     const double cxp = (double)(nx / 2), cyp = (double)(ny / 2);
     const int zoom = nx < 200 ? 3 : nx < 400 ? 2 : 1;
-    const int W = (int)nx * zoom, H = (int)ny * zoom + 28;
+    /* a band above the image for the title (the target's name), one below
+     * for what the image shows */
+    const int band = title && *title ? 22 : 0;
+    const int W = (int)nx * zoom, H = band + (int)ny * zoom + 28;
     cairo_surface_t *s = cairo_image_surface_create(CAIRO_FORMAT_RGB24, W, H);
     unsigned char *px = cairo_image_surface_get_data(s);
     const int stride = cairo_image_surface_get_stride(s);
@@ -135,8 +138,8 @@ gl_status run_figure_residual(const char *fits_path, const char *png_path)
      * logarithmic beyond; +-1 at 10 sigma (a 1-FWHM companion at S/N 5 peaks
      * near 2-3 sigma per pixel) */
     const double soft = 2, top = asinh(10 / soft);
-    for (int y = 0; y < H - 28; y++) {
-        long iy = ny - 1 - y / zoom; /* FITS row 0 at the bottom */
+    for (int y = band; y < H - 28; y++) {
+        long iy = ny - 1 - (y - band) / zoom; /* FITS row 0 at the bottom */
         for (int x = 0; x < W; x++) {
             long ix = x / zoom;
             float v = c->data[(size_t)iy * (size_t)nx + (size_t)ix];
@@ -154,7 +157,8 @@ gl_status run_figure_residual(const char *fits_path, const char *png_path)
     cairo_surface_mark_dirty(s);
     cairo_t *cr = cairo_create(s);
     /* the star at (nx/2, ny/2): a small open cross */
-    double cx = ((double)(nx / 2) + 0.5) * zoom, cy = ((double)(ny - 1 - ny / 2) + 0.5) * zoom;
+    double cx = ((double)(nx / 2) + 0.5) * zoom,
+           cy = band + ((double)(ny - 1 - ny / 2) + 0.5) * zoom;
     cairo_set_source_rgb(cr, 0.9, 0.9, 0.9);
     cairo_set_line_width(cr, 1);
     for (int k = 0; k < 4; k++) {
@@ -174,6 +178,15 @@ gl_status run_figure_residual(const char *fits_path, const char *png_path)
              "plane 1, north up, east left; asinh of value / noise of its ring");
     cairo_move_to(cr, 6, H - 10);
     cairo_show_text(cr, label);
+    if (band) {
+        cairo_set_source_rgb(cr, 0.96, 0.95, 0.92);
+        cairo_rectangle(cr, 0, 0, W, band);
+        cairo_fill(cr);
+        cairo_set_source_rgb(cr, 0.14, 0.15, 0.17);
+        cairo_select_font_face(cr, "sans-serif", CAIRO_FONT_SLANT_NORMAL, CAIRO_FONT_WEIGHT_BOLD);
+        cairo_move_to(cr, 6, band - 6);
+        cairo_show_text(cr, title);
+    }
     cairo_destroy(cr);
     gl_cube_free(c);
     return png_product(s, png_path);

@@ -75,7 +75,7 @@ cJSON *run_read_json(const char *path);
 gl_status run_png_finish(cairo_surface_t *s, const char *path);
 
 /* The figures of the report (see figures.c). */
-gl_status run_figure_residual(const char *fits_path, const char *png_path);
+gl_status run_figure_residual(const char *fits_path, const char *png_path, const char *title);
 gl_status run_figure_star_positions(const char *csv_path, const char *png_path);
 
 #endif

@@ -205,7 +205,7 @@ gl_status run_report_write(const run_files *f, const char *target, const run_cmd
     if (exists(f->result) || exists(f->snr_png)) {
         if ((st = gl_report_section(r, "Residual image and S/N map")))
             goto cleanup;
-        if (exists(f->result) && run_figure_residual(f->result, f->residual_png) == GL_OK &&
+        if (exists(f->result) && run_figure_residual(f->result, f->residual_png, target) == GL_OK &&
             (st = gl_report_image(r, f->residual_png,
                                   "Starlight-subtracted, derotated and combined image")))
             goto cleanup;

@@ -271,6 +271,15 @@ def test_run_writes_the_folder_and_a_second_run_skips_every_step(sequence, tmp_p
     # the field rotation of the angles (numpy)
     ang = np.loadtxt(out / "angles.txt")
     assert s["field_rotation_deg"] == pytest.approx(abs(ang[-1] - ang[0]), abs=1e-6)
+    # the residual figure has a title band above the image (the target's
+    # name in dark text on the light band), as the other figures have titles
+    from PIL import Image
+    img = np.asarray(Image.open(out / "result.png").convert("L")).astype(float)
+    nx = afits.getheader(out / "result.fits")["NAXIS1"]
+    zoom = 3 if nx < 200 else 2 if nx < 400 else 1
+    assert img.shape == (nx * zoom + 28 + 22, nx * zoom)
+    band = img[:22]
+    assert np.median(band) > 200 and (band < 100).sum() > 20, "a dark title on a light band"
 
     before = {p.name: p.read_bytes() for p in out.iterdir() if p.suffix in (".fits", ".csv")}
     r2 = gloam("run", plan, "--out", out)
