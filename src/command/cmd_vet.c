@@ -296,8 +296,9 @@ static long epochs_of(const epoch_table *e, long cand, double *buf)
 /* The table: one row per candidate. */
 enum { NFIX = 33, NCOLS = NFIX + 4 * GL_VET_NTESTS };
 
-static gl_status write_table(const char *csv, const char *fits, const gl_vet_result *r, long n,
-                             const gl_header *keys, const gl_provenance *prov)
+static gl_status write_table(const char *csv, const char *fits, const gl_vet_result *r,
+                             const long *num, long n, const gl_header *keys,
+                             const gl_provenance *prov)
 {
     static const char *fixed[NFIX] = {
         "candidate",    "sep_px",           "sep_err",       "pa_deg",       "pa_err",
@@ -334,7 +335,7 @@ static gl_status write_table(const char *csv, const char *fits, const gl_vet_res
         cols[c] = buf + (size_t)c * (size_t)n;
     for (long i = 0; i < n; i++) {
         const gl_vet_result *v = &r[i];
-        double f[NFIX] = {(double)(i + 1),
+        double f[NFIX] = {(double)num[i],
                           v->sep_px,
                           v->sep_err,
                           v->pa_deg,
@@ -385,7 +386,8 @@ static gl_status write_table(const char *csv, const char *fits, const gl_vet_res
     return st;
 }
 
-static gl_status write_regions(const char *path, const gl_vet_result *r, long n, long nx, long ny)
+static gl_status write_regions(const char *path, const gl_vet_result *r, const long *num, long n,
+                               long nx, long ny)
 {
     FILE *fp = fopen(path, "w");
     if (!fp)
@@ -397,7 +399,7 @@ static gl_status write_regions(const char *path, const gl_vet_result *r, long n,
         double x = (double)(nx / 2) - r[i].sep_px * sin(r[i].pa_deg * M_PI / 180) + 1;
         double y = (double)(ny / 2) + r[i].sep_px * cos(r[i].pa_deg * M_PI / 180) + 1;
         fprintf(fp, "circle(%.3f,%.3f,%.3f) # color=%s text={%ld: %d/%d tests, c=%.3g}\n", x, y,
-                r[i].merit_radius_px, r[i].npassed == r[i].npossible ? "green" : "red", i + 1,
+                r[i].merit_radius_px, r[i].npassed == r[i].npossible ? "green" : "red", num[i],
                 r[i].npassed, r[i].npossible, r[i].contrast);
     }
     int bad = ferror(fp);
@@ -505,6 +507,7 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
     gl_outset *outs = NULL;
     gl_header *keys = NULL;
     double *angles = NULL, *sep = NULL, *pa = NULL, *ebuf = NULL;
+    long *num = NULL; /* each candidate's row in the table (1-based): its number */
     gl_vet_result *res = NULL;
     epoch_table et = {0};
     long ncand = 0;
@@ -530,11 +533,33 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
     if (setup.p.mask_radius == GL_SUBTRACT_MASK_AUTO)
         setup.p.mask_radius = gl_subtract_inner_radius(&setup.p, angles, cube->nframe,
                                                        refs ? refs->nframe : 0, cube->nx, cube->ny);
+    /* a candidate that cannot be vetted where it lies is left out with a
+     * warning; a table where none can be is refused */
+    if (!(num = gl_malloc((size_t)(ncand + 1) * sizeof *num))) {
+        st = gl_error_nomem("vet candidates");
+        goto cleanup;
+    }
+    long nkept = 0;
     for (long i = 0; i < ncand; i++)
+        if (!gl_vet_check_position(cube->nx, cube->ny, &setup.p, &o.vp, sep[i], pa[i]))
+            nkept++;
+    gl_error_clear();
+    for (long i = 0, j = 0; i < ncand; i++) {
         if ((st = gl_vet_check_position(cube->nx, cube->ny, &setup.p, &o.vp, sep[i], pa[i]))) {
             row_error(cand_path, i, st);
-            goto cleanup;
+            if (nkept == 0)
+                goto cleanup;
+            gl_log(GL_LOG_WARN, "%s; left out, the other candidates are vetted",
+                   gl_error_message());
+            gl_error_clear();
+            st = GL_OK;
+            continue;
         }
+        sep[j] = sep[i];
+        pa[j] = pa[i];
+        num[j++] = i + 1;
+    }
+    ncand = nkept;
     if (star_table) {
         double e = 0;
         if ((st = star_table_error(star_table, &e)) ||
@@ -590,10 +615,10 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
     }
     for (long i = 0; i < ncand; i++) {
         char suf[64];
-        snprintf(suf, sizeof suf, ".vet-%ld.png", i + 1);
+        snprintf(suf, sizeof suf, ".vet-%ld.png", num[i]);
         if ((st = cli_add_product(cli, outs, prefix, suf, p_png[i], sizeof p_png[i], &t_png[i])))
             goto cleanup;
-        snprintf(suf, sizeof suf, ".vet-%ld.svg", i + 1);
+        snprintf(suf, sizeof suf, ".vet-%ld.svg", num[i]);
         if ((st = cli_add_product(cli, outs, prefix, suf, p_svg[i], sizeof p_svg[i], &t_svg[i])))
             goto cleanup;
     }
@@ -603,7 +628,7 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
         gl_progress("vet", i, ncand); /* the bar; the fits and fakes inside it are its label */
         if (epochs_path) {
             long nr = et.t->nrows;
-            ep.n = epochs_of(&et, i + 1, ebuf);
+            ep.n = epochs_of(&et, num[i], ebuf);
             ep.mjd_utc = ebuf;
             ep.dra_mas = ebuf + nr;
             ep.ddec_mas = ebuf + 2 * nr;
@@ -611,12 +636,12 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
             ep.ddec_err = ebuf + 4 * nr;
         }
         gl_log(GL_LOG_INFO, "candidate %ld: %.2f px, %.2f deg in %s (table_sep_px, table_pa_deg)",
-               i + 1, sep[i], pa[i], cand_path);
+               num[i], sep[i], pa[i], cand_path);
         if ((st = gl_vet_candidate(cube, angles, refs, &setup.p, psf, &o.vp, sep[i], pa[i],
                                    epochs_path ? &o.star : NULL, epochs_path ? &ep : NULL,
                                    &res[i]))) {
             if (st == GL_ERR_INPUT || st == GL_ERR_USAGE)
-                row_error(cand_path, i, st);
+                row_error(cand_path, num[i] - 1, st);
             goto cleanup;
         }
         const gl_vet_result *v = &res[i];
@@ -645,7 +670,7 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
                  title            ? title
                  : info.object[0] ? info.object
                                   : cube_path,
-                 i + 1);
+                 num[i]);
         if ((st = gl_vet_figure_write(t_png[i], t_svg[i], v, ttl)))
             goto cleanup;
     }
@@ -683,8 +708,8 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
                  gl_vet_test_rule((gl_vet_test_id)q));
         gl_header_add_history(keys, h);
     }
-    if ((st = write_table(t_csv, t_fits, res, ncand, keys, &cli->prov)) ||
-        (st = write_regions(t_reg, res, ncand, cube->nx, cube->ny)) ||
+    if ((st = write_table(t_csv, t_fits, res, num, ncand, keys, &cli->prov)) ||
+        (st = write_regions(t_reg, res, num, ncand, cube->nx, cube->ny)) ||
         (st = gl_outset_commit(outs)))
         goto cleanup;
     cli_log_written(outs);
@@ -700,6 +725,7 @@ cleanup:
     gl_free(t_svg);
     gl_free(sep);
     gl_free(pa);
+    gl_free(num);
     gl_free(ebuf);
     gl_csv_free(et.t);
     gl_header_free(keys);

@@ -6,8 +6,14 @@
  * contrast at the fitted separation, and every statistic below is computed
  * for them exactly as for the candidate; their median is the expectation.
  * The pass rules are ours (stated in docs/vet.md); a t value (Mawet et al.
- * 2014, ApJ 792, 97) has unit variance under noise, which sets the allowance
- * max(3, 3 x the fakes' spread) below (3 sigma, one-sided).
+ * 2014, ApJ 792, 97) has unit variance under noise, and at a signal t the
+ * noise estimate from n apertures adds a relative error 1/sqrt(2(n - 1)) (the
+ * large-sample variance of a sample standard deviation, Var(s) = sigma^2 /
+ * (2(n - 1)) for normal data; Kendall & Stuart, The Advanced Theory of
+ * Statistics, vol. 1, sec. 10.8), so the S/N of a planet scatters by
+ * sqrt(1 + t^2 / (2 dof)); that sets the allowance max(3 sqrt(1 + t^2 /
+ * (2 dof)), 3 x the fakes' spread) below (3 sigma, one-sided; t the fakes'
+ * median).
  *  - snr: the S/N at the fit reaches the t threshold of the chosen sigma at
  *    its degrees of freedom (a detection at all);
  *  - modes: at every mode count the S/N stays within the allowance below the
@@ -200,9 +206,12 @@ gl_status vet_stats_run(vet_problem *p, const gl_cube *cube, double x, double y,
     return GL_OK;
 }
 
-/* Median and allowance max(2, 2 x robust spread) of the fakes' values
- * get(k); returns the number of finite values. */
-static int fakes_expect(const vet_problem *p, int which, int index, double *median, double *allow)
+/* Median and allowance of the fakes' values get(k): max(3 sqrt(1 + m^2 /
+ * (2 dof)), 3 x robust spread), dof the degrees of freedom of the noise
+ * apertures at the candidate's separation (see the top of this file);
+ * returns the number of finite values. */
+static int fakes_expect(const vet_problem *p, double sep, int which, int index, double *median,
+                        double *allow)
 {
     double v[VET_MAX_FAKES], w[VET_MAX_FAKES];
     int n = 0;
@@ -220,7 +229,8 @@ static int fakes_expect(const vet_problem *p, int which, int index, double *medi
         return n;
     double sig;
     gl_stats_robust(v, (size_t)n, w, median, &sig);
-    *allow = GL_MAX(3.0, 3 * sig);
+    double dof = (double)GL_MAX(1, gl_detect_ring_count(sep, p->fwhm) - 2);
+    *allow = GL_MAX(3.0 * sqrt(1 + *median * *median / (2 * dof)), 3 * sig);
     return n;
 }
 
@@ -241,7 +251,7 @@ static void test_low_side(vet_problem *p, const vet_stats *d, gl_vet_result *r, 
     int used = 0;
     for (int k = 0; k < n; k++) {
         double m, a;
-        int nf = fakes_expect(p, which, k, &m, &a);
+        int nf = fakes_expect(p, r->sep_px, which, k, &m, &a);
         exp_out[k] = m;
         if (nf < 2 || !isfinite(val[k]))
             continue;
@@ -280,7 +290,7 @@ static void test_wrong(vet_problem *p, const vet_stats *d, gl_vet_result *r, int
         not_possible(t, "no S/N with the wrong angles");
         return;
     }
-    if (fakes_expect(p, scrambled ? 3 : 2, 0, &m, &a) < 2) {
+    if (fakes_expect(p, r->sep_px, scrambled ? 3 : 2, 0, &m, &a) < 2) {
         not_possible(t, no_fakes);
         return;
     }

@@ -141,13 +141,15 @@ def test_companions_pass_all_possible_tests(recovered):
 
 def test_speckle_peak_fails(empty):
     """The highest residual peak of a companion-free sequence (gloam detect
-    with the threshold lowered to 1 sigma) fails at least one test."""
+    with the threshold lowered to 1 sigma) that vet can take (beyond the
+    mask radius + 1 FWHM, 1 FWHM inside the edge) fails at least one test."""
     d = empty
     ok("subtract", f"{d}/cube.fits", "--angles", f"{d}/angles.txt", *SUB, "--out",
        f"{d}/s.fits", "--quiet")
     ok("detect", f"{d}/s.fits", "--fwhm", FWHM, "--mask-radius", 3, "--threshold", 1,
        "--out", f"{d}/d", "--quiet")
-    top = read_csv(f"{d}/d.candidates.csv")[0]
+    top = [c for c in read_csv(f"{d}/d.candidates.csv")
+           if 3 + FWHM <= c["sep_px"] <= 23 - FWHM][0]
     r = vet(d, [(top["sep_px"], top["pa_deg"])])[0]
     assert r["tests_passed"] < r["tests_possible"], r
 
@@ -341,6 +343,25 @@ BAD = [
     ("columns", "a,b\n1,2\n", "no sep_px and pa_deg"),
     ("masked", "sep_px,pa_deg\n3.5,10\n", "masked zone"),
 ]
+
+
+def test_unvettable_row_left_out(empty, tmp_path):
+    """A table with one candidate in the masked zone and one that can be
+    vetted: the first is left out with one warning naming the file and its
+    row, the second is vetted under its own row number."""
+    d = empty
+    cand = f"{tmp_path}/mixed.csv"
+    with open(cand, "w") as f:
+        f.write("sep_px,pa_deg\n3.5,10\n12,200\n")
+    r = run("vet", f"{d}/cube.fits", "--angles", f"{d}/angles.txt", "--psf", f"{d}/psf.fits",
+            *SUB, "--candidates", cand, "--out", f"{tmp_path}/m", "--error-fakes", 2,
+            "--max-evaluations", 30, "--threads", 1)
+    assert r.returncode == 0, r.stderr
+    warn = [ln for ln in r.stderr.splitlines() if "left out" in ln]
+    assert len(warn) == 1 and cand in warn[0] and "row 1" in warn[0] and "masked zone" in warn[0]
+    rows = read_csv(f"{tmp_path}/m.vet.csv")
+    assert [int(x["candidate"]) for x in rows] == [2]
+    assert os.path.exists(f"{tmp_path}/m.vet-2.png") and not glob.glob(f"{tmp_path}/m.vet-1.*")
 
 
 @pytest.mark.parametrize("name,text,what", BAD)
