@@ -105,6 +105,8 @@ int cmd_subtract(gl_cli *cli, int argc, char **argv)
     pp->keep_raw_residuals = raw_path != NULL;
     double limit = 0;
     int streamed = cli_subtract_needs_stream(&setup, cube_path, &limit);
+    if (streamed)
+        streamed = cli_subtract_stream_method(&setup, cube_path, limit);
     if (streamed) {
         /* larger than the memory limit: read from the file in blocks; a
          * stand-in cube of one pixel carries the header and the frame count

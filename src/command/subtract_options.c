@@ -18,7 +18,7 @@ const char cli_subtract_help[] =
     "  --fwhm PX|auto         PSF full width at half maximum, pixels; auto: measured on\n"
     "                         --psf (limits, vet: the default), else recorded in the\n"
     "                         input's header\n"
-    "  --method NAME          how the star's light is modelled and removed (default klip-frame):\n"
+    "  --method NAME          how the star's light is modelled and removed (default klip-rings):\n"
     "                           median-frame: each frame minus the median of all frames\n"
     "                             (classical ADI)\n"
     "                           klip-frame: each frame minus its projection on KL modes of the\n"
@@ -165,6 +165,19 @@ int cli_subtract_needs_stream(const cli_subtract_setup *s, const char *cube_path
     return gl_subtract_memory_estimate(nx, ny, nchan, nframe, &s->p) > *limit;
 }
 
+int cli_subtract_stream_method(cli_subtract_setup *s, const char *cube_path, double limit)
+{
+    if (s->p.method != GL_SUBTRACT_ANNULAR || s->have_method)
+        return 1;
+    s->p.method = GL_SUBTRACT_PCA;
+    int streamed = cli_subtract_needs_stream(s, cube_path, &limit);
+    gl_log(GL_LOG_WARN,
+           "%s: the default method klip-rings would need more than --memory-limit %.0f MB; "
+           "klip-frame runs instead (one basis from every frame%s; docs/subtract.md)",
+           cube_path, limit / 1e6, streamed ? ", the cube read from its file in blocks" : "");
+    return streamed;
+}
+
 int cli_subtract_option(gl_cli *cli, int code, const char *optarg, cli_subtract_setup *s)
 {
     gl_subtract_params *pp = &s->p;
@@ -202,6 +215,7 @@ int cli_subtract_option(gl_cli *cli, int code, const char *optarg, cli_subtract_
             return -1;
         }
         p.method = (gl_subtract_method)m;
+        s->have_method = 1;
         return 1;
     }
     case CLI_OPT_MODES: {
@@ -279,6 +293,7 @@ int cli_subtract_option(gl_cli *cli, int code, const char *optarg, cli_subtract_
             cli_usage(cli, "--basis-frames: '%s' is not all, all-but-target or beyond-gap", optarg);
             return -1;
         }
+        s->have_basis = 1;
         return 1;
     case CLI_OPT_NORTH:
         return cli_parse_double(cli, "--north-offset", optarg, -360, 360, &p.north_offset) ? -1 : 1;
@@ -331,6 +346,16 @@ int cli_subtract_check(const gl_cli *cli, const cli_subtract_setup *s)
         return cli_usage(cli, "--fwhm is needed");
     if (!s->refs_path && (s->p.refs_use != GL_REFS_ONLY || s->p.refs_best))
         return cli_usage(cli, "--refs-use and --refs-best need --refs");
+    /* an option that only another method reads would be silently ignored */
+    const char *dflt = s->have_method ? "" : " (the default)";
+    if (s->have_basis && s->p.method != GL_SUBTRACT_PCA)
+        return cli_usage(cli,
+                         "--basis-frames chooses the basis of --method klip-frame, not of %s%s",
+                         gl_subtract_method_name(s->p.method), dflt);
+    if (s->p.median_fit && s->p.method != GL_SUBTRACT_MEDIAN)
+        return cli_usage(cli,
+                         "--median-fit scales the median of --method median-frame, not of %s%s",
+                         gl_subtract_method_name(s->p.method), dflt);
     return 0;
 }
 

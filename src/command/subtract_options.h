@@ -71,6 +71,8 @@ extern const char cli_subtract_help[];
 typedef struct cli_subtract_setup {
     gl_subtract_params p;
     int have_fwhm;
+    int have_method; /* --method given (else the default, klip-rings) */
+    int have_basis;  /* --basis-frames given */
     const char *refs_path;
     const char *waves_text;
     double waves[256];
@@ -81,8 +83,9 @@ void cli_subtract_setup_init(cli_subtract_setup *s);
 /* Handles one of CLI_SUBTRACT_OPTIONS: 1 handled, 0 not one of them, -1 bad
  * value (message printed). */
 int cli_subtract_option(gl_cli *cli, int code, const char *arg, cli_subtract_setup *s);
-/* Checks what needs no data (--fwhm given, --refs-* with --refs); prints and
- * returns 1 on a problem, else 0. */
+/* Checks what needs no data (--fwhm given, --refs-* with --refs, an option
+ * of one method given with another); prints and returns 1 on a problem,
+ * else 0. */
 int cli_subtract_check(const gl_cli *cli, const cli_subtract_setup *s);
 /* With the science cube read: loads the reference cube (added to the
  * provenance), checks its size, resolves the wavelengths for --sdi, and
@@ -94,6 +97,11 @@ gl_status cli_subtract_prepare(gl_cli *cli, cli_subtract_setup *s, const char *c
  * under it (1), fits in memory (0), or cannot be told (0: the in-memory
  * reader then reports the file's problem). */
 int cli_subtract_needs_stream(const cli_subtract_setup *s, const char *cube_path, double *limit);
+/* For a cube that needs more than the limit: the streamed path runs
+ * klip-frame and median-frame only, so the default klip-rings (not asked
+ * for) becomes klip-frame, with one warning naming cube_path and the limit.
+ * Returns whether the cube must still be streamed with the method now set. */
+int cli_subtract_stream_method(cli_subtract_setup *s, const char *cube_path, double limit);
 /* gl_subtract_run, with messages about the data naming cube_path. */
 gl_status cli_subtract_run(const cli_subtract_setup *s, const char *cube_path, const gl_cube *cube,
                            const double *angles, const gl_cube *refs, gl_subtract_result *res);

@@ -12,7 +12,7 @@
 void gl_subtract_params_init(gl_subtract_params *p)
 {
     memset(p, 0, sizeof *p);
-    p->method = GL_SUBTRACT_PCA;
+    p->method = GL_SUBTRACT_ANNULAR; /* docs/subtract.md: which method by default */
     p->fwhm = 0;
     p->nmodes = 1;
     p->modes[0] = 5;

@@ -340,11 +340,6 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
     for (int pass = 0; pass < (p->mask_radius < 0 ? 2 : 1); pass++) {
         if (pass == 1) {
             c.r_in = sub_inner_radius(p, angles, usable, nf, nref_given, c.r_out);
-            if (c.r_in > 0)
-                gl_log(GL_LOG_INFO,
-                       "inner radius %.1f px (%.2f FWHM): the first ring where every frame has "
-                       "references past --gap %g FWHM (set --mask-radius to choose another)",
-                       c.r_in, c.r_in / p->fwhm, p->gap_fwhm);
             c.nusable = 0;
         }
         for (long i = 0; i < nf; i++) {
@@ -364,6 +359,11 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
     c.usable = usable;
     if ((st = sub_usable_check(&c, p->cube_name)))
         goto cleanup;
+    if (p->mask_radius < 0 && c.r_in > 0) /* said once the frames are known good */
+        gl_log(GL_LOG_INFO,
+               "inner radius %.1f px (%.2f FWHM): the first ring where every frame has "
+               "references past --gap %g FWHM (set --mask-radius to choose another)",
+               c.r_in, c.r_in / p->fwhm, p->gap_fwhm);
 
     /* reference frames */
     if (refs && p->method != GL_SUBTRACT_NONE) {

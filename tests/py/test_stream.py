@@ -134,6 +134,21 @@ def test_streamed_variants(inputs, opts, limit, exact):
         assert np.nanmax(np.abs(ref - got)) <= 1e-5 * np.nanstd(ref)
 
 
+def test_default_method_streams_as_klip_frame(inputs):
+    """No --method (the default klip-rings, which has no streamed path) on a
+    cube over the limit: one warning naming the cube says klip-frame runs
+    instead, and the product is that of the named streamed klip-frame."""
+    d, _, _ = inputs
+    got, _, err = subtract(d, "sdef.fits", ["--modes", "4"], 12 * 2**20, cube="small.fits")
+    warn = [ln for ln in err.splitlines() if "warning" in ln]
+    assert len(warn) == 1 and "klip-frame runs instead" in warn[0], err
+    assert "small.fits" in warn[0] and "streamed from the file" in err
+    ref, _, _ = subtract(d, "sfr.fits", ["--modes", "4", "--method", "klip-frame"], 12 * 2**20,
+                         cube="small.fits")
+    assert fits.getheader(d / "sdef.fits")["GLSMETH"] == "klip-frame"
+    assert np.array_equal(ref, got, equal_nan=True)
+
+
 def test_streamed_threads_identical(inputs):
     """Block sizes are chosen for one thread: 1 and 2 threads, same bits."""
     d, _, _ = inputs

@@ -124,7 +124,7 @@ def test_pca_residuals_match_numpy(tmp_path, centre, route):
     modes = [3, 7]
     r_in, r_out = 3.0, (24.0 if route != "svd-small-region" else 6.0)
     r = run("subtract", c, "--angles", a, "--fwhm", FWHM, "--out", tmp_path / "o.fits",
-            "--modes", "7,3", "--mask-radius", r_in, "--outer-radius", r_out, "--remove-mean",
+            "--method", "klip-frame", "--modes", "7,3", "--mask-radius", r_in, "--outer-radius", r_out, "--remove-mean",
             {"frame": "each-frame", "temporal": "each-pixel"}[centre],
             "--raw-residuals", tmp_path / "raw.fits")
     assert r.returncode == 0, r.stderr
@@ -150,7 +150,8 @@ def test_rdi_residuals_match_numpy(tmp_path):
     c, a = write_inputs(tmp_path, cube, angles)
     fits.PrimaryHDU(refs).writeto(tmp_path / "refs.fits")
     r = run("subtract", c, "--angles", a, "--fwhm", FWHM, "--out", tmp_path / "o.fits",
-            "--modes", "4", "--mask-radius", 3, "--refs", tmp_path / "refs.fits",
+            "--method", "klip-frame", "--modes", "4", "--mask-radius", 3, "--refs",
+            tmp_path / "refs.fits",
             "--raw-residuals", tmp_path / "raw.fits")
     assert r.returncode == 0, r.stderr
     raw = fits.getdata(tmp_path / "raw.fits").astype(np.float64)  # (frame, y, x)
@@ -177,7 +178,8 @@ def test_rdi_keeps_best_correlated_refs(tmp_path):
     c, a = write_inputs(tmp_path, cube, angles)
     fits.PrimaryHDU(refs).writeto(tmp_path / "refs.fits")
     r = run("subtract", c, "--angles", a, "--fwhm", FWHM, "--out", tmp_path / "o.fits",
-            "--modes", "3", "--mask-radius", 3, "--refs", tmp_path / "refs.fits",
+            "--method", "klip-frame", "--modes", "3", "--mask-radius", 3, "--refs",
+            tmp_path / "refs.fits",
             "--refs-best", 6, "--raw-residuals", tmp_path / "raw.fits")
     assert r.returncode == 0, r.stderr
     assert fits.getheader(tmp_path / "o.fits")["GLSNREF"] == 6
@@ -307,7 +309,7 @@ def test_north_up_wcs(tmp_path):
     fits.PrimaryHDU(cube, hdr).writeto(tmp_path / "cube.fits")
     (tmp_path / "a.txt").write_text("\n".join(map(str, angles)))
     r = run("subtract", tmp_path / "cube.fits", "--angles", tmp_path / "a.txt", "--fwhm", FWHM,
-            "--out", tmp_path / "o.fits", "--modes", "2")
+            "--out", tmp_path / "o.fits", "--method", "klip-frame", "--modes", "2")
     assert r.returncode == 0, r.stderr
     w_in = WCS(hdr).celestial
     w_out = WCS(fits.getheader(tmp_path / "o.fits")).celestial
@@ -426,7 +428,9 @@ def test_rdi_beats_adi_below_one_fwhm(tmp_path):
     c, a = write_inputs(tmp_path, cube, angles)
     refs, _, _ = make_sequence(n=n, nf=20, amp=0.0, seed=4, pattern=pat)
     fits.PrimaryHDU(refs).writeto(tmp_path / "refs.fits")
-    common = ["--angles", a, "--fwhm", FWHM, "--modes", 3, "--mask-radius", 3, "--combine", "mean"]
+    # full-frame PCA: klip-rings would leave the inner rings without references
+    common = ["--angles", a, "--fwhm", FWHM, "--method", "klip-frame", "--modes", 3,
+              "--mask-radius", 3, "--combine", "mean"]
     r = run("subtract", c, *common, "--out", tmp_path / "adi.fits")
     assert r.returncode == 0, r.stderr
     assert "self-subtraction" in r.stderr  # the warning about small rotation
@@ -465,7 +469,7 @@ def test_threads_identical(tmp_path, opts):
 # ---- bad input ----------------------------------------------------------------
 
 BAD = [
-    ("modes", ["--modes", "31"], "--modes"),
+    ("modes", ["--method", "klip-frame", "--modes", "31"], "--modes"),
     ("zero-rotation", ["ZERO"], "zero.txt: the parallactic angles do not change"),
     ("gap", ["--method", "klip-rings", "--gap", "40"], "--gap"),
     ("refs-size", ["--refs", "SMALL"], "small.fits"),
@@ -556,7 +560,8 @@ def test_mostly_empty_sequence_is_refused(tmp_path, streamed):
     cube[:16] = np.nan
     c, a = write_inputs(tmp_path, cube, angles)
     before = sorted(p.name for p in tmp_path.iterdir())
-    extra = ["--memory-limit", "1M"] if streamed else []
+    # the streamed path runs klip-frame (named: the default would say so first)
+    extra = ["--memory-limit", "1M", "--method", "klip-frame"] if streamed else []
     r = run("subtract", c, "--angles", a, "--fwhm", FWHM, "--out", tmp_path / "o.fits", *extra)
     assert r.returncode == 1, r.stderr
     lines = r.stderr.strip().splitlines()

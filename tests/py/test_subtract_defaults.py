@@ -115,6 +115,27 @@ def test_klip_rings_defaults_just_work(tmp_path, rot20):
     assert np.hypot(j % 64 - x0, j // 64 - y0) <= 1.5
 
 
+def test_default_method_is_klip_rings(tmp_path, rot20):
+    """No --method: klip-rings (docs/subtract.md, "Which method by default"),
+    the same product as naming it; options of another method are refused
+    rather than ignored (the streamed fallback: tests/py/test_stream.py)."""
+    d, _, _, _ = rot20
+    base = ["subtract", d / "cube.fits", "--angles", d / "angles.txt", "--fwhm", 4]
+    r = run(*base, "--out", tmp_path / "d.fits")
+    assert r.returncode == 0, r.stderr
+    r = run(*base, "--method", "klip-rings", "--out", tmp_path / "k.fits")
+    assert r.returncode == 0, r.stderr
+    assert fits.getheader(tmp_path / "d.fits")["GLSMETH"] == "klip-rings"
+    assert np.array_equal(fits.getdata(tmp_path / "d.fits"), fits.getdata(tmp_path / "k.fits"),
+                          equal_nan=True)
+    for opt, word in [(["--basis-frames", "all-but-target"], "--basis-frames"),
+                      (["--median-fit"], "--median-fit")]:
+        r = run(*base, *opt, "--out", tmp_path / "x.fits")
+        assert r.returncode == 1 and not (tmp_path / "x.fits").exists()
+        lines = r.stderr.strip().splitlines()
+        assert len(lines) == 1 and word in lines[0] and "klip-rings (the default)" in lines[0]
+
+
 def test_klip_rings_old_name_defaults(tmp_path, rot20):
     """The issue's case: `--method annular` alone (the old spelling) runs."""
     d, _, _, _ = rot20
