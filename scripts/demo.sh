@@ -6,7 +6,7 @@ set -euo pipefail
 gloam=${1:-build/src/cli/gloam}
 out=${2:-demo-run}
 frames=demo-frames
-fwhm=4.1        # the PSF's FWHM in pixels, as step 1 measures it on psf.fits
+fwhm=4.05       # the PSF's FWHM in pixels, as step 1 measures it on psf.fits (4.048)
 mkdir -p "$out"
 # the candidate columns worth reading on a terminal
 brief() { cut -d, -f1,4,6,10,11,12 "$1" | sed 's/,/\t/g'; }

@@ -138,6 +138,9 @@ int cli_parse_long(const gl_cli *cli, const char *opt, const char *arg, long min
                    long *out);
 int cli_parse_double(const gl_cli *cli, const char *opt, const char *arg, double min, double max,
                      double *out);
+/* A finite number > 0 (a scale factor such as --psf-scale); message and -1
+ * otherwise. */
+int cli_parse_positive(const gl_cli *cli, const char *opt, const char *arg, double *out);
 
 /* Reads an input FITS image or cube (at least min_naxis axes) and records it
  * in the provenance. On failure *cube is NULL and the library's message

@@ -232,7 +232,8 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
                 gl_detect_fpf_from_sigma(par.threshold_sigma), input, plane);
         if (ncand > 0)
             fprintf(cli->out,
-                    "(values below at the fitted sub-pixel position; peak values in the table)\n");
+                    "(position, S/N and significance at the fitted sub-pixel position; the "
+                    "S/N-map peak is in the table's peak_x, peak_y, peak_snr)\n");
         if (ncand > 0)
             fprintf(cli->out, "%4s %9s %9s %8s %8s %8s %10s %8s\n", "rank", "x", "y", "sep_px",
                     "pa_deg", "snr", "fpf", "sigma");

@@ -77,10 +77,8 @@ int cmd_inject(gl_cli *cli, int argc, char **argv)
         case OPT_OUT: out_path = optarg; break;
         case OPT_SPECTRUM: spectrum_text = optarg; break;
         case OPT_SCALE:
-            if (cli_parse_double(cli, "--psf-scale", optarg, 0, INFINITY, &psf_scale))
+            if (cli_parse_positive(cli, "--psf-scale", optarg, &psf_scale))
                 return 1;
-            if (!(psf_scale > 0))
-                return cli_usage(cli, "--psf-scale must be positive");
             break;
         case OPT_NORTH:
             if (cli_parse_double(cli, "--north-offset", optarg, -360, 360, &north))

@@ -77,14 +77,7 @@ static int parse_limits_option(gl_cli *cli, int c, const char *arg, gl_limits_pa
 {
     long n;
     switch (c) {
-    case OPT_SCALE:
-        if (cli_parse_double(cli, "--psf-scale", arg, -INFINITY, INFINITY, psf_scale))
-            return -1;
-        if (!(*psf_scale > 0)) {
-            cli_usage(cli, "--psf-scale must be a positive number (got %s)", arg);
-            return -1;
-        }
-        return 1;
+    case OPT_SCALE: return cli_parse_positive(cli, "--psf-scale", arg, psf_scale) ? -1 : 1;
     case OPT_THRESHOLD:
         return cli_parse_double(cli, "--threshold", arg, 0.5, 20, &lp->sigma) ? -1 : 1;
     case OPT_COMPLETENESS:

@@ -54,7 +54,7 @@ static const char help[] =
     "  --latitude DEG          site latitude (-30.6)\n"
     "  --longitude DEG         site longitude, east positive (-70.4)\n"
     "  --dec DEG               target declination (-51)\n"
-    "  --ha-start H            hour angle at the middle of frame 1 (-0.5)\n"
+    "  --ha-start H            hour angle at the middle of the first frame (-0.5)\n"
     "  --exptime S             exposure per frame (60)\n"
     "  --cadence S             start-to-start interval (75)\n"
     "  --date YYYY-MM-DDThh:mm:ss   UTC start (2021-06-12T04:10:00)\n"

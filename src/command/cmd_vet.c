@@ -103,10 +103,7 @@ static int parse_vet_option(gl_cli *cli, int c, const char *arg, vet_opts *o)
     long n;
     gl_vet_params *vp = &o->vp;
     switch (c) {
-    case OPT_SCALE:
-        if (cli_parse_double(cli, "--psf-scale", arg, 1e-30, 1e30, &o->psf_scale))
-            return -1;
-        return 1;
+    case OPT_SCALE: return cli_parse_positive(cli, "--psf-scale", arg, &o->psf_scale) ? -1 : 1;
     case OPT_THRESHOLD:
         return cli_parse_double(cli, "--threshold", arg, 0.5, 20, &vp->threshold_sigma) ? -1 : 1;
     case OPT_FAKES:
@@ -191,7 +188,9 @@ static gl_status read_candidates(const char *path, long nx, long ny, double **se
             a = a < 0 ? a + 360 : a;
         }
         if (!isfinite(s) || !isfinite(a)) {
-            st = gl_error_set(GL_ERR_INPUT, "%s: row %ld has no position", path, i + 1);
+            st = gl_error_set(GL_ERR_INPUT,
+                              "%s: row %ld has no position: its %s are empty or not numbers", path,
+                              i + 1, cs >= 0 && cp >= 0 ? "sep_px and pa_deg" : "x and y");
             goto cleanup;
         }
         (*sep)[i] = s;

@@ -161,6 +161,19 @@ int cli_parse_double(const gl_cli *cli, const char *opt, const char *arg, double
     return 0;
 }
 
+int cli_parse_positive(const gl_cli *cli, const char *opt, const char *arg, double *out)
+{
+    double v;
+    if (cli_parse_double(cli, opt, arg, -INFINITY, INFINITY, &v))
+        return -1;
+    if (!(v > 0)) {
+        cli_usage(cli, "%s must be a positive number (got %s)", opt, arg);
+        return -1;
+    }
+    *out = v;
+    return 0;
+}
+
 int cli_common_option(gl_cli *cli, int code, const char *arg, const char *help_text, int *exit_now)
 {
     long n;

@@ -73,8 +73,8 @@ gl_status gl_inject_companions(gl_cube *cube, const double *angles_deg, double n
             if (x < 0 || y < 0 || x > (double)(nx - 1) || y > (double)(ny - 1))
                 return gl_error_set(GL_ERR_USAGE,
                                     "companion %d (separation %g px, PA %g deg) falls off the "
-                                    "%ldx%ld image in frame %ld",
-                                    k + 1, comps[k].sep_px, comps[k].pa_deg, nx, ny, f + 1);
+                                    "%ldx%ld image in frame %ld (counted from 0)",
+                                    k + 1, comps[k].sep_px, comps[k].pa_deg, nx, ny, f);
         }
     if (ncompanions == 0)
         return GL_OK;

@@ -204,8 +204,10 @@ gl_status gl_psf_model_new(const gl_cube *psf, const char *name, long nx, long n
                 ipk = (long)i;
         }
         if (ipk < 0 || !(plane[ipk] > 0) || !(flux > 0)) {
-            st = gl_error_set(GL_ERR_INPUT, "%s: the PSF has no positive signal%s", name,
-                              nchan > 1 ? " in a channel" : "");
+            st = gl_error_set(GL_ERR_INPUT,
+                              "%s: the PSF's pixels sum to %.3g%s: no star's light to scale "
+                              "companions by (an empty or noise-only image?)",
+                              name, flux, nchan > 1 ? " in a channel" : "");
             goto cleanup;
         }
         double cx = (double)(ipk % pw), cy = (double)(ipk / pw);

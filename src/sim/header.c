@@ -43,9 +43,10 @@ gl_status sim_header_fill(gl_header *h, const gl_sim_params *p, const sim_optics
     TRY(gl_header_set_dbl(h, "OBSGEO-B", p->latitude_deg, "[deg] site geodetic latitude"));
     TRY(gl_header_set_dbl(h, "OBSGEO-L", p->longitude_deg, "[deg] site longitude, east +"));
     TRY(gl_header_set_dbl(h, "OBSGEO-H", p->height_m, "[m] site height"));
-    TRY(gl_header_set_dbl(h, "HASTART", p->ha_start_h, "[h] hour angle, middle of frame 1"));
+    TRY(gl_header_set_dbl(h, "HASTART", p->ha_start_h,
+                          "[h] hour angle, middle of the first frame"));
     TRY(gl_header_set_dbl(h, "LSTSTART", t->lst0_deg / 15.0,
-                          "[h] local mean sidereal time, middle of frame 1"));
+                          "[h] mean sidereal time, middle of first frame"));
     TRY(gl_header_set_dbl(h, "PIXSCAL", p->pixscale_mas, "[mas] pixel scale"));
     TRY(gl_header_set_dbl(h, "TELDIAM", telescope_m, "[m] telescope diameter"));
     if (p->nchan == 1) {
@@ -90,7 +91,7 @@ gl_status sim_header_fill(gl_header *h, const gl_sim_params *p, const sim_optics
     TRY(gl_header_set_dbl(h, "CRVAL2", p->dec_deg, "[deg] star DEC"));
     TRY(gl_header_set_dbl(h, "CDELT1", -s, "[deg] pixel scale, east to the left"));
     TRY(gl_header_set_dbl(h, "CDELT2", s, "[deg] pixel scale"));
-    TRY(gl_header_set_dbl(h, "PC1_1", cos(th), "orientation of frame 1"));
+    TRY(gl_header_set_dbl(h, "PC1_1", cos(th), "orientation of the first frame"));
     TRY(gl_header_set_dbl(h, "PC1_2", sin(th), ""));
     TRY(gl_header_set_dbl(h, "PC2_1", -sin(th), ""));
     TRY(gl_header_set_dbl(h, "PC2_2", cos(th), ""));

@@ -94,6 +94,13 @@ gl_status gl_sim_params_check(const gl_sim_params *p)
     }
     if (!(p->sampling >= 2.0 && p->sampling <= 32.0))
         return BAD("sampling %g pixels per lambda/D: must be in [2, 32]", p->sampling);
+    /* the PSF's FWHM is 1.03 lambda/D (Airy pattern, Born & Wolf sec. 8.5.2);
+     * detect, limits and vet need frames of at least 4 FWHM */
+    double fwhm = 1.03 * p->sampling;
+    if ((double)p->size < 4 * fwhm)
+        return BAD("--size %ld: frames under 4 FWHM wide (FWHM %.1f px at --sampling %g) leave "
+                   "no room to detect anything; use --size %ld or more",
+                   p->size, fwhm, p->sampling, (long)ceil(4 * fwhm));
     if (!(p->pixscale_mas > 0 && p->pixscale_mas < 1e5))
         return BAD("pixel scale %g mas: must be positive", p->pixscale_mas);
     if (!(p->obstruction >= 0 && p->obstruction < 0.9))

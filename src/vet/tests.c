@@ -244,7 +244,17 @@ static void test_low_side(vet_problem *p, const vet_stats *d, gl_vet_result *r, 
     const double *val = which ? d->half : d->modes;
     double *exp_out = which ? r->fake_snr_half : r->fake_snr_modes;
     if (n == 0 || (which && !(isfinite(val[0]) && isfinite(val[1])))) {
-        not_possible(t, which ? p->plan.why_halves : p->plan.why_modes);
+        const char *why = which ? p->plan.why_halves : p->plan.why_modes;
+        char text[160];
+        if (!why[0]) { /* the subtractions ran, the S/N there is not a number */
+            snprintf(text, sizeof text,
+                     which ? "no S/N at the candidate in the %s half (its subtraction leaves "
+                             "that place empty: too little rotation in half of the frames?)"
+                           : "no S/N at the candidate at any mode count%s",
+                     which ? (isfinite(val[0]) ? "second" : "first") : "");
+            why = text;
+        }
+        not_possible(t, why);
         return;
     }
     double worst = INFINITY, allow = 2;

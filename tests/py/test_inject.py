@@ -113,7 +113,7 @@ def test_bad_inputs(tmp_path):
     make_inputs(tmp_path, 48, 48)
     comp = ["--companion", "10:0:1e-3"]
     fits.PrimaryHDU(np.zeros((9, 9), np.float32)).writeto(tmp_path / "dark.fits")
-    assert "no positive signal" in bad(tmp_path, *comp, psf=tmp_path / "dark.fits")
+    assert "sum to 0: no star's light" in bad(tmp_path, *comp, psf=tmp_path / "dark.fits")
     # noise around a level is not a PSF: its profile never falls to half the peak
     noise = 100 + np.random.default_rng(3).normal(0, 5, (21, 21))
     fits.PrimaryHDU(noise.astype(np.float32)).writeto(tmp_path / "noise.fits")
@@ -121,7 +121,8 @@ def test_bad_inputs(tmp_path):
     fits.PrimaryHDU(np.ones((60, 60), np.float32)).writeto(tmp_path / "big.fits")
     assert "larger than" in bad(tmp_path, *comp, psf=tmp_path / "big.fits")
     assert "psf-scale" in bad(tmp_path, *comp, "--psf-scale", "0")
-    assert "falls off" in bad(tmp_path, "--companion", "40:0:1e-3")
+    assert "falls off the 48x48 image in frame 0 (counted from 0)" in bad(
+        tmp_path, "--companion", "40:0:1e-3")
     assert "SEP_PX:PA_DEG:CONTRAST" in bad(tmp_path, "--companion", "10:zero:1e-3")
     (tmp_path / "short.txt").write_text("1\n2\n")
     assert "holds 2 angles but the cube has 6 frames" in bad(tmp_path, *comp, angles=tmp_path / "short.txt")

@@ -216,12 +216,14 @@ def test_example_plan_reads_the_same_with_configparser(tmp_path):
     (tmp_path / "p.ini").write_text(r.stdout)
     cp = configparser.ConfigParser(inline_comment_prefixes=(";", "#"))
     cp.read(tmp_path / "p.ini")
-    assert cp["inputs"]["cube"] == "demo-frames/cube.fits"
+    # paths relative to the plan's folder: the demo's files beside it
+    assert cp["inputs"]["cube"] == "cube.fits" and cp["inputs"]["psf"] == "psf.fits"
     assert set(cp.sections()) >= {"run", "inputs", "steps", "align", "subtract", "detect", "limits"}
     # gloam's reading of the same file: every [subtract] key reaches the
     # subtract step's command line with configparser's value
     src = Path(os.environ["GLOAM_SOURCE"])
-    (tmp_path / "demo-frames").symlink_to(src / "demo-frames")
+    for name in ("cube.fits", "psf.fits"):
+        (tmp_path / name).symlink_to(src / "demo-frames" / name)
     dry = gloam("run", tmp_path / "p.ini", "--dry-run")
     assert dry.returncode == 0, dry.stderr
     line = next(x for x in dry.stderr.splitlines() if " gloam subtract " in x)

@@ -43,7 +43,7 @@ def read_csv(path):
 def test_angles_meeus_and_astroplan(tmp_path):
     out = tmp_path / "seq"
     # two hours centred near the meridian: both signs of the hour angle
-    simulate(out, "--frames", 12, "--size", 16, "--subexposures", 1, "--no-noise",
+    simulate(out, "--frames", 12, "--size", 20, "--subexposures", 1, "--no-noise",
              "--cadence", 600, "--ha-start", -1.0, "--static-nm", 0, "--ao-nm", 0,
              "--quasi-nm", 0)
     ang = np.loadtxt(out / "angles.txt")
@@ -265,6 +265,9 @@ def test_bad_input(tmp_path):
     one_line_failure(simulate(tmp_path / "x", "--companion", "a:b:c", check=False), "companion")
     one_line_failure(simulate(tmp_path / "x", "--wobble", "3", check=False), "wobble")
     one_line_failure(simulate(tmp_path / "x", "--frames", "0", check=False), "--frames")
+    # frames under 4 FWHM (1.03 lambda/D, Airy: Born & Wolf sec. 8.5.2) hold nothing to detect
+    one_line_failure(simulate(tmp_path / "x", "--size", "10", check=False),
+                     "--size 10: frames under 4 FWHM wide (FWHM 4.1 px at --sampling 4)")
     assert not (tmp_path / "x").exists()
     # existing products are kept without --overwrite
     out = tmp_path / "seq"

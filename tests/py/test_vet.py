@@ -342,6 +342,7 @@ BAD = [
     ("outside", "sep_px,pa_deg\n40,10\n", "outside the field"),
     ("columns", "a,b\n1,2\n", "no sep_px and pa_deg"),
     ("masked", "sep_px,pa_deg\n3.5,10\n", "masked zone"),
+    ("text", "sep_px,pa_deg\nabc,10\n", "row 1 has no position: its sep_px and pa_deg are"),
 ]
 
 
