@@ -94,9 +94,11 @@ gl_status sub_klip_local(const sub_ctx *c, double width, int nsect, double gap_p
 long sub_library(const sub_ctx *c, long t, double r, double gap_px, long nearest, long *lib);
 
 /* gl_subtract_inner_radius with usable-frame flags (NULL: all usable) and the
- * outer radius in px (region.c). */
+ * outer radius in px (region.c); *rule (when not NULL) gets the number of
+ * references every frame has from the radius chosen (the smallest mode count,
+ * or 1 when no ring gives that), 0 when the radius is not chosen that way. */
 double sub_inner_radius(const gl_subtract_params *p, const double *angles,
-                        const unsigned char *usable, long n, long nref, double r_out);
+                        const unsigned char *usable, long n, long nref, double r_out, long *rule);
 
 /* ---- linear algebra (klip.c) ------------------------------------------ */
 

@@ -146,28 +146,34 @@ static double mth_farthest(const double *angles, const unsigned char *usable, lo
 }
 
 double sub_inner_radius(const gl_subtract_params *p, const double *angles,
-                        const unsigned char *usable, long n, long nref, double r_out)
+                        const unsigned char *usable, long n, long nref, double r_out, long *rule)
 {
+    long dummy;
+    if (!rule)
+        rule = &dummy;
+    *rule = 0;
     if (p->mask_radius >= 0)
         return p->mask_radius;
     if (p->method != GL_SUBTRACT_ANNULAR || (nref > 0 && p->refs_use == GL_REFS_ONLY) ||
         !(p->gap_fwhm > 0))
         return 0.0;
-    long kmax = 0;
-    for (int i = 0; i < p->nmodes; i++)
-        kmax = GL_SUB_MAX(kmax, p->modes[i]);
+    /* the smallest count: its plane is whole from the inner radius out, the
+     * larger counts use what the libraries hold there (capped, reported) */
+    long kmin = p->modes[0];
+    for (int i = 1; i < p->nmodes; i++)
+        kmin = GL_SUB_MIN(kmin, p->modes[i]);
     if (p->nearest > 0)
-        kmax = GL_SUB_MIN(kmax, p->nearest);
-    kmax -= nref; /* GL_REFS_WITH_SCIENCE: the reference frames are always there */
-    if (kmax < 1)
+        kmin = GL_SUB_MIN(kmin, p->nearest);
+    kmin -= nref; /* GL_REFS_WITH_SCIENCE: the reference frames are always there */
+    if (kmin < 1)
         return 0.0;
     double gap = p->gap_fwhm * p->fwhm, half = 0.5 * p->ring_fwhm * p->fwhm;
     double *buf = gl_malloc(sizeof(double) * (size_t)(n > 0 ? n : 1));
     if (!buf)
         return 0.0; /* no memory: no mask; the run itself reports the shortage */
     double r_in = 0.0;
-    /* enough references for the largest count, else at least one each */
-    long tries[2] = {kmax, 1};
+    /* enough references for the smallest count, else at least one each */
+    long tries[2] = {kmin, 1};
     for (int a = 0; a < 2; a++) {
         double dmin = INFINITY;
         for (long t = 0; t < n; t++)
@@ -178,6 +184,7 @@ double sub_inner_radius(const gl_subtract_params *p, const double *angles,
         double r = dmin > 0 && isfinite(dmin) ? gap / dmin * (1 + 1e-9) - half : INFINITY;
         if (r + half < r_out) {
             r_in = GL_SUB_MAX(r, 0.0);
+            *rule = tries[a];
             break;
         }
     }
@@ -191,5 +198,5 @@ double gl_subtract_inner_radius(const gl_subtract_params *p, const double *angle
     double cx = (double)(nx / 2), cy = (double)(ny / 2);
     double rmax = GL_SUB_MIN(GL_SUB_MIN(cx, cy), GL_SUB_MIN((double)nx - cx, (double)ny - cy));
     double r_out = p->outer_radius > 0 ? GL_SUB_MIN(p->outer_radius, rmax) : rmax;
-    return sub_inner_radius(p, angles, NULL, nframe, nref, r_out);
+    return sub_inner_radius(p, angles, NULL, nframe, nref, r_out, NULL);
 }

@@ -65,10 +65,12 @@ static void report_summary(const sub_report *r, gl_subtract_result *res, char *t
             len += (size_t)snprintf(text + len, size - len,
                                     "%sring %ld (%.1f-%.1f px): ", listed > 1 ? "; " : "", k + 1,
                                     r->r_in[k], r->r_out[k]);
-        if (len < size && r->kmin[k] >= 0)
-            len += (size_t)snprintf(text + len, size - len,
-                                    r->kmin[k] == r->kmax[k] ? "%ld modes" : "%ld-%ld modes",
-                                    r->kmin[k], r->kmax[k]);
+        if (len < size && r->kmin[k] >= 0 && r->kmin[k] == r->kmax[k])
+            len += (size_t)snprintf(text + len, size - len, "%ld mode%s", r->kmin[k],
+                                    r->kmin[k] == 1 ? "" : "s");
+        else if (len < size && r->kmin[k] >= 0)
+            len +=
+                (size_t)snprintf(text + len, size - len, "%ld-%ld modes", r->kmin[k], r->kmax[k]);
         if (len < size && r->noref[k])
             len += (size_t)snprintf(text + len, size - len, "%s%ld frame%s without references",
                                     r->kmin[k] >= 0 ? ", " : "", r->noref[k],
@@ -337,9 +339,10 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
         refs && p->method != GL_SUBTRACT_NONE
             ? (p->refs_best > 0 ? GL_SUB_MIN(p->refs_best, refs->nframe) : refs->nframe)
             : 0;
+    long rule = 0; /* references every frame has from the automatic radius */
     for (int pass = 0; pass < (p->mask_radius < 0 ? 2 : 1); pass++) {
         if (pass == 1) {
-            c.r_in = sub_inner_radius(p, angles, usable, nf, nref_given, c.r_out);
+            c.r_in = sub_inner_radius(p, angles, usable, nf, nref_given, c.r_out, &rule);
             c.nusable = 0;
         }
         for (long i = 0; i < nf; i++) {
@@ -359,11 +362,32 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
     c.usable = usable;
     if ((st = sub_usable_check(&c, p->cube_name)))
         goto cleanup;
-    if (p->mask_radius < 0 && c.r_in > 0) /* said once the frames are known good */
+    if (p->mask_radius < 0 && rule > 0 && c.r_in > 0) { /* said once the frames are good */
+        long kmin = p->modes[0];
+        for (int i = 1; i < p->nmodes; i++)
+            kmin = GL_SUB_MIN(kmin, p->modes[i]);
+        char why[160];
+        if (rule > 1 || kmin == 1)
+            snprintf(why, sizeof why,
+                     "%ld reference%s past --gap %g FWHM (the smallest of --modes%s)", rule,
+                     rule > 1 ? "s" : "", p->gap_fwhm,
+                     p->nmodes > 1 ? "; the larger counts use what the libraries hold" : "");
+        else
+            snprintf(why, sizeof why,
+                     "one reference past --gap %g FWHM (no ring gives every frame %ld, the "
+                     "smallest of --modes: the modes are capped, see below)",
+                     p->gap_fwhm, kmin);
         gl_log(GL_LOG_INFO,
-               "inner radius %.1f px (%.2f FWHM): the first ring where every frame has "
-               "references past --gap %g FWHM (set --mask-radius to choose another)",
-               c.r_in, c.r_in / p->fwhm, p->gap_fwhm);
+               "inner radius %.1f px (%.2f FWHM): from there every frame has at least %s; "
+               "set --mask-radius to choose another",
+               c.r_in, c.r_in / p->fwhm, why);
+        if (c.r_in > c.r_out / sqrt(2.0)) /* most of the field's area lost */
+            gl_log(GL_LOG_WARN,
+                   "%s: the automatic inner radius %.1f px leaves only %.1f-%.1f px of the field "
+                   "(too little rotation for klip-rings closer in): give --mask-radius to go "
+                   "closer with smaller libraries, or use --method klip-frame or --refs",
+                   p->cube_name ? p->cube_name : "the science cube", c.r_in, c.r_in, c.r_out);
+    }
 
     /* reference frames */
     if (refs && p->method != GL_SUBTRACT_NONE) {
@@ -464,6 +488,11 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
     if (st)
         goto cleanup;
     res.inner_radius = c.r_in;
+    for (long k = 0; k < report.nring; k++) /* where data really start */
+        if (report.kmin[k] >= 0) {
+            res.inner_radius = GL_SUB_MAX(c.r_in, report.r_in[k]);
+            break;
+        }
     res.fewest_modes = kmax;
     if (report.nring > 0) {
         long any = 0;
@@ -478,12 +507,16 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
         }
         char text[1024];
         report_summary(&report, &res, text, sizeof text);
+        char none[96] = "";
+        if (res.frames_without_refs)
+            snprintf(none, sizeof none, "; %ld ring-frame pair%s had none (left NaN)",
+                     res.frames_without_refs, res.frames_without_refs == 1 ? "" : "s");
         if (text[0])
             gl_log(GL_LOG_WARN,
-                   "%s: the libraries held fewer references than asked (%ld modes) in %ld "
-                   "ring%s, and %ld ring-frame pair%s had none (left NaN): %s",
-                   method->name, kmax, res.rings_capped, res.rings_capped == 1 ? "" : "s",
-                   res.frames_without_refs, res.frames_without_refs == 1 ? "" : "s", text);
+                   "%s: the libraries held fewer references than asked (%ld mode%s) in %ld "
+                   "ring%s%s: %s",
+                   method->name, kmax, kmax == 1 ? "" : "s", res.rings_capped,
+                   res.rings_capped == 1 ? "" : "s", none, text);
     }
 
     /* the product header: the input's cards, the parameters, north-up WCS */

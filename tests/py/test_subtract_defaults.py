@@ -136,6 +136,33 @@ def test_default_method_is_klip_rings(tmp_path, rot20):
         assert len(lines) == 1 and word in lines[0] and "klip-rings (the default)" in lines[0]
 
 
+def test_inner_radius_from_the_smallest_mode_count(tmp_path, rot20):
+    """The automatic radius gives every frame as many references as the
+    smallest mode count (docs/subtract.md): --modes 5,10 starts where --modes
+    5 does, and the log says which count set it; the library rule is
+    computed here as in test_klip_rings_defaults_just_work. A gap that leaves
+    less than half of the field's area gets one warning naming the cube."""
+    d, ang, _, _ = rot20
+    base = ["subtract", d / "cube.fits", "--angles", d / "angles.txt", "--fwhm", 4]
+    radii = []
+    for modes in ("5", "5,10"):
+        out = tmp_path / f"m{modes}.fits"
+        r = run(*base, "--modes", modes, "--out", out)
+        assert r.returncode == 0, r.stderr
+        line = next(ln for ln in r.stderr.splitlines() if "inner radius" in ln)
+        assert "at least 5 references" in line and "smallest of --modes" in line, line
+        radii.append(fits.getheader(out)["GLSMASK"])
+    assert radii[0] == radii[1]
+    assert libraries(ang, radii[1] + 2.0, 3.0).min() >= 5
+    assert libraries(ang, radii[1] + 1.8, 3.0).min() < 5
+    r = run(*base, "--gap", 1.0, "--out", tmp_path / "g.fits")
+    assert r.returncode == 0, r.stderr
+    warn = [ln for ln in r.stderr.splitlines() if "leaves only" in ln]
+    r_in = fits.getheader(tmp_path / "g.fits")["GLSMASK"]
+    assert r_in > 32 / np.sqrt(2) and len(warn) == 1 and "cube.fits" in warn[0], r.stderr
+    assert f"from {r_in:.1f} px out" in r.stderr
+
+
 def test_klip_rings_old_name_defaults(tmp_path, rot20):
     """The issue's case: `--method annular` alone (the old spelling) runs."""
     d, _, _, _ = rot20
