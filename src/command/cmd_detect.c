@@ -211,6 +211,31 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
         rc = fail_file(cli, input, st);
         goto cleanup;
     }
+    {
+        /* data, but nowhere a ring of reference apertures: an empty map would
+         * read as "nothing there" */
+        size_t nsnr = 0;
+        for (size_t k = 0; k < (size_t)nx * (size_t)ny; k++)
+            nsnr += isfinite(maps->snr[k]);
+        if (nsnr == 0) {
+            double rlo = INFINITY, rhi = 0;
+            for (long y = 0; y < ny; y++)
+                for (long x = 0; x < nx; x++)
+                    if (!isnan(img[y * nx + x])) {
+                        double r = hypot((double)(x - nx / 2), (double)(y - ny / 2));
+                        rlo = r < rlo ? r : rlo;
+                        rhi = r > rhi ? r : rhi;
+                    }
+            st = gl_error_set(GL_ERR_INPUT,
+                              "%s: plane %ld: no S/N anywhere: its %zu pixels with data, "
+                              "%.1f-%.1f px from the star, hold no test aperture with a ring of "
+                              "references around it (a subtraction whose inner radius left "
+                              "too little? see its log)",
+                              input, plane, nfinite, rlo, rhi);
+            rc = cli_fail(cli, st);
+            goto cleanup;
+        }
+    }
 
     char title[512];
     snprintf(title, sizeof title, "%s  (plane %ld of %ld)", title_given ? title_given : input,
@@ -232,8 +257,9 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
                 gl_detect_fpf_from_sigma(par.threshold_sigma), input, plane);
         if (ncand > 0)
             fprintf(cli->out,
-                    "(position, S/N and significance at the fitted sub-pixel position; the "
-                    "S/N-map peak is in the table's peak_x, peak_y, peak_snr)\n");
+                    "(position, S/N and significance at the fitted sub-pixel position, or at "
+                    "the peak pixel where the fit failed, gauss_fit 0 in the table; the "
+                    "S/N-map peak is in peak_x, peak_y, peak_snr)\n");
         if (ncand > 0)
             fprintf(cli->out, "%4s %9s %9s %8s %8s %8s %10s %8s\n", "rank", "x", "y", "sep_px",
                     "pa_deg", "snr", "fpf", "sigma");

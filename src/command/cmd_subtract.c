@@ -14,7 +14,8 @@
 #include <string.h>
 
 static const char help[] =
-    "usage: gloam subtract CUBE --angles FILE --fwhm PX|auto --out RESULT.fits [options]\n\n"
+    "usage: gloam subtract CUBE --angles FILE [--fwhm PX|--psf PSF.fits] --out RESULT.fits\n"
+    "                      [options]\n\n"
     "Removes the star's speckle halo, derotates the residuals to north-up (east left)\n"
     "and combines them. RESULT.fits holds one plane per mode count, in the order given\n"
     "(one plane for --method median-frame or derotate-only).\n\n"
@@ -47,7 +48,8 @@ int cmd_subtract(gl_cli *cli, int argc, char **argv)
     gl_subtract_params *pp = &setup.p;
     int c;
     char full_help[8192];
-    snprintf(full_help, sizeof full_help, "%s%s", help, cli_subtract_help);
+    snprintf(full_help, sizeof full_help, "%s%s%s", help, cli_subtract_help,
+             cli_subtract_memory_help);
 
     int k;
     while ((k = cli_next_option(cli, argc, argv, opts, full_help, &c)) > 0) {
@@ -71,7 +73,7 @@ int cmd_subtract(gl_cli *cli, int argc, char **argv)
     const char *cube_path = cli_positional(cli, argc, argv, "the input cube");
     if (!cube_path)
         return 1;
-    if (psf_path && !setup.have_fwhm) { /* --psf alone: the FWHM measured on it */
+    if (!setup.have_fwhm) { /* --fwhm auto: measured on --psf, else the header's */
         pp->fwhm = CLI_FWHM_AUTO;
         setup.have_fwhm = 1;
     }
@@ -81,9 +83,9 @@ int cmd_subtract(gl_cli *cli, int argc, char **argv)
                          "it would not be used: give one of them",
                          pp->fwhm);
     {
-        const char *names[] = {"--fwhm", "--out"}; /* angles: cli_read_cube_angles */
-        const void *vals[] = {setup.have_fwhm ? names : NULL, out_path};
-        if (cli_missing(cli, 2, names, vals))
+        const char *names[] = {"--out"}; /* angles: cli_read_cube_angles */
+        const void *vals[] = {out_path};
+        if (cli_missing(cli, 1, names, vals))
             return 1;
     }
     if (cli_subtract_check(cli, &setup))

@@ -492,6 +492,9 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
     }
     if (cli_subtract_check(cli, &setup))
         return 1;
+    if (setup.memory_limit > 0)
+        return cli_usage(cli, "--memory-limit: vet keeps the cube in memory (its subtractions "
+                              "run on each candidate's annulus) and has no streamed path");
     if (epochs_path && (!o.have_pm || !(o.star.parallax_mas > 0)))
         return cli_usage(cli, "--epochs needs the star's --proper-motion and --parallax");
     /* hundreds of small subtractions: one thread unless asked, because the

@@ -15,9 +15,8 @@
 #include <unistd.h>
 
 const char cli_subtract_help[] =
-    "  --fwhm PX|auto         PSF full width at half maximum, pixels; auto: measured on\n"
-    "                         --psf (limits, vet: the default), else recorded in the\n"
-    "                         input's header\n"
+    "  --fwhm PX|auto         PSF full width at half maximum, pixels; auto (the default):\n"
+    "                         measured on --psf, else recorded in the input's header\n"
     "  --method NAME          how the star's light is modelled and removed (default klip-rings):\n"
     "                           median-frame: each frame minus the median of all frames\n"
     "                             (classical ADI)\n"
@@ -55,11 +54,12 @@ const char cli_subtract_help[] =
     "  --spectral-step        4-D cubes: remove the star across wavelength channels first, then\n"
     "                         run --method on the result (SDI then ADI)\n"
     "  --wavelengths L1,...   one wavelength per channel (default: the header's WAVE axis)\n"
-    "  --spectral-modes K     KL modes of the spectral step (default 1)\n"
+    "  --spectral-modes K     KL modes of the spectral step (default 1)\n" CLI_ANGLE_HELP;
+
+const char cli_subtract_memory_help[] =
     "  --memory-limit SIZE    memory to stay within, bytes or with K, M, G (default: half of\n"
     "                         the machine's memory); a cube that needs more is read from its\n"
-    "                         file in blocks (klip-frame and median-frame; "
-    "docs/subtract.md)\n" CLI_ANGLE_HELP;
+    "                         file in blocks (klip-frame and median-frame; docs/subtract.md)\n";
 
 /* The first release's spellings (docs/names.md): they still work, with one
  * note each. */

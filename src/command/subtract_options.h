@@ -67,6 +67,9 @@ enum {
 
 /* Help lines of those options. */
 extern const char cli_subtract_help[];
+/* The help line of --memory-limit as gloam subtract reads it (limits has its
+ * own; vet refuses the option). */
+extern const char cli_subtract_memory_help[];
 
 typedef struct cli_subtract_setup {
     gl_subtract_params p;

@@ -253,10 +253,17 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
                             "frame (or the outer radius) past %.1f px",
                             r1, diam, nx, ny, edge);
     if (r0 > r1)
-        return gl_error_set(GL_ERR_USAGE,
-                            "no separation fits between %.1f px (%s) and %.1f px (%s)", r0,
-                            lp->r_min_px > 0 ? "--min-separation" : "mask + FWHM/2, the first", r1,
-                            lp->r_max_px > 0 ? "--max-separation" : "frame edge, the last");
+        return gl_error_set(
+            GL_ERR_USAGE, "%s: no separation fits between %.1f px (%s) and %.1f px (%s)%s",
+            sp->cube_name ? sp->cube_name : "the science cube", r0,
+            lp->r_min_px > 0       ? "--min-separation"
+            : sp->mask_radius >= 0 ? "--mask-radius + FWHM/2, the first"
+                                   : "the automatic inner radius + FWHM/2, the first",
+            r1, lp->r_max_px > 0 ? "--max-separation" : "frame edge, the last",
+            lp->r_min_px > 0 || sp->mask_radius >= 0
+                ? ""
+                : ": too little rotation for klip-rings here; give --mask-radius, or use "
+                  "--method klip-frame or --refs");
     long n = (long)floor((r1 - r0) / step + 1e-9) + 1;
 
     if ((st = gl_detect_aperture_plan_new(diam / 2, &ap)))

@@ -10,6 +10,7 @@
  * message naming the parameter or the input at fault.
  */
 #include "core/internal.h"
+#include "gloam/io.h"
 #include "subtract/combine.h"
 
 #include <math.h>
@@ -499,10 +500,13 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
         for (long k = 0; k < report.nring; k++)
             any += report.kmin[k] >= 0;
         if (!any) {
+            int rad = gl_angles_look_like_radians(angles, nf);
             st = gl_error_set(GL_ERR_USAGE,
-                              "--gap %g FWHM: no frame has a reference frame in any ring (the "
-                              "sequence turns too little for that gap); lower --gap",
-                              p->gap_fwhm);
+                              "%s: no frame has a reference past --gap %g FWHM in any ring: %s",
+                              p->angles_name ? p->angles_name : "the angles", p->gap_fwhm,
+                              rad ? "the angles look like radians (gloam reads degrees; "
+                                    "multiply them by 180/pi)"
+                                  : "the sequence turns too little for that gap; lower --gap");
             goto cleanup;
         }
         char text[1024];

@@ -163,6 +163,34 @@ def test_inner_radius_from_the_smallest_mode_count(tmp_path, rot20):
     assert f"from {r_in:.1f} px out" in r.stderr
 
 
+def test_too_little_field_is_said_downstream(tmp_path, rot20):
+    """A gap that leaves one narrow ring at the edge: detect refuses the
+    product (no test aperture has a ring of references: an empty S/N map
+    would read as "nothing there") and limits names the cube and the cause;
+    each with one line, exit 1, nothing written. Angles in radians: the
+    refusal says so instead of asking for a smaller gap."""
+    d, ang, _, _ = rot20
+    base = ["--angles", d / "angles.txt", "--fwhm", 4, "--gap", 1.2]
+    r = run("subtract", d / "cube.fits", *base, "--out", tmp_path / "e.fits", "--quiet")
+    assert r.returncode == 0, r.stderr
+    for args, words in [
+        (["detect", tmp_path / "e.fits", "--out", tmp_path / "det"], ["e.fits", "no S/N anywhere"]),
+        (["limits", d / "cube.fits", *base, "--psf", d / "psf.fits", "--out", tmp_path / "lim"],
+         ["cube.fits", "no separation fits", "too little rotation"])]:
+        before = sorted(p.name for p in tmp_path.iterdir())
+        r = run(*args)
+        lines = [ln for ln in r.stderr.strip().splitlines() if "FWHM" not in ln[:40]]
+        assert r.returncode == 1 and len(lines) == 1, r.stderr
+        assert all(w in lines[0] for w in words), lines[0]
+        assert sorted(p.name for p in tmp_path.iterdir()) == before
+    np.savetxt(tmp_path / "rad.txt", np.deg2rad(ang))
+    r = run("subtract", d / "cube.fits", "--angles", tmp_path / "rad.txt", "--fwhm", 4,
+            "--out", tmp_path / "r.fits")
+    assert r.returncode == 1 and not (tmp_path / "r.fits").exists()
+    last = r.stderr.strip().splitlines()[-1]
+    assert "rad.txt" in last and "look like radians" in last, r.stderr
+
+
 def test_klip_rings_old_name_defaults(tmp_path, rot20):
     """The issue's case: `--method annular` alone (the old spelling) runs."""
     d, _, _, _ = rot20
