@@ -78,6 +78,7 @@ typedef struct gl_limits_result {
     double *noise, *mean;             /* std and mean of the aperture sums, per plane */
     double *t_threshold;              /* t for the FPF at dof, per plane */
     double *throughput;               /* local linear fit of the fakes' throughput, per plane */
+    double *signal;                   /* the same of their signal (test - mean of references) */
     double *throughput_scatter;       /* std of the fakes' throughput about that fit */
     double *fakes_used;               /* fakes within 1.5 FWHM that calibrate the point */
     double *contrast;                 /* t sigma sqrt(1+1/n2) / (throughput F), per plane */
@@ -88,8 +89,9 @@ typedef struct gl_limits_result {
     double fpf;                       /* the FPF of params.sigma */
     int nfakes;
     gl_limits_fake *fakes;
-    gl_cube *image; /* the subtraction without fakes (north-up) */
-    double fwhm;    /* px, the aperture diameter */
+    gl_cube *image;    /* the subtraction without fakes (north-up) */
+    double fwhm;       /* px, the aperture diameter */
+    int skip_flanking; /* the references of the detection test leave the flanking two out */
 } gl_limits_result;
 
 /* Computes the curves.
@@ -113,12 +115,20 @@ GL_API gl_status gl_limits_compute(const gl_cube *cube, const double *angles, co
 GL_API void gl_limits_result_free(gl_limits_result *r);
 
 /* Throughput-corrected aperture photometry of a source in one plane of the
- * curves' image: flux = 1-FWHM aperture sum at (sep, pa) (north-up,
- * conventions.md); noise = std of the aperture sums at that separation;
- * contrast = flux / (throughput x F), contrast_err = noise / (throughput x F)
- * (statistical only: the throughput's own error is not included). */
+ * curves' image, as the fakes are measured: flux = 1-FWHM aperture sum at
+ * (sep, pa) (north-up, conventions.md); background = mean of the other
+ * apertures of the ring of its detection test (nref of them; the flanking
+ * two left out with skip_flanking); contrast = (flux - background) /
+ * (signal x F), signal the fakes' (test - mean of the references) per unit
+ * flux at that separation; contrast_err = noise sqrt(1 + 1/nref) / (signal
+ * x F), noise the std of the aperture sums there (statistical only: the
+ * throughput's own error is not included). The background matters: a
+ * median-combined residual sits below zero, and a bright source darkens its
+ * own ring (docs/limits.md); throughput (the test aperture alone) is given
+ * for reference. */
 typedef struct gl_limits_photometry {
-    double flux, noise, throughput, contrast, contrast_err;
+    double flux, background, noise, throughput, signal, contrast, contrast_err;
+    int nref;
 } gl_limits_photometry;
 
 /* Errors: GL_ERR_USAGE (plane out of range, separation outside the curve,

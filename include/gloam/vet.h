@@ -42,11 +42,19 @@
 extern "C" {
 #endif
 
+/* The fewest error fakes whose rms is an error bar worth quoting: an rms of
+ * N recoveries is itself uncertain by about 1/sqrt(2N) (50% for N = 2; the
+ * large-sample variance of a standard deviation, Kendall & Stuart, The
+ * Advanced Theory of Statistics, vol. 1), and the tests take the median and
+ * spread of the fakes' values. */
+#define GL_VET_MIN_ERROR_FAKES 3
+
 typedef struct gl_vet_params {
     /* ---- set by the user (gl_vet_params_init gives the defaults) ---- */
     double merit_radius_fwhm; /* merit aperture radius, FWHM (default 1) */
     double ring_half_fwhm;    /* half-width of the fitted annulus, FWHM (default 2.5) */
-    int error_fakes;          /* injection-recovery fakes for the errors (default 6) */
+    int error_fakes;          /* injection-recovery fakes for the errors (default 6;
+                                 fewer than GL_VET_MIN_ERROR_FAKES draw a warning) */
     int max_evals;            /* merit evaluations per fit (default 120) */
     double threshold_sigma;   /* S/N a planet keeps in every mode count (default 5) */
     double centre_err_px;     /* star-centring error per axis, px (default 0) */

@@ -562,6 +562,23 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
         num[j++] = i + 1;
     }
     ncand = nkept;
+    /* fewer fakes than an error bar needs: said once, for every candidate */
+    if (ncand > 0 && o.vp.error_fakes < GL_VET_MIN_ERROR_FAKES) {
+        int nf = o.vp.error_fakes;
+        if (nf < 2)
+            gl_log(GL_LOG_WARN,
+                   "--error-fakes %d: %s, so no measurement errors (the *_err columns stay "
+                   "empty) and no planet values for the tests that compare with fakes; use at "
+                   "least %d (default 6)",
+                   nf, nf ? "one fake gives no rms" : "no injection-recovery fakes",
+                   GL_VET_MIN_ERROR_FAKES);
+        else
+            gl_log(GL_LOG_WARN,
+                   "--error-fakes %d: the errors are the rms of %d recoveries, uncertain by "
+                   "about %.0f%% themselves (1/sqrt(2N)), and the tests compare with %d fakes; "
+                   "use at least %d (default 6)",
+                   nf, nf, 100 / sqrt(2.0 * nf), nf, GL_VET_MIN_ERROR_FAKES);
+    }
     if (star_table) {
         double e = 0;
         if ((st = star_table_error(star_table, &e)) ||

@@ -223,7 +223,7 @@ static double solve(window *w, double q)
 
 void gl_limits_calibrate_point(limits_point *pt, const gl_limits_fake *fakes, int nfakes, int plane)
 {
-    pt->throughput = pt->throughput_scatter = pt->fakes_used = NAN;
+    pt->throughput = pt->throughput_scatter = pt->fakes_used = pt->signal = NAN;
     pt->contrast = pt->completeness = pt->contrast_c50 = pt->contrast_cq = NAN;
     double r[MAX_WINDOW], t[MAX_WINDOW], a[MAX_WINDOW], h[MAX_WINDOW];
     int n = 0;
@@ -270,6 +270,7 @@ void gl_limits_calibrate_point(limits_point *pt, const gl_limits_fake *fakes, in
     double T = line_at(r, t, n, pt->sep_px, minspread);
     double A = line_at(r, a, n, pt->sep_px, minspread);
     pt->throughput = T;
+    pt->signal = A;
     pt->fakes_used = n;
     if (n >= 3) {
         double ss = 0;

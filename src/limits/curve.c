@@ -46,19 +46,11 @@ void gl_limits_result_free(gl_limits_result *r)
 {
     if (!r)
         return;
-    double *arrays[] = {r->sep_px,
-                        r->napertures,
-                        r->dof,
-                        r->noise,
-                        r->mean,
-                        r->t_threshold,
-                        r->throughput,
-                        r->throughput_scatter,
-                        r->fakes_used,
-                        r->contrast,
-                        r->completeness_of_contrast,
-                        r->contrast_c50,
-                        r->contrast_cq};
+    double *arrays[] = {r->sep_px,       r->napertures, r->dof,
+                        r->noise,        r->mean,       r->t_threshold,
+                        r->throughput,   r->signal,     r->throughput_scatter,
+                        r->fakes_used,   r->contrast,   r->completeness_of_contrast,
+                        r->contrast_c50, r->contrast_cq};
     for (size_t i = 0; i < sizeof arrays / sizeof arrays[0]; i++)
         gl_free(arrays[i]);
     gl_free(r->fakes);
@@ -311,6 +303,7 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
                             &r.mean,
                             &r.t_threshold,
                             &r.throughput,
+                            &r.signal,
                             &r.throughput_scatter,
                             &r.fakes_used,
                             &r.contrast,
@@ -467,6 +460,7 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
                            .q = lp->completeness};
         gl_limits_calibrate_point(&pt, r.fakes, r.nfakes, k);
         r.throughput[j] = pt.throughput;
+        r.signal[j] = pt.signal;
         r.throughput_scatter[j] = pt.throughput_scatter;
         r.fakes_used[j] = pt.fakes_used;
         r.contrast[j] = pt.contrast;
@@ -508,6 +502,7 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
                capped, n, capped95, 100 * lp->completeness);
     r.image = base.image;
     r.fwhm = fwhm;
+    r.skip_flanking = lp->skip_flanking;
     base.image = NULL;
     *out = r;
     memset(&r, 0, sizeof r);
@@ -539,32 +534,63 @@ gl_status gl_limits_photometry_at(const gl_limits_result *r, int plane, double s
                             r->sep_px[0], r->sep_px[r->n - 1]);
     long nx = r->image->nx, ny = r->image->ny;
     const double *noise = r->noise + (size_t)plane * (size_t)r->n;
+    const double *sig = r->signal + (size_t)plane * (size_t)r->n;
     const double *thr = r->throughput + (size_t)plane * (size_t)r->n;
+    const float *img = gl_cube_plane(r->image, 0, plane);
+    /* the ring of the detection test at the source, as for the fakes
+     * (measure_fake): the source's aperture first */
+    long n = gl_detect_ring_count(sep_px, r->fwhm);
     gl_aperture_plan *ap = NULL;
     gl_status st = gl_detect_aperture_plan_new(r->fwhm / 2, &ap);
     if (st)
         return st;
     double *work = gl_malloc(gl_detect_aperture_worksize(ap) * sizeof *work);
-    if (!work) {
-        gl_detect_aperture_plan_free(ap);
-        return gl_error_nomem("photometry");
+    double *xs = gl_malloc((size_t)(n + 1) * sizeof *xs),
+           *ys = gl_malloc((size_t)(n + 1) * sizeof *ys);
+    if (!work || !xs || !ys) {
+        st = gl_error_nomem("photometry");
+        goto cleanup;
     }
-    double t = pa_deg * M_PI / 180, flux;
-    double x = (double)(nx / 2) - sep_px * sin(t), y = (double)(ny / 2) + sep_px * cos(t);
-    if (!gl_detect_aperture_sum(ap, gl_cube_plane(r->image, 0, plane), nx, ny, x, y, work, &flux,
-                                NULL))
+    double cx = (double)(nx / 2), cy = (double)(ny / 2), x, y, flux;
+    sky_xy(cx, cy, sep_px, pa_deg, &x, &y);
+    gl_detect_ring_positions(cx, cy, sep_px, atan2(y - cy, x - cx), n, xs, ys);
+    if (!gl_detect_aperture_sum(ap, img, nx, ny, x, y, work, &flux, NULL)) {
         st = gl_error_set(GL_ERR_USAGE,
                           "separation %.2f px, PA %.2f deg: the aperture touches the edge or "
                           "missing data",
                           sep_px, pa_deg);
-    if (!st) {
-        out->flux = flux;
-        out->noise = interp(r->sep_px, noise, r->n, sep_px);
-        out->throughput = interp(r->sep_px, thr, r->n, sep_px);
-        double denom = out->throughput * r->psf_aperture_flux;
-        out->contrast = denom > 0 ? flux / denom : NAN;
-        out->contrast_err = denom > 0 ? out->noise / denom : NAN;
+        goto cleanup;
     }
+    double bg = 0;
+    long m = 0;
+    for (long a = 1; a < n; a++) {
+        double s;
+        if (r->skip_flanking && (a == 1 || a == n - 1))
+            continue;
+        if (gl_detect_aperture_sum(ap, img, nx, ny, xs[a], ys[a], work, &s, NULL)) {
+            bg += s;
+            m++;
+        }
+    }
+    if (m < 2) {
+        st = gl_error_set(GL_ERR_USAGE,
+                          "separation %.2f px, PA %.2f deg: fewer than 2 reference apertures on "
+                          "valid data",
+                          sep_px, pa_deg);
+        goto cleanup;
+    }
+    out->flux = flux;
+    out->background = bg / (double)m;
+    out->noise = interp(r->sep_px, noise, r->n, sep_px);
+    out->throughput = interp(r->sep_px, thr, r->n, sep_px);
+    out->signal = interp(r->sep_px, sig, r->n, sep_px);
+    out->nref = (int)m;
+    double denom = out->signal * r->psf_aperture_flux;
+    out->contrast = denom > 0 ? (flux - out->background) / denom : NAN;
+    out->contrast_err = denom > 0 ? out->noise * sqrt(1 + 1 / (double)m) / denom : NAN;
+cleanup:
+    gl_free(xs);
+    gl_free(ys);
     gl_free(work);
     gl_detect_aperture_plan_free(ap);
     return st;

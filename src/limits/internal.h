@@ -19,6 +19,7 @@ typedef struct limits_point {
     double q;        /* completeness of the second curve */
     /* results */
     double throughput, throughput_scatter, fakes_used;
+    double signal; /* the same local fit of the fakes' signal (test - mean of references) */
     double contrast, completeness, contrast_c50, contrast_cq;
 } limits_point;
 

@@ -149,15 +149,16 @@ cleanup:
 gl_status gl_limits_companions_write(const char *csv, const gl_limits_result *r, const double *sep,
                                      const double *pa, int n, double pixscale)
 {
-    enum { NC = 13 };
+    enum { NC = 15 };
     long rows = (long)n * r->nplanes;
     double *buf = gl_calloc((size_t)(rows ? rows : 1) * NC, sizeof *buf);
     if (!buf)
         return gl_error_nomem("companions table");
-    const char *names[NC] = {
-        "candidate", "plane",      "modes",    "sep_px",       "sep_arcsec", "pa_deg",       "flux",
-        "noise",     "throughput", "contrast", "contrast_err", "delta_mag",  "delta_mag_err"};
-    const char *units[NC] = {"", "", "", "pix", "arcsec", "deg", "", "", "", "", "", "mag", "mag"};
+    const char *names[NC] = {"candidate", "plane",    "modes",        "sep_px",    "sep_arcsec",
+                             "pa_deg",    "flux",     "background",   "noise",     "throughput",
+                             "signal",    "contrast", "contrast_err", "delta_mag", "delta_mag_err"};
+    const char *units[NC] = {"", "", "", "pix", "arcsec", "deg", "",   "",
+                             "", "", "", "",    "",       "mag", "mag"};
     const double *cols[NC];
     for (int c = 0; c < NC; c++)
         cols[c] = buf + (size_t)c * (size_t)rows;
@@ -176,8 +177,10 @@ gl_status gl_limits_companions_write(const char *csv, const gl_limits_result *r,
                             pixscale > 0 ? sep[i] * pixscale / 1000 : NAN,
                             pa[i],
                             ok ? ph.flux : NAN,
+                            ok ? ph.background : NAN,
                             ok ? ph.noise : NAN,
                             ok ? ph.throughput : NAN,
+                            ok ? ph.signal : NAN,
                             ok ? ph.contrast : NAN,
                             ok ? ph.contrast_err : NAN,
                             ok ? -2.5 * log10(ph.contrast) : NAN,

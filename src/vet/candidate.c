@@ -151,7 +151,9 @@ gl_status gl_vet_candidate(const gl_cube *cube, const double *angles, const gl_c
     const float *im = gl_cube_plane(img, 0, 0);
     vet_peak(p, im, tx, ty, &x0, &y0);
     vet_seppa(p, x0, y0, &sep0, &pa0);
-    double f0 = vet_aperture(p, im, x0, y0);
+    if ((st = vet_level_make(p, im, sep0, x0, y0, p->level)))
+        goto cleanup;
+    double f0 = vet_flux(p, im, x0, y0);
     if (!(f0 > 0)) {
         st = gl_error_set(GL_ERR_INPUT,
                           "candidate at %.2f px, %.1f deg: no positive flux there in the "

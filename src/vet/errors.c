@@ -31,14 +31,20 @@ gl_status vet_errors_run(vet_problem *p, const gl_vet_params *vp, const vet_fit 
     long nmax = (long)floor(2 * M_PI * fit->sep / (2 * p->fwhm)) - 1;
     long n = GL_MIN(GL_MIN((long)vp->error_fakes, nmax), VET_MAX_FAKES);
     p->nfake_stats = 0;
-    if (vp->error_fakes == 0)
-        return GL_OK;
+    /* too few fakes asked for is said once by the caller (cmd_vet.c); too
+     * few that fit at this separation is said here */
     if (n < 2) {
-        gl_log(GL_LOG_WARN,
-               "vet: at %.1f px fewer than 2 fakes fit 2 FWHM apart; no measurement error",
-               fit->sep);
+        if (vp->error_fakes >= 2)
+            gl_log(GL_LOG_WARN,
+                   "vet: at %.1f px fewer than 2 fakes fit 2 FWHM apart; no measurement error",
+                   fit->sep);
         return GL_OK;
     }
+    if (n < GL_VET_MIN_ERROR_FAKES && n < vp->error_fakes)
+        gl_log(GL_LOG_WARN,
+               "vet: at %.1f px only %ld fakes fit 2 FWHM apart (%d asked): the errors are the "
+               "rms of %ld recoveries, uncertain by about %.0f%% themselves",
+               fit->sep, n, vp->error_fakes, n, 100 / sqrt(2.0 * (double)n));
     if ((st = gl_cube_new(p->nx, p->ny, p->nchan, p->nframe, &clean)) ||
         (st = gl_cube_new(p->nx, p->ny, p->nchan, p->nframe, &with)))
         goto cleanup;
@@ -60,7 +66,7 @@ gl_status vet_errors_run(vet_problem *p, const gl_vet_params *vp, const vet_fit 
         const float *im = gl_cube_plane(img, 0, 0);
         vet_peak(p, im, tx, ty, &x, &y);
         vet_seppa(p, x, y, &sep0, &pa0);
-        double f = vet_aperture(p, im, x, y);
+        double f = vet_flux(p, im, x, y);
         double c0 = f / (throughput * p->psf_apflux);
         if (!(c0 > 0))
             c0 = fit->contrast;
@@ -78,8 +84,11 @@ gl_status vet_errors_run(vet_problem *p, const gl_vet_params *vp, const vet_fit 
         s_sep += (rec.sep - fake.sep_px) * (rec.sep - fake.sep_px);
         s_pa += dpa * dpa;
         s_c += (rec.contrast - fake.contrast) * (rec.contrast - fake.contrast);
-        gl_log(GL_LOG_DEBUG, "vet: fake at %.1f deg recovered %+.3f px, %+.3f deg, %+.1f%%",
-               fake.pa_deg, rec.sep - fake.sep_px, dpa,
+        gl_log(GL_LOG_DEBUG,
+               "vet: fake at %.1f deg started %+.3f px, %+.3f deg, %+.1f%%, recovered %+.3f px, "
+               "%+.3f deg, %+.1f%%",
+               fake.pa_deg, sep0 - fake.sep_px, fmod(pa0 - fake.pa_deg + 540, 360) - 180,
+               100 * (c0 - fake.contrast) / fake.contrast, rec.sep - fake.sep_px, dpa,
                100 * (rec.contrast - fake.contrast) / fake.contrast);
         gl_progress("vet errors", k, n);
     }

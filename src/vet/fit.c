@@ -7,6 +7,23 @@
  * after Wertz et al. 2017, A&A 598, A83) is minimised with GSL's Nelder-Mead
  * simplex (gsl_multimin_fminimizer_nmsimplex2).
  *
+ * The residual is taken about the background level of the annulus, not
+ * about zero: a median-combined PCA or ADI residual is not zero-mean (the
+ * per-frame residuals are skewed by bright speckles, and their median over
+ * the frames lies below their mean; ring edges of klip-rings add radial
+ * steps). On a noiseless 96 px, 30-frame simulation the annulus at 20 px sat
+ * at -500 e-/px, and a sum of squares about zero pulled the contrast of 2e-4
+ * companions down by 7.5% on average over 8 position angles (the fit lowers
+ * the source to fill the negative background). The level is the mean of 1-px
+ * rings about the star, the surroundings of the merit aperture (2 FWHM) left
+ * out, taken on each evaluation's own residual (vet_level_make): at the
+ * solution that residual is the companion-free image, whose level is the one
+ * to take out, and a bright source's darkening of its own ring goes with it.
+ * The start's aperture photometry subtracts the level of the image with the
+ * candidate (vet_flux), as aperture photometry with a background annulus
+ * does. Another source at the same separation, further than 2 FWHM, enters
+ * the level (as it enters the S/N references).
+ *
  * Speed: everything is cropped once to the square that holds the annulus
  * sep +- ring_half FWHM (cube, reference cube, PSF), and the subtraction is
  * limited to that annulus by its inner and outer radii; an evaluation is then
@@ -48,6 +65,8 @@ void vet_problem_free(vet_problem *p)
     gl_psf_model_free(p->psf);
     gl_detect_aperture_plan_free(p->ap);
     gl_free(p->work_d);
+    gl_free(p->level);
+    gl_free(p->merit_level);
     gl_free(p->plan.negated);
     gl_free(p);
 }
@@ -146,7 +165,9 @@ gl_status vet_problem_new(const gl_cube *cube, const double *angles, const gl_cu
     p->dp.fwhm = fwhm;
     p->dp.mask_radius = GL_MAX(p->sp.mask_radius, fwhm / 2);
     p->work_n = gl_detect_snr_worksize(p->ap, nx, ny) + 2 * (size_t)(nx * ny) + 64;
-    if (!(p->work_d = gl_malloc(p->work_n * sizeof *p->work_d))) {
+    p->level = gl_calloc((size_t)(nx * ny), sizeof *p->level);
+    p->merit_level = gl_calloc((size_t)(nx * ny), sizeof *p->merit_level);
+    if (!(p->work_d = gl_malloc(p->work_n * sizeof *p->work_d)) || !p->level || !p->merit_level) {
         st = gl_error_nomem("vet work space");
         goto cleanup;
     }
@@ -206,6 +227,53 @@ double vet_aperture(vet_problem *p, const float *img, double x, double y)
     if (!gl_detect_aperture_sum(p->ap, img, p->nx, p->ny, x, y, p->work_d, &s, NULL))
         return NAN;
     return s;
+}
+
+double vet_flux(vet_problem *p, const float *img, double x, double y)
+{
+    return vet_aperture(p, img, x, y) - vet_aperture(p, p->level, x, y);
+}
+
+/* the fewest pixels of a 1-px ring that give it a level (else 0: no
+ * correction, as before there was one) */
+#define VET_LEVEL_MIN_PIXELS 8
+
+gl_status vet_level_make(vet_problem *p, const float *img, double sep, double ex, double ey,
+                         float *level)
+{
+    /* the radii of the merit aperture around any start near sep, and of the
+     * photometric aperture, with 2 px to spare */
+    double reach = GL_MAX(p->merit_r, p->fwhm / 2) + 2;
+    long r0 = GL_MAX(0L, (long)floor(sep - reach)), r1 = (long)ceil(sep + reach);
+    long nb = r1 - r0 + 1;
+    double *sum = gl_calloc((size_t)nb, sizeof *sum);
+    long *cnt = gl_calloc((size_t)nb, sizeof *cnt);
+    size_t npix = (size_t)(p->nx * p->ny);
+    if (!sum || !cnt) {
+        gl_free(sum);
+        gl_free(cnt);
+        return gl_error_nomem("vet background level");
+    }
+    for (long j = 0; j < p->ny; j++)
+        for (long i = 0; i < p->nx; i++) {
+            long k = (long)floor(hypot((double)i - p->cx, (double)j - p->cy)) - r0;
+            float v = img[j * p->nx + i];
+            if (k < 0 || k >= nb || !isfinite(v) ||
+                hypot((double)i - ex, (double)j - ey) < 2 * p->fwhm)
+                continue;
+            sum[k] += v;
+            cnt[k]++;
+        }
+    memset(level, 0, npix * sizeof *level);
+    for (long j = 0; j < p->ny; j++)
+        for (long i = 0; i < p->nx; i++) {
+            long k = (long)floor(hypot((double)i - p->cx, (double)j - p->cy)) - r0;
+            if (k >= 0 && k < nb && cnt[k] >= VET_LEVEL_MIN_PIXELS)
+                level[j * p->nx + i] = (float)(sum[k] / (double)cnt[k]);
+        }
+    gl_free(sum);
+    gl_free(cnt);
+    return GL_OK;
 }
 
 double vet_snr(vet_problem *p, const float *img, double x, double y)
@@ -326,7 +394,7 @@ static double merit_of(const merit_ctx *m, const float *img)
                 nbad++;
                 continue;
             }
-            double v = img[j * p->nx + i];
+            double v = img[j * p->nx + i] - p->merit_level[j * p->nx + i];
             s += v * v;
         }
     return nbad ? INFINITY : s / m->sigma2;
@@ -347,7 +415,12 @@ static double merit_fn(const gsl_vector *v, void *params)
     m->p->nevals++;
     if ((m->st = vet_subtract(m->p, m->base, m->p->angles, m->p->refs, &m->p->sp, &neg, 1, &img)))
         return GSL_POSINF;
-    double f = merit_of(m, gl_cube_plane(img, 0, 0));
+    const float *res = gl_cube_plane(img, 0, 0);
+    if ((m->st = vet_level_make(m->p, res, m->sep0, m->ax, m->ay, m->p->merit_level))) {
+        gl_cube_free(img);
+        return GSL_POSINF;
+    }
+    double f = merit_of(m, res);
     gl_cube_free(img);
     return f;
 }

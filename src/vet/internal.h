@@ -50,8 +50,10 @@ typedef struct vet_problem {
     gl_detect_params dp;
     double *work_d; /* aperture / S/N / statistics work space */
     size_t work_n;
-    double psf_apflux; /* 1-FWHM aperture sum of the scaled PSF */
-    double merit_r;    /* merit aperture radius, px */
+    double psf_apflux;  /* 1-FWHM aperture sum of the scaled PSF */
+    double merit_r;     /* merit aperture radius, px */
+    float *level;       /* nx*ny background level of the start image (vet_level_make) */
+    float *merit_level; /* the same of the fit's residual in hand (scratch) */
     int nevals;
     vet_plan plan;
     int nfake_stats; /* the fakes' statistics (errors.c) */
@@ -77,6 +79,16 @@ gl_status vet_subtract(vet_problem *p, const gl_cube *base, const double *angles
 
 /* 1-FWHM aperture sum at (x, y) of img (crop-sized); NaN when incomplete. */
 double vet_aperture(vet_problem *p, const float *img, double x, double y);
+/* The same minus the background level (p->level) in that aperture: the flux
+ * of a source in the residual image of the candidate's annulus. */
+double vet_flux(vet_problem *p, const float *img, double x, double y);
+/* Sets level (nx*ny; p->level for the start, p->merit_level in the fit)
+ * from img, a residual image of the candidate's annulus: the mean of img in
+ * 1-px rings about the star over the radii the merit aperture spans around
+ * sep, leaving out pixels within 2 FWHM of (ex, ey); 0 elsewhere and in
+ * rings of fewer than 8 pixels. */
+gl_status vet_level_make(vet_problem *p, const float *img, double sep, double ex, double ey,
+                         float *level);
 /* S/N (two-sample t, Mawet et al. 2014) at (x, y); NaN when undefined. */
 double vet_snr(vet_problem *p, const float *img, double x, double y);
 /* Robust pixel standard deviation in the annulus sep +- FWHM of img,

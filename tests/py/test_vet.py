@@ -139,6 +139,93 @@ def test_companions_pass_all_possible_tests(recovered):
         assert r["tests_passed"] == r["tests_possible"], r
 
 
+# ---- no background bias on a noiseless sequence ------------------------------
+
+# The regime where the fit came out 7-15% low: noiseless physical-optics
+# frames (speckle residuals only), klip-rings, median combination. Its
+# combined residual sits below zero in the annulus (about -500 e-/px at
+# 20 px here), and a sum of squares about zero lowered the fitted contrast
+# to fill it. 64 px holds the whole fitted annulus at 20 px (sep + 2.5 FWHM
+# + margin).
+NOISELESS = ["--frames", "30", "--size", "64", "--no-noise", "--seed", "3"]
+NOISELESS_SUB = ["--method", "klip-rings", "--modes", "5", "--mask-radius", "6"]
+
+
+def test_contrast_unbiased_on_noiseless_klip_rings(tmp_path):
+    """Companions of contrast 2e-4 at 20 px (S/N 6-7) planted by gloam inject
+    at four position angles, one per cube, into a noiseless simulated
+    sequence; vet's fitted contrast against inject's own truth
+    (PREFIX.planted.csv): each within 10% (the speckle residual at each
+    place moves single fits by ~6% rms here) and their mean within 5%
+    (before the fit took the residual about the annulus level they came out
+    0.94, 0.87, 0.95, 0.85 of the truth, mean 0.90; now 1.00, 0.94, 1.01,
+    0.93). The planted flux itself is checked with photutils
+    (CircularAperture, method="exact", radius 3 FWHM) on the difference
+    (with - without companion) of the first frame against contrast times the
+    same aperture on the PSF, and by the whole-frame sums (an FFT shift
+    keeps the flux)."""
+    from photutils.aperture import CircularAperture, aperture_photometry
+    from photutils.centroids import centroid_quadratic
+    d = str(tmp_path)
+    ok("simulate", d, *NOISELESS, "--quiet")
+    psf = fits.getdata(f"{d}/psf.fits").astype(float)
+    iy, ix = np.unravel_index(np.argmax(psf), psf.shape)
+    pcx, pcy = centroid_quadratic(psf, xpeak=ix, ypeak=iy, fit_boxsize=5)
+    radius = 3 * 4.05  # 3 FWHM: ~90% of the light (the psf.c core check)
+    f_psf = aperture_photometry(psf, CircularAperture((pcx, pcy), radius),
+                                method="exact")["aperture_sum"][0]
+    clean = fits.getdata(f"{d}/cube.fits").astype(float)
+    ratios = []
+    for pa in (0, 90, 180, 270):
+        inj = f"{d}/inj{pa}.fits"
+        ok("inject", f"{d}/cube.fits", "--angles", f"{d}/angles.txt", "--psf",
+           f"{d}/psf.fits", "--companion", f"20:{pa}:2e-4", "--out", inj, "--quiet")
+        truth = read_csv(f"{d}/inj{pa}.planted.csv")[0]
+        assert truth["contrast"] == 2e-4 and truth["sep_px"] == 20
+        if pa == 0:
+            diff = fits.getdata(inj).astype(float)[0] - clean[0]
+            f_comp = aperture_photometry(
+                diff, CircularAperture((truth["x_frame1"], truth["y_frame1"]), radius),
+                method="exact")["aperture_sum"][0]
+            assert f_comp == pytest.approx(truth["contrast"] * f_psf, rel=0.01)
+            assert diff.sum() == pytest.approx(truth["contrast"] * psf.sum(), rel=1e-3)
+        cands = f"{d}/c{pa}.csv"
+        with open(cands, "w") as f:
+            f.write(f"sep_px,pa_deg\n20,{pa}\n")
+        r = ok("vet", inj, "--angles", f"{d}/angles.txt", "--psf", f"{d}/psf.fits",
+               *NOISELESS_SUB, "--candidates", cands, "--error-fakes", 0, "--threads", 1,
+               "--out", f"{d}/v{pa}")
+        # too few fakes for an error bar: said, once
+        assert r.stderr.count("warning: --error-fakes 0:") == 1, r.stderr
+        row = read_csv(f"{d}/v{pa}.vet.csv")[0]
+        print(pa, "contrast / truth", row["contrast"] / truth["contrast"], "start",
+              row["start_contrast"] / truth["contrast"], "evals", row["fit_evals"])
+        # the minimiser moves and converges (not left at its start)
+        assert row["fit_converged"] == 1 and row["fit_evals"] >= 20
+        assert abs(row["sep_px"] - 20) < 0.6
+        ratios.append(row["contrast"] / truth["contrast"])
+    ratios = np.array(ratios)
+    assert np.all(np.abs(ratios - 1) < 0.10), ratios
+    assert abs(ratios.mean() - 1) < 0.05, ratios
+
+
+def test_few_error_fakes_said_once(recovered, tmp_path):
+    """--error-fakes 2: the errors are still given, and one warning (not one
+    per candidate) says that an rms of 2 recoveries is itself ~50% uncertain
+    (docs/vet.md)."""
+    d = TRIAL_DIRS[7]
+    cands = tmp_path / "c.csv"
+    cands.write_text("sep_px,pa_deg\n9,280\n15,100\n")
+    r = ok("vet", f"{d}/cube.fits", "--angles", f"{d}/angles.txt", "--psf", f"{d}/psf.fits",
+           *SUB, "--candidates", cands, "--error-fakes", 2, "--threads", 1, "--out",
+           tmp_path / "v")
+    lines = [l for l in r.stderr.splitlines() if "--error-fakes 2:" in l]
+    assert len(lines) == 1 and "warning" in lines[0] and "50%" in lines[0], r.stderr
+    rows = read_csv(tmp_path / "v.vet.csv")
+    assert [x["error_fakes"] for x in rows] == [2, 2]
+    assert all(x["contrast_err"] > 0 for x in rows)
+
+
 def test_speckle_peak_fails(empty):
     """The highest residual peak of a companion-free sequence (gloam detect
     with the threshold lowered to 1 sigma) that vet can take (beyond the
