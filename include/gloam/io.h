@@ -186,6 +186,10 @@ GL_API gl_status gl_outset_folder_check(const char *path, const char *dir);
 GL_API gl_status gl_outset_error_names(gl_status st);
 /* Renames every temporary file into place. */
 GL_API gl_status gl_outset_commit(gl_outset *s);
+/* Takes back product `path` before the commit (a product that will not be
+ * made after all): its temporary file, if written, is deleted. Unknown paths
+ * are ignored. */
+GL_API void gl_outset_drop(gl_outset *s, const char *path);
 /* The products of a set, in the order registered (a CSV's ECSV twin after
  * it): gl_outset_count gives how many were registered, gl_outset_written
  * the name of product i when the commit put it in place (NULL before the

@@ -509,7 +509,8 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
     gl_outset *outs = NULL;
     gl_header *keys = NULL;
     double *angles = NULL, *sep = NULL, *pa = NULL, *ebuf = NULL;
-    long *num = NULL; /* each candidate's row in the table (1-based): its number */
+    long *num = NULL;          /* each candidate's row in the table (1-based): its number */
+    char(*failed)[600] = NULL; /* why a candidate could not be vetted ("" when it was) */
     gl_vet_result *res = NULL;
     epoch_table et = {0};
     long ncand = 0;
@@ -628,7 +629,8 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
     t_png = gl_calloc((size_t)ncand + 1, sizeof *t_png);
     t_svg = gl_calloc((size_t)ncand + 1, sizeof *t_svg);
     res = gl_calloc((size_t)ncand + 1, sizeof *res);
-    if (!p_png || !p_svg || !t_png || !t_svg || !res) {
+    failed = gl_calloc((size_t)ncand + 1, sizeof *failed);
+    if (!p_png || !p_svg || !t_png || !t_svg || !res || !failed) {
         st = gl_error_nomem("vet products");
         goto cleanup;
     }
@@ -659,9 +661,19 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
         if ((st = gl_vet_candidate(cube, angles, refs, &setup.p, psf, &o.vp, sep[i], pa[i],
                                    epochs_path ? &o.star : NULL, epochs_path ? &ep : NULL,
                                    &res[i]))) {
-            if (st == GL_ERR_INPUT || st == GL_ERR_USAGE)
-                row_error(cand_path, num[i] - 1, st);
-            goto cleanup;
+            if (st != GL_ERR_INPUT && st != GL_ERR_USAGE)
+                goto cleanup;
+            /* this candidate cannot be characterised (its fit leaves the
+             * usable annulus, no flux there, ...): the others still are */
+            row_error(cand_path, num[i] - 1, st);
+            snprintf(failed[i], sizeof failed[i], "%s", gl_error_message());
+            gl_error_clear();
+            st = GL_OK;
+            gl_vet_result_free(&res[i]);
+            memset(&res[i], 0, sizeof res[i]);
+            gl_outset_drop(outs, p_png[i]);
+            gl_outset_drop(outs, p_svg[i]);
+            continue;
         }
         const gl_vet_result *v = &res[i];
         gl_log(GL_LOG_INFO,
@@ -694,6 +706,31 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
             goto cleanup;
     }
     gl_progress("vet", ncand, ncand);
+    {
+        long nok = 0, nbad = 0, first = -1;
+        for (long i = 0; i < ncand; i++)
+            if (failed[i][0]) {
+                nbad++;
+                first = first < 0 ? i : first;
+            } else {
+                res[nok] = res[i];
+                num[nok++] = num[i];
+            }
+        if (nbad && nok == 0) { /* nothing vetted: one line, nothing written */
+            if (ncand == 1)
+                st = gl_error_set(GL_ERR_INPUT, "%s", failed[first]);
+            else
+                st =
+                    gl_error_set(GL_ERR_INPUT, "%s: none of the %ld candidates could be vetted; %s",
+                                 cand_path, ncand, failed[first]);
+            ncand = 0;
+            goto cleanup;
+        }
+        for (long i = 0; i < ncand; i++)
+            if (failed[i][0])
+                gl_log(GL_LOG_WARN, "%s; left out, the other candidates are vetted", failed[i]);
+        ncand = nok;
+    }
 
     if (!(keys = gl_header_new())) {
         st = gl_error_nomem("vet header");
@@ -745,6 +782,7 @@ cleanup:
     gl_free(sep);
     gl_free(pa);
     gl_free(num);
+    gl_free(failed);
     gl_free(ebuf);
     gl_csv_free(et.t);
     gl_header_free(keys);

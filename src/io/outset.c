@@ -235,6 +235,25 @@ gl_status gl_outset_commit(gl_outset *s)
     return GL_OK;
 }
 
+void gl_outset_drop(gl_outset *s, const char *path)
+{
+    for (int i = 0; s && !s->committed && i < s->n; i++) {
+        if (strcmp(s->files[i].path, path) != 0)
+            continue;
+        /* the product and its twin, if any (a CSV's ECSV follows it) */
+        int n = 1 + (i + 1 < s->n && s->files[i + 1].twin);
+        for (int k = i; k < i + n; k++) {
+            if (s->files[k].tmp)
+                unlink(s->files[k].tmp);
+            gl_free(s->files[k].tmp);
+            gl_free(s->files[k].path);
+        }
+        memmove(s->files + i, s->files + i + n, (size_t)(s->n - i - n) * sizeof *s->files);
+        s->n -= n;
+        return;
+    }
+}
+
 int gl_outset_count(const gl_outset *s)
 {
     return s ? s->n : 0;

@@ -172,8 +172,15 @@ gl_status gl_vet_candidate(const gl_cube *cube, const double *angles, const gl_c
         goto cleanup;
     out->start_sep = sep0;
     out->start_pa = pa0;
-    if ((st = gl_vet_check_position(cube->nx, cube->ny, sp, vp, sep0, pa0)))
+    if ((st = gl_vet_check_position(cube->nx, cube->ny, sp, vp, sep0, pa0))) {
+        char why[512];
+        snprintf(why, sizeof why, "%s", gl_error_message());
+        st = gl_error_set(st,
+                          "the start of the fit, the brightest pixel within 1 FWHM of the "
+                          "table's %.2f px, %.1f deg, is not usable: %s",
+                          out->given_sep, out->given_pa, why);
         goto cleanup;
+    }
     out->start_contrast = f0 / (out->throughput * p->psf_apflux);
 
     /* the fit */

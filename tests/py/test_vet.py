@@ -332,9 +332,11 @@ def test_log_and_table_agree(recovered, tmp_path):
 
 
 def test_empty_frames_named_in_the_whole_sequence(recovered, tmp_path):
-    """All-NaN frames: vet's subtractions warn once each, naming the file and
-    the frames as frames of the whole sequence, also for the halves test
-    (whose subtractions run on a part of it)."""
+    """All-NaN frames: vet warns once, naming the file and the frames as
+    frames of the whole sequence; the subtractions of its tests (the halves,
+    other mode counts, wrong angles: configurations not asked for) say
+    theirs only with --verbose, marked, and the halves name their frames as
+    frames of the whole sequence too."""
     d = TRIAL_DIRS[7]
     with fits.open(f"{d}/cube.fits") as h:
         data = h[0].data.astype(np.float32)
@@ -348,6 +350,11 @@ def test_empty_frames_named_in_the_whole_sequence(recovered, tmp_path):
     f = str(tmp_path / "holed.fits")
     assert any(f"{f}: 2 of 16 frames" in l and "frames 3, 12 (counted from 0)" in l
                for l in warned), warned
+    assert not any("half" in l for l in r.stderr.splitlines()), r.stderr
+    r = ok("vet", tmp_path / "holed.fits", "--angles", f"{d}/angles.txt", "--psf",
+           f"{d}/psf.fits", *SUB, "--candidates", tmp_path / "c.csv", "--error-fakes", 2,
+           "--threads", 1, "--out", tmp_path / "v", "--overwrite", "--verbose")
+    warned = [l for l in r.stderr.splitlines() if "vet test subtraction: " in l]
     assert any(f"{f}, first half (frames 0-7): 1 of 8" in l and "frame 3 (" in l
                for l in warned), warned
     assert any(f"{f}, second half (frames 8-15): 1 of 8" in l and "frame 12 (" in l
