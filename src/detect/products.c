@@ -79,6 +79,11 @@ static gl_status add_params(gl_header *h, const gl_detect_params *par, long nx, 
         st = gl_header_add_history(
             h, "t test of each aperture against the non-overlapping apertures at its "
                "separation (Mawet et al. 2014, ApJ 792, 97, eq. 9); NaN: no statistic");
+    if (!st)
+        st = gl_header_add_history(
+            h, "caution: the FPF assumes Gaussian, independent aperture sums; residual speckles "
+               "have heavier tails, so it is optimistic close to the star and a candidate "
+               "above the threshold can be a speckle (docs/detect.md, assumptions)");
     return st;
 }
 
