@@ -167,13 +167,21 @@ void gl_centre_warn(const char *name, const gl_align_result *r, const gl_centre_
                "spots?): the absolute centre is only as good as the point symmetry of the halo, "
                "which no comparison of methods can check",
                name);
-    if (a->core_behind_mask && r->method != GL_CENTRE_HALO && r->method != GL_CENTRE_SPOTS)
-        gl_log(GL_LOG_WARN,
-               "%s: the absolute centre comes from the residual core behind the coronagraph, "
-               "which aberrations can move by tenths of a pixel (0.05-0.4 px on simulated Lyot "
-               "sequences) without any comparison of methods seeing it; the reported errors "
-               "(%.2f/%.2f px) do not include that",
-               name, a->err[0], a->err[1]);
+    if (a->core_behind_mask && r->method != GL_CENTRE_HALO && r->method != GL_CENTRE_SPOTS) {
+        if (isfinite(a->core_abs[0]) && isfinite(a->core_abs[1]))
+            gl_log(GL_LOG_WARN,
+                   "%s: the absolute centre comes from the residual core behind the "
+                   "coronagraph, which the aberrations move too: its error includes its share "
+                   "of the disagreement with the halo's symmetry (%.2f/%.2f px, at most %.2f px "
+                   "= %.2f FWHM, the most a compact core was moved on simulated Lyot sequences)",
+                   name, a->core_abs[0], a->core_abs[1], a->core_abs_bound, GL_CORE_SHIFT_FWHM);
+        else
+            gl_log(GL_LOG_WARN,
+                   "%s: the absolute centre comes from the residual core behind the "
+                   "coronagraph, which the aberrations can move by up to %.2f FWHM; no halo "
+                   "centre was there to check it, and the reported errors do not include that",
+                   name, GL_CORE_SHIFT_FWHM);
+    }
     if (isfinite(e) && e > 0.1)
         gl_log(GL_LOG_WARN,
                "%s: centring uncertain: the %s centres are off by %.2f px (x) and %.2f px (y) "

@@ -57,6 +57,12 @@ gl_centre_method gl_centre_auto(const gl_align_stack *s, const gl_align_params *
  * from the star on simulated Lyot sequences). */
 #define GL_CORE_SEARCH_PX 5
 
+/* The largest shift of a residual core behind a coronagraph by the
+ * aberrations, in core FWHM: 0.13 FWHM (0.37 px) was the most seen on
+ * simulated Lyot sequences (5 seeds, tests/py/test_align.py), rounded up
+ * (not a published value). */
+#define GL_CORE_SHIFT_FWHM 0.15
+
 /* The star's core in an image (methods.c). */
 typedef struct gl_star_core {
     gl_profile_fit fit; /* the core's Gaussian fit */
@@ -99,6 +105,10 @@ typedef struct gl_centre_assessment {
     int core_behind_mask;  /* ... a residual core that is not the brightest feature (a
                               coronagraph's leak) */
     double halo_offset[2]; /* mean halo centre minus the core anchor, px (NaN: not measured) */
+    double core_abs[2];    /* the absolute error given to a core behind the mask: |halo_offset|
+                              up to core_abs_bound, px (NaN: none) */
+    double core_abs_bound; /* GL_CORE_SHIFT_FWHM x the core's FWHM, px */
+    double core_shift[2];  /* the core-anchored centres moved by this toward the halo's (px) */
     char compared[256];    /* "halo 0.69/0.71 px, reference 0.07/0.08 px" */
 } gl_centre_assessment;
 
