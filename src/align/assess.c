@@ -185,7 +185,7 @@ void gl_centre_warn(const char *name, const gl_align_result *r, const gl_centre_
     if (isfinite(e) && e > 0.1)
         gl_log(GL_LOG_WARN,
                "%s: centring uncertain: the %s centres are off by %.2f px (x) and %.2f px (y) "
-               "per frame (median reported error)",
+               "(median reported error per frame, the absolute centre's included)",
                name, gl_centre_method_name(r->method), a->err[0], a->err[1]);
     if (a->assessed && isfinite(e) && e > 0.05 && e > a->motion)
         gl_log(GL_LOG_WARN,

@@ -6,7 +6,9 @@
  *  reference  per-frame cross-correlation with a reference frame (xcorr.c;
  *             Guizar-Sicairos et al. 2008) plus one absolute centre of the
  *             reference: a Gaussian fit when the star is an unsaturated
- *             compact peak, else halo symmetry
+ *             compact peak or a residual core behind a coronagraph (a
+ *             compact peak near the halo's centre of symmetry, fainter than
+ *             the mask-edge ring), else halo symmetry
  *  spots      satellite spots found on the reference, refitted in every
  *             frame (spots.c)
  *  halo       per-frame centre of point symmetry (xcorr.c)
@@ -15,7 +17,7 @@
  * when four are found, are comparable to the brightest feature and cross at
  * the centre of symmetry of the halo (a quadrilateral of speckles or a
  * companion does not); otherwise a core fit when the reference shows an
- * unsaturated compact star bright enough in single frames, the reference
+ * unsaturated compact star or a residual core bright enough in single frames, the reference
  * registration when it is too faint in single frames; otherwise the halo
  * symmetry of each frame (which followed the star better than registration
  * on simulated coronagraphic sequences, where the speckles evolve).
