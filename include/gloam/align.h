@@ -230,6 +230,8 @@ typedef struct gl_align_result {
     double *angles_out;         /* nout angles (NULL when no angles were given) */
     float *badpix_map;          /* nx x ny bit map (NULL unless bad pixels were sought) */
     long nbad_static, nbad_transient;
+    double abs_err_x, abs_err_y; /* the part of err_x, err_y common to every frame (the error
+                                    of the absolute centre found by comparison), px */
 } gl_align_result;
 
 /* Frees a result and everything it owns; NULL is a no-op. */

@@ -133,6 +133,16 @@ static gl_status shift_frames(gl_cube *c, const gl_align_params *p, const double
     return failed ? gl_error_set(GL_ERR_NOMEM, "out of memory (shift work)") : GL_OK;
 }
 
+/* What fixes the absolute centre of the method's frames (GLALABSC). */
+static const char *absolute_source(gl_centre_method m, const gl_centre_assessment *a)
+{
+    if (m == GL_CENTRE_SPOTS)
+        return "spots";
+    if (m == GL_CENTRE_HALO || !a->core_visible)
+        return "halo-symmetry";
+    return a->core_behind_mask ? "core-behind-mask" : "core";
+}
+
 /* Kept frames, binned and cropped, into a new cube; angles averaged. */
 static gl_status assemble(const gl_cube *c, const gl_align_params *p, const char *name,
                           const double *angles, const gl_centre_assessment *a, gl_align_result *r)
@@ -250,6 +260,29 @@ static gl_status assemble(const gl_cube *c, const gl_align_params *p, const char
         gl_header_add_history(h, line);
     }
     gl_header_set_bool(h, "GLALUNCE", a->uncertain, "centring uncertain (see HISTORY)");
+    gl_header_set_str(h, "GLALABSC", absolute_source(r->method, a),
+                      "what fixes the absolute star centre");
+    if (a->core_behind_mask && (r->method == GL_CENTRE_CORE || r->method == GL_CENTRE_REFERENCE))
+        gl_header_add_history(h, "gloam align: absolute centre from the residual core behind the "
+                                 "coronagraph (the brighter halo is not point-symmetric about the "
+                                 "star); the aberrations move such a core too: its error holds its "
+                                 "share of the disagreement with the halo (at most 0.15 FWHM)");
+    if (isfinite(a->halo_offset[0]) && isfinite(a->halo_offset[1])) {
+        char line[200];
+        snprintf(line, sizeof line,
+                 "gloam align: the halo's centres of symmetry lie (%+.3f, %+.3f) px from the "
+                 "star's core on average (counted in the halo's error)",
+                 a->halo_offset[0], a->halo_offset[1]);
+        gl_header_add_history(h, line);
+    }
+    if (a->core_shift[0] != 0 || a->core_shift[1] != 0) {
+        char line[200];
+        snprintf(line, sizeof line,
+                 "gloam align: absolute centre: the residual core's moved by (%+.3f, %+.3f) px "
+                 "toward the halo's centre of symmetry (inverse-variance mean)",
+                 a->core_shift[0], a->core_shift[1]);
+        gl_header_add_history(h, line);
+    }
     if (a->symmetry_only)
         gl_header_add_history(h, "gloam align: no satellite spots and no unsaturated core: the "
                                  "absolute centre is only as good as the halo's point symmetry");
@@ -341,6 +374,26 @@ static double median_finite(const double *v, long n, double *w)
     return gl_median_d(w, m);
 }
 
+/* Mean of a - b over the frames with mask set, and the squared standard
+ * error of that mean (at least 2 frames). */
+static void mean_difference(const double *a, const double *b, const int *mask, long nf,
+                            double *mean, double *sem2)
+{
+    double sm = 0, s2 = 0;
+    long n = 0;
+    for (long f = 0; f < nf; f++)
+        if (mask[f]) {
+            sm += a[f] - b[f];
+            n++;
+        }
+    sm /= (double)n;
+    for (long f = 0; f < nf; f++)
+        if (mask[f])
+            s2 += pow(a[f] - b[f] - sm, 2);
+    *mean = sm;
+    *sem2 = s2 / (double)(n - 1) / (double)n;
+}
+
 /* The other centring estimates of every frame (halo, reference, and core
  * when the reference shows an unsaturated core: on a coronagraphic image a
  * core fit catches any speckle and estimates nothing),
@@ -365,7 +418,8 @@ static gl_status compare_methods(const gl_align_stack *s, const gl_align_params 
     gl_centre_method list[NM] = {r->method};
     int nm = 1, usable[NM] = {1};
     const gl_centre_method others[3] = {GL_CENTRE_HALO, GL_CENTRE_REFERENCE, GL_CENTRE_CORE};
-    int core = gl_star_core_visible(s, p);
+    gl_star_core found;
+    int core = gl_star_core_find(s->sharp, s->nx, s->ny, p, &found);
     for (int k = 0; k < 3; k++)
         if (others[k] != r->method && (others[k] != GL_CENTRE_CORE || core))
             list[nm++] = others[k];
@@ -375,6 +429,10 @@ static gl_status compare_methods(const gl_align_stack *s, const gl_align_params 
     memset(a, 0, sizeof *a);
     a->err[0] = a->err[1] = a->motion = NAN;
     a->symmetry_only = (r->method == GL_CENTRE_HALO || r->method == GL_CENTRE_REFERENCE) && !core;
+    a->core_visible = core;
+    a->core_behind_mask = core && found.behind_mask && r->method != GL_CENTRE_SPOTS;
+    a->halo_offset[0] = a->halo_offset[1] = a->core_abs[0] = a->core_abs[1] = NAN;
+    a->core_shift[0] = a->core_shift[1] = 0;
     if (!v || !w || !ok) {
         st = gl_error_nomem("centring comparison");
         goto cleanup;
@@ -426,7 +484,8 @@ static gl_status compare_methods(const gl_align_stack *s, const gl_align_params 
                             "frames; the errors are the method's own");
         goto cleanup;
     }
-    double var[2][NM + 1], absv[2][NM] = {{0}};
+    double var[2][NM + 1], absv[2][NM] = {{0}}, halo_offset[2] = {NAN, NAN};
+    double core_abs[2] = {NAN, NAN}, core_shift[2] = {0, 0};
     for (int ax = 0; ax < 2; ax++) {
         const double *est[NM + 1];
         for (int i = 0; i < nest; i++)
@@ -434,22 +493,52 @@ static gl_status compare_methods(const gl_align_stack *s, const gl_align_params 
         est[nest] = NULL; /* the fixed pointing */
         if ((st = gl_centre_hat(nest + 1, nf, est, mask, var[ax])))
             goto cleanup;
-        /* the registration's single absolute centre, checked by the halo */
-        int ih = -1, ir = -1;
+        /* absolute centres, which the hat (frame-to-frame differences)
+         * cannot check: the registration's single one by the per-frame
+         * core fits when the reference shows a core, else by the halo
+         * (the squared standard error of the mean of their differences);
+         * with a core, the halo's symmetry centres by the core: an
+         * asymmetric halo (behind a Lyot mask, the mask-edge ring and the
+         * speckles pinned to it) moves every halo centre alike, and the
+         * mean offset from the core anchor is the halo's absolute error */
+        int ih = -1, ir = -1, ic = -1;
         for (int i = 0; i < nest; i++) {
             ih = list[idx[i]] == GL_CENTRE_HALO ? i : ih;
             ir = list[idx[i]] == GL_CENTRE_REFERENCE ? i : ir;
+            ic = list[idx[i]] == GL_CENTRE_CORE ? i : ic;
         }
-        if (ih >= 0 && ir >= 0) {
-            double sm = 0, s2 = 0;
-            for (long f = 0; f < nf; f++)
-                if (mask[f])
-                    sm += est[ih][f] - est[ir][f];
-            sm /= (double)nmask;
-            for (long f = 0; f < nf; f++)
-                if (mask[f])
-                    s2 += pow(est[ih][f] - est[ir][f] - sm, 2);
-            absv[ax][ir] = s2 / (double)(nmask - 1) / (double)nmask;
+        int check = core && ic >= 0 ? ic : ih, anchor = ic >= 0 ? ic : ir;
+        double mean, sem2;
+        if (check >= 0 && ir >= 0) {
+            mean_difference(est[check], est[ir], mask, nf, &mean, &sem2);
+            absv[ax][ir] = sem2;
+        }
+        if (core && ih >= 0 && anchor >= 0) {
+            mean_difference(est[ih], est[anchor], mask, nf, &mean, &sem2);
+            absv[ax][ih] = mean * mean + sem2;
+            halo_offset[ax] = mean;
+            /* a residual core behind a coronagraph is itself moved by the
+             * aberrations (the same pinned light): the data cannot say
+             * which of it and the halo is off. The squared disagreement is
+             * split evenly (as the hat does with a pair it cannot
+             * resolve), the core's share bounded by what a compact core is
+             * moved (GL_CORE_SHIFT_FWHM), the halo keeping the rest; the
+             * core-anchored centres move to the inverse-variance mean of
+             * the two absolute centres, whose variance they get (the
+             * midpoint while the split is even, the core as the halo's
+             * share grows) */
+            if (found.behind_mask) {
+                double bound = GL_CORE_SHIFT_FWHM * found.fit.fwhm, d2 = mean * mean;
+                double vc = fmin(0.5 * d2, bound * bound), vh = d2 - vc;
+                core_abs[ax] = sqrt(vc);
+                core_shift[ax] = d2 > 0 ? mean * vc / d2 : 0.0;
+                double vm = d2 > 0 ? vc * vh / d2 : 0.0;
+                absv[ax][ih] = vh + sem2;
+                if (ir >= 0)
+                    absv[ax][ir] += vm;
+                if (ic >= 0)
+                    absv[ax][ic] += vm;
+            }
         }
     }
     /* choice: total error variance of each method over both axes */
@@ -465,6 +554,18 @@ static gl_status compare_methods(const gl_align_stack *s, const gl_align_params 
     }
     a->assessed = 1;
     a->motion = sqrt(0.5 * (var[0][nest] + var[1][nest]));
+    if (isfinite(halo_offset[0]) && isfinite(halo_offset[1])) {
+        a->halo_offset[0] = halo_offset[0];
+        a->halo_offset[1] = halo_offset[1];
+        a->core_abs[0] = core_abs[0];
+        a->core_abs[1] = core_abs[1];
+        a->core_abs_bound = GL_CORE_SHIFT_FWHM * found.fit.fwhm;
+        gl_log(GL_LOG_INFO,
+               "the halo's centres of symmetry lie (%+.3f, %+.3f) px from the star's core on "
+               "average (a halo %s about the star); counted in the halo's error",
+               halo_offset[0], halo_offset[1],
+               hypot(halo_offset[0], halo_offset[1]) > 0.1 ? "asymmetric" : "nearly symmetric");
+    }
     gl_log(GL_LOG_INFO,
            "centring error per frame (x/y), from the comparison of %d methods and the fixed "
            "pointing (N-cornered hat): %s; pointing motion %.3f px rms",
@@ -494,6 +595,22 @@ static gl_status compare_methods(const gl_align_stack *s, const gl_align_params 
     } else {
         best = 0;
     }
+    if (found.behind_mask &&
+        (list[idx[best]] == GL_CENTRE_CORE || list[idx[best]] == GL_CENTRE_REFERENCE)) {
+        for (long f = 0; f < nf; f++) {
+            r->x[f] += core_shift[0];
+            r->y[f] += core_shift[1];
+        }
+        a->core_shift[0] = core_shift[0];
+        a->core_shift[1] = core_shift[1];
+        if (core_shift[0] != 0 || core_shift[1] != 0)
+            gl_log(GL_LOG_INFO,
+                   "absolute centre: the residual core's, moved by (%+.3f, %+.3f) px toward the "
+                   "halo's centre of symmetry (the inverse-variance mean of the two)",
+                   core_shift[0], core_shift[1]);
+    }
+    r->abs_err_x = sqrt(absv[0][best]);
+    r->abs_err_y = sqrt(absv[1][best]);
     for (int ax = 0; ax < 2; ax++) {
         double *e = ax ? r->err_y : r->err_x;
         for (long f = 0; f < nf; f++)
@@ -729,7 +846,9 @@ gl_status gl_align_table_write_csv(const char *path, const gl_align_result *r, c
     FILE *fp = fopen(path, "w");
     if (!fp)
         return gl_error_set(GL_ERR_IO, "%s: cannot create (%s)", path, strerror(errno));
-    fprintf(fp, "frame,x,y,x_err,y_err,method,quality,flux,correlation,kept,reason%s\n",
+    fprintf(fp,
+            "frame,x,y,x_err,y_err,method,quality,flux,correlation,kept,reason,x_err_abs,"
+            "y_err_abs%s\n",
             angles ? ",angle" : "");
     const char *mname = gl_centre_method_name(r->method);
     for (long f = 0; f < r->nframe; f++) {
@@ -744,6 +863,13 @@ gl_status gl_align_table_write_csv(const char *path, const gl_align_result *r, c
                 fprintf(fp, "%.10g", v[k]);
         }
         fprintf(fp, ",%d,%s", r->status[f] == GL_FRAME_KEPT, status_word(r->status[f]));
+        /* the part of x_err, y_err common to every frame */
+        for (int ax = 0; ax < 2; ax++) {
+            double e = ax ? r->abs_err_y : r->abs_err_x;
+            fputc(',', fp);
+            if (isfinite(r->x[f]) && isfinite(e))
+                fprintf(fp, "%.10g", e);
+        }
         if (angles)
             fprintf(fp, ",%.10g", angles[f]);
         fputc('\n', fp);
@@ -755,11 +881,14 @@ gl_status gl_align_table_write_csv(const char *path, const gl_align_result *r, c
     }
     /* the ECSV twin: types and units of the columns above */
     static const gl_ecsv_column cols[] = {
-        {"frame", NULL, "int64"},     {"x", "pix", "float64"},     {"y", "pix", "float64"},
-        {"x_err", "pix", "float64"},  {"y_err", "pix", "float64"}, {"method", NULL, "string"},
-        {"quality", NULL, "float64"}, {"flux", NULL, "float64"},   {"correlation", NULL, "float64"},
-        {"kept", NULL, "int64"},      {"reason", NULL, "string"},  {"angle", "deg", "float64"}};
-    gl_status st = gl_table_ecsv_write(path, angles ? 12 : 11, cols, NULL);
+        {"frame", NULL, "int64"},         {"x", "pix", "float64"},
+        {"y", "pix", "float64"},          {"x_err", "pix", "float64"},
+        {"y_err", "pix", "float64"},      {"method", NULL, "string"},
+        {"quality", NULL, "float64"},     {"flux", NULL, "float64"},
+        {"correlation", NULL, "float64"}, {"kept", NULL, "int64"},
+        {"reason", NULL, "string"},       {"x_err_abs", "pix", "float64"},
+        {"y_err_abs", "pix", "float64"},  {"angle", "deg", "float64"}};
+    gl_status st = gl_table_ecsv_write(path, angles ? 14 : 13, cols, NULL);
     if (st)
         unlink(path);
     return st;

@@ -145,13 +145,14 @@ cleanup:
 }
 
 /* Whether the centring is uncertain: an absolute centre that rests on the
- * halo's symmetry alone, a typical error above 0.1 px (common practice: a
+ * halo's symmetry alone or on a residual core behind the coronagraph, a
+ * typical error above 0.1 px (common practice: a
  * tenth of a pixel is where centring starts to cost contrast at a few
  * lambda/D), or an error above the pointing motion itself. */
 void gl_centre_judge(gl_centre_assessment *a)
 {
     double e = hypot(a->err[0], a->err[1]) / sqrt(2.0);
-    a->uncertain = a->symmetry_only || (isfinite(e) && e > 0.1) ||
+    a->uncertain = a->symmetry_only || a->core_behind_mask || (isfinite(e) && e > 0.1) ||
                    (a->assessed && isfinite(e) && e > 0.05 && e > a->motion);
 }
 
@@ -166,10 +167,25 @@ void gl_centre_warn(const char *name, const gl_align_result *r, const gl_centre_
                "spots?): the absolute centre is only as good as the point symmetry of the halo, "
                "which no comparison of methods can check",
                name);
+    if (a->core_behind_mask && r->method != GL_CENTRE_HALO && r->method != GL_CENTRE_SPOTS) {
+        if (isfinite(a->core_abs[0]) && isfinite(a->core_abs[1]))
+            gl_log(GL_LOG_WARN,
+                   "%s: the absolute centre comes from the residual core behind the "
+                   "coronagraph, which the aberrations move too: its error includes its share "
+                   "of the disagreement with the halo's symmetry (%.2f/%.2f px, at most %.2f px "
+                   "= %.2f FWHM, the most a compact core was moved on simulated Lyot sequences)",
+                   name, a->core_abs[0], a->core_abs[1], a->core_abs_bound, GL_CORE_SHIFT_FWHM);
+        else
+            gl_log(GL_LOG_WARN,
+                   "%s: the absolute centre comes from the residual core behind the "
+                   "coronagraph, which the aberrations can move by up to %.2f FWHM; no halo "
+                   "centre was there to check it, and the reported errors do not include that",
+                   name, GL_CORE_SHIFT_FWHM);
+    }
     if (isfinite(e) && e > 0.1)
         gl_log(GL_LOG_WARN,
                "%s: centring uncertain: the %s centres are off by %.2f px (x) and %.2f px (y) "
-               "per frame (median reported error)",
+               "(median reported error per frame, the absolute centre's included)",
                name, gl_centre_method_name(r->method), a->err[0], a->err[1]);
     if (a->assessed && isfinite(e) && e > 0.05 && e > a->motion)
         gl_log(GL_LOG_WARN,

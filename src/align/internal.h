@@ -52,9 +52,37 @@ gl_status gl_sharp_reference(const gl_align_stack *s, const gl_align_params *p, 
 gl_centre_method gl_centre_auto(const gl_align_stack *s, const gl_align_params *p, const int *tried,
                                 char *reason, size_t size);
 
-/* 1 when the sharp reference shows an unsaturated compact star near its
- * centre of symmetry (the core a fit can use), 0 for a saturated or
- * coronagraphic image (methods.c). */
+/* A residual core is looked for within this distance (px) of the halo's
+ * centre of symmetry (common practice: that centre was found up to 3 px
+ * from the star on simulated Lyot sequences). */
+#define GL_CORE_SEARCH_PX 5
+
+/* The largest shift of a residual core behind a coronagraph by the
+ * aberrations, in core FWHM: 0.13 FWHM (0.37 px) was the most seen on
+ * simulated Lyot sequences (5 seeds, tests/py/test_align.py), rounded up
+ * (not a published value). */
+#define GL_CORE_SHIFT_FWHM 0.15
+
+/* The star's core in an image (methods.c). */
+typedef struct gl_star_core {
+    gl_profile_fit fit; /* the core's Gaussian fit */
+    int behind_mask;    /* 1: not the brightest feature but a residual core near
+                           the halo's centre of symmetry (a coronagraph's leak) */
+    int far;            /* the brightest compact peak (peak) lies more than 3 FWHM
+                           from the centre of symmetry: not the star */
+    gl_profile_fit peak;
+    double sx, sy; /* the image's centre of point symmetry (NaN: none) */
+} gl_star_core;
+
+/* 1 when img shows the star's core: an unsaturated compact star within
+ * 3 FWHM of the centre of symmetry, or else a compact residual core within
+ * GL_CORE_SEARCH_PX of it (behind a coronagraph, where the halo's bright
+ * parts are not point-symmetric about the star). 0 for a saturated or
+ * coronagraphic image without a core. */
+int gl_star_core_find(const float *img, long nx, long ny, const gl_align_params *p,
+                      gl_star_core *c);
+
+/* gl_star_core_find on the sharp reference. */
 int gl_star_core_visible(const gl_align_stack *s, const gl_align_params *p);
 
 /* ---- assessment of the centring (assess.c) ------------------------------ */
@@ -67,13 +95,21 @@ gl_status gl_centre_hat(int nest, long nf, const double *const *est, const int *
 
 /* What the comparison of methods found, for the log and the header. */
 typedef struct gl_centre_assessment {
-    int assessed;       /* 0: no second method to compare with, or spots */
-    int symmetry_only;  /* no spots, no visible core: the absolute centre rests on
-                           the halo's point symmetry */
-    int uncertain;      /* typical error above 0.1 px, or above the motion */
-    double err[2];      /* median reported error per axis, px */
-    double motion;      /* pointing motion rms per axis, px (fixed pointing's error) */
-    char compared[256]; /* "halo 0.69/0.71 px, reference 0.07/0.08 px" */
+    int assessed;          /* 0: no second method to compare with, or spots */
+    int symmetry_only;     /* no spots, no visible core: the absolute centre rests on
+                              the halo's point symmetry */
+    int uncertain;         /* typical error above 0.1 px, or above the motion */
+    double err[2];         /* median reported error per axis, px */
+    double motion;         /* pointing motion rms per axis, px (fixed pointing's error) */
+    int core_visible;      /* the sharp reference shows the star's core (gl_star_core_find) */
+    int core_behind_mask;  /* ... a residual core that is not the brightest feature (a
+                              coronagraph's leak) */
+    double halo_offset[2]; /* mean halo centre minus the core anchor, px (NaN: not measured) */
+    double core_abs[2];    /* the absolute error given to a core behind the mask: |halo_offset|
+                              up to core_abs_bound, px (NaN: none) */
+    double core_abs_bound; /* GL_CORE_SHIFT_FWHM x the core's FWHM, px */
+    double core_shift[2];  /* the core-anchored centres moved by this toward the halo's (px) */
+    char compared[256];    /* "halo 0.69/0.71 px, reference 0.07/0.08 px" */
 } gl_centre_assessment;
 
 /* Sets a->uncertain: an absolute centre resting on the halo's symmetry
@@ -143,6 +179,10 @@ gl_status gl_fit_profile_plane(const float *img, long nx, long ny, double x0, do
  * Returns 0 on success. */
 int gl_profile_centre(const float *img, long nx, long ny, gl_profile_kind kind,
                       const gl_align_params *p, gl_profile_fit *fit);
+/* The same fit started at pixel (px, py) instead of the brightest peak, the
+ * FWHM guess (without --fwhm) from the pixels within `reach` of it. */
+int gl_profile_centre_at(const float *img, long nx, long ny, long px, long py, long reach,
+                         gl_profile_kind kind, const gl_align_params *p, gl_profile_fit *fit);
 
 /* Symmetry centre with a caller-owned plan (no reference), work and
  * spectrum buffer ((nx/2+1)*ny complex), for use inside frame loops (xcorr.c). */

@@ -6,7 +6,9 @@
  *  reference  per-frame cross-correlation with a reference frame (xcorr.c;
  *             Guizar-Sicairos et al. 2008) plus one absolute centre of the
  *             reference: a Gaussian fit when the star is an unsaturated
- *             compact peak, else halo symmetry
+ *             compact peak or a residual core behind a coronagraph (a
+ *             compact peak near the halo's centre of symmetry, fainter than
+ *             the mask-edge ring), else halo symmetry
  *  spots      satellite spots found on the reference, refitted in every
  *             frame (spots.c)
  *  halo       per-frame centre of point symmetry (xcorr.c)
@@ -15,7 +17,7 @@
  * when four are found, are comparable to the brightest feature and cross at
  * the centre of symmetry of the halo (a quadrilateral of speckles or a
  * companion does not); otherwise a core fit when the reference shows an
- * unsaturated compact star bright enough in single frames, the reference
+ * unsaturated compact star or a residual core bright enough in single frames, the reference
  * registration when it is too faint in single frames; otherwise the halo
  * symmetry of each frame (which followed the star better than registration
  * on simulated coronagraphic sequences, where the speckles evolve).
@@ -68,8 +70,78 @@ static int profile_frame(const float *img, long nx, long ny, const void *ctx, do
     return 0;
 }
 
+/* Stamp half-size for a residual core: the ring of the mask's edge lies
+ * around it, so the stamp covers the core to 1.5 FWHM (past its first dark
+ * ring, 1.2 FWHM for an Airy core, Born & Wolf sec. 8.5) instead of the
+ * 2 FWHM of a free star; --stamp when given. */
+static int core_stamp(const gl_align_params *p, double fwhm)
+{
+    if (p->stamp_half > 0)
+        return p->stamp_half;
+    return isfinite(fwhm) && fwhm > 0 ? (int)GL_MIN(GL_MAX(ceil(1.5 * fwhm), 3), 32) : 4;
+}
+
+/* Behind a coronagraph the core is not the brightest feature of a frame:
+ * each frame's fit starts at the reference's core moved by the frame's
+ * registration shift (as the spots are found, measure_spots). */
+static gl_status measure_core_guided(const gl_align_stack *s, const gl_align_params *p,
+                                     const gl_profile_fit *ref, gl_centres *c)
+{
+    gl_xcorr_plan *plan = NULL;
+    gl_status st = gl_xcorr_plan_new(s->sharp, s->nx, s->ny, gl_align_upsample(p), &plan);
+    if (st)
+        return st;
+    gl_align_params q = *p;
+    q.stamp_half = core_stamp(p, ref->fwhm);
+    if (!(q.fwhm > 0))
+        q.fwhm = ref->fwhm;
+    size_t npix = (size_t)s->nx * (size_t)s->ny;
+    int nomem = 0;
+    long done = 0;
+#pragma omp parallel
+    {
+        gl_xcorr_work *w = NULL;
+        if (gl_xcorr_work_new(plan, &w)) {
+#pragma omp atomic write
+            nomem = 1;
+        }
+#pragma omp for schedule(static)
+        for (long f = 0; f < s->nframe; f++) {
+            const float *img = s->img + (size_t)f * npix;
+            double dx, dy;
+            gl_profile_fit fit;
+            c->ok[f] = 0;
+            c->x[f] = c->y[f] = c->err_x[f] = c->err_y[f] = c->quality[f] = NAN;
+            long gx, gy;
+            if (w && gl_align_xcorr_shift(plan, w, img, &dx, &dy, NULL) == GL_OK &&
+                (gx = lround(ref->x - dx)) >= 2 && gx < s->nx - 2 &&
+                (gy = lround(ref->y - dy)) >= 2 && gy < s->ny - 2 &&
+                gl_profile_centre_at(img, s->nx, s->ny, gx, gy, GL_CORE_SEARCH_PX, p->profile, &q,
+                                     &fit) == 0 &&
+                isfinite(fit.x) && isfinite(fit.y)) {
+                c->x[f] = fit.x;
+                c->y[f] = fit.y;
+                c->err_x[f] = fit.err_x;
+                c->err_y[f] = fit.err_y;
+                c->quality[f] = fit.rms_residual / fit.amplitude;
+                c->ok[f] = 1;
+            }
+            long d;
+#pragma omp atomic capture
+            d = ++done;
+            gl_progress("centring", d, s->nframe);
+        }
+        gl_xcorr_work_free(w);
+    }
+    gl_xcorr_plan_free(plan);
+    return nomem ? gl_error_nomem("core work") : GL_OK;
+}
+
 static gl_status measure_core(const gl_align_stack *s, const gl_align_params *p, gl_centres *c)
 {
+    gl_star_core core;
+    if (gl_star_core_find(s->sharp, s->nx, s->ny, p, &core) && core.behind_mask)
+        return measure_core_guided(s, p, &core.fit, c);
     profile_ctx ctx = {p->profile, p};
     gl_centres_each_frame(s, profile_frame, &ctx, c);
     return GL_OK;
@@ -77,18 +149,15 @@ static gl_status measure_core(const gl_align_stack *s, const gl_align_params *p,
 
 /* ---- star or halo? ------------------------------------------------------ */
 
-/* 1 when img shows an unsaturated compact star that a Gaussian describes
- * (fit residual below 10 per cent of the peak, no flat top). */
-static int compact_star(const float *img, long nx, long ny, const gl_align_params *p,
-                        gl_profile_fit *fit)
+/* The fit tests of an unsaturated compact star: a Gaussian describes it
+ * (width in range, fit residual below 10 per cent of the peak) and its top
+ * is not flat (a saturated core has several pixels at the maximum). */
+static int compact_fit(const float *img, long nx, long ny, const gl_profile_fit *fit)
 {
-    if (gl_profile_centre(img, nx, ny, GL_PROFILE_GAUSSIAN, p, fit))
-        return 0;
     if (!(fit->fwhm > 0.8 && fit->fwhm < GL_MIN(nx, ny) / 4.0))
         return 0;
     if (!(fit->rms_residual < 0.1 * fit->amplitude))
         return 0;
-    /* a saturated core is flat: several pixels at the maximum */
     long px = lround(fit->x), py = lround(fit->y);
     double vmax = -INFINITY;
     for (long y = GL_MAX(py - 2, 0); y <= GL_MIN(py + 2, ny - 1); y++)
@@ -103,17 +172,109 @@ static int compact_star(const float *img, long nx, long ny, const gl_align_param
     return nflat <= 2;
 }
 
+/* Mean of the 3x3 box at (x, y), NaN pixels skipped. */
+static double box3(const float *img, long nx, long x, long y)
+{
+    double s = 0;
+    int n = 0;
+    for (long v = y - 1; v <= y + 1; v++)
+        for (long u = x - 1; u <= x + 1; u++)
+            if (!isnan(img[v * nx + u])) {
+                s += img[v * nx + u];
+                n++;
+            }
+    return n ? s / n : NAN;
+}
+
+/* The brightest local maximum of the 3x3 box mean within r px of (cx, cy),
+ * 2 px from the edge at least; 0 when there is none. */
+static int local_peak_near(const float *img, long nx, long ny, double cx, double cy, double r,
+                           long *px, long *py)
+{
+    double best = -INFINITY;
+    int found = 0;
+    for (long y = GL_MAX(2, (long)floor(cy - r)); y <= GL_MIN(ny - 3, (long)ceil(cy + r)); y++)
+        for (long x = GL_MAX(2, (long)floor(cx - r)); x <= GL_MIN(nx - 3, (long)ceil(cx + r));
+             x++) {
+            if (hypot(x - cx, y - cy) > r)
+                continue;
+            double v = box3(img, nx, x, y);
+            if (!(v > best))
+                continue;
+            int top = 1;
+            for (long dy = -1; dy <= 1 && top; dy++)
+                for (long dx = -1; dx <= 1 && top; dx++)
+                    if ((dx || dy) && box3(img, nx, x + dx, y + dy) > v)
+                        top = 0;
+            if (top) {
+                best = v;
+                *px = x;
+                *py = y;
+                found = 1;
+            }
+        }
+    return found;
+}
+
+int gl_star_core_find(const float *img, long nx, long ny, const gl_align_params *p, gl_star_core *c)
+{
+    memset(c, 0, sizeof *c);
+    c->sx = c->sy = NAN;
+    if (gl_align_symmetry_centre(img, nx, ny, gl_align_upsample(p), &c->sx, &c->sy)) {
+        gl_error_clear();
+        c->sx = c->sy = NAN;
+    }
+    int have_sym = isfinite(c->sx) && isfinite(c->sy);
+    if (gl_profile_centre(img, nx, ny, GL_PROFILE_GAUSSIAN, p, &c->fit) == 0 &&
+        compact_fit(img, nx, ny, &c->fit)) {
+        /* a compact feature far from the frame's centre of symmetry is not
+         * the star (a satellite spot, a companion, a speckle) */
+        if (!have_sym || hypot(c->fit.x - c->sx, c->fit.y - c->sy) <= 3 * GL_MAX(c->fit.fwhm, 1.0))
+            return 1;
+        c->far = 1;
+        c->peak = c->fit;
+    }
+    gl_error_clear();
+    if (!have_sym)
+        return 0;
+    /* behind a coronagraph the brightest features are speckles and the
+     * mask-edge ring; the star shows as a fainter residual core near the
+     * halo's centre of symmetry (which an asymmetric halo pulls away from
+     * the star, up to 3 px on simulated Lyot sequences) */
+    long px, py;
+    gl_profile_fit fit;
+    gl_align_params q = *p;
+    if (!local_peak_near(img, nx, ny, c->sx, c->sy, GL_CORE_SEARCH_PX, &px, &py))
+        return 0;
+    q.stamp_half =
+        core_stamp(p, gl_image_fwhm_estimate(img, nx, ny, px, py, gl_image_median(img, nx, ny),
+                                             GL_CORE_SEARCH_PX));
+    /* the first guess of the width counts ring pixels too: refitted on the
+     * stamp that the fitted width gives */
+    int rc =
+        gl_profile_centre_at(img, nx, ny, px, py, GL_CORE_SEARCH_PX, GL_PROFILE_GAUSSIAN, &q, &fit);
+    if (rc == 0 && p->stamp_half <= 0 && core_stamp(p, fit.fwhm) != q.stamp_half) {
+        q.stamp_half = core_stamp(p, fit.fwhm);
+        px = lround(fit.x);
+        py = lround(fit.y);
+        rc = gl_profile_centre_at(img, nx, ny, px, py, GL_CORE_SEARCH_PX, GL_PROFILE_GAUSSIAN, &q,
+                                  &fit);
+    }
+    if (rc != 0 || !compact_fit(img, nx, ny, &fit) ||
+        hypot(fit.x - c->sx, fit.y - c->sy) > GL_CORE_SEARCH_PX ||
+        !(fit.amplitude > 5 * gl_image_noise(img, nx, ny))) {
+        gl_error_clear();
+        return 0;
+    }
+    c->fit = fit;
+    c->behind_mask = 1;
+    return 1;
+}
+
 int gl_star_core_visible(const gl_align_stack *s, const gl_align_params *p)
 {
-    gl_profile_fit fit;
-    double sx, sy;
-    int ok = compact_star(s->sharp, s->nx, s->ny, p, &fit);
-    if (ok &&
-        gl_align_symmetry_centre(s->sharp, s->nx, s->ny, gl_align_upsample(p), &sx, &sy) == GL_OK &&
-        hypot(fit.x - sx, fit.y - sy) > 3 * GL_MAX(fit.fwhm, 1.0))
-        ok = 0;
-    gl_error_clear();
-    return ok;
+    gl_star_core c;
+    return gl_star_core_find(s->sharp, s->nx, s->ny, p, &c);
 }
 
 /* ---- registration ------------------------------------------------------- */
@@ -170,38 +331,46 @@ gl_status gl_sharp_reference(const gl_align_stack *s, const gl_align_params *p, 
 static gl_status measure_register(const gl_align_stack *s, const gl_align_params *p, gl_centres *c)
 {
     gl_xcorr_plan *plan = NULL;
-    gl_profile_fit fit;
+    gl_star_core core;
     double cx, cy, ecx, ecy;
     size_t npix = (size_t)s->nx * (size_t)s->ny;
     const float *ref = s->sharp;
     gl_status st = GL_OK;
-    int fitted = compact_star(ref, s->nx, s->ny, p, &fit);
+    int fitted = gl_star_core_find(ref, s->nx, s->ny, p, &core);
+    if (core.far)
+        gl_log(GL_LOG_WARN,
+               "registration: the compact peak at (%.2f, %.2f) lies %.1f px from the "
+               "frame's centre of symmetry (%.2f, %.2f): not the star; taking %s",
+               core.peak.x, core.peak.y, hypot(core.peak.x - core.sx, core.peak.y - core.sy),
+               core.sx, core.sy,
+               fitted ? "the residual core near that centre" : "the symmetry centre");
     if (fitted) {
-        /* a compact feature far from the frame's centre of symmetry is not
-         * the star (a satellite spot, a background source): use symmetry */
-        double sx, sy;
-        if (gl_align_symmetry_centre(ref, s->nx, s->ny, gl_align_upsample(p), &sx, &sy) == GL_OK &&
-            hypot(fit.x - sx, fit.y - sy) > 3 * GL_MAX(fit.fwhm, 1.0)) {
-            gl_log(GL_LOG_WARN,
-                   "registration: the compact peak at (%.2f, %.2f) lies %.1f px from the "
-                   "frame's centre of symmetry (%.2f, %.2f); taking the symmetry centre",
-                   fit.x, fit.y, hypot(fit.x - sx, fit.y - sy), sx, sy);
-            fitted = 0;
-        }
-    }
-    if (fitted) {
-        cx = fit.x;
-        cy = fit.y;
-        ecx = fit.err_x;
-        ecy = fit.err_y;
-        gl_log(GL_LOG_INFO,
-               "registration: absolute centre (%.3f, %.3f) from a Gaussian fit of "
-               "the registered median frame",
-               cx, cy);
+        cx = core.fit.x;
+        cy = core.fit.y;
+        ecx = core.fit.err_x;
+        ecy = core.fit.err_y;
+        if (core.behind_mask)
+            gl_log(GL_LOG_INFO,
+                   "registration: absolute centre (%.3f, %.3f) from a Gaussian fit of the "
+                   "residual core (FWHM %.2f px, fainter than the brightest feature) that the "
+                   "registered median frame shows %.2f px from its halo's centre of symmetry "
+                   "(%.3f, %.3f)",
+                   cx, cy, core.fit.fwhm, hypot(cx - core.sx, cy - core.sy), core.sx, core.sy);
+        else
+            gl_log(GL_LOG_INFO,
+                   "registration: absolute centre (%.3f, %.3f) from a Gaussian fit of "
+                   "the registered median frame",
+                   cx, cy);
     } else {
-        st = gl_align_symmetry_centre(ref, s->nx, s->ny, gl_align_upsample(p), &cx, &cy);
-        if (st)
+        cx = core.sx;
+        cy = core.sy;
+        if (!isfinite(cx) || !isfinite(cy)) {
+            st = gl_error_set(GL_ERR_NUMERIC,
+                              "%s: no centre of symmetry in the registered "
+                              "median frame",
+                              s->name);
             goto cleanup;
+        }
         ecx = ecy = 0.5 / gl_align_upsample(p);
         gl_log(GL_LOG_INFO,
                "registration: absolute centre (%.3f, %.3f) from the point symmetry "
@@ -453,35 +622,38 @@ gl_centre_method gl_centre_auto(const gl_align_stack *s, const gl_align_params *
         snprintf(spots_why, sizeof spots_why, "%s; ", reason);
     }
     gl_error_clear();
-    gl_profile_fit fit;
-    int compact = compact_star(s->sharp, s->nx, s->ny, p, &fit);
-    double sx, sy;
-    if (compact &&
-        gl_align_symmetry_centre(s->sharp, s->nx, s->ny, gl_align_upsample(p), &sx, &sy) == GL_OK &&
-        hypot(fit.x - sx, fit.y - sy) > 3 * GL_MAX(fit.fwhm, 1.0)) {
-        /* a compact peak far from the centre of symmetry is a companion or
-         * a background source, not the star (as in measure_register) */
+    gl_star_core core;
+    int compact = gl_star_core_find(s->sharp, s->nx, s->ny, p, &core);
+    const gl_profile_fit fit = core.fit;
+    if (core.far)
+        /* a compact peak far from the centre of symmetry is a companion, a
+         * speckle or a background source, not the star (as in measure_register) */
         snprintf(spots_why + strlen(spots_why), sizeof spots_why - strlen(spots_why),
                  "a compact peak at (%.1f, %.1f), %.1f px from the centre of symmetry: not the "
                  "star; ",
-                 fit.x, fit.y, hypot(fit.x - sx, fit.y - sy));
-        compact = 0;
-    }
+                 core.peak.x, core.peak.y, hypot(core.peak.x - core.sx, core.peak.y - core.sy));
+    if (compact && core.behind_mask)
+        snprintf(spots_why + strlen(spots_why), sizeof spots_why - strlen(spots_why),
+                 "a residual core at (%.2f, %.2f), %.1f px from the halo's centre of symmetry, "
+                 "fainter than the brightest feature (a coronagraph's leak); ",
+                 fit.x, fit.y, hypot(fit.x - core.sx, fit.y - core.sy));
     if ((!tried[GL_CENTRE_CORE] || !tried[GL_CENTRE_REFERENCE]) && compact) {
         double noise = gl_image_noise(s->img, s->nx, s->ny);
         double snr = noise > 0 ? fit.amplitude / noise : INFINITY;
         if (snr >= 20 && !tried[GL_CENTRE_CORE]) {
-            snprintf(reason, size,
-                     "%san unsaturated star (FWHM %.2f px, peak S/N %.0f in one "
-                     "frame)",
-                     spots_why, fit.fwhm, snr);
+            snprintf(reason, size, "%s%s (FWHM %.2f px, peak S/N %.0f in one frame)", spots_why,
+                     core.behind_mask ? "bright enough to fit in every frame"
+                                      : "an unsaturated star",
+                     fit.fwhm, snr);
             return GL_CENTRE_CORE;
         }
         if (!tried[GL_CENTRE_REFERENCE]) {
             snprintf(reason, size,
-                     "%san unsaturated star (peak S/N %.1f in one frame): "
-                     "registration uses the whole stack",
-                     spots_why, snr);
+                     "%s%s (peak S/N %.1f in one frame): registration uses the "
+                     "whole stack",
+                     spots_why,
+                     core.behind_mask ? "too faint to fit in single frames" : "an unsaturated star",
+                     snr);
             return GL_CENTRE_REFERENCE;
         }
     }

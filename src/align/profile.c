@@ -266,10 +266,14 @@ int gl_profile_centre(const float *img, long nx, long ny, gl_profile_kind kind,
     double peak;
     if (!gl_image_peak(img, nx, ny, 2, &px, &py, &peak))
         return -1;
+    return gl_profile_centre_at(img, nx, ny, px, py, GL_MIN(GL_MIN(nx, ny) / 4, 20), kind, p, fit);
+}
+
+int gl_profile_centre_at(const float *img, long nx, long ny, long px, long py, long reach,
+                         gl_profile_kind kind, const gl_align_params *p, gl_profile_fit *fit)
+{
     double bg = gl_image_median(img, nx, ny);
-    double fwhm = p->fwhm > 0 ? p->fwhm
-                              : gl_image_fwhm_estimate(img, nx, ny, px, py, bg,
-                                                       GL_MIN(GL_MIN(nx, ny) / 4, 20));
+    double fwhm = p->fwhm > 0 ? p->fwhm : gl_image_fwhm_estimate(img, nx, ny, px, py, bg, reach);
     if (!(fwhm > 0))
         fwhm = 3;
     int half = p->stamp_half > 0 ? p->stamp_half : (int)GL_MIN(GL_MAX(ceil(2 * fwhm), 4), 32);

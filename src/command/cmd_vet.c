@@ -36,7 +36,8 @@ static const char help[] =
     "  --max-evaluations N    merit evaluations per fit (default 120)\n"
     "  --centre-error PX      star-centring error per axis, px (default 0)\n"
     "  --star-table FILE      gloam align's star-position table: adds the error of the\n"
-    "                         mean star position (x_err, y_err over sqrt(frames))\n"
+    "                         mean star position (per-frame x_err, y_err over\n"
+    "                         sqrt(frames), plus the common x_err_abs, y_err_abs)\n"
     "  --north-error DEG      error of the north offset (default 0)\n"
     "  --pixscale MAS         pixel scale (default: from the WCS of the cube)\n"
     "  --pixscale-error MAS   error of the pixel scale (default 0)\n"
@@ -207,7 +208,10 @@ cleanup:
     return st;
 }
 
-/* The error of the mean star position from gloam align's table. */
+/* The error of the mean star position from gloam align's table: the
+ * per-frame errors average down over the frames, the part common to every
+ * frame (x_err_abs, y_err_abs: the error of the absolute centre, in tables
+ * of this version) does not. */
 static gl_status star_table_error(const char *path, double *err)
 {
     gl_csv *t = NULL;
@@ -215,7 +219,9 @@ static gl_status star_table_error(const char *path, double *err)
     if (st)
         return st;
     int cx = gl_csv_column(t, "x_err"), cy = gl_csv_column(t, "y_err");
-    double s = 0;
+    int ax = gl_csv_column(t, "x_err_abs"), ay = gl_csv_column(t, "y_err_abs");
+    int ck = gl_csv_column(t, "kept"); /* the aligned cube holds the kept frames only */
+    double s = 0, c = 0;
     long m = 0;
     if (cx < 0 || cy < 0) {
         st = gl_error_set(GL_ERR_INPUT, "%s: no x_err and y_err columns (gloam align's --table)",
@@ -223,9 +229,13 @@ static gl_status star_table_error(const char *path, double *err)
         goto cleanup;
     }
     for (long i = 0; i < t->nrows; i++) {
-        double a = t->data[i * t->ncols + cx], b = t->data[i * t->ncols + cy];
-        if (isfinite(a) && isfinite(b)) {
-            s += (a * a + b * b) / 2;
+        const double *row = t->data + i * t->ncols;
+        double a = row[cx], b = row[cy];
+        double ca = ax >= 0 && isfinite(row[ax]) ? fmin(row[ax], a) : 0.0;
+        double cb = ay >= 0 && isfinite(row[ay]) ? fmin(row[ay], b) : 0.0;
+        if (isfinite(a) && isfinite(b) && !(ck >= 0 && row[ck] == 0)) {
+            s += (a * a - ca * ca + b * b - cb * cb) / 2;
+            c += (ca * ca + cb * cb) / 2;
             m++;
         }
     }
@@ -233,9 +243,9 @@ static gl_status star_table_error(const char *path, double *err)
         st = gl_error_set(GL_ERR_INPUT, "%s: no frame with centring errors", path);
         goto cleanup;
     }
-    /* per-frame errors average down over the frames; a common offset does
-     * not, and belongs in --centre-error */
-    *err = sqrt(s / (double)m / (double)m);
+    /* a common offset that the table does not know of belongs in
+     * --centre-error */
+    *err = sqrt(s / (double)m / (double)m + c / (double)m);
 cleanup:
     gl_csv_free(t);
     return st;
@@ -586,6 +596,8 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
             (st = gl_provenance_add_input(&cli->prov, star_table)))
             goto cleanup;
         o.vp.centre_err_px = hypot(o.vp.centre_err_px, e);
+        gl_log(GL_LOG_INFO, "star-centring error %.3f px per axis (%.3f px from %s)",
+               o.vp.centre_err_px, e, star_table);
     }
     gl_obsinfo info;
     gl_obsinfo_from_header(cube->header, &info);

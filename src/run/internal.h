@@ -67,6 +67,13 @@ gl_status run_report_write(const run_files *f, const char *target, const run_cmd
  * when unknown; see run_report.c). */
 double run_rotation_deg(const run_cmd *cmds);
 
+/* The warnings of step `step` in the run's log: the lines "gloam STEP:
+ * warning: ..." of the step's last section (the run that made its current
+ * products, also when a later run found it unchanged), at most max of them
+ * (see summary.c). Returns their count, 0 without a log. */
+enum { RUN_MAX_WARNINGS = 32 };
+int run_step_warnings(const char *log_path, const char *step, char (*out)[1024], int max);
+
 /* A JSON file parsed (cJSON; NULL when missing or not JSON; see summary.c). */
 cJSON *run_read_json(const char *path);
 

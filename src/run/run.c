@@ -454,6 +454,12 @@ static gl_status compose(gl_plan *plan, const char *target, run_files *f, arena 
             ARG("--pixscale");
             ARG("%s", in.pixscale);
         }
+        /* the vetting's astrometric errors include the star-centring error
+         * of the align step (its star table) */
+        if (s == GL_STEP_VET && asked[GL_STEP_ALIGN]) {
+            ARG("--star-table");
+            ARG("%s", f->starpos);
+        }
         if ((st = add_section(plan, target, "subtract", a, c)) ||
             (st = add_section(plan, target, step_names[s], a, c)) ||
             (st = add_title(plan, target, step_names[s], a, c)))
@@ -464,6 +470,8 @@ static gl_status compose(gl_plan *plan, const char *target, run_files *f, arena 
         add_file(c->inputs, &c->ninputs, in.refs);
         if (asked[GL_STEP_DETECT])
             add_file(c->inputs, &c->ninputs, f->candidates_csv);
+        if (s == GL_STEP_VET && asked[GL_STEP_ALIGN])
+            add_file(c->inputs, &c->ninputs, f->starpos);
         add_file(c->products, &c->nproducts, s == GL_STEP_LIMITS ? f->limits_csv : f->vet_csv);
     }
 #undef ARG

@@ -298,6 +298,16 @@ gl_status run_report_write(const run_files *f, const char *target, const run_cmd
         }
         if ((st = gl_report_text(r, line)))
             goto cleanup;
+        if (out->state[s] == GL_STEP_RAN || out->state[s] == GL_STEP_CURRENT) {
+            static char warn[RUN_MAX_WARNINGS][1024];
+            int nw = run_step_warnings(f->log, step_title[s], warn, RUN_MAX_WARNINGS);
+            for (int i = 0; i < nw; i++) {
+                char msg[1100];
+                snprintf(msg, sizeof msg, "%s warned: %.1023s", step_title[s], warn[i]);
+                if ((st = gl_report_caution(r, msg)))
+                    goto cleanup;
+            }
+        }
     }
     if ((st = gl_report_caution(
              r, "Simulated or real, every number here depends on the star centre, the "

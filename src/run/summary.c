@@ -1,6 +1,7 @@
 /*
  * summary.c -- RUN/summary.json: what a run found, in a form programs read
- * (cJSON): the steps with their state, duration and exact command line;
+ * (cJSON): the steps with their state, duration, exact command line and
+ * warnings (from the run's log);
  * the library versions; the frames kept; the detections; the contrast at
  * fixed separations (multiples of the FWHM, and arcsec where the pixel
  * scale is known) read from the contrast table by linear interpolation in
@@ -33,6 +34,33 @@ static const char *state_name(gl_step_state s)
 static cJSON *num(double v)
 {
     return isfinite(v) ? cJSON_CreateNumber(v) : cJSON_CreateNull();
+}
+
+int run_step_warnings(const char *log_path, const char *step, char (*out)[1024], int max)
+{
+    FILE *f = fopen(log_path, "rb");
+    if (!f)
+        return 0;
+    char line[4096], head[64], tag[96];
+    snprintf(head, sizeof head, " %s: ", step); /* "== STAMP STEP: options" */
+    snprintf(tag, sizeof tag, "gloam %s: warning: ", step);
+    int n = 0, inside = 0;
+    while (fgets(line, sizeof line, f)) {
+        size_t len = strlen(line);
+        while (len && (line[len - 1] == '\n' || line[len - 1] == '\r'))
+            line[--len] = '\0';
+        if (strncmp(line, "== ", 3) == 0) {
+            const char *sp = strchr(line + 3, ' ');
+            inside = sp && strncmp(sp, head, strlen(head)) == 0;
+            if (inside)
+                n = 0; /* a later section of the same step replaces the earlier */
+            continue;
+        }
+        if (inside && n < max && strncmp(line, tag, strlen(tag)) == 0)
+            snprintf(out[n++], sizeof out[0], "%s", line + strlen(tag));
+    }
+    fclose(f);
+    return n;
 }
 
 cJSON *run_read_json(const char *path)
@@ -205,6 +233,13 @@ gl_status run_summary_write(const run_files *f, const char *target, const char *
             cJSON_AddStringToObject(o, "why_not", cmds[s].why_not);
         if (out->state[s] == GL_STEP_FAILED)
             cJSON_AddStringToObject(o, "message", out->message);
+        if (out->state[s] == GL_STEP_RAN || out->state[s] == GL_STEP_CURRENT) {
+            static char warn[RUN_MAX_WARNINGS][1024];
+            int nw = run_step_warnings(f->log, names[s], warn, RUN_MAX_WARNINGS);
+            cJSON *a = nw ? cJSON_AddArrayToObject(o, "warnings") : NULL;
+            for (int i = 0; a && i < nw; i++)
+                cJSON_AddItemToArray(a, cJSON_CreateString(warn[i]));
+        }
         cJSON_AddItemToObject(steps, names[s], o);
     }
     cJSON_AddNumberToObject(root, "seconds", total);

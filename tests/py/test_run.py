@@ -283,12 +283,23 @@ def test_run_writes_the_folder_and_a_second_run_skips_every_step(sequence, tmp_p
     band = img[:22]
     assert np.median(band) > 200 and (band < 100).sum() > 20, "a dark title on a light band"
 
+    # a step's warnings (align's uncertain centring here: a coronagraph
+    # without spots) are in the summary and the report, as in the log
+    logged = [line.split("warning: ", 1)[1] for line in (out / "log.txt").read_text().splitlines()
+              if line.startswith("gloam align: warning: ")]
+    assert logged and s["steps"]["align"]["warnings"] == logged
+    assert "centring uncertain" in " ".join(logged)
+    assert "align warned: " in (out / "report.html").read_text()
+    assert "warnings" not in s["steps"]["inspect"]
+
     before = {p.name: p.read_bytes() for p in out.iterdir() if p.suffix in (".fits", ".csv")}
     r2 = gloam("run", plan, "--out", out)
     assert r2.returncode == 0, r2.stderr
     assert r2.stderr.count("not run again") == 5
     s2 = json.loads((out / "summary.json").read_text())
     assert [s2["steps"][k]["state"] for k in STEPS] == ["unchanged"] * 5
+    # an unchanged step keeps the warnings of the run that made its products
+    assert s2["steps"]["align"]["warnings"] == logged
     after = {p.name: p.read_bytes() for p in out.iterdir() if p.suffix in (".fits", ".csv")}
     assert before == after
 
@@ -319,6 +330,23 @@ def test_run_report_renders_in_chromium(sequence, tmp_path):
     dom, console = open_in_chromium(out / "report.html", tmp_path)
     assert f'data-images="{len(p.imgs)}/{len(p.imgs)}"' in dom
     assert console == [], console
+
+
+def test_vet_gets_the_star_table_of_align(sequence, tmp_path):
+    """The vetting's astrometric errors include the star-centring error:
+    the run hands align's star table to vet (--star-table), and the ledger
+    counts it among vet's inputs (a new centring reruns the vetting)."""
+    plan = write_plan(sequence, steps=("align", "subtract", "detect", "vet"))
+    out = tmp_path / "run"
+    r = gloam("run", plan, "--out", out, "--dry-run")
+    assert r.returncode == 0, r.stderr
+    line = next(x for x in r.stderr.splitlines() if " gloam vet " in x)
+    assert f"--star-table {out / 'star-positions.csv'}" in line, line
+    # without align there is no star table to give
+    plan = write_plan(sequence, name="noalign.ini", steps=("subtract", "detect", "vet"))
+    r = gloam("run", plan, "--out", out, "--dry-run")
+    line = next(x for x in r.stderr.splitlines() if " gloam vet " in x)
+    assert "--star-table" not in line
 
 
 def test_bad_plans_are_refused_before_anything_runs(sequence, tmp_path):

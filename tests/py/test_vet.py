@@ -248,11 +248,15 @@ def test_products(recovered):
        f"{d}/s.fits", "--quiet")
     ok("detect", f"{d}/s.fits", "--fwhm", FWHM, "--mask-radius", 3, "--out", f"{d}/d",
        "--quiet")
-    # align's star table: per-frame errors of 0.3 px average to 0.3 / 4 over 16 frames
+    # align's star table: per-frame errors of 0.3 px, of which 0.1 px common
+    # to every frame (x_err_abs: the absolute centre's error), average to
+    # sqrt((0.3^2 - 0.1^2) / 16 + 0.1^2) over 16 frames; a rejected frame
+    # (kept 0) is not in the aligned cube and does not count
     with open(f"{d}/starpos.csv", "w") as f:
-        f.write("frame,x,y,x_err,y_err\n")
+        f.write("frame,x,y,x_err,y_err,kept,x_err_abs,y_err_abs\n")
         for k in range(16):
-            f.write(f"{k},24,24,0.3,0.3\n")
+            f.write(f"{k},24,24,0.3,0.3,1,0.1,0.1\n")
+        f.write("16,30,30,5,5,0,0.1,0.1\n")
     ok("vet", f"{d}/cube.fits", "--angles", f"{d}/angles.txt", "--psf", f"{d}/psf.fits", *SUB,
        "--candidates", f"{d}/d.candidates.fits", "--error-fakes", 2, "--star-table",
        f"{d}/starpos.csv", "--north-error", 0.2, "--pixscale", 12, "--pixscale-error", 0.05,
@@ -268,7 +272,7 @@ def test_products(recovered):
     np.testing.assert_allclose(r["dra_mas"], r["sep_px"] * 12 * np.sin(np.radians(r["pa_deg"])))
     np.testing.assert_allclose(r["dmag"], -2.5 * np.log10(r["contrast"]))
     # the error budget: quadrature sums (docs/vet.md)
-    c = 0.3 / 4
+    c = np.sqrt((0.3**2 - 0.1**2) / 16 + 0.1**2)
     np.testing.assert_allclose(r["sep_err"], np.hypot(r["sep_err_fit"], c))
     np.testing.assert_allclose(
         r["pa_err"], np.sqrt(r["pa_err_fit"]**2 + np.degrees(c / r["sep_px"])**2 + 0.2**2))
