@@ -688,11 +688,12 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
             continue;
         }
         const gl_vet_result *v = &res[i];
-        gl_log(GL_LOG_INFO,
-               "  start of the fit %.2f px, %.2f deg, contrast %.3g: the brightest pixel near "
-               "it, its aperture flux over the throughput (start_sep_px, start_pa_deg, "
-               "start_contrast)",
-               v->start_sep, v->start_pa, v->start_contrast);
+        gl_log(
+            GL_LOG_INFO,
+            "  start of the fit %.2f px, %.2f deg, contrast %.3g: the peak the position sits on, "
+            "its aperture flux over the throughput (start_sep_px, start_pa_deg, "
+            "start_contrast)",
+            v->start_sep, v->start_pa, v->start_contrast);
         gl_log(GL_LOG_INFO,
                "  fitted sep %.2f +- %.2f px, PA %.2f +- %.2f deg, contrast %.3g +- %.2g (%.2f +- "
                "%.2f mag), S/N %.1f; tests passed %d of %d possible",

@@ -142,7 +142,7 @@ gl_status gl_vet_candidate(const gl_cube *cube, const double *angles, const gl_c
         (st = vet_problem_new(cube, angles, refs, sp, psf, vp, sep0, &p)))
         goto cleanup;
 
-    /* the start: the brightest pixel near detect's position (found as the
+    /* the start: the peak detect's position sits on (found as the
      * fakes of the error estimate are), throughput-corrected aperture flux */
     double x0, y0, tx, ty;
     vet_xy(p, sep0, pa0, &tx, &ty);
@@ -176,7 +176,7 @@ gl_status gl_vet_candidate(const gl_cube *cube, const double *angles, const gl_c
         char why[512];
         snprintf(why, sizeof why, "%s", gl_error_message());
         st = gl_error_set(st,
-                          "the start of the fit, the brightest pixel within 1 FWHM of the "
+                          "the start of the fit, the peak within 1 FWHM of the "
                           "table's %.2f px, %.1f deg, is not usable: %s",
                           out->given_sep, out->given_pa, why);
         goto cleanup;

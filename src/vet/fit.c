@@ -352,24 +352,36 @@ double vet_pixel_sigma(vet_problem *p, const float *img, double sep, double ex, 
 
 void vet_peak(const vet_problem *p, const float *img, double x0, double y0, double *x, double *y)
 {
-    long bi = -1, bj = -1;
-    double best = -INFINITY, r = p->fwhm;
-    for (long j = (long)floor(y0 - r); j <= (long)ceil(y0 + r); j++)
-        for (long i = (long)floor(x0 - r); i <= (long)ceil(x0 + r); i++) {
-            if (i < 1 || j < 1 || i >= p->nx - 1 || j >= p->ny - 1 ||
-                hypot((double)i - x0, (double)j - y0) > r)
-                continue;
-            double v = img[j * p->nx + i];
-            if (isfinite(v) && v > best) {
-                best = v;
-                bi = i;
-                bj = j;
-            }
-        }
+    /* the peak the position sits on: steepest ascent over the 8 neighbours
+     * from the nearest pixel, within 1 FWHM of (x0, y0). The brightest pixel
+     * of that disc would jump to a brighter neighbour (a speckle, the inner
+     * edge of the field) when the position is on a source's flank. */
+    double r = p->fwhm;
+    long bi = lround(x0), bj = lround(y0);
     *x = x0;
     *y = y0;
-    if (bi < 0)
+    if (bi < 1 || bj < 1 || bi >= p->nx - 1 || bj >= p->ny - 1 || !isfinite(img[bj * p->nx + bi]))
         return;
+    for (;;) {
+        long ni = bi, nj = bj;
+        double best = img[bj * p->nx + bi];
+        for (long j = bj - 1; j <= bj + 1; j++)
+            for (long i = bi - 1; i <= bi + 1; i++) {
+                if (i < 1 || j < 1 || i >= p->nx - 1 || j >= p->ny - 1 ||
+                    hypot((double)i - x0, (double)j - y0) > r)
+                    continue;
+                double v = img[j * p->nx + i];
+                if (isfinite(v) && v > best) {
+                    best = v;
+                    ni = i;
+                    nj = j;
+                }
+            }
+        if (ni == bi && nj == bj)
+            break;
+        bi = ni;
+        bj = nj;
+    }
     double sw = 0, sx = 0, sy = 0;
     for (long j = bj - 1; j <= bj + 1; j++)
         for (long i = bi - 1; i <= bi + 1; i++) {

@@ -95,8 +95,9 @@ double vet_snr(vet_problem *p, const float *img, double x, double y);
  * leaving out pixels within 2 FWHM of (ex, ey). */
 double vet_pixel_sigma(vet_problem *p, const float *img, double sep, double ex, double ey);
 
-/* The brightest pixel of img within one FWHM of (x0, y0), refined by the
- * centre of light of its positive 3x3 neighbourhood. */
+/* The local maximum of img that (x0, y0) sits on (steepest ascent from the
+ * nearest pixel, staying within one FWHM of it), refined by the centre of
+ * light of its positive 3x3 neighbourhood. */
 void vet_peak(const vet_problem *p, const float *img, double x0, double y0, double *x, double *y);
 
 /* The negative-companion fit from a start. */
