@@ -13,7 +13,7 @@
 #include <getopt.h>
 #include <stdio.h>
 
-enum { CLI_SAID = 8, CLI_NOTED = 16 };
+enum { CLI_SAID = 8, CLI_NOTED = 16, CLI_HELD = 16 };
 
 typedef struct gl_cli {
     const char *command; /* "simulate", ... */
@@ -38,6 +38,14 @@ typedef struct gl_cli {
     /* the printers' memory, per command run (not per process) */
     char said[CLI_SAID][512]; /* the last log messages, each said once */
     int nsaid;
+    /* information lines held from cli_start until the products are
+     * registered (cli_work_started), a warning is said or the command ends
+     * well; a command that fails before then says its one line of error
+     * only (command.c drops them) */
+    int hold;
+    char held[CLI_HELD][512];
+    int nheld;
+    int bar_on;                /* the error stream is a terminal: progress is drawn */
     char noted[CLI_NOTED][64]; /* old spellings already noted (cli_deprecated) */
     int nnoted;
     /* the progress bar: one line for the outermost task (the first reported
@@ -243,6 +251,12 @@ void cli_deprecated(gl_cli *cli, const char *old, const char *now);
 /* Removes the progress bar from the terminal line (if one is drawn), so
  * that a message starts on a clean line; the next report draws it again. */
 void cli_bar_clear(gl_cli *cli);
+/* Says the information lines held since cli_start (cli.h, hold). */
+void cli_flush_held(gl_cli *cli);
+/* The inputs are read and every product is registered (nothing can be
+ * refused as bad input any more): what was held is said, and from now on
+ * every line at once. */
+void cli_work_started(gl_cli *cli);
 
 /* Applies --threads and installs the log and progress printers. The bar
  * is drawn only on a terminal and not with --quiet; a command run inside

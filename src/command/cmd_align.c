@@ -299,6 +299,7 @@ int cmd_align(gl_cli *cli, int argc, char **argv)
         (map_path && (st = gl_outset_add(set, map_path, &cli->prov, &t_map))) ||
         (angles_out && (st = gl_outset_add(set, angles_out, &cli->prov, &t_angles))))
         goto done;
+    cli_work_started(cli);
 
     long nx = cube->nx, ny = cube->ny;
     if ((st = gl_align_run(cube, angles, in, &p, &r)))

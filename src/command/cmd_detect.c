@@ -190,6 +190,7 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
         rc = cli_fail(cli, st);
         goto cleanup;
     }
+    cli_work_started(cli);
 
     {
         /* a product of gloam subtract records its method (GLSMETH); without

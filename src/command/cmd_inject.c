@@ -150,6 +150,7 @@ int cmd_inject(gl_cli *cli, int argc, char **argv)
         (st = gl_outset_add(outs, out_path, &cli->prov, &tmp_cube)) ||
         (st = gl_outset_add(outs, planted, &cli->prov, &tmp_csv)))
         goto cleanup;
+    cli_work_started(cli);
     gl_log(GL_LOG_INFO, "PSF centre (%.3f, %.3f) in %s, FWHM %.2f px, star flux %.6g per frame",
            psf->centre_x, psf->centre_y, psf_path, psf->fwhm_px[0], psf->flux[0]);
     if ((st = gl_inject_companions(cube, angles, north, psf, comps, ncompanions, spectrum)))

@@ -267,6 +267,7 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
         lp.avoid_sep_px = cand_sep;
         lp.avoid_pa_deg = cand_pa;
     }
+    cli_work_started(cli);
 
     setup.p.angles_name = cli->angles_source;
     gl_obsinfo info;

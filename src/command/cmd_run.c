@@ -89,6 +89,7 @@ int cmd_run(gl_cli *cli, int argc, char **argv)
         rp.folder = "RUN";
     }
     cli_start(cli);
+    cli_work_started(cli); /* each step holds its own lines; the run's are said at once */
 
     gl_plan *plan = NULL;
     gl_status st = gl_plan_read(plan_path, &plan);

@@ -383,6 +383,7 @@ int cmd_simulate(gl_cli *cli, int argc, char **argv)
     } else {
         made_dir = 1;
     }
+    cli_work_started(cli);
     gl_sim_result *res = NULL;
     st = gl_sim_run(&p, &res);
     if (st == GL_OK) {

@@ -146,6 +146,7 @@ int cmd_subtract(gl_cli *cli, int argc, char **argv)
         (resid_path && (st = gl_outset_add(outs, resid_path, &cli->prov, &tmp_resid))) ||
         (raw_path && (st = gl_outset_add(outs, raw_path, &cli->prov, &tmp_raw))))
         goto cleanup;
+    cli_work_started(cli);
 
     if (streamed) {
         char sense[72];

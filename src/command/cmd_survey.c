@@ -77,6 +77,7 @@ int cmd_survey(gl_cli *cli, int argc, char **argv)
             cli->quiet = 1; /* one voice on the terminal: process 0's */
     }
     cli_start(cli);
+    cli_work_started(cli); /* as in gloam run */
     int rc = 0, nfailed = 0;
     gl_plan *plan = NULL;
     gl_status st = gl_plan_read(plan_path, &plan);

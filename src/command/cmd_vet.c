@@ -655,6 +655,7 @@ int cmd_vet(gl_cli *cli, int argc, char **argv)
         if ((st = cli_add_product(cli, outs, prefix, suf, p_svg[i], sizeof p_svg[i], &t_svg[i])))
             goto cleanup;
     }
+    cli_work_started(cli);
 
     for (long i = 0; i < ncand; i++) {
         gl_vet_epochs ep = {0};

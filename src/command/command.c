@@ -131,8 +131,10 @@ static int command_run(int argc, char **argv, FILE *out, FILE *err, int check)
     else if (setjmp(done) == 0)
         rc = cmd->run(cli, argc - 1, argv + 1);
     else
-        rc = 0;         /* cli_start reached: every option and value was accepted */
-    cli_bar_clear(cli); /* a task left unfinished by an error leaves no bar behind */
+        rc = 0;              /* cli_start reached: every option and value was accepted */
+    if (rc == 0)             /* a command that ended well says what it held; a failure, */
+        cli_flush_held(cli); /* its one line of error only (cli.h, hold) */
+    cli_bar_clear(cli);      /* a task left unfinished by an error leaves no bar behind */
     if (cli->verbose && !check)
         print_peak_memory(cli);
     fflush(out);

@@ -530,6 +530,21 @@ void cli_deprecated(gl_cli *cli, const char *old, const char *now)
 
 /* ---- log and progress printers ---------------------------------------- */
 
+void cli_work_started(gl_cli *cli)
+{
+    cli->hold = 0;
+    cli_flush_held(cli);
+}
+
+void cli_flush_held(gl_cli *cli)
+{
+    if (cli->nheld)
+        cli_bar_clear(cli);
+    for (int i = 0; i < cli->nheld; i++)
+        fprintf(cli->err, "gloam %s: %s\n", cli->command, cli->held[i]);
+    cli->nheld = 0;
+}
+
 static void print_log(gl_log_level level, const char *msg, void *user)
 {
     gl_cli *cli = user;
@@ -539,6 +554,13 @@ static void print_log(gl_log_level level, const char *msg, void *user)
         if (strncmp(cli->said[i], msg, sizeof cli->said[i] - 1) == 0)
             return;
     snprintf(cli->said[cli->nsaid++ % CLI_SAID], sizeof cli->said[0], "%s", msg);
+    if (level == GL_LOG_INFO && cli->hold) {
+        if (cli->nheld == CLI_HELD)
+            cli_flush_held(cli);
+        snprintf(cli->held[cli->nheld++], sizeof cli->held[0], "%s", msg);
+        return;
+    }
+    cli_flush_held(cli);
     const char *tag = level == GL_LOG_ERROR ? "error: " : level == GL_LOG_WARN ? "warning: " : "";
     cli_bar_clear(cli);
     fprintf(cli->err, "gloam %s: %s%s\n", cli->command, tag, msg);
@@ -571,6 +593,8 @@ void cli_bar_clear(gl_cli *cli)
 static void print_progress(const char *task, long done, long total, void *user)
 {
     gl_cli *cli = user;
+    if (!cli->bar_on)
+        return;
     double t = now_s();
     int first = 0;
     if (!cli->bar.task[0]) {
@@ -633,6 +657,7 @@ void cli_start(gl_cli *cli)
      * (bench/README.md, issue 13 fifth round) */
     if (blas_thread_shutdown_)
         blas_thread_shutdown_();
+    cli->hold = !cli->verbose;
     gl_log_set_handler(print_log, cli,
                        cli->quiet ? GL_LOG_WARN : (cli->verbose ? GL_LOG_DEBUG : GL_LOG_INFO));
     gl_progress_fn outer;
@@ -641,5 +666,6 @@ void cli_start(gl_cli *cli)
     if (outer) /* inside another command: its bar shows this one's progress */
         return;
     int fd = fileno(cli->err);
-    gl_progress_set_handler(!cli->quiet && fd >= 0 && isatty(fd) ? print_progress : NULL, cli);
+    cli->bar_on = !cli->quiet && fd >= 0 && isatty(fd);
+    gl_progress_set_handler(print_progress, cli); /* draws only when bar_on */
 }

@@ -510,6 +510,15 @@ def test_no_overwrite_without_flag(tmp_path):
     r = run("subtract", c, "--angles", a, "--fwhm", FWHM, "--out", tmp_path / "o.fits",
             "--modes", 2)
     assert r.returncode == 1 and (tmp_path / "o.fits").read_text() == "keep"
+    # with the FWHM measured on a PSF (an information line on success) the
+    # refusal is still the one line of docs/conventions.md
+    yy, xx = np.mgrid[0:25, 0:25] - 12
+    fits.PrimaryHDU(np.exp(-(xx**2 + yy**2) / (2 * (FWHM / 2.3548) ** 2)).astype(np.float32)
+                    ).writeto(tmp_path / "psf.fits")
+    r = run("subtract", c, "--angles", a, "--psf", tmp_path / "psf.fits", "--out",
+            tmp_path / "o.fits", "--modes", 2)
+    lines = r.stderr.strip().splitlines()
+    assert r.returncode == 1 and len(lines) == 1 and "exists" in lines[0], r.stderr
     r = run("subtract", c, "--angles", a, "--fwhm", FWHM, "--out", tmp_path / "o.fits",
             "--modes", 2, "--overwrite")
     assert r.returncode == 0, r.stderr
