@@ -12,6 +12,7 @@
 #include "core/internal.h"
 #include "gloam/inspect.h"
 #include "gloam/io.h"
+#include "gloam/subtract.h"
 
 #include <dirent.h>
 #include <math.h>
@@ -185,8 +186,14 @@ gl_status run_report_write(const run_files *f, const char *target, const run_cmd
         nf++;
     }
     const char *method = arg_after(&cmds[GL_STEP_SUBTRACT], "--method");
+    char dflt[64];
+    if (!method) { /* the library's default, named */
+        gl_subtract_params dp;
+        gl_subtract_params_init(&dp);
+        snprintf(dflt, sizeof dflt, "%s (the default)", gl_subtract_method_name(dp.method));
+    }
     names[nf] = "subtraction";
-    vals[nf++] = method ? method : "the default method of gloam subtract";
+    vals[nf++] = method ? method : dflt;
     const char *modes = arg_after(&cmds[GL_STEP_SUBTRACT], "--modes");
     if (modes) {
         names[nf] = "KL mode counts (one plane each)";
