@@ -190,7 +190,6 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
         rc = cli_fail(cli, st);
         goto cleanup;
     }
-    cli_work_started(cli);
 
     {
         /* a product of gloam subtract records its method (GLSMETH); without
@@ -237,6 +236,7 @@ int cmd_detect(gl_cli *cli, int argc, char **argv)
             goto cleanup;
         }
     }
+    cli_work_started(cli); /* the input is good: what was held is said */
 
     char title[512];
     snprintf(title, sizeof title, "%s  (plane %ld of %ld)", title_given ? title_given : input,

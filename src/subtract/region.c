@@ -182,7 +182,7 @@ double sub_inner_radius(const gl_subtract_params *p, const double *angles,
         /* the first ring's mid radius r_in + half must give r_mid dmin >=
          * gap; a hair more keeps the comparison clear of rounding */
         double r = dmin > 0 && isfinite(dmin) ? gap / dmin * (1 + 1e-9) - half : INFINITY;
-        if (r + half < r_out) {
+        if (r + 2 * half <= r_out) { /* the whole first ring inside the field */
             r_in = GL_SUB_MAX(r, 0.0);
             *rule = tries[a];
             break;
