@@ -191,10 +191,12 @@ GL_API void gl_subtract_result_free(gl_subtract_result *r);
 /* The inner radius the subtraction will use, px: p->mask_radius when it is
  * >= 0; for GL_SUBTRACT_MASK_AUTO with klip-rings (and science frames in the
  * libraries) the smallest radius at which the first ring, --ring FWHM wide
- * and whole inside the outer radius, gives every frame at least as many references past the gap as
- * the smallest mode count (capped by `nearest`, less the reference-star frames with
- * GL_REFS_WITH_SCIENCE); when no ring inside the frame does, the smallest at
- * which every frame has at least one; when none does either, 0. Else 0.
+ * and whole inside the outer radius, gives every frame at least as many
+ * references past the gap as the smallest mode count (capped by `nearest`,
+ * less the reference-star frames with GL_REFS_WITH_SCIENCE); when no ring
+ * inside the frame does, the smallest at which every frame has at least
+ * one; when none does either, 0. Else 0.
+ *
  * angles: nframe, degrees; nref: reference-star frames (0 without RDI);
  * nx, ny: the frame size (the outer radius). */
 GL_API double gl_subtract_inner_radius(const gl_subtract_params *p, const double *angles,
