@@ -135,7 +135,7 @@ typedef struct gl_vet_epoch_fit {
     long dof;
     double p_common, p_background; /* chi2 upper-tail probabilities */
     double bg_ra_deg, bg_dec_deg;  /* fitted background position */
-    double track_span_mas;         /* largest motion of the background track */
+    double track_span_mas;         /* largest offset between two epochs of the background track */
     double *pred_dra, *pred_ddec;  /* n predicted background offsets (owned) */
 } gl_vet_epoch_fit;
 GL_API gl_status gl_vet_epochs_fit(const gl_vet_star *star, const gl_vet_epochs *e,

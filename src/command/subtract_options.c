@@ -372,7 +372,7 @@ gl_status cli_subtract_prepare(gl_cli *cli, cli_subtract_setup *s, const char *c
         if (refs->nx != cube->nx || refs->ny != cube->ny || refs->nchan != cube->nchan) {
             st = gl_error_set(GL_ERR_INPUT,
                               "%s: reference cube is %ld x %ld px with %ld channel(s), but %s is "
-                              "%ld x %ld px with %ld",
+                              "%ld x %ld px with %ld channel(s)",
                               s->refs_path, refs->nx, refs->ny, refs->nchan, cube_path, cube->nx,
                               cube->ny, cube->nchan);
             goto cleanup;

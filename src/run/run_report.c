@@ -194,6 +194,19 @@ gl_status run_report_write(const run_files *f, const char *target, const run_cmd
     }
     names[nf] = "subtraction";
     vals[nf++] = method ? method : dflt;
+    const char *refs = arg_after(&cmds[GL_STEP_SUBTRACT], "--refs");
+    char refs_text[600];
+    if (refs) { /* RDI: which reference star, and how its frames were used */
+        const char *use = arg_after(&cmds[GL_STEP_SUBTRACT], "--refs-use");
+        const char *best = arg_after(&cmds[GL_STEP_SUBTRACT], "--refs-best");
+        snprintf(refs_text, sizeof refs_text, "%s (%s%s%s)", refs,
+                 use && strcmp(use, "both") == 0 ? "basis from the references and the science "
+                                                   "frames"
+                                                 : "basis from the references alone",
+                 best ? ", the best-correlated " : "", best ? best : "");
+        names[nf] = "reference star (RDI)";
+        vals[nf++] = refs_text;
+    }
     const char *modes = arg_after(&cmds[GL_STEP_SUBTRACT], "--modes");
     if (modes) {
         names[nf] = "KL mode counts (one plane each)";

@@ -400,6 +400,10 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
             ra = ref_avg;
         }
         long nbest = p->refs_best > 0 ? GL_SUB_MIN(p->refs_best, refs->nframe) : refs->nframe;
+        if (p->refs_best > refs->nframe)
+            gl_log(GL_LOG_WARN,
+                   "--refs-best %ld: the reference cube has %ld frames, and all of them are used",
+                   p->refs_best, refs->nframe);
         if (nbest < refs->nframe) {
             st = sub_refs_select(&c, ra, refs->nframe, nbest, &ref_sel, &c.nref, NULL);
             if (st)

@@ -207,11 +207,12 @@ gl_status gl_vet_epochs_fit(const gl_vet_star *s, const gl_vet_epochs *e, gl_vet
         st = gl_error_nomem("epoch fit");
         goto cleanup;
     }
-    double span = 0;
+    double span = 0; /* the largest offset between two epochs of the track */
     for (long k = 0; k < n; k++) {
         out->pred_dra[k] = pa[k];
         out->pred_ddec[k] = pd[k];
-        span = GL_MAX(span, hypot(pa[k] - pa[0], pd[k] - pd[0]));
+        for (long q = 0; q < k; q++)
+            span = GL_MAX(span, hypot(pa[k] - pa[q], pd[k] - pd[q]));
     }
     double a, b;
     eraTpsts(u * MAS, v * MAS, s->ra_deg * M_PI / 180, s->dec_deg * M_PI / 180, &a, &b);
@@ -300,15 +301,16 @@ gl_status vet_epochs_test(const gl_vet_star *star, const gl_vet_epochs *given, d
     t->limit = gsl_cdf_chisq_Qinv(0.0027, (double)fit.dof);
     if (fit.track_span_mas < 3 * rms_err) {
         snprintf(t->note, sizeof t->note,
-                 "the background track moves %.2f mas, under 3x the errors (%.2f mas)",
+                 "a background star would move %.2f mas between the farthest epochs, under 3x "
+                 "the errors (%.2f mas)",
                  fit.track_span_mas, rms_err);
         goto cleanup;
     }
     t->possible = 1;
     t->passed = fit.p_background < 0.0027 && fit.p_common >= 0.0027;
     snprintf(t->note, sizeof t->note,
-             "%ld epochs: chi2 common %.2f (p %.3g), background %.2f (p %.3g), %ld dof; track "
-             "moves %.1f mas",
+             "%ld epochs: chi2 common %.2f (p %.3g), background %.2f (p %.3g), %ld dof; a "
+             "background star would move %.1f mas between the farthest epochs",
              n, fit.chi2_common, fit.p_common, fit.chi2_background, fit.p_background, fit.dof,
              fit.track_span_mas);
 cleanup:

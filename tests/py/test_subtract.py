@@ -195,6 +195,26 @@ def test_rdi_keeps_best_correlated_refs(tmp_path):
     assert rel_diff(raw[:, m], klip_numpy(R, T, [3])[0]) < 1e-4
 
 
+def test_refs_best_above_the_reference_count_is_said(tmp_path):
+    """--refs-best larger than the reference cube: one warning, every
+    reference used (the same product as without the option)."""
+    n = 32
+    cube, angles, pat = make_sequence(n=n, nf=8, sep=8)
+    refs, _, _ = make_sequence(n=n, nf=6, amp=0.0, seed=5, pattern=pat)
+    c, a = write_inputs(tmp_path, cube, angles)
+    fits.PrimaryHDU(refs).writeto(tmp_path / "refs.fits")
+    base = ["subtract", c, "--angles", a, "--fwhm", FWHM, "--method", "klip-frame", "--modes", 3,
+            "--refs", tmp_path / "refs.fits"]
+    r = run(*base, "--refs-best", 100, "--out", tmp_path / "b.fits")
+    assert r.returncode == 0, r.stderr
+    warn = [ln for ln in r.stderr.splitlines() if "--refs-best 100" in ln]
+    assert len(warn) == 1 and "has 6 frames" in warn[0], r.stderr
+    r = run(*base, "--out", tmp_path / "a.fits")
+    assert r.returncode == 0, r.stderr
+    assert np.array_equal(fits.getdata(tmp_path / "a.fits"), fits.getdata(tmp_path / "b.fits"),
+                          equal_nan=True)
+
+
 def annular_numpy(cube, angles, fwhm, r_in, r_out, ring, gap, k, nearest=0):
     """Plain numpy annular KLIP (the loop an astronomer would write): a
     library smaller than k uses all its modes, an empty one leaves NaN."""
