@@ -81,20 +81,28 @@ static int core_stamp(const gl_align_params *p, double fwhm)
     return isfinite(fwhm) && fwhm > 0 ? (int)GL_MIN(GL_MAX(ceil(1.5 * fwhm), 3), 32) : 4;
 }
 
-/* Behind a coronagraph the core is not the brightest feature of a frame:
- * each frame's fit starts at the reference's core moved by the frame's
- * registration shift (as the spots are found, measure_spots). */
-static gl_status measure_core_guided(const gl_align_stack *s, const gl_align_params *p,
-                                     const gl_profile_fit *ref, gl_centres *c)
+/* ---- frames registered on the reference -------------------------------- */
+
+/* What a method makes of frame f once its registration shift (dx, dy) onto
+ * the reference and the residual err of the match are known; shifted is 0
+ * (and dx, dy, err NaN) where the shift could not be measured. It fills
+ * c's entries for f and nothing else, so frames run in parallel. */
+typedef void (*shifted_frame_fn)(const float *img, long f, int shifted, double dx, double dy,
+                                 double err, const void *ctx, gl_centres *c);
+
+/* The one loop over frames registered on ref (upsampled DFT cross-correlation,
+ * Guizar-Sicairos et al. 2008): a plan built once, a work space per thread,
+ * a static schedule, progress under task; fn turns each shift into a centre.
+ * Returns a no-memory status naming work when a thread's work space failed
+ * (those frames are marked as not shifted). */
+static gl_status each_frame_shifted(const gl_align_stack *s, const gl_align_params *p,
+                                    const float *ref, const char *task, const char *work,
+                                    shifted_frame_fn fn, const void *ctx, gl_centres *c)
 {
     gl_xcorr_plan *plan = NULL;
-    gl_status st = gl_xcorr_plan_new(s->sharp, s->nx, s->ny, gl_align_upsample(p), &plan);
+    gl_status st = gl_xcorr_plan_new(ref, s->nx, s->ny, gl_align_upsample(p), &plan);
     if (st)
         return st;
-    gl_align_params q = *p;
-    q.stamp_half = core_stamp(p, ref->fwhm);
-    if (!(q.fwhm > 0))
-        q.fwhm = ref->fwhm;
     size_t npix = (size_t)s->nx * (size_t)s->ny;
     int nomem = 0;
     long done = 0;
@@ -108,33 +116,63 @@ static gl_status measure_core_guided(const gl_align_stack *s, const gl_align_par
 #pragma omp for schedule(static)
         for (long f = 0; f < s->nframe; f++) {
             const float *img = s->img + (size_t)f * npix;
-            double dx, dy;
-            gl_profile_fit fit;
-            c->ok[f] = 0;
-            c->x[f] = c->y[f] = c->err_x[f] = c->err_y[f] = c->quality[f] = NAN;
-            long gx, gy;
-            if (w && gl_align_xcorr_shift(plan, w, img, &dx, &dy, NULL) == GL_OK &&
-                (gx = lround(ref->x - dx)) >= 2 && gx < s->nx - 2 &&
-                (gy = lround(ref->y - dy)) >= 2 && gy < s->ny - 2 &&
-                gl_profile_centre_at(img, s->nx, s->ny, gx, gy, GL_CORE_SEARCH_PX, p->profile, &q,
-                                     &fit) == 0 &&
-                isfinite(fit.x) && isfinite(fit.y)) {
-                c->x[f] = fit.x;
-                c->y[f] = fit.y;
-                c->err_x[f] = fit.err_x;
-                c->err_y[f] = fit.err_y;
-                c->quality[f] = fit.rms_residual / fit.amplitude;
-                c->ok[f] = 1;
-            }
+            double dx = NAN, dy = NAN, err = NAN;
+            int shifted = w && gl_align_xcorr_shift(plan, w, img, &dx, &dy, &err) == GL_OK;
+            fn(img, f, shifted, dx, dy, err, ctx, c);
             long d;
 #pragma omp atomic capture
             d = ++done;
-            gl_progress("centring", d, s->nframe);
+            gl_progress(task, d, s->nframe);
         }
         gl_xcorr_work_free(w);
     }
     gl_xcorr_plan_free(plan);
-    return nomem ? gl_error_nomem("core work") : GL_OK;
+    return nomem ? gl_error_nomem(work) : GL_OK;
+}
+
+typedef struct core_guided_ctx {
+    const gl_align_stack *s;
+    const gl_align_params *p; /* the caller's options */
+    const gl_align_params *q; /* with the core's stamp and FWHM */
+    const gl_profile_fit *ref;
+} core_guided_ctx;
+
+static void core_guided_frame(const float *img, long f, int shifted, double dx, double dy,
+                              double err, const void *ctx, gl_centres *c)
+{
+    const core_guided_ctx *g = ctx;
+    const gl_align_stack *s = g->s;
+    gl_profile_fit fit;
+    long gx, gy;
+    (void)err;
+    c->ok[f] = 0;
+    c->x[f] = c->y[f] = c->err_x[f] = c->err_y[f] = c->quality[f] = NAN;
+    if (shifted && (gx = lround(g->ref->x - dx)) >= 2 && gx < s->nx - 2 &&
+        (gy = lround(g->ref->y - dy)) >= 2 && gy < s->ny - 2 &&
+        gl_profile_centre_at(img, s->nx, s->ny, gx, gy, GL_CORE_SEARCH_PX, g->p->profile, g->q,
+                             &fit) == 0 &&
+        isfinite(fit.x) && isfinite(fit.y)) {
+        c->x[f] = fit.x;
+        c->y[f] = fit.y;
+        c->err_x[f] = fit.err_x;
+        c->err_y[f] = fit.err_y;
+        c->quality[f] = fit.rms_residual / fit.amplitude;
+        c->ok[f] = 1;
+    }
+}
+
+/* Behind a coronagraph the core is not the brightest feature of a frame:
+ * each frame's fit starts at the reference's core moved by the frame's
+ * registration shift (as the spots are found, measure_spots). */
+static gl_status measure_core_guided(const gl_align_stack *s, const gl_align_params *p,
+                                     const gl_profile_fit *ref, gl_centres *c)
+{
+    gl_align_params q = *p;
+    q.stamp_half = core_stamp(p, ref->fwhm);
+    if (!(q.fwhm > 0))
+        q.fwhm = ref->fwhm;
+    core_guided_ctx g = {s, p, &q, ref};
+    return each_frame_shifted(s, p, s->sharp, "centring", "core work", core_guided_frame, &g, c);
 }
 
 static gl_status measure_core(const gl_align_stack *s, const gl_align_params *p, gl_centres *c)
@@ -328,12 +366,31 @@ gl_status gl_sharp_reference(const gl_align_stack *s, const gl_align_params *p, 
     return st;
 }
 
+typedef struct register_ctx {
+    double cx, cy;   /* the reference's absolute centre */
+    double ecx, ecy; /* and its uncertainty */
+    double quant;    /* rounding to the 1/upsample grid */
+} register_ctx;
+
+static void register_frame(const float *img, long f, int shifted, double dx, double dy, double err,
+                           const void *ctx, gl_centres *c)
+{
+    const register_ctx *r = ctx;
+    (void)img;
+    (void)shifted; /* dx, dy are NaN then */
+    /* frame f shifted by (dx, dy) matches the median frame */
+    c->x[f] = r->cx - dx;
+    c->y[f] = r->cy - dy;
+    c->err_x[f] = hypot(r->ecx, r->quant);
+    c->err_y[f] = hypot(r->ecy, r->quant);
+    c->quality[f] = err;
+    c->ok[f] = isfinite(dx) && isfinite(dy);
+}
+
 static gl_status measure_register(const gl_align_stack *s, const gl_align_params *p, gl_centres *c)
 {
-    gl_xcorr_plan *plan = NULL;
     gl_star_core core;
     double cx, cy, ecx, ecy;
-    size_t npix = (size_t)s->nx * (size_t)s->ny;
     const float *ref = s->sharp;
     gl_status st = GL_OK;
     int fitted = gl_star_core_find(ref, s->nx, s->ny, p, &core);
@@ -377,42 +434,9 @@ static gl_status measure_register(const gl_align_stack *s, const gl_align_params
                "of the registered median frame",
                cx, cy);
     }
-    st = gl_xcorr_plan_new(ref, s->nx, s->ny, gl_align_upsample(p), &plan);
-    if (st)
-        goto cleanup;
-    double quant = 1.0 / (gl_align_upsample(p) * sqrt(12.0)); /* rounding to the 1/up grid */
-    int nomem = 0;
-    long done = 0;
-#pragma omp parallel
-    {
-        gl_xcorr_work *w = NULL;
-        if (gl_xcorr_work_new(plan, &w)) {
-#pragma omp atomic write
-            nomem = 1;
-        }
-#pragma omp for schedule(static)
-        for (long f = 0; f < s->nframe; f++) {
-            double dx = NAN, dy = NAN, err = NAN;
-            if (w)
-                gl_align_xcorr_shift(plan, w, s->img + (size_t)f * npix, &dx, &dy, &err);
-            /* frame f shifted by (dx, dy) matches the median frame */
-            c->x[f] = cx - dx;
-            c->y[f] = cy - dy;
-            c->err_x[f] = hypot(ecx, quant);
-            c->err_y[f] = hypot(ecy, quant);
-            c->quality[f] = err;
-            c->ok[f] = isfinite(dx) && isfinite(dy);
-            long d;
-#pragma omp atomic capture
-            d = ++done;
-            gl_progress("registering", d, s->nframe);
-        }
-        gl_xcorr_work_free(w);
-    }
-    if (nomem)
-        st = gl_error_nomem("registration work");
+    register_ctx r = {cx, cy, ecx, ecy, 1.0 / (gl_align_upsample(p) * sqrt(12.0))};
+    st = each_frame_shifted(s, p, ref, "registering", "registration work", register_frame, &r, c);
 cleanup:
-    gl_xcorr_plan_free(plan);
     return st;
 }
 
@@ -459,13 +483,59 @@ static gl_status measure_symmetry(const gl_align_stack *s, const gl_align_params
 
 /* ---- satellite spots ---------------------------------------------------- */
 
+typedef struct spots_ctx {
+    const gl_align_stack *s;
+    const gl_align_params *p;
+    const gl_spots *ref; /* the spots of the reference */
+} spots_ctx;
+
+static void spots_frame(const float *img, long f, int shifted, double dx, double dy, double err,
+                        const void *ctx, gl_centres *c)
+{
+    const spots_ctx *g = ctx;
+    gl_spots guess = *g->ref, sp;
+    (void)err;
+    c->ok[f] = 0;
+    c->x[f] = c->y[f] = c->err_x[f] = c->err_y[f] = c->quality[f] = NAN;
+    if (!shifted)
+        return;
+    for (int k = 0; k < 4; k++) {
+        guess.x[k] -= dx;
+        guess.y[k] -= dy;
+    }
+    if (gl_align_spots_refit(img, g->s->nx, g->s->ny, &guess, g->p->spot_search, &sp) != GL_OK)
+        return;
+    /* relative spread of the four spot distances from the centre */
+    double r[4], m = 0, v = 0;
+    for (int k = 0; k < 4; k++) {
+        r[k] = hypot(sp.x[k] - sp.cx, sp.y[k] - sp.cy);
+        m += r[k] / 4;
+    }
+    for (int k = 0; k < 4; k++)
+        v += (r[k] - m) * (r[k] - m) / 3;
+    c->quality[f] = sqrt(v) / m;
+    /* the fits' errors miss what displaces the spots (speckles under them):
+     * the two diagonals' midpoints, two independent centres, then disagree.
+     * Their difference d has twice the variance of each, four times that of
+     * their mean: |d| / 2 per axis (the x and y parts pooled, 2 degrees of
+     * freedom per frame). A radial bias common to the four spots (the halo's
+     * slope) moves no midpoint and no centre. */
+    double ddx = 0.5 * (sp.x[0] + sp.x[2] - sp.x[1] - sp.x[3]);
+    double ddy = 0.5 * (sp.y[0] + sp.y[2] - sp.y[1] - sp.y[3]);
+    double closure = 0.5 * sqrt(0.5 * (ddx * ddx + ddy * ddy));
+    c->x[f] = sp.cx;
+    c->y[f] = sp.cy;
+    c->err_x[f] = hypot(sp.err_cx, closure);
+    c->err_y[f] = hypot(sp.err_cy, closure);
+    c->ok[f] = isfinite(sp.cx) && isfinite(sp.cy);
+}
+
 /* Spots found on the sharp reference; in each frame they are looked for
  * around their reference positions moved by the frame's registration shift,
  * so that large jitter does not lose them. */
 static gl_status measure_spots(const gl_align_stack *s, const gl_align_params *p, gl_centres *c)
 {
     gl_spots ref;
-    gl_xcorr_plan *plan = NULL;
     gl_status st = gl_align_spots_find(s->sharp, s->nx, s->ny, p->spot_radius, &ref);
     if (st)
         return gl_align_error_wrap(st, s->name);
@@ -474,67 +544,8 @@ static gl_status measure_spots(const gl_align_stack *s, const gl_align_params *p
            "(%.1f,%.1f) (%.1f,%.1f); centre (%.3f, %.3f)",
            ref.x[0], ref.y[0], ref.x[1], ref.y[1], ref.x[2], ref.y[2], ref.x[3], ref.y[3], ref.cx,
            ref.cy);
-    if ((st = gl_xcorr_plan_new(s->sharp, s->nx, s->ny, gl_align_upsample(p), &plan)))
-        return st;
-    size_t npix = (size_t)s->nx * (size_t)s->ny;
-    int nomem = 0;
-    long done = 0;
-#pragma omp parallel
-    {
-        gl_xcorr_work *w = NULL;
-        if (gl_xcorr_work_new(plan, &w)) {
-#pragma omp atomic write
-            nomem = 1;
-        }
-#pragma omp for schedule(static)
-        for (long f = 0; f < s->nframe; f++) {
-            const float *img = s->img + (size_t)f * npix;
-            double dx = 0, dy = 0;
-            gl_spots guess = ref, sp;
-            c->ok[f] = 0;
-            c->x[f] = c->y[f] = c->err_x[f] = c->err_y[f] = c->quality[f] = NAN;
-            if (w && gl_align_xcorr_shift(plan, w, img, &dx, &dy, NULL) == GL_OK) {
-                for (int k = 0; k < 4; k++) {
-                    guess.x[k] -= dx;
-                    guess.y[k] -= dy;
-                }
-                if (gl_align_spots_refit(img, s->nx, s->ny, &guess, p->spot_search, &sp) == GL_OK) {
-                    /* relative spread of the four spot distances from the centre */
-                    double r[4], m = 0, v = 0;
-                    for (int k = 0; k < 4; k++) {
-                        r[k] = hypot(sp.x[k] - sp.cx, sp.y[k] - sp.cy);
-                        m += r[k] / 4;
-                    }
-                    for (int k = 0; k < 4; k++)
-                        v += (r[k] - m) * (r[k] - m) / 3;
-                    c->quality[f] = sqrt(v) / m;
-                    /* the fits' errors miss what displaces the spots (speckles
-                     * under them): the two diagonals' midpoints, two
-                     * independent centres, then disagree. Their difference d
-                     * has twice the variance of each, four times that of
-                     * their mean: |d| / 2 per axis (the x and y parts pooled,
-                     * 2 degrees of freedom per frame). A radial bias common to
-                     * the four spots (the halo's slope) moves no midpoint and
-                     * no centre. */
-                    double dx = 0.5 * (sp.x[0] + sp.x[2] - sp.x[1] - sp.x[3]);
-                    double dy = 0.5 * (sp.y[0] + sp.y[2] - sp.y[1] - sp.y[3]);
-                    double closure = 0.5 * sqrt(0.5 * (dx * dx + dy * dy));
-                    c->x[f] = sp.cx;
-                    c->y[f] = sp.cy;
-                    c->err_x[f] = hypot(sp.err_cx, closure);
-                    c->err_y[f] = hypot(sp.err_cy, closure);
-                    c->ok[f] = isfinite(sp.cx) && isfinite(sp.cy);
-                }
-            }
-            long d;
-#pragma omp atomic capture
-            d = ++done;
-            gl_progress("centring", d, s->nframe);
-        }
-        gl_xcorr_work_free(w);
-    }
-    gl_xcorr_plan_free(plan);
-    return nomem ? gl_error_nomem("spot work") : GL_OK;
+    spots_ctx g = {s, p, &ref};
+    return each_frame_shifted(s, p, s->sharp, "centring", "spot work", spots_frame, &g, c);
 }
 
 /* ---- table and automatic choice ----------------------------------------- */
