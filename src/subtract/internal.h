@@ -187,6 +187,11 @@ gl_status sub_refs_select(const sub_ctx *c, const float *ref_all, long nref_all,
 
 /* ---- spectral step (sdi.c) ----------------------------------------------- */
 
+/* Warns, one line naming the cube, when the radial shift of a source
+ * across the wavelengths is below 1 FWHM beyond r_in, with the separation
+ * inside which it is (sdi.c). */
+void sub_sdi_shift_check(const gl_subtract_params *p, long nchan, double r_in, double r_out);
+
 /* For a 4-D cube: per frame, the channels rescaled to a common wavelength
  * (the longest), KLIP across channels with p->sdi_modes modes (each channel's
  * library: the other channels), scaled back and averaged; *out is nframe x

@@ -7,7 +7,9 @@
  * between the mask and the outer radius each channel is KLIP-subtracted
  * (Soummer et al. 2012) with the other channels of the same frame as its
  * library and --spectral-modes modes; the residuals are scaled back by
- * lambda_c / lambda_max and averaged over channels (NaN ignored). The frames
+ * lambda_c / lambda_max and averaged over the channels that have a residual
+ * there (scaling back samples the shorter channels beyond the region near
+ * its outer edge: those are NaN, not zero, and left out). The frames
  * that come out go on to the ADI step (--method), which makes ASDI; with
  * --method derotate-only they are only derotated and combined (SDI alone).
  *
@@ -24,6 +26,7 @@
 
 #include <math.h>
 #include <omp.h>
+#include <stdio.h>
 #include <string.h>
 
 typedef struct sdi_ws {
@@ -35,6 +38,44 @@ typedef struct sdi_ws {
     long *lib;    /* nchan */
     sub_eig_work *eig;
 } sdi_ws;
+
+/* The separation inside which the spectral step cannot tell a companion
+ * from the speckles. A source at r sits at r lambda_max / lambda_k once
+ * channel k's speckles are aligned with the longest wavelength's: the
+ * shortest and longest channels put it r (lambda_max / lambda_min - 1)
+ * apart, where the FWHM is --fwhm lambda_max / lambda_min (--fwhm taken at
+ * the shortest wavelength, as --fwhm auto measures it on the first channel
+ * of a 4-D PSF; read at the longest it would give a radius smaller by
+ * lambda_min / lambda_max, so this is the cautious reading). One FWHM apart
+ * at r = fwhm lambda_max / (lambda_max - lambda_min). */
+void sub_sdi_shift_check(const gl_subtract_params *p, long nchan, double r_in, double r_out)
+{
+    const char *name = p->cube_name ? p->cube_name : "the science cube";
+    double lmin = INFINITY, lmax = 0;
+    for (long k = 0; k < nchan; k++) {
+        lmin = GL_SUB_MIN(lmin, p->wavelengths[k]);
+        lmax = GL_SUB_MAX(lmax, p->wavelengths[k]);
+    }
+    if (!(lmin > 0) || !(p->fwhm > 0))
+        return; /* refused later, with its own message */
+    if (!(lmax > lmin)) {
+        gl_log(GL_LOG_WARN,
+               "%s: the wavelengths are all %g: the spectral step does not move a source "
+               "against the speckles: expect strong self-subtraction everywhere",
+               name, lmin);
+        return;
+    }
+    double r1 = p->fwhm * lmax / (lmax - lmin);
+    if (!(r1 > r_in))
+        return;
+    char whole[64] = "";
+    if (r1 >= r_out)
+        snprintf(whole, sizeof whole, ", the whole field (out to %.0f px)", r_out);
+    gl_log(GL_LOG_WARN,
+           "%s: the wavelengths %g-%g move a source radially by less than 1 FWHM against the "
+           "speckles inside %.1f px (%.1f FWHM)%s: expect strong self-subtraction there",
+           name, lmin, lmax, r1, r1 / p->fwhm, whole);
+}
 
 gl_status sub_sdi_frames(const gl_cube *cube, const gl_subtract_params *p, double r_in,
                          double r_out, float **out)
@@ -142,11 +183,16 @@ gl_status sub_sdi_frames(const gl_cube *cube, const gl_subtract_params *p, doubl
             of[j] = NAN;
         for (long k = 0; k < nc && !e; k++) {
             float *ch = w->chans + (size_t)k * np;
-            /* outside the region there is no residual: 0 there keeps the
-             * cubic kernel from pulling starlight over the region's edge */
+            /* outside the region there is no residual: NaN there, so that
+             * scaling back (a demagnification, which samples channel k at
+             * lambda_max / lambda_k times the radius) leaves NaN wherever
+             * the kernel reaches past the region, the outer band of the
+             * shorter channels above all, and the average below takes only
+             * the channels that have a residual at a pixel (zeros there
+             * diluted it and no starlight crosses the edge either way) */
             for (size_t j = 0; j < np; j++)
                 if (!inside[j])
-                    ch[j] = 0.0f;
+                    ch[j] = NAN;
             e = gl_geom_scale(plan, w->geom, ch, p->wavelengths[k] / lmax);
         }
         for (long j = 0; j < npr && !e; j++) {

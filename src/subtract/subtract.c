@@ -323,6 +323,8 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
                    "across the channels of each frame), then the channels averaged",
                    p->cube_name ? p->cube_name : "the science cube", cube->nchan, p->sdi_modes,
                    p->sdi_modes > 1 ? "s" : "");
+        if (p->sdi == GL_SDI_CHANNELS)
+            sub_sdi_shift_check(p, cube->nchan, c.r_in, c.r_out);
         st = p->sdi == GL_SDI_CHANNELS ? sub_sdi_frames(cube, p, c.r_in, c.r_out, &sci_owned)
                                        : gl_cube_channels_average(cube, &sci_owned);
         if (st)

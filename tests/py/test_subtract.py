@@ -716,3 +716,121 @@ def test_old_spectral_spellings_still_work(tmp_path):
     assert len(notes) == 2 and "--sdi is" in notes[0] and "--sdi-modes is" in notes[1], r_old.stderr
     assert np.array_equal(fits.getdata(tmp_path / "old.fits"), fits.getdata(tmp_path / "new.fits"),
                           equal_nan=True)
+
+
+def keys_kernel(t):
+    """Cubic convolution kernel, a = -0.5 (Keys 1981, IEEE Trans. ASSP 29, 1153)."""
+    t = np.abs(t)
+    return np.where(t <= 1, 1.5 * t**3 - 2.5 * t**2 + 1,
+                    np.where(t < 2, -0.5 * t**3 + 2.5 * t**2 - 4 * t + 2, 0.0))
+
+
+def magnify(img, factor):
+    """img magnified by factor about (n//2, n//2) by cubic convolution,
+    neighbours clamped at the edge, NaN where the source lies outside the
+    image or a neighbour with non-zero weight is NaN (docs/subtract.md)."""
+    n = img.shape[0]
+    c = n // 2
+    y, x = np.mgrid[0:n, 0:n].astype(float)
+    inv = 1.0 / factor  # as the sample positions are computed in C, to the last bit
+    sx, sy = c + (x - c) * inv, c + (y - c) * inv
+    x0, y0 = np.floor(sx).astype(int), np.floor(sy).astype(int)
+    out = np.zeros((n, n))
+    bad = ~((sx >= -0.5) & (sx < n - 0.5) & (sy >= -0.5) & (sy < n - 0.5))
+    for j in range(4):
+        wy = keys_kernel(sy - (y0 - 1 + j))
+        for i in range(4):
+            wx = keys_kernel(sx - (x0 - 1 + i))
+            v = img[np.clip(y0 - 1 + j, 0, n - 1), np.clip(x0 - 1 + i, 0, n - 1)]
+            w = wx * wy
+            used = w != 0
+            bad |= used & np.isnan(v)
+            out += np.where(used & ~np.isnan(v), w * np.nan_to_num(v), 0.0)
+    out[bad] = np.nan
+    return out
+
+
+def spectral_step_numpy(frame, waves, r_in, r_out, modes, outside):
+    """One frame of the spectral step of docs/subtract.md: channels magnified
+    to the longest wavelength (speckle radius ~ lambda, Racine et al. 1999),
+    KLIP of each channel on the others by numpy.linalg.svd (Soummer et al.
+    2012), residuals (`outside` beyond the region) scaled back and averaged
+    over the channels that have a value."""
+    nc, n, _ = frame.shape
+    lmax = max(waves)
+    y, x = np.mgrid[0:n, 0:n]
+    r = np.hypot(x - n // 2, y - n // 2)
+    region = (r >= r_in) & (r < r_out)
+    chans = np.array([magnify(frame[k].astype(float), lmax / waves[k]) for k in range(nc)])
+    M = chans[:, region]
+    M = np.nan_to_num(M - np.nanmean(M, axis=1, keepdims=True))
+    back = []
+    for t in range(nc):
+        lib = np.delete(M, t, axis=0)
+        vt = np.linalg.svd(lib, full_matrices=False)[2][:modes]
+        res = np.full((n, n), outside)
+        res[region] = M[t] - vt.T @ (vt @ M[t])
+        res[region & np.isnan(chans[t])] = np.nan
+        back.append(magnify(res, waves[t] / lmax))
+    back = np.array(back)
+    have = ~np.isnan(back)
+    avg = np.where(have.any(axis=0), np.nansum(back, axis=0) / np.maximum(have.sum(axis=0), 1),
+                   np.nan)
+    avg[~region] = np.nan
+    return avg
+
+
+def test_sdi_edge_band_and_shift_warning(tmp_path):
+    """Scaling the residuals back samples the shorter channels beyond the
+    region near its outer edge: those channels are left out there (NaN, not
+    zero), so the product equals a numpy spectral step that leaves them out,
+    and not one that counts them as zeros. And the band's radial shift: a
+    source at r moves r (lmax/lmin - 1) between the aligned channels, where
+    the FWHM is fwhm lmax/lmin (fwhm at the shortest wavelength): below 1 FWHM
+    inside fwhm lmax / (lmax - lmin) (Racine et al. 1999; Sparks & Ford 2002),
+    one warning naming the cube."""
+    n, nf = 48, 2
+    waves = [1.0, 1.1, 1.2, 1.3]
+    rng = np.random.default_rng(11)
+    blobs = [(rng.uniform(-20, 20), rng.uniform(-20, 20), rng.uniform(0.5, 3)) for _ in range(50)]
+    cube = np.empty((nf, len(waves), n, n), np.float32)
+    for k, lam in enumerate(waves):
+        s = lam / waves[-1]
+        pat = sum(h * gaussian(n, n // 2 + px * s, n // 2 + py * s, SIGMA * s) for px, py, h in blobs)
+        for i in range(nf):
+            cube[i, k] = pat  # the same frame twice: the median is that frame
+    cube += 0.05 * rng.standard_normal(cube.shape).astype(np.float32)
+    cube[1] = cube[0]
+    fits.PrimaryHDU(cube).writeto(tmp_path / "cube.fits")
+    (tmp_path / "a.txt").write_text("0\n0\n")
+    out = tmp_path / "sdi.fits"
+    r = run("subtract", tmp_path / "cube.fits", "--angles", tmp_path / "a.txt", "--fwhm", FWHM,
+            "--out", out, "--spectral-step", "--wavelengths", ",".join(map(str, waves)),
+            "--spectral-modes", 1, "--method", "derotate-only", "--mask-radius", 4)
+    assert r.returncode == 0, r.stderr
+    got = fits.getdata(out).astype(np.float64)
+    got = got[0] if got.ndim == 3 else got
+    want = spectral_step_numpy(cube[0], waves, 4.0, n // 2, 1, np.nan)
+    zeros = spectral_step_numpy(cube[0], waves, 4.0, n // 2, 1, 0.0)
+    y, x = np.mgrid[0:n, 0:n]
+    rad = np.hypot(x - n // 2, y - n // 2)
+    band = (rad >= 0.8 * n / 2) & (rad < n / 2)  # beyond r_out lmin/lmax = 18.5 px
+    assert np.array_equal(np.isnan(got), np.isnan(want))
+    ok = ~np.isnan(want)
+    rms = np.sqrt(np.mean(want[ok] ** 2))
+    assert np.max(np.abs(got[ok] - want[ok])) < 1e-4 * rms
+    # the zero-filled reading differs clearly in the outer band
+    assert np.nanmax(np.abs(zeros[band] - want[band])) > 0.1 * rms
+    # the warning: one line, the cube named, the radius fwhm lmax / (lmax - lmin)
+    r1 = FWHM * max(waves) / (max(waves) - min(waves))
+    said = [l for l in r.stderr.splitlines() if "less than 1 FWHM" in l]
+    assert len(said) == 1, r.stderr
+    assert str(tmp_path / "cube.fits") in said[0] and f"inside {r1:.1f} px" in said[0], said[0]
+    assert "warning" in said[0]
+    # the same band with the region beyond that radius: nothing said
+    r = run("subtract", tmp_path / "cube.fits", "--angles", tmp_path / "a.txt", "--fwhm", FWHM,
+            "--out", tmp_path / "far.fits", "--spectral-step", "--wavelengths",
+            ",".join(map(str, waves)), "--spectral-modes", 1, "--method", "derotate-only",
+            "--mask-radius", r1 + 0.5)
+    assert r.returncode == 0, r.stderr
+    assert "less than 1 FWHM" not in r.stderr, r.stderr
