@@ -37,7 +37,9 @@ typedef struct gl_psf_model {
  * channel (3-D with nchan planes when nchan > 1, or 4-D: averaged over frames).
  * The PSF's centre is found by an iterated centre of light within one FWHM of
  * the peak (exact for a symmetric PSF), then the PSF is moved there with the
- * FFT shift. name is used in messages.
+ * FFT shift. name is used in messages. A background level estimated in the
+ * stamp's outer part that biases the flux by 1.5% or more is reported with
+ * gl_log (GL_LOG_WARN), the PSF left as given (src/inject/psf.c).
  * Errors: GL_ERR_USAGE (psf_scale not positive), GL_ERR_INPUT (no positive
  * signal, NaN-only, larger than the frame, channel count mismatch, less than
  * half of the light within 3 FWHM of the peak: not an off-axis PSF). */

@@ -182,3 +182,48 @@ def test_negative_contrast_removes_a_planted_companion(tmp_path):
     orig = fits.getdata(tmp_path / "cube.fits").astype(float)
     back = fits.getdata(tmp_path / "removed.fits").astype(float)
     assert np.nanmax(np.abs(back - orig)) < 1e-5 * 2e-3 * 1000
+
+
+def test_psf_background_is_reported_with_its_flux_bias(tmp_path):
+    """A constant left in the PSF adds its level times the stamp's area to the
+    star's flux: one warning naming the file, the level as a fraction of the
+    peak and the flux bias, which matches photutils aperture photometry with
+    a local background (CircularAperture minus the median of a
+    CircularAnnulus, method="exact"): the stamp's sum over that flux. No
+    warning without the constant, nor for one that adds well under 1.5%."""
+    from photutils.aperture import (ApertureStats, CircularAnnulus, CircularAperture,
+                                    aperture_photometry)
+    n, sigma, peak = 65, 1.7, 1000.0
+    clean = peak * gaussian(n, n, 32.0, 32.0, sigma)
+    rng = np.random.default_rng(5)
+    noise = 0.02 * rng.standard_normal((n, n))
+    fits.PrimaryHDU(np.zeros((4, 80, 80), np.float32)).writeto(tmp_path / "cube.fits")
+    (tmp_path / "a.txt").write_text("0\n5\n10\n15\n")
+    true_flux = 2 * np.pi * sigma**2 * peak
+    for name, level, warned in (("clean", 0.0, False), ("small", 0.002 * true_flux / n**2, False),
+                                ("two", 0.02 * true_flux / n**2, True),
+                                ("minus", -0.03 * true_flux / n**2, True)):
+        img = (clean + noise + level).astype(np.float32)
+        path = tmp_path / f"{name}.fits"
+        fits.PrimaryHDU(img).writeto(path)
+        r = run("inject", tmp_path / "cube.fits", "--angles", tmp_path / "a.txt", "--psf", path,
+                "--companion", "15:40:1e-3", "--out", tmp_path / f"{name}.inj.fits")
+        assert r.returncode == 0, r.stderr
+        said = [l for l in r.stderr.splitlines() if "outer part" in l]
+        if not warned:
+            assert said == [], r.stderr
+            continue
+        assert len(said) == 1 and "warning" in said[0] and str(path) in said[0], r.stderr
+        m = re.search(r"sits at (\S+) of its peak.*flux taken from the PSF is ([0-9.]+)% too (high|low)",
+                      said[0])
+        assert m, said[0]
+        frac, pct, sense = float(m.group(1)), float(m.group(2)), m.group(3)
+        assert frac == pytest.approx(level / img.max(), rel=0.1)
+        ap = CircularAperture((32.0, 32.0), r=20.0)
+        ann = CircularAnnulus((32.0, 32.0), r_in=24.0, r_out=31.0)
+        bkg = ApertureStats(img.astype(float), ann).median
+        phot = aperture_photometry(img.astype(float), ap, method="exact")["aperture_sum"][0]
+        star = phot - bkg * ap.area
+        bias = img.astype(float).sum() / star - 1
+        assert sense == ("high" if bias > 0 else "low")
+        assert pct == pytest.approx(100 * abs(bias), abs=0.1), (pct, 100 * bias)
