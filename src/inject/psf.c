@@ -13,19 +13,20 @@
  * as the PSF would set every contrast wrong by orders of magnitude.
  *
  * A background left in the PSF (a constant level over the stamp) adds its
- * level times the stamp's area to the star's flux. It is estimated from three
- * rings of the stamp's outer part at radii in the ratio 1 : 1.4 : 2 (0.5,
- * 0.7 and 0.98 of the largest circle inside the stamp, the last reaching into
- * the corners): a halo falling as a power law of radius plus a constant gives
- * ring medians in geometric progression plus that constant, which Aitken's
- * delta-squared extrapolation recovers exactly; a flat outer profile is the
- * constant itself. The PSF is not changed: a level 5 standard errors of the
- * outermost ring's median from zero that adds 1.5% or more to the flux is
- * reported in one warning. The threshold clears what the estimate reads on
- * PSFs without a background whose AO halo reaches the stamp's edge (0.2% on a
- * simulated 96-px PSF, 1.1% on the demo's 128-px one, where the halo is not
- * quite a power law), and is below the few per cent a contrast's photometric
- * budget already holds (neutral-density transmission, PSF variability).
+ * level times the stamp's area to the star's flux. It is looked for in three
+ * rings of the stamp's outer part (0.5, 0.7 and 0.98 of the largest circle
+ * inside the stamp, each 1.2 times as wide as its inner radius, the last
+ * reaching into the corners): where their medians agree (within 5 standard
+ * errors, or 10% of the level), the PSF's own light has faded there and the
+ * level is a background. A level 5 standard errors from zero that adds (or
+ * removes) 1.5% or more of the flux is reported in one warning, the PSF left
+ * as given. Where the medians still fall, the PSF's halo reaches the edge
+ * and nothing can be told from the stamp: an AO halo inside the control
+ * radius is nearly flat too (on simulated PSFs of 48-128 px a constant
+ * extrapolated under the falling rings read 0.2-3.7% with no background), so
+ * no estimate is made. 1.5% is below the few per cent a contrast's
+ * photometric budget already holds (neutral-density transmission, PSF
+ * variability), and well above the 0.1% a flat estimate is good to.
  */
 #include "core/internal.h"
 #include "geometry/internal.h"
@@ -136,18 +137,17 @@ static double encircled_fraction(const float *img, long nx, long ny, double cx, 
 }
 
 /* The constant level under the PSF's outer part (see the top of the file):
- * *level, the standard error of the outermost ring's median *err (1.2533
- * sigma / sqrt(n), the median of a Gaussian sample) and the inner radius of
- * the rings *r_from. work holds pw*ph doubles. Returns 0, or -1 when the
- * stamp is too small to tell a background from the PSF's wings (the inner
- * ring closer than 2 FWHM to the centre, or fewer than 16 pixels a ring). */
+ * *level (the outermost ring's median), its standard error *err (1.2533
+ * sigma / sqrt(n), the median of a Gaussian sample) and the rings' inner
+ * radius *r_from. work holds 2 pw*ph doubles. Returns 0, or -1 when nothing
+ * can be told: the inner ring closer than 2 FWHM to the centre, fewer than
+ * 16 pixels in a ring, or the rings' medians not flat (the PSF's light). */
 static int outer_level(const float *img, long pw, long ph, double cx, double cy, double fwhm,
                        double *work, double *level, double *err, double *r_from)
 {
     static const double at[3] = {0.5, 0.7, 0.98};
     double big = GL_MIN(GL_MIN(cx, cy), GL_MIN((double)(pw - 1) - cx, (double)(ph - 1) - cy));
-    double med[3], sig[3];
-    size_t used[3];
+    double med[3], sig[3], lo_med = INFINITY, hi_med = -INFINITY, worst = 0;
     if (!(at[0] * big >= 2 * fwhm))
         return -1;
     for (int k = 0; k < 3; k++) {
@@ -162,16 +162,17 @@ static int outer_level(const float *img, long pw, long ph, double cx, double cy,
             }
         if (n < 16)
             return -1;
-        used[k] = gl_stats_robust(work, n, work + n, &med[k], &sig[k]);
+        size_t used = gl_stats_robust(work, n, work + n, &med[k], &sig[k]);
+        worst = GL_MAX(worst, 1.2533 * sig[k] / sqrt((double)used));
+        lo_med = GL_MIN(lo_med, med[k]);
+        hi_med = GL_MAX(hi_med, med[k]);
+        if (k == 2)
+            *err = 1.2533 * sig[k] / sqrt((double)used);
     }
-    double d1 = med[1] - med[0], d2 = med[2] - med[1], den = d2 - d1;
-    *err = 1.2533 * sig[2] / sqrt((double)used[2]);
-    /* a falling, flattening profile: extrapolate; otherwise (flat within the
-     * noise, or not of that shape) the outermost ring's level */
-    if (d1 < 0 && d2 < 0 && den > 0 && med[0] - med[2] > GL_PSF_BACKGROUND_SIGMA * *err)
-        *level = med[2] - d2 * d2 / den;
-    else
-        *level = med[2];
+    /* the spread of two medians' difference: sqrt(2) standard errors */
+    if (hi_med - lo_med > GL_MAX(GL_PSF_BACKGROUND_SIGMA * sqrt(2.0) * worst, 0.1 * fabs(med[2])))
+        return -1;
+    *level = med[2];
     *r_from = at[0] * big;
     return 0;
 }
