@@ -23,7 +23,8 @@ static const char help[] =
     "  --out FOLDER      the run folder (created; an existing one must be a run folder)\n"
     "  --target NAME     the plan's target to run (default: its only target)\n"
     "  --force STEP      run STEP again even when it is unchanged (repeatable; all: every step)\n"
-    "  --dry-run         print each step's command line and run nothing\n"
+    "  --dry-run         print each step's command line, marked up to date or to\n"
+    "                    run again (and why), and run nothing\n"
     "  --example         print a commented example plan\n";
 
 enum { OPT_OUT = CLI_OPT_FIRST_COMMAND_OPTION, OPT_TARGET, OPT_FORCE, OPT_DRY, OPT_EXAMPLE };

@@ -51,6 +51,23 @@ void run_snapshot_free(run_snapshot *s);
 int run_snapshot_changed(const run_snapshot *before, const run_snapshot *after, const char *folder,
                          char (*paths)[4400], int max);
 
+/* The step's command line, its words joined by spaces (run.c): the
+ * options the ledger records. */
+void run_join_args(const run_cmd *c, char *out, size_t size);
+/* --dry-run: the listing of every asked step, marked up to date, to run
+ * (and why) or not possible, through gl_log (dry_run.c). */
+gl_status run_dry_list(run_cmd *cmds, const gl_run_params *rp, const run_files *f,
+                       const char *target);
+
+/* Why step would run again: NULL when it finished with exactly these
+ * options and inputs and its inputs and products are intact (what
+ * gl_ledger_is_current tells), else a phrase ("its options changed", ...)
+ * for the dry-run listing (ledger.c). */
+const char *run_ledger_stale(const gl_ledger *l, const char *step, const char *options,
+                             const char *const *inputs, int ninputs);
+/* 1 when the ledger records path among step's products. */
+int run_ledger_wrote(const gl_ledger *l, const char *step, const char *path);
+
 /* Parses every asked step's command line with its command's own parser,
  * without running it (gl_command_check); GL_ERR_INPUT naming the plan's
  * line, section and key of the first option refused (see check.c). */

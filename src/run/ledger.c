@@ -118,24 +118,42 @@ static int files_match(const cJSON *files)
     return 1;
 }
 
-int gl_ledger_is_current(const gl_ledger *l, const char *step, const char *options,
-                         const char *const *inputs, int ninputs)
+const char *run_ledger_stale(const gl_ledger *l, const char *step, const char *options,
+                             const char *const *inputs, int ninputs)
 {
     const cJSON *s = cJSON_GetObjectItemCaseSensitive(steps_of(l), step);
     if (!s)
-        return 0;
+        return "not run in this folder before";
     const cJSON *opt = cJSON_GetObjectItemCaseSensitive(s, "options");
     const cJSON *in = cJSON_GetObjectItemCaseSensitive(s, "inputs");
-    if (!cJSON_IsString(opt) || strcmp(opt->valuestring, options) != 0 || !cJSON_IsObject(in) ||
-        cJSON_GetArraySize(in) != ninputs)
-        return 0;
+    if (!cJSON_IsString(opt) || strcmp(opt->valuestring, options) != 0)
+        return "its options changed";
+    if (!cJSON_IsObject(in) || cJSON_GetArraySize(in) != ninputs)
+        return "its inputs changed";
     for (int i = 0; i < ninputs; i++)
         if (!cJSON_GetObjectItemCaseSensitive(in, inputs[i]))
-            return 0;
+            return "its inputs changed";
+    const char *why = NULL;
     gl_error_clear();
-    int ok = files_match(in) && files_match(cJSON_GetObjectItemCaseSensitive(s, "products"));
+    if (!files_match(in))
+        why = "an input changed since";
+    else if (!files_match(cJSON_GetObjectItemCaseSensitive(s, "products")))
+        why = "a product changed or is missing";
     gl_error_clear(); /* an unreadable file only means "run it again" */
-    return ok;
+    return why;
+}
+
+int gl_ledger_is_current(const gl_ledger *l, const char *step, const char *options,
+                         const char *const *inputs, int ninputs)
+{
+    return run_ledger_stale(l, step, options, inputs, ninputs) == NULL;
+}
+
+int run_ledger_wrote(const gl_ledger *l, const char *step, const char *path)
+{
+    const cJSON *s = cJSON_GetObjectItemCaseSensitive(steps_of(l), step);
+    const cJSON *pr = s ? cJSON_GetObjectItemCaseSensitive(s, "products") : NULL;
+    return cJSON_IsObject(pr) && cJSON_GetObjectItemCaseSensitive(pr, path) != NULL;
 }
 
 static gl_status add_files(cJSON *obj, const char *const *paths, int n)

@@ -564,7 +564,7 @@ static void last_line(const char *path, char *out, size_t size)
     fclose(f);
 }
 
-static void join_args(const run_cmd *c, char *out, size_t size)
+void run_join_args(const run_cmd *c, char *out, size_t size)
 {
     size_t pos = 0;
     out[0] = '\0';
@@ -629,7 +629,7 @@ static gl_status run_step(gl_step s, run_cmd *c, const gl_run_params *rp, const 
                           gl_ledger *led, const char *target, gl_run_outcome *out)
 {
     static char options[1 << 15];
-    join_args(c, options, sizeof options);
+    run_join_args(c, options, sizeof options);
     if (s == GL_STEP_VET && !c->why_not[0] && table_rows(f->candidates_csv) == 0)
         snprintf(c->why_not, sizeof c->why_not, "detect found no candidate to vet");
     if (c->why_not[0]) {
@@ -736,18 +736,7 @@ gl_status gl_run_target(gl_plan *plan, const char *target, const gl_run_params *
         (st = run_check_options(plan, target, cmds)))
         goto cleanup;
     if (rp->dry_run) {
-        static char line[1 << 15];
-        for (int s = 0; s < GL_NSTEPS; s++) {
-            if (!cmds[s].asked)
-                continue;
-            if (cmds[s].why_not[0]) {
-                gl_log(GL_LOG_INFO, "%s: %s: not possible: %s", target, step_names[s],
-                       cmds[s].why_not);
-                continue;
-            }
-            join_args(&cmds[s], line, sizeof line);
-            gl_log(GL_LOG_INFO, "%s: %s", target, line);
-        }
+        st = run_dry_list(cmds, rp, f, target);
         goto cleanup;
     }
     /* the ledger is written before the first step, so that a run that fails

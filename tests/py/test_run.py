@@ -11,6 +11,7 @@ import base64
 import csv
 import html.parser
 import os
+import re
 import shutil
 import struct
 import subprocess
@@ -725,3 +726,45 @@ def test_one_progress_bar_on_a_terminal_none_when_piped(sequence, tmp_path, what
     if what == "run":
         log = (out / "run" / "log.txt").read_text()
         assert "\r" not in log and not bars(log)[1]
+
+
+def dry_marks(r):
+    """step -> its mark in a --dry-run listing ('up to date' or the reason)."""
+    marks = {}
+    for line in r.stderr.splitlines():
+        m = re.search(r"Tarn-12: (\w+): (up to date, would not run again|would run \((.*?)\)): gloam ",
+                      line)
+        if m:
+            marks[m.group(1)] = "up to date" if m.group(2).startswith("up") else m.group(3)
+    return marks
+
+
+def test_dry_run_marks_what_would_run_again(sequence, tmp_path):
+    """--dry-run marks each step up to date or to run again with its reason,
+    as the run then does: a fresh folder (not created by the dry run), the
+    same plan again, a changed option, --force, and a step that reads what a
+    forced step rewrites."""
+    steps = ("inspect", "align", "subtract", "detect")
+    plan = write_plan(sequence, name="dry.ini", steps=steps)
+    out = tmp_path / "run"
+    r = gloam("run", plan, "--out", out, "--dry-run")
+    assert r.returncode == 0, r.stderr
+    assert dry_marks(r) == {s: "not run in this folder before" for s in steps}, r.stderr
+    assert not out.exists()
+    assert gloam("run", plan, "--out", out).returncode == 0
+    r = gloam("run", plan, "--out", out, "--dry-run")
+    assert dry_marks(r) == {s: "up to date" for s in steps}, r.stderr
+    # a changed detect option: only detect would run, and only detect runs
+    plan.write_text(plan.read_text().replace("[detect]\nmask-radius = 4", "[detect]\nmask-radius = 5"))
+    r = gloam("run", plan, "--out", out, "--dry-run")
+    want = {"inspect": "up to date", "align": "up to date", "subtract": "up to date",
+            "detect": "its options changed"}
+    assert dry_marks(r) == want, r.stderr
+    r = gloam("run", plan, "--out", out, "--force", "align", "--dry-run")
+    assert dry_marks(r) == {"inspect": "up to date", "align": "--force align",
+                            "subtract": "align, whose products it reads, runs again",
+                            "detect": "its options changed"}, r.stderr
+    r = gloam("run", plan, "--out", out, "--verbose")
+    assert r.returncode == 0, r.stderr
+    skipped = {s for s in steps if f"Tarn-12: {s}: unchanged since the last run" in r.stderr}
+    assert skipped == {"inspect", "align", "subtract"}, r.stderr
