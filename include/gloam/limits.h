@@ -59,7 +59,8 @@ GL_API void gl_limits_params_init(gl_limits_params *p);
  * units of F, except snr. */
 typedef struct gl_limits_fake {
     double sep_px, pa_deg, contrast;
-    int run;
+    int run;                                  /* 0-based run (set of separations) */
+    int batch;                                /* 0-based subtraction that held it */
     int nref;                                 /* references of its t test */
     double throughput[GL_SUBTRACT_MAX_MODES]; /* test-aperture sum / (contrast F) */
     double signal[GL_SUBTRACT_MAX_MODES];     /* (test - mean of the references) / (contrast F) */
@@ -89,6 +90,7 @@ typedef struct gl_limits_result {
     double fpf;                       /* the FPF of params.sigma */
     int nfakes;
     gl_limits_fake *fakes;
+    int nbatches;      /* subtractions with fakes (>= the runs for full-frame methods) */
     gl_cube *image;    /* the subtraction without fakes (north-up) */
     double fwhm;       /* px, the aperture diameter */
     int skip_flanking; /* the references of the detection test leave the flanking two out */

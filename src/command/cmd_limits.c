@@ -325,6 +325,7 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
     }
     gl_header_set_int(keys, "GLFKRUNS", lp.fake_runs, "subtraction runs with fake companions");
     gl_header_set_int(keys, "GLNFAKE", res.nfakes, "fake companions planted");
+    gl_header_set_int(keys, "GLFKSUBS", res.nbatches, "subtractions with fakes (brightness)");
     if (lp.fake_level > 0)
         gl_header_set_dbl(keys, "GLFAKELV", lp.fake_level, "fake flux / local aperture noise");
     else
