@@ -24,6 +24,14 @@
  * is a fixed 5-10 x: bright enough to measure, faint enough not to drive the
  * KL modes), and from the second run on at the 95% contrast the earlier runs
  * give, so that the fakes bracket the fluxes the curve needs.
+ *
+ * Where the subtraction fits coefficients over the whole frame (klip-frame,
+ * the spectral step), a fake moves the coefficients of every frame and so
+ * over- or under-subtracts every other fake of its subtraction, in
+ * proportion to its flux; the fakes close in are 100x brighter than those
+ * far out. There each run is planted in batches by brightness, one
+ * subtraction each (plan_batches; docs/limits.md gives the measured effect
+ * and cost). Pixel-local and ring-by-ring methods keep one per run.
  */
 #include "core/internal.h"
 #include "gloam/detect.h"
