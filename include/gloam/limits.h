@@ -40,7 +40,9 @@ typedef struct gl_limits_params {
     double step_px;      /* separation step of the curve; 0: FWHM / 2 */
     double r_min_px;     /* first separation; 0: max(FWHM, mask + FWHM / 2) */
     double r_max_px;     /* last separation; 0: as far as apertures fit */
-    int fake_runs;       /* runs with fake companions, each one subtraction (default 2) */
+    int fake_runs;       /* runs with fake companions (default 2): each one subtraction, or one
+                            per brightness batch where the fakes share the frame's coefficients
+                            (klip-frame, the spectral step; gl_limits_result.nbatches) */
     double fake_level;   /* fake flux in units of the local aperture noise; 0 (default):
                             the flux reaching 50% completeness at throughput 1, at least 10 */
     double pa0_deg;      /* position angle of the first fake (default 0) */

@@ -469,6 +469,13 @@ def test_full_frame_fakes_do_not_disturb_each_other(rdi_small, tmp_path):
         checked.append((round(sep, 1), con, thr, alone))
     got, want = np.array([c[2] for c in checked]), np.array([c[3] for c in checked])
     assert np.all(np.abs(got - want) <= 0.03 * want), checked
+    # the batches are planned serially: same bytes at any thread count (rule 5)
+    ok("limits", d / "s" / "cube.fits", *common, "--psf", d / "gpsf.fits",
+       "--out", tmp_path / "t2", "--threads", 2, "--quiet")
+    ok("limits", d / "s" / "cube.fits", *common, "--psf", d / "gpsf.fits",
+       "--out", tmp_path / "t1", "--threads", 1, "--quiet")
+    for suffix in (".limits.csv", ".fakes.csv"):
+        assert (tmp_path / f"t1{suffix}").read_bytes() == (tmp_path / f"t2{suffix}").read_bytes()
     # klip-rings on the same data: the fakes of a run share no coefficients,
     # one subtraction per run as before
     ok("limits", d / "s" / "cube.fits", *common[:-1], "klip-rings", "--mask-radius", 6,
