@@ -228,9 +228,10 @@ static int brighter(const gl_limits_fake *fi, const gl_limits_fake *fj)
  * subtraction each, and returns their count. Where the subtraction fits
  * coefficients over the whole frame (full_frame), every planted fake moves
  * the coefficients of every other one, by an amount proportional to its own
- * flux: a fake joins a batch only when the summed contrast of the brighter
- * fakes already in it is at most GL_LIMITS_BATCH_RATIO times its own
- * (brightest first, so the faintest of a batch is the one it protects).
+ * flux: a fake joins a batch only when the brightest fake in it is at most
+ * GL_LIMITS_BATCH_RATIO times its own contrast (brightest first, so a batch
+ * is a band of brightness; fakes of about the same brightness still share
+ * one, and disturb each other by about 1%, docs/limits.md).
  * Otherwise (rings, the median frame: the fakes, 2 FWHM apart, share no
  * coefficients) the run is one batch. */
 static int plan_batches(gl_limits_fake *fakes, int nfakes, int b, int full_frame, int *order,
@@ -254,15 +255,14 @@ static int plan_batches(gl_limits_fake *fakes, int nfakes, int b, int full_frame
             order[k - 1] = t;
         }
     int g = first;
-    double sum = 0;
+    double top = fakes[order[0]].contrast; /* the brightest of batch g */
     for (int i = 0; i < n; i++) {
         gl_limits_fake *f = &fakes[order[i]];
-        if (i > 0 && sum > GL_LIMITS_BATCH_RATIO * f->contrast) {
+        if (top > GL_LIMITS_BATCH_RATIO * f->contrast) {
             g++;
-            sum = 0;
+            top = f->contrast;
         }
         f->batch = g;
-        sum += f->contrast;
     }
     return g - first + 1;
 }
@@ -586,8 +586,8 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
     if (r.nbatches > lp->fake_runs)
         gl_log(GL_LOG_INFO,
                "fakes planted in %d subtractions, not %d: %s fits its coefficients over the "
-               "whole frame, so a fake shares a subtraction only with brighter fakes of at most "
-               "%g times its contrast in sum",
+               "whole frame, so a fake shares a subtraction only with fakes at most %g times "
+               "as bright",
                r.nbatches, lp->fake_runs,
                sp->method == GL_SUBTRACT_PCA ? "klip-frame" : "the spectral step",
                GL_LIMITS_BATCH_RATIO);

@@ -46,8 +46,8 @@ double gl_limits_completeness_lobes_tabled(limits_bessel_table *t, double delta,
  * the spectral step), so that every fake planted moves every other one. */
 int gl_limits_fakes_share_frame(const gl_subtract_params *sp);
 
-/* In such a subtraction a fake shares it only with brighter fakes whose
- * summed contrast is at most this many times its own (curve.c). */
+/* In such a subtraction a fake shares it only with fakes at most this many
+ * times as bright (curve.c). */
 #define GL_LIMITS_BATCH_RATIO 4.0
 
 #endif
