@@ -231,7 +231,7 @@ static int brighter(const gl_limits_fake *fi, const gl_limits_fake *fj)
  * flux: a fake joins a batch only when the brightest fake in it is at most
  * GL_LIMITS_BATCH_RATIO times its own contrast (brightest first, so a batch
  * is a band of brightness; fakes of about the same brightness still share
- * one, and disturb each other by about 1%, docs/limits.md).
+ * one, and disturb each other by a few per cent at most, docs/limits.md).
  * Otherwise (rings, the median frame: the fakes, 2 FWHM apart, share no
  * coefficients) the run is one batch. */
 static int plan_batches(gl_limits_fake *fakes, int nfakes, int b, int full_frame, int *order,
