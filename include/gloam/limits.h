@@ -40,7 +40,9 @@ typedef struct gl_limits_params {
     double step_px;      /* separation step of the curve; 0: FWHM / 2 */
     double r_min_px;     /* first separation; 0: max(FWHM, mask + FWHM / 2) */
     double r_max_px;     /* last separation; 0: as far as apertures fit */
-    int fake_runs;       /* runs with fake companions, each one subtraction (default 2) */
+    int fake_runs;       /* runs with fake companions (default 2): each one subtraction, or one
+                            per brightness batch where the fakes share the frame's coefficients
+                            (klip-frame, the spectral step; gl_limits_result.nbatches) */
     double fake_level;   /* fake flux in units of the local aperture noise; 0 (default):
                             the flux reaching 50% completeness at throughput 1, at least 10 */
     double pa0_deg;      /* position angle of the first fake (default 0) */
@@ -59,7 +61,8 @@ GL_API void gl_limits_params_init(gl_limits_params *p);
  * units of F, except snr. */
 typedef struct gl_limits_fake {
     double sep_px, pa_deg, contrast;
-    int run;
+    int run;                                  /* 0-based run (set of separations) */
+    int batch;                                /* 0-based subtraction that held it */
     int nref;                                 /* references of its t test */
     double throughput[GL_SUBTRACT_MAX_MODES]; /* test-aperture sum / (contrast F) */
     double signal[GL_SUBTRACT_MAX_MODES];     /* (test - mean of the references) / (contrast F) */
@@ -89,6 +92,7 @@ typedef struct gl_limits_result {
     double fpf;                       /* the FPF of params.sigma */
     int nfakes;
     gl_limits_fake *fakes;
+    int nbatches;      /* subtractions with fakes (>= the runs for full-frame methods) */
     gl_cube *image;    /* the subtraction without fakes (north-up) */
     double fwhm;       /* px, the aperture diameter */
     int skip_flanking; /* the references of the detection test leave the flanking two out */

@@ -31,7 +31,8 @@ static const char help[] =
     "  --step PX              separation step (default FWHM/2)\n"
     "  --min-separation PX    first separation (default max(FWHM, mask + FWHM/2))\n"
     "  --max-separation PX    last separation (default: where apertures still fit)\n"
-    "  --fake-runs N          runs with fake companions (default 2)\n"
+    "  --fake-runs N          runs with fake companions (default 2); klip-frame plants a\n"
+    "                         run in batches by brightness, one subtraction each\n"
     "  --fake-level X|auto    fake flux in units of the local aperture noise (default auto:\n"
     "                         the flux a throughput of 1 detects half of the time, >= 10)\n"
     "  --skip-flanking        leave the two apertures flanking the test aperture out of the\n"
@@ -325,6 +326,7 @@ int cmd_limits(gl_cli *cli, int argc, char **argv)
     }
     gl_header_set_int(keys, "GLFKRUNS", lp.fake_runs, "subtraction runs with fake companions");
     gl_header_set_int(keys, "GLNFAKE", res.nfakes, "fake companions planted");
+    gl_header_set_int(keys, "GLFKSUBS", res.nbatches, "subtractions with fakes (brightness)");
     if (lp.fake_level > 0)
         gl_header_set_dbl(keys, "GLFAKELV", lp.fake_level, "fake flux / local aperture noise");
     else

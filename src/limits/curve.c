@@ -24,6 +24,14 @@
  * is a fixed 5-10 x: bright enough to measure, faint enough not to drive the
  * KL modes), and from the second run on at the 95% contrast the earlier runs
  * give, so that the fakes bracket the fluxes the curve needs.
+ *
+ * Where the subtraction fits coefficients over the whole frame (klip-frame,
+ * the spectral step), a fake moves the coefficients of every frame and so
+ * over- or under-subtracts every other fake of its subtraction, in
+ * proportion to its flux; the fakes close in are 100x brighter than those
+ * far out. There each run is planted in batches by brightness, one
+ * subtraction each (plan_batches; docs/limits.md gives the measured effect
+ * and cost). Pixel-local and ring-by-ring methods keep one per run.
  */
 #include "core/internal.h"
 #include "gloam/detect.h"
@@ -205,6 +213,60 @@ static double provisional_level(const gl_limits_result *r, int j, int b, double 
     return GL_MIN(GL_MAX(c, 0.25 * f->contrast), 4 * f->contrast);
 }
 
+int gl_limits_fakes_share_frame(const gl_subtract_params *sp)
+{
+    return sp->method == GL_SUBTRACT_PCA || sp->sdi == GL_SDI_CHANNELS;
+}
+
+/* Fake i before fake j: brighter first, ties by separation (a fixed order). */
+static int brighter(const gl_limits_fake *fi, const gl_limits_fake *fj)
+{
+    return fi->contrast > fj->contrast || (fi->contrast == fj->contrast && fi->sep_px < fj->sep_px);
+}
+
+/* Puts the fakes of run b into batches numbered from `first`, one
+ * subtraction each, and returns their count. Where the subtraction fits
+ * coefficients over the whole frame (full_frame), every planted fake moves
+ * the coefficients of every other one, by an amount proportional to its own
+ * flux: a fake joins a batch only when the brightest fake in it is at most
+ * GL_LIMITS_BATCH_RATIO times its own contrast (brightest first, so a batch
+ * is a band of brightness; fakes of about the same brightness still share
+ * one, and disturb each other by a few per cent at most, docs/limits.md).
+ * Otherwise (rings, the median frame: the fakes, 2 FWHM apart, share no
+ * coefficients) the run is one batch. */
+static int plan_batches(gl_limits_fake *fakes, int nfakes, int b, int full_frame, int *order,
+                        int first)
+{
+    int n = 0;
+    for (int j = 0; j < nfakes; j++)
+        if (fakes[j].run == b)
+            order[n++] = j;
+    if (n == 0)
+        return 0;
+    if (!full_frame) {
+        for (int i = 0; i < n; i++)
+            fakes[order[i]].batch = first;
+        return 1;
+    }
+    for (int i = 1; i < n; i++) /* insertion sort: a few dozen fakes */
+        for (int k = i; k > 0 && brighter(&fakes[order[k]], &fakes[order[k - 1]]); k--) {
+            int t = order[k];
+            order[k] = order[k - 1];
+            order[k - 1] = t;
+        }
+    int g = first;
+    double top = fakes[order[0]].contrast; /* the brightest of batch g */
+    for (int i = 0; i < n; i++) {
+        gl_limits_fake *f = &fakes[order[i]];
+        if (top > GL_LIMITS_BATCH_RATIO * f->contrast) {
+            g++;
+            top = f->contrast;
+        }
+        f->batch = g;
+    }
+    return g - first + 1;
+}
+
 gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_cube *refs,
                             const gl_subtract_params *sp, const gl_psf_model *psf,
                             const gl_limits_params *lp, gl_limits_result *out)
@@ -215,6 +277,7 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
     gl_aperture_plan *ap = NULL;
     gl_cube *work_cube = NULL;
     gl_companion *comps = NULL;
+    int *order = NULL;
     double *work = NULL, *xs = NULL, *ys = NULL, *sums = NULL, *snr_work = NULL;
     gl_status st = GL_OK;
     memset(out, 0, sizeof *out);
@@ -228,6 +291,7 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
     if (!(fwhm > 0))
         return gl_error_set(GL_ERR_USAGE, "--fwhm must be positive");
     sp1.keep_residuals = sp1.keep_raw_residuals = 0;
+    int full_frame = gl_limits_fakes_share_frame(sp);
 
     /* separations */
     double step = lp->step_px > 0 ? lp->step_px : fwhm / 2;
@@ -353,7 +417,8 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
     long nf = (long)floor((r1 - r0) / dsep + 1e-9) + 1;
     r.fakes = gl_calloc((size_t)nf, sizeof *r.fakes);
     comps = gl_calloc((size_t)nf, sizeof *comps);
-    if (!r.fakes || !comps) {
+    order = gl_calloc((size_t)nf, sizeof *order);
+    if (!r.fakes || !comps || !order) {
         st = gl_error_nomem("fake companions");
         goto cleanup;
     }
@@ -362,6 +427,7 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
         memset(f, 0, sizeof *f);
         f->sep_px = r0 + dsep * (double)j;
         f->run = (int)(j % lp->fake_runs);
+        f->batch = -1; /* set when its run is planted */
         f->pa_deg =
             fmod(lp->pa0_deg + 360.0 * f->run / lp->fake_runs + 137.50776 * (double)j, 360.0);
         /* keep clear of known sources: turn by 30 degree steps */
@@ -421,23 +487,28 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
                 if (r.fakes[j].run == b)
                     r.fakes[j].contrast = comps[j].contrast;
         }
-        int nc = 0;
-        for (int j = 0; j < r.nfakes; j++)
-            if (r.fakes[j].run == b)
-                comps[nc++] =
-                    (gl_companion){r.fakes[j].sep_px, r.fakes[j].pa_deg, r.fakes[j].contrast};
-        if (nc == 0)
-            continue;
-        memcpy(work_cube->data, cube->data, gl_cube_size(cube) * sizeof(float));
-        if ((st = gl_inject_companions(work_cube, angles, sp->north_offset, psf, comps, nc, NULL)))
-            goto cleanup;
-        gl_subtract_result_free(&run);
-        if ((st = gl_subtract_run(work_cube, angles, refs, &sp1, &run)))
-            goto cleanup;
-        for (int j = 0; j < r.nfakes; j++)
-            if (r.fakes[j].run == b)
-                measure_fake(&r.fakes[j], ap, &dpar, base.image, run.image, np, F,
-                             lp->skip_flanking, work, xs, ys, snr_work);
+        /* the run's fakes in batches by brightness (one batch unless the
+         * method's coefficients span the whole frame), one subtraction each */
+        int nbatch = plan_batches(r.fakes, r.nfakes, b, full_frame, order, r.nbatches);
+        for (int g = r.nbatches; g < r.nbatches + nbatch; g++) {
+            int nc = 0;
+            for (int j = 0; j < r.nfakes; j++)
+                if (r.fakes[j].batch == g)
+                    comps[nc++] =
+                        (gl_companion){r.fakes[j].sep_px, r.fakes[j].pa_deg, r.fakes[j].contrast};
+            memcpy(work_cube->data, cube->data, gl_cube_size(cube) * sizeof(float));
+            if ((st = gl_inject_companions(work_cube, angles, sp->north_offset, psf, comps, nc,
+                                           NULL)))
+                goto cleanup;
+            gl_subtract_result_free(&run);
+            if ((st = gl_subtract_run(work_cube, angles, refs, &sp1, &run)))
+                goto cleanup;
+            for (int j = 0; j < r.nfakes; j++)
+                if (r.fakes[j].batch == g)
+                    measure_fake(&r.fakes[j], ap, &dpar, base.image, run.image, np, F,
+                                 lp->skip_flanking, work, xs, ys, snr_work);
+        }
+        r.nbatches += nbatch;
         gl_progress("limits", 2 + b, 1 + lp->fake_runs);
     }
 
@@ -494,12 +565,32 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
         gl_log(GL_LOG_WARN,
                "%ld of %ld separations have a throughput below 1%% and no contrast (plane 1)", low,
                n);
-    if (capped > 0 || capped95 > 0)
+    if ((capped > 0 || capped95 > 0) && refs && sp->refs_use == GL_REFS_ONLY)
+        /* a basis of reference frames alone has no self-subtraction lobes:
+         * the companion's own light in the few apertures of a short ring
+         * (its PSF wings, and what its projection on the reference modes
+         * takes from them) grows with it, against a high t threshold */
+        gl_log(GL_LOG_WARN,
+               "%ld of %ld separations have no 50%% contrast and %ld no %g%% contrast (plane 1): "
+               "the ring there holds only a few apertures (high t threshold) and a companion's "
+               "own light in its reference apertures (its PSF wings, and what its projection "
+               "on the reference modes removes from them) grows with it and caps its S/N below "
+               "the threshold, however bright (--skip-flanking or a lower --threshold help)",
+               capped, n, capped95, 100 * lp->completeness);
+    else if (capped > 0 || capped95 > 0)
         gl_log(GL_LOG_WARN,
                "%ld of %ld separations have no 50%% contrast and %ld no %g%% contrast (plane 1): "
                "a companion's own self-subtraction lobes cap its S/N below the threshold there, "
                "however bright (more field rotation, --skip-flanking or a lower --threshold help)",
                capped, n, capped95, 100 * lp->completeness);
+    if (r.nbatches > lp->fake_runs)
+        gl_log(GL_LOG_INFO,
+               "fakes planted in %d subtractions, not %d: %s fits its coefficients over the "
+               "whole frame, so a fake shares a subtraction only with fakes at most %g times "
+               "as bright",
+               r.nbatches, lp->fake_runs,
+               sp->method == GL_SUBTRACT_PCA ? "klip-frame" : "the spectral step",
+               GL_LIMITS_BATCH_RATIO);
     r.image = base.image;
     r.fwhm = fwhm;
     r.skip_flanking = lp->skip_flanking;
@@ -514,6 +605,7 @@ cleanup:
     gl_detect_aperture_plan_free(ap);
     gl_cube_free(work_cube);
     gl_free(comps);
+    gl_free(order);
     gl_free(work);
     gl_free(xs);
     gl_free(ys);

@@ -42,4 +42,12 @@ void gl_limits_bessel_table_free(limits_bessel_table *t);
 double gl_limits_completeness_lobes_tabled(limits_bessel_table *t, double delta, double lambda,
                                            double tau, double nu);
 
+/* Whether the subtraction fits coefficients over the whole frame (klip-frame,
+ * the spectral step), so that every fake planted moves every other one. */
+int gl_limits_fakes_share_frame(const gl_subtract_params *sp);
+
+/* In such a subtraction a fake shares it only with fakes at most this many
+ * times as bright (curve.c). */
+#define GL_LIMITS_BATCH_RATIO 4.0
+
 #endif

@@ -91,7 +91,8 @@ gl_status gl_limits_tables_write(const char *csv, const char *fits, const gl_lim
 gl_status gl_limits_fakes_write(const char *csv, const gl_limits_result *r)
 {
     enum { PER_PLANE = 4 };
-    int nc = 5 + PER_PLANE * r->nplanes;
+    enum { FIXED = 6 };
+    int nc = FIXED + PER_PLANE * r->nplanes;
     size_t nr = (size_t)(r->nfakes ? r->nfakes : 1);
     double *buf = gl_calloc(nr * (size_t)nc, sizeof *buf);
     const char **names = gl_calloc((size_t)nc, sizeof *names);
@@ -102,28 +103,28 @@ gl_status gl_limits_fakes_write(const char *csv, const gl_limits_result *r)
         st = gl_error_nomem("fakes table");
         goto cleanup;
     }
-    static const char *fixed[] = {"sep_px", "pa_deg", "contrast", "run", "nref"};
+    static const char *fixed[] = {"sep_px", "pa_deg", "contrast", "run", "batch", "nref"};
     static const char *stem[PER_PLANE] = {"throughput", "signal", "ref_spread", "snr"};
-    for (int c = 0; c < 5; c++)
+    for (int c = 0; c < FIXED; c++)
         names[c] = fixed[c];
     for (int q = 0; q < PER_PLANE; q++)
         for (int k = 0; k < r->nplanes; k++) {
-            int c = 5 + q * r->nplanes + k;
-            snprintf(pn[c - 5], sizeof pn[0], "%s_plane%d", stem[q], k + 1);
-            names[c] = pn[c - 5];
+            int c = FIXED + q * r->nplanes + k;
+            snprintf(pn[c - FIXED], sizeof pn[0], "%s_plane%d", stem[q], k + 1);
+            names[c] = pn[c - FIXED];
         }
     for (int c = 0; c < nc; c++)
         cols[c] = buf + (size_t)c * nr;
     for (int j = 0; j < r->nfakes; j++) {
         const gl_limits_fake *f = &r->fakes[j];
-        double v[5] = {f->sep_px, f->pa_deg, f->contrast, f->run + 1, f->nref};
-        for (int c = 0; c < 5; c++)
+        double v[FIXED] = {f->sep_px, f->pa_deg, f->contrast, f->run + 1, f->batch + 1, f->nref};
+        for (int c = 0; c < FIXED; c++)
             buf[(size_t)c * nr + (size_t)j] = v[c];
         for (int k = 0; k < r->nplanes; k++) {
             const double w[PER_PLANE] = {f->throughput[k], f->signal[k], f->ref_spread[k],
                                          f->snr[k]};
             for (int q = 0; q < PER_PLANE; q++)
-                buf[(size_t)(5 + q * r->nplanes + k) * nr + (size_t)j] = w[q];
+                buf[(size_t)(FIXED + q * r->nplanes + k) * nr + (size_t)j] = w[q];
         }
     }
     const char **units = gl_calloc((size_t)nc, sizeof *units);

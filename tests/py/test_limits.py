@@ -377,13 +377,113 @@ def test_throughput_matches_numpy_injection(sim, tmp_path, method, opts):
             thr = diff / (con * F)
             got = fakes[f"throughput_plane{k + 1}"][j]
             checked.append((sep, k + 1, got, thr))
-            # issue 6: within 10% of the numpy injection-recovery (20% for
-            # full-frame PCA: the fakes of one run share the KL basis, so
-            # together they drive the modes more than one companion alone;
-            # measured 16% low at 10 px with 8 modes once the second run's
-            # fakes went in at the predictive c95, 2x brighter than the first)
-            assert got == pytest.approx(thr, rel=0.20 if method == "klip-frame" else 0.10), checked
+            # issue 6: within 10% of the numpy injection-recovery, full-frame
+            # PCA too since its fakes go in by brightness batches (before
+            # them: 16% low at 10 px with 8 modes, the fakes of one run
+            # sharing the KL basis; now 7%: those of one batch still do)
+            assert got == pytest.approx(thr, rel=0.10), checked
     print(method, "fake sep, plane, gloam throughput, numpy injection:", checked)
+
+
+# ---- 3b. full-frame fakes do not disturb each other ---------------------------
+
+@pytest.fixture(scope="module")
+def rdi_small(tmp_path_factory):
+    """A small RDI case where the fakes of one run used to disturb each other:
+    `gloam simulate` (64 px, 20 frames, 2.5 deg of rotation) with its
+    reference star, and a Gaussian off-axis PSF of the simulator's FWHM and
+    total flux (as in `sim`), so that companions planted here with numpy are
+    the same shape as gloam's fakes. Close in the noise is 10x higher than at
+    the edge and so is the fakes' contrast (0.03 at 1 FWHM, 3e-4 at 28 px)."""
+    d = tmp_path_factory.mktemp("rdi")
+    ok("simulate", d / "s", "--size", 64, "--frames", 20, "--refs", "--ha-start", 4,
+       "--cadence", 39, "--exptime", 25, "--quiet")
+    fwhm = 4.1  # 1.029 lambda/D at 4 px per lambda/D (Born & Wolf sec. 8.5)
+    total = fits.getdata(d / "s" / "psf.fits").astype(float).sum()
+    s = fwhm / (2 * np.sqrt(2 * np.log(2)))
+    amp = total / (2 * np.pi * s * s)
+    write_psf(d / "gpsf.fits", fwhm=fwhm, amp=amp, size=25)
+    return d, fwhm, amp, np.loadtxt(d / "s" / "angles.txt")
+
+
+def test_full_frame_fakes_do_not_disturb_each_other(rdi_small, tmp_path):
+    """klip-frame fits its coefficients over the whole frame: a fake 100x
+    brighter than another, planted in the same subtraction, moved its
+    coefficients and over- or under-subtracted it (measured on this case
+    before the brightness batches: c50 jumping by 19x between neighbouring
+    separations, 16x in units of the noise term t sigma sqrt(1 + 1/n2) that
+    no fake touches, throughput 2.1 at 28 px, 8 of 13 separations without
+    c50; with them: 1.02x in units of the noise term beyond 3 FWHM (1.55x
+    from 10 to 8 px, where c50 rises towards the cap of the S/N), 2.6x in
+    c50 itself where the noise term falls steeply at 8-10 px, throughput
+    <= 0.983, 2 of 13 empty). Checked: at most 3 separations without c50,
+    all closest in; neighbouring c50 within 1.15x in units of the noise
+    term beyond 3 FWHM and within 3x everywhere; throughput <= 1.03 (RDI
+    keeps all of a companion outside the few reference modes it resembles);
+    and every fake's throughput equal, within 5% (4% measured at 28 px, where
+    two fakes up to 3.9x brighter share its subtraction), to an
+    injection-recovery done here of that fake alone (numpy Gaussian planted by docs/conventions.md,
+    photutils exact aperture on the difference of two `gloam subtract`
+    images). Annular subtraction is left as it was: one subtraction per run."""
+    d, fwhm, amp, angles = rdi_small
+    cube = fits.getdata(d / "s" / "cube.fits").astype(float)
+    common = ["--angles", d / "s" / "angles.txt", "--fwhm", fwhm, "--refs", d / "s" / "refs.fits",
+              "--method", "klip-frame"]
+    r = ok("limits", d / "s" / "cube.fits", *common, "--psf", d / "gpsf.fits",
+           "--out", tmp_path / "l")
+    t = plane(table(tmp_path / "l.limits.csv"), 1)
+    fakes = table(tmp_path / "l.fakes.csv")
+    nsub = fits.getheader(tmp_path / "l.limits.fits", 1)["GLFKSUBS"]
+    assert nsub > 2 and set(fakes["batch"]) == set(range(1, nsub + 1))
+    assert f"fakes planted in {nsub} subtractions, not 2" in r.stderr
+    # RDI: the warning about the inner separations does not blame lobes
+    assert "self-subtraction lobes" not in r.stderr
+    c50 = t["contrast_c50"]
+    ok_ = np.isfinite(c50)
+    assert ok_.sum() >= c50.size - 3 and np.all(ok_[np.argmax(ok_):])  # empty only close in
+    # c50 over the classical noise term t sigma sqrt(1 + 1/n2) (the part of
+    # the curve no fake touches, which itself falls 2.6x from 8 to 10 px):
+    # what the fakes bring, 1 / (throughput) and the lobes
+    n2 = t["dof"] + 1
+    # (beyond 3 FWHM: just outside the separations where the S/N caps, c50
+    # rises towards that cap)
+    far = ok_ & (t["sep_px"] >= 3 * fwhm - 1e-9)
+    x = (c50 / (t["t_threshold"] * t["noise"] * np.sqrt(1 + 1 / n2)))[far]
+    ratio = np.exp(np.abs(np.diff(np.log(x))))
+    assert far.sum() >= 7 and ratio.max() < 1.15, (t["sep_px"][far], c50[far], ratio)
+    assert np.exp(np.abs(np.diff(np.log(c50[ok_])))).max() < 3, c50[ok_]
+    assert np.nanmax(t["throughput"]) <= 1.03, t["throughput"]
+    # each fake against itself alone (numpy planting, photutils aperture)
+    ok("subtract", d / "s" / "cube.fits", *common, "--out", tmp_path / "s0.fits", "--quiet")
+    base = subtracted(tmp_path / "s0.fits")[0]
+    F = fits.getheader(tmp_path / "l.limits.fits", 1)["GLPSFAP"]
+    n = cube.shape[-1]
+    checked = []
+    for sep, pa, con, thr in zip(fakes["sep_px"], fakes["pa_deg"], fakes["contrast"],
+                                 fakes["throughput_plane1"]):
+        write_cube(tmp_path / "c1.fits", plant(cube, angles, [(sep, pa, con)], fwhm, amp))
+        ok("subtract", tmp_path / "c1.fits", *common, "--out", tmp_path / "s1.fits", "--quiet",
+           "--overwrite")
+        x, y = north_up_xy(sep, pa, n)
+        alone = aperture_sums(subtracted(tmp_path / "s1.fits")[0] - base, [x], [y],
+                              fwhm / 2)[0] / (con * F)  # photutils
+        checked.append((round(sep, 1), con, thr, alone))
+    got, want = np.array([c[2] for c in checked]), np.array([c[3] for c in checked])
+    assert np.all(np.abs(got - want) <= 0.05 * want), checked
+    # the batches are planned serially: same bytes at any thread count (rule 5)
+    ok("limits", d / "s" / "cube.fits", *common, "--psf", d / "gpsf.fits",
+       "--out", tmp_path / "t2", "--threads", 2, "--quiet")
+    ok("limits", d / "s" / "cube.fits", *common, "--psf", d / "gpsf.fits",
+       "--out", tmp_path / "t1", "--threads", 1, "--quiet")
+    for suffix in (".limits.csv", ".fakes.csv"):
+        assert (tmp_path / f"t1{suffix}").read_bytes() == (tmp_path / f"t2{suffix}").read_bytes()
+    # klip-rings on the same data: the fakes of a run share no coefficients,
+    # one subtraction per run as before
+    ok("limits", d / "s" / "cube.fits", *common[:-1], "klip-rings", "--mask-radius", 6,
+       "--psf", d / "gpsf.fits", "--out", tmp_path / "a", "--quiet")
+    fa = table(tmp_path / "a.fakes.csv")
+    assert np.all(fa["batch"] == fa["run"])
+    assert fits.getheader(tmp_path / "a.limits.fits", 1)["GLFKSUBS"] == 2
 
 
 def written_files(stderr):
