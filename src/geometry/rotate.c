@@ -5,7 +5,8 @@
  * permutation) and a remainder phi in [-45, 45] degrees, done as three shears
  * x-y-x with a = -tan(phi/2), b = sin(phi), each shear a row-wise Fourier
  * shift (Larkin, Oldfield & Klemm 1997, Opt. Commun. 139, 99). The image is
- * placed in a zero-padded square twice its size so that no shear wraps; each
+ * placed in a zero-padded square about 1.5 times its side, so that no shear
+ * wraps content onto samples that are used (plan.c); each
  * shear conserves every row's flux, so the rotation conserves total flux.
  * The y-shear gathers its columns into contiguous lines first (FFTW's strided
  * column transforms run at half the speed of the row ones; bench/README.md).
