@@ -66,21 +66,30 @@ static long batch_start(long lo)
 /* Phase tables of one shear in which line j (row or column) moves by
  * s (j - C) samples, periodically over P: e_k = exp(-2 pi i k s / P) (one
  * line further), e8_k = e_k^8 (one batch further) and b_k, the factor of the
- * first line j0 including the 1/P of the inverse transform. The factors of
- * later lines come by complex recurrence in double over at most P lines
- * (rounding ~1e-14, far below float precision), vectorised over k. */
+ * first line j0 including the 1/P of the inverse transform. Each table is a
+ * geometric sequence in k, built by complex recurrence in double from its
+ * ratio (three sincos a shear instead of three a frequency: the rounding
+ * grows to ~1e-14 over the P/2 + 1 terms). The factors of later lines come
+ * by the same recurrence over at most P lines (~1e-14 too), vectorised over
+ * k; both far below float precision. */
 static void shear_tables(long P, double s, long j0, double *ramp)
 {
     long m = P / 2 + 1, C = P / 2;
     double *er = ramp, *ei = er + m, *br = ei + m, *bi = br + m, *e8r = bi + m, *e8i = e8r + m;
-    for (long k = 0; k < m; k++) {
-        double a1 = -2 * M_PI * (double)k * s / (double)P;
-        er[k] = cos(a1);
-        ei[k] = sin(a1);
-        e8r[k] = cos(GL_GEOM_BATCH * a1);
-        e8i[k] = sin(GL_GEOM_BATCH * a1);
-        br[k] = cos(a1 * (double)(j0 - C)) / (double)P;
-        bi[k] = sin(a1 * (double)(j0 - C)) / (double)P;
+    double a1 = -2 * M_PI * s / (double)P, q[3][2];
+    double ang[3] = {a1, GL_GEOM_BATCH * a1, a1 * (double)(j0 - C)};
+    double *re[3] = {er, e8r, br}, *im[3] = {ei, e8i, bi};
+    for (int t = 0; t < 3; t++) {
+        q[t][0] = cos(ang[t]);
+        q[t][1] = sin(ang[t]);
+        double zr = t == 2 ? 1.0 / (double)P : 1.0, zi = 0;
+        for (long k = 0; k < m; k++) {
+            re[t][k] = zr;
+            im[t][k] = zi;
+            double u = zr * q[t][0] - zi * q[t][1];
+            zi = zr * q[t][1] + zi * q[t][0];
+            zr = u;
+        }
     }
 }
 
