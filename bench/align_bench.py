@@ -16,12 +16,18 @@ import argparse
 import os
 import subprocess
 import tempfile
+import sys
 import time
 
-import numpy as np
-from astropy.io import fits
-from scipy import ndimage
-from skimage.registration import phase_cross_correlation
+sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
+import blas_kernels  # noqa: E402
+
+blas_kernels.same_kernels_as_gloam()
+
+import numpy as np  # noqa: E402
+from astropy.io import fits  # noqa: E402
+from scipy import ndimage  # noqa: E402
+from skimage.registration import phase_cross_correlation  # noqa: E402
 
 
 def make_cube(nf, n, seed=1):

@@ -16,11 +16,17 @@ import argparse
 import os
 import subprocess
 import tempfile
+import sys
 import time
 
-import numpy as np
-from astropy.io import fits
-from photutils.aperture import CircularAperture
+sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
+import blas_kernels  # noqa: E402
+
+blas_kernels.same_kernels_as_gloam()
+
+import numpy as np  # noqa: E402
+from astropy.io import fits  # noqa: E402
+from photutils.aperture import CircularAperture  # noqa: E402
 
 
 def snr_reference(img, x, y, fwhm):

@@ -25,10 +25,14 @@ import sys
 import tempfile
 import time
 
-import numpy as np
-from astropy.io import fits
-
 sys.path.insert(0, os.path.dirname(os.path.abspath(__file__)))
+import blas_kernels  # noqa: E402
+
+blas_kernels.same_kernels_as_gloam()
+
+import numpy as np  # noqa: E402
+from astropy.io import fits  # noqa: E402
+
 import subtract_bench as sb  # noqa: E402
 
 

@@ -8,9 +8,12 @@
  */
 #include "gloam/gloam.h"
 
+#include <cblas.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <strings.h>
+#include <unistd.h>
 
 #ifdef GL_HAVE_MPI
 #include <mpi.h>
@@ -47,6 +50,38 @@ static int mpi_share(void *user, unsigned char *buf, size_t n)
 }
 #endif
 
+/* OpenBLAS built for several processors (Debian's: DYNAMIC_ARCH) picks its
+ * kernels from the processor's model number when it loads, before main, and
+ * falls back to its SSE3 ones ("Prescott") on models newer than its release:
+ * Debian 12's 0.3.21 does so on Intel family 6 model 207, where the
+ * covariance of klip-frame then runs 2.5-3x slower than with its AVX-512
+ * (SkylakeX) kernels (bench/README.md, issue 13 seventh round). The library
+ * reads the choice from OPENBLAS_CORETYPE only at load time, so where it
+ * fell back although the processor has AVX-512 (or AVX2 and FMA), gloam
+ * sets the variable to those kernels and starts itself again, once. A
+ * variable the user has set is never changed, and if the new start fails
+ * the program goes on with the fallback. */
+static void blas_kernels_fix(char **argv)
+{
+    if (getenv("OPENBLAS_CORETYPE"))
+        return;
+    const char *core = openblas_get_corename();
+    if (!core || strcasecmp(core, "prescott") != 0)
+        return;
+    __builtin_cpu_init();
+    const char *want = NULL;
+    if (__builtin_cpu_supports("avx512f") && __builtin_cpu_supports("avx512cd") &&
+        __builtin_cpu_supports("avx512bw") && __builtin_cpu_supports("avx512dq") &&
+        __builtin_cpu_supports("avx512vl"))
+        want = "SkylakeX";
+    else if (__builtin_cpu_supports("avx2") && __builtin_cpu_supports("fma"))
+        want = "Haswell";
+    if (!want || setenv("OPENBLAS_CORETYPE", want, 1) != 0)
+        return;
+    execv("/proc/self/exe", argv);
+    unsetenv("OPENBLAS_CORETYPE"); /* the new start failed: go on as we are */
+}
+
 static void print_help(FILE *out)
 {
     fprintf(out,
@@ -74,6 +109,7 @@ int main(int argc, char **argv)
         printf("gloam %s\n", gl_version());
         return 0;
     }
+    blas_kernels_fix(argv);
 #ifdef GL_HAVE_MPI
     const gl_command_processes mpi = {
         .start = mpi_start,

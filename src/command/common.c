@@ -660,6 +660,10 @@ void cli_start(gl_cli *cli)
     cli->hold = !cli->verbose;
     gl_log_set_handler(print_log, cli,
                        cli->quiet ? GL_LOG_WARN : (cli->verbose ? GL_LOG_DEBUG : GL_LOG_INFO));
+    /* which kernels OpenBLAS runs (src/cli/main.c sets them where it fell
+     * back on a processor newer than itself) */
+    gl_log(GL_LOG_DEBUG, "OpenBLAS kernels: %s%s", openblas_get_corename(),
+           getenv("OPENBLAS_CORETYPE") ? " (OPENBLAS_CORETYPE)" : "");
     gl_progress_fn outer;
     void *outer_user;
     gl_progress_get_handler(&outer, &outer_user);
