@@ -77,11 +77,16 @@ size_t sub_covariance_work_size(void)
 void sub_covariance_chunk(const float *X, long ldx, long n, long w, int first, double *C,
                           double *work)
 {
-    long nb = (n + COV_TILE - 1) / COV_TILE;
+    /* tiles of equal height (a multiple of 8, at most COV_TILE: 104 for 400
+     * frames, not 3 x 128 + 16), taken by the threads as they come free: each
+     * tile is one BLAS call whichever thread runs it, so the result does not
+     * depend on the thread count; the static split of 128-row tiles left one
+     * of two threads idle a third of the time */
+    long nb = (n + COV_TILE - 1) / COV_TILE, ts = ((n + nb - 1) / nb + 7) / 8 * 8;
     long ntiles = nb * (nb + 1) / 2;
     size_t per = 2 * (size_t)COV_TILE * COV_CHUNK;
     double beta = first ? 0.0 : 1.0;
-#pragma omp parallel for schedule(static)
+#pragma omp parallel for schedule(dynamic, 1)
     for (long t = 0; t < ntiles; t++) {
         /* tile t -> (bi, bj) with bi <= bj, row by row */
         long bi = 0, rem = t;
@@ -90,8 +95,8 @@ void sub_covariance_chunk(const float *X, long ldx, long n, long w, int first, d
             bi++;
         }
         long bj = bi + rem;
-        long i0 = bi * COV_TILE, j0 = bj * COV_TILE;
-        long mi = GL_SUB_MIN(COV_TILE, n - i0), mj = GL_SUB_MIN(COV_TILE, n - j0);
+        long i0 = bi * ts, j0 = bj * ts;
+        long mi = GL_SUB_MIN(ts, n - i0), mj = GL_SUB_MIN(ts, n - j0);
         double *A = work + per * (size_t)omp_get_thread_num(),
                *B = A + (size_t)COV_TILE * COV_CHUNK;
         double *Cij = C + (size_t)i0 * (size_t)n + (size_t)j0;
