@@ -142,6 +142,51 @@ def test_pca_residuals_match_numpy(tmp_path, centre, route):
     assert np.all(np.isnan(raw[:, 0][:, ~m]))
 
 
+def cpu_flags():
+    with open("/proc/cpuinfo") as f:
+        for line in f:
+            if line.startswith("flags"):
+                return set(line.split(":", 1)[1].split())
+    return set()
+
+
+@pytest.mark.parametrize("coretype", [None, "Prescott", "Haswell"])
+def test_blas_kernels_named_and_residuals_match_numpy(tmp_path, coretype):
+    """src/cli/main.c: where OpenBLAS falls back to its SSE3 kernels on a
+    processor newer than itself and OPENBLAS_CORETYPE is unset, gloam starts
+    again with its AVX-512 or AVX2 kernels; a variable the user set is kept.
+    Whichever kernels run, the KLIP residuals are those of numpy.linalg.svd
+    (Soummer et al. 2012) on the same matrix."""
+    flags = cpu_flags()
+    if coretype == "Haswell" and not {"avx2", "fma"} <= flags:
+        pytest.skip("no AVX2 here")
+    n = 48
+    cube, angles, _ = make_sequence(n=n, nf=24, sep=10)
+    c, a = write_inputs(tmp_path, cube, angles)
+    env = {k: v for k, v in os.environ.items() if k not in ("OPENBLAS_CORETYPE", "OPENBLAS_VERBOSE")}
+    if coretype:
+        env["OPENBLAS_CORETYPE"] = coretype
+    r = subprocess.run([GLOAM, "subtract", str(c), "--angles", str(a), "--fwhm", str(FWHM), "--out",
+                        str(tmp_path / "o.fits"), "--method", "klip-frame", "--modes", "3,7",
+                        "--mask-radius", "3", "--outer-radius", "24", "--raw-residuals",
+                        str(tmp_path / "raw.fits"), "--verbose"],
+                       capture_output=True, text=True, env=env)
+    assert r.returncode == 0, r.stderr
+    kernels = [ln for ln in r.stderr.splitlines() if "OpenBLAS kernels:" in ln]
+    assert len(kernels) == 1, r.stderr
+    if coretype:
+        assert f"OpenBLAS kernels: {coretype}" in kernels[0].replace("PRESCOTT", "Prescott"), kernels
+    elif {"avx2", "fma"} <= flags:
+        assert "prescott" not in kernels[0].lower(), kernels  # the fallback was replaced
+    raw = fits.getdata(tmp_path / "raw.fits").astype(np.float64)
+    m = region_mask(n, 3.0, 24.0)
+    X = cube[:, m].astype(np.float64)
+    X = X - X.mean(axis=1, keepdims=True)
+    want = klip_numpy(X, X, [3, 7])
+    for q in range(2):
+        assert rel_diff(raw[:, q][:, m], want[q]) < 1e-4
+
+
 def test_rdi_residuals_match_numpy(tmp_path):
     """RDI: basis from the reference frames only (numpy.linalg.svd)."""
     n = 48
