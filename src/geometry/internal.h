@@ -28,6 +28,8 @@ struct gl_geom_work {
     fftwf_complex *phase_x; /* nx/2+1: phase ramp along x for a 2-D shift */
     fftwf_complex *phase_y; /* ny */
     double *ramp;           /* 8 x (pad/2+1): shear phase tables (rotate.c) */
+    fftwf_complex *group_x; /* GL_GEOM_STAMP_GROUP x (nx/2+1): x ramps of a group of copies */
+    fftwf_complex *group_y; /* ny x GL_GEOM_STAMP_GROUP: their weighted y ramps (stamp.c) */
 };
 
 /* Keys (1981) cubic convolution sample of img at (x, y); NaN when the point
@@ -41,6 +43,9 @@ void gl_geom_phase_ramp(fftwf_complex *ph, long m, long n, double d);
 /* Shears run on batches of this many rows or columns at once, so FFTW can
  * vectorise across transforms (columns are gathered into rows first). */
 #define GL_GEOM_BATCH 8
+
+/* Shifted copies of a stamp are summed this many at a time (stamp.c). */
+#define GL_GEOM_STAMP_GROUP 16
 
 struct gl_geom_stamp {
     long nx, ny;

@@ -147,8 +147,11 @@ gl_status gl_geom_work_new(const gl_geom_plan *p, gl_geom_work **out)
         w->phase_x = gl_malloc((size_t)(p->nx / 2 + 1) * sizeof(fftwf_complex));
         w->phase_y = gl_malloc((size_t)p->ny * sizeof(fftwf_complex));
         w->ramp = gl_malloc(8 * (pad / 2 + 1) * sizeof(double));
+        w->group_x = gl_malloc((size_t)GL_GEOM_STAMP_GROUP * (size_t)(p->nx / 2 + 1) *
+                               sizeof(fftwf_complex));
+        w->group_y = gl_malloc((size_t)GL_GEOM_STAMP_GROUP * (size_t)p->ny * sizeof(fftwf_complex));
         ok = ok && w->real2d && w->spec2d && w->padded && w->lines && w->specb && w->phase_x &&
-             w->phase_y && w->ramp;
+             w->phase_y && w->ramp && w->group_x && w->group_y;
     }
     if (!ok) {
         gl_geom_work_free(w);
@@ -171,5 +174,7 @@ void gl_geom_work_free(gl_geom_work *w)
     gl_free(w->phase_x);
     gl_free(w->phase_y);
     gl_free(w->ramp);
+    gl_free(w->group_x);
+    gl_free(w->group_y);
     gl_free(w);
 }

@@ -115,8 +115,13 @@ gl_status gl_inject_companions(gl_cube *cube, const double *angles_deg, double n
             double sc = spectrum ? spectrum[c] : 1.0;
             for (int k = 0; k < ncompanions; k++)
                 wt[k] = comps[k].contrast * sc;
-            gl_geom_stamp_add(plan, work[t], stamps[c], ncompanions, dx, dy, wt,
-                              gl_cube_plane(cube, c, f));
+            gl_status sf = gl_geom_stamp_add(plan, work[t], stamps[c], ncompanions, dx, dy, wt,
+                                             gl_cube_plane(cube, c, f));
+            if (sf) {
+#pragma omp critical(plant_status)
+                if (!st)
+                    st = sf;
+            }
         }
         long now;
 #pragma omp atomic capture
