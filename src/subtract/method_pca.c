@@ -36,7 +36,7 @@ static gl_status pca_run(const sub_ctx *c)
     sub_region reg = {0};
     sub_basis basis = {0};
     float *M = NULL, *coef = NULL;
-    unsigned char *flags = NULL;
+    unsigned char *flags = NULL, *has_nan = NULL;
     long nrow = c->nframe + c->nref;
 
     st = sub_region_make(c->nx, c->ny, c->r_in, c->r_out, 1, 0, &reg);
@@ -45,7 +45,8 @@ static gl_status pca_run(const sub_ctx *c)
     long npr = reg.npix;
     M = gl_malloc(sizeof(float) * (size_t)nrow * (size_t)npr);
     flags = gl_calloc((size_t)nrow, 1);
-    if (!M || !flags) {
+    has_nan = gl_calloc((size_t)nrow, 1);
+    if (!M || !flags || !has_nan) {
         st = gl_error_nomem("PCA data matrix");
         goto cleanup;
     }
@@ -55,9 +56,12 @@ static gl_status pca_run(const sub_ctx *c)
         const float *src = i < c->nframe ? c->sci + (size_t)i * (size_t)c->npix
                                          : c->ref + (size_t)(i - c->nframe) * (size_t)c->npix;
         float *row = M + (size_t)i * (size_t)npr;
-        int ok = i < c->nframe ? c->usable[i] : 1;
-        for (long j = 0; j < npr; j++)
+        int ok = i < c->nframe ? c->usable[i] : 1, nan = 0;
+        for (long j = 0; j < npr; j++) {
             row[j] = ok ? src[reg.pix[j]] : NAN;
+            nan |= isnan(row[j]);
+        }
+        has_nan[i] = (unsigned char)nan;
     }
     for (long i = 0; i < nrow; i++)
         flags[i] = i < c->nframe ? (unsigned char)(use_sci && c->usable[i]) : 1;
@@ -117,13 +121,14 @@ static gl_status pca_run(const sub_ctx *c)
                 continue;
             }
             /* one pass over the frame: the region's pixels come in
-             * increasing order, NaN in the gaps between them */
+             * increasing order, NaN in the gaps between them and where the
+             * input was NaN (read only for the frames that have any) */
             long q0 = 0;
             for (long j = 0; j < npr; j++) {
                 long q = reg.pix[j];
                 for (; q0 < q; q0++)
                     out[q0] = NAN;
-                out[q] = isnan(in[q]) ? NAN : r[j];
+                out[q] = has_nan[i] && isnan(in[q]) ? NAN : r[j];
                 q0 = q + 1;
             }
             for (; q0 < c->npix; q0++)
@@ -148,6 +153,7 @@ cleanup:
     gl_free(M);
     gl_free(coef);
     gl_free(flags);
+    gl_free(has_nan);
     return st;
 }
 

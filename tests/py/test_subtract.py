@@ -142,6 +142,24 @@ def test_pca_residuals_match_numpy(tmp_path, centre, route):
     assert np.all(np.isnan(raw[:, 0][:, ~m]))
 
 
+def test_pca_residual_is_nan_where_the_input_is(tmp_path):
+    """A NaN input pixel inside the region stays NaN in that frame's raw
+    residual (docs/subtract.md: missing data are carried as NaN), and the
+    other frames' residuals there stay finite."""
+    n = 48
+    cube, angles, _ = make_sequence(n=n, nf=24, sep=10)
+    cube[5, 30, 17] = np.nan
+    c, a = write_inputs(tmp_path, cube, angles)
+    r = run("subtract", c, "--angles", a, "--fwhm", FWHM, "--out", tmp_path / "o.fits",
+            "--method", "klip-frame", "--modes", "3,7", "--mask-radius", 3, "--outer-radius", 24,
+            "--raw-residuals", tmp_path / "raw.fits")
+    assert r.returncode == 0, r.stderr
+    raw = fits.getdata(tmp_path / "raw.fits")  # (frame, mode, y, x)
+    assert np.all(np.isnan(raw[5, :, 30, 17]))
+    assert np.all(np.isfinite(np.delete(raw[:, :, 30, 17], 5, axis=0)))
+    assert np.isfinite(raw[5, :, 30, 18]).all()
+
+
 def cpu_flags():
     with open("/proc/cpuinfo") as f:
         for line in f:
