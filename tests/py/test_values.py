@@ -93,7 +93,15 @@ def test_no_angles_anywhere_is_a_clear_error(sim, tmp_path):
 def test_radian_angles_warn_everywhere(sim, aligned, tmp_path):
     rad = np.radians(np.loadtxt(sim / "angles.txt"))
     np.savetxt(tmp_path / "rad.txt", rad)
-    for cmd in (["subtract", aligned, "--fwhm", "4", "--out", tmp_path / "s.fits"],
+    # the default method (klip-rings) finds no reference in 0.2 deg of
+    # rotation: its refusal names the file and says why
+    p = gloam("subtract", aligned, "--fwhm", "4", "--out", tmp_path / "r.fits", "--angles",
+              tmp_path / "rad.txt", "--quiet", ok=False)
+    assert p.returncode == 1 and not (tmp_path / "r.fits").exists()
+    last = p.stderr.strip().splitlines()[-1]
+    assert "rad.txt" in last and "look like radians" in last, p.stderr
+    for cmd in (["subtract", aligned, "--fwhm", "4", "--out", tmp_path / "s.fits",
+                 "--method", "klip-frame"],
                 ["inject", aligned, "--psf", sim / "psf.fits", "--companion", "20:0:1e-3",
                  "--out", tmp_path / "i.fits"],
                 ["align", sim / "cube.fits", "--out", tmp_path / "a.fits"],
@@ -120,14 +128,16 @@ def test_fwhm_auto(sim, aligned, tmp_path):
     p = gloam("inspect", sim / "cube.fits", "--psf", sim / "psf.fits", "--json")
     import json
     fwhm_psf = json.loads(p.stdout)["psf"]["fwhm_px"]
+    # klip-frame: 16 frames of this short sequence leave klip-rings no
+    # separation (its refusal is tested in test_subtract_defaults.py)
     p = gloam("limits", aligned, "--psf", sim / "psf.fits", "--fwhm", "auto", "--out",
-              tmp_path / "l", "--modes", "3")
+              tmp_path / "l", "--modes", "3", "--method", "klip-frame")
     assert f"FWHM {fwhm_psf:.3f} px, measured on" in p.stderr
     with fits.open(tmp_path / "l.limits.fits") as h:
         assert any(abs(hd.header.get("GLFWHM", -1) - fwhm_psf) < 1e-9 for hd in h)
     # limits and vet have a PSF: without --fwhm they measure it there too
     p = gloam("limits", aligned, "--psf", sim / "psf.fits", "--out", tmp_path / "l0",
-              "--modes", "3")
+              "--modes", "3", "--method", "klip-frame")
     assert f"FWHM {fwhm_psf:.3f} px, measured on" in p.stderr
     assert (tmp_path / "l0.limits.csv").read_bytes() == (tmp_path / "l.limits.csv").read_bytes()
     # recorded by subtract, read by detect (default) and detect --fwhm auto
@@ -145,7 +155,8 @@ def test_fwhm_auto(sim, aligned, tmp_path):
     # --psf before anything else (whatever vet then makes of the candidates)
     gloam("detect", tmp_path / "s.fits", "--out", tmp_path / "c", "--threshold", "3", "--quiet")
     p = gloam("vet", aligned, "--psf", sim / "psf.fits", "--fwhm", "auto", "--candidates",
-              tmp_path / "c.candidates.csv", "--out", tmp_path / "v", "--modes", "3", ok=False)
+              tmp_path / "c.candidates.csv", "--out", tmp_path / "v", "--modes", "3",
+              "--method", "klip-frame", ok=False)
     assert f"FWHM {fwhm_psf:.3f} px, measured on" in p.stderr, p.stderr
     # inspect --fwhm auto: from --psf, else the record
     p = gloam("inspect", aligned, "--fwhm", "auto", "--psf", sim / "psf.fits")
