@@ -5,11 +5,13 @@
  * noncentral t) computed for these arguments and copied here; the same
  * comparison runs live against scipy in tests/py/test_limits.py. Invariants:
  * delta = 0 gives the false-positive fraction scipy.stats.t.sf(tau, nu), and
- * completeness grows with delta. Contrast curves: the contrast is inversely
- * proportional to the PSF scale (the star flux) with everything else equal,
- * the 50% curve lies below the NN% curve, and bad parameters are refused with
- * nothing returned (the numbers themselves are checked against photutils and
- * scipy in tests/py/test_limits.py).
+ * completeness grows with delta; a Bessel table kept from one calibration
+ * point to the next gives the numbers of a table of the point's own.
+ * Contrast curves: the contrast is inversely proportional to the PSF scale
+ * (the star flux) with everything else equal, the 50% curve lies below the
+ * NN% curve, and bad parameters are refused with nothing returned (the
+ * numbers themselves are checked against photutils and scipy in
+ * tests/py/test_limits.py).
  */
 #include "gloam/gloam.h"
 #include "check.h"
@@ -145,6 +147,46 @@ static void test_completeness_lobes_table(void)
     gsl_rng_free(rng);
 }
 
+/* A Bessel table kept from point to point (as the curve's threads keep
+ * theirs) gives the numbers of a table of the point's own: after a point of
+ * another order (the table replaced) and again with its pieces already
+ * built (the table reused), bit for bit. */
+static void test_calibrate_kept_table(void)
+{
+    gl_limits_fake fakes[6] = {0};
+    for (int i = 0; i < 6; i++) {
+        fakes[i].sep_px = 10 + i;
+        fakes[i].throughput[0] = 0.6 + 0.01 * i;
+        fakes[i].signal[0] = 0.65 + 0.015 * i - 0.002 * i * i;
+        fakes[i].ref_spread[0] = 0.2 + 0.01 * (i % 3);
+    }
+    limits_point base = {.sep_px = 12.5,
+                         .fwhm = 4,
+                         .noise = 0.15,
+                         .tau = 6.2,
+                         .nref = 17,
+                         .noise_dof = 15,
+                         .psf_flux = 1e4,
+                         .q = 0.95};
+    limits_point own = base, other = base, replaced = base, reused = base;
+    gl_limits_calibrate_point(&own, fakes, 6, 0, NULL);
+    limits_bessel_table *keep = NULL;
+    other.nref = 23;
+    other.tau = 5.1;
+    gl_limits_calibrate_point(&other, fakes, 6, 0, &keep);
+    gl_limits_calibrate_point(&replaced, fakes, 6, 0, &keep);
+    gl_limits_calibrate_point(&reused, fakes, 6, 0, &keep);
+    gl_limits_bessel_table_free(keep);
+    CHECK(isfinite(own.contrast_c50) && isfinite(own.contrast_cq) && own.completeness > 0,
+          "calibrated: c50 %g, c95 %g, completeness %g", own.contrast_c50, own.contrast_cq,
+          own.completeness);
+    const limits_point *p[2] = {&replaced, &reused};
+    for (int k = 0; k < 2; k++)
+        CHECK(p[k]->contrast_c50 == own.contrast_c50 && p[k]->contrast_cq == own.contrast_cq &&
+                  p[k]->completeness == own.completeness && p[k]->contrast == own.contrast,
+              "%s table: the numbers of a table of its own", k ? "reused" : "replaced");
+}
+
 /* White Gaussian noise cube (no star) and a Gaussian PSF stamp. */
 static void test_curves(void)
 {
@@ -217,6 +259,7 @@ int main(void)
     test_completeness();
     test_completeness_lobes();
     test_completeness_lobes_table();
+    test_calibrate_kept_table();
     test_curves();
     CHECK_DONE();
 }

@@ -221,7 +221,8 @@ static double solve(window *w, double q)
     return x;
 }
 
-void gl_limits_calibrate_point(limits_point *pt, const gl_limits_fake *fakes, int nfakes, int plane)
+void gl_limits_calibrate_point(limits_point *pt, const gl_limits_fake *fakes, int nfakes, int plane,
+                               limits_bessel_table **bessel)
 {
     pt->throughput = pt->throughput_scatter = pt->fakes_used = pt->signal = NAN;
     pt->contrast = pt->completeness = pt->contrast_c50 = pt->contrast_cq = NAN;
@@ -286,7 +287,12 @@ void gl_limits_calibrate_point(limits_point *pt, const gl_limits_fake *fakes, in
         return;
     double k = sqrt(1 + 1 / pt->nref);
     window w = {.n = n, .tau = pt->tau, .nu = pt->nref - 1};
-    w.bessel = gl_limits_bessel_table_new(w.nu / 2 - 1);
+    /* the table's pieces depend on its order only: one kept from the
+     * previous point of that order gives the same values */
+    if (bessel)
+        w.bessel = *bessel = gl_limits_bessel_table_keep(*bessel, w.nu / 2 - 1);
+    else
+        w.bessel = gl_limits_bessel_table_new(w.nu / 2 - 1);
     noise_nodes(&w, pt->noise_dof);
     double H = line_at(r, h, n, pt->sep_px, minspread);
     for (int i = 0; i < n; i++) {
@@ -306,5 +312,6 @@ void gl_limits_calibrate_point(limits_point *pt, const gl_limits_fake *fakes, in
     pt->completeness = mean_completeness(&w, pt->contrast / unit);
     pt->contrast_c50 = solve(&w, 0.5) * unit;
     pt->contrast_cq = solve(&w, pt->q) * unit;
-    gl_limits_bessel_table_free(w.bessel);
+    if (!bessel)
+        gl_limits_bessel_table_free(w.bessel);
 }

@@ -205,7 +205,7 @@ static double provisional_level(const gl_limits_result *r, int j, int b, double 
                        .noise_dof = interp(r->sep_px, r->napertures, r->n, f->sep_px) - 1,
                        .psf_flux = F,
                        .q = 0.95};
-    gl_limits_calibrate_point(&pt, done, nd, 0);
+    gl_limits_calibrate_point(&pt, done, nd, 0, NULL);
     gl_free(done);
     double c = isfinite(pt.contrast_cq) ? pt.contrast_cq : pt.contrast_c50;
     if (!(c > 0))
@@ -477,9 +477,10 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
         /* automatic level: from the second run on, the fakes go in at the
          * 95% contrast the earlier runs give (the subtraction is not linear
          * in the companion's flux: calibrate where the curve will be); each
-         * fake's level from the earlier runs only, so in parallel */
+         * fake's level from the earlier runs only, so in parallel (taken by
+         * the threads as they come free: only the run's fakes cost) */
         if (b > 0 && !(lp->fake_level > 0)) {
-#pragma omp parallel for schedule(static, 1)
+#pragma omp parallel for schedule(dynamic, 1)
             for (int j = 0; j < r.nfakes; j++)
                 if (r.fakes[j].run == b)
                     comps[j].contrast = provisional_level(&r, j, b, fwhm, F);
@@ -513,31 +514,38 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
     }
 
     /* throughput and completeness on the grid, from the fakes around each
-     * separation: every point on its own (static schedule, one thread per
-     * point, interleaved: the same numbers at any thread count) */
+     * separation: every point on its own, the planes of one separation by
+     * one thread (they share the order of the Bessel table, which that
+     * thread keeps), the separations taken by the threads as they come free
+     * (a point's numbers do not depend on which thread computes it or on
+     * what it computed before) */
     gsl_set_error_handler_off();
-#pragma omp parallel for schedule(static, 1)
-    for (long ki = 0; ki < (long)np * n; ki++) {
-        int k = (int)(ki / n);
-        long i = ki % n;
-        size_t j = (size_t)ki;
-        limits_point pt = {.sep_px = r.sep_px[i],
-                           .fwhm = fwhm,
-                           .noise = r.noise[j],
-                           .tau = r.t_threshold[j],
-                           .nref = r.dof[j] + 1,
-                           .noise_dof = r.napertures[j] - 1,
-                           .psf_flux = F,
-                           .q = lp->completeness};
-        gl_limits_calibrate_point(&pt, r.fakes, r.nfakes, k);
-        r.throughput[j] = pt.throughput;
-        r.signal[j] = pt.signal;
-        r.throughput_scatter[j] = pt.throughput_scatter;
-        r.fakes_used[j] = pt.fakes_used;
-        r.contrast[j] = pt.contrast;
-        r.completeness_of_contrast[j] = pt.completeness;
-        r.contrast_c50[j] = pt.contrast_c50;
-        r.contrast_cq[j] = pt.contrast_cq;
+#pragma omp parallel
+    {
+        limits_bessel_table *bessel = NULL; /* this thread's */
+#pragma omp for schedule(dynamic, 1)
+        for (long i = 0; i < n; i++)
+            for (int k = 0; k < np; k++) {
+                size_t j = (size_t)k * (size_t)n + (size_t)i;
+                limits_point pt = {.sep_px = r.sep_px[i],
+                                   .fwhm = fwhm,
+                                   .noise = r.noise[j],
+                                   .tau = r.t_threshold[j],
+                                   .nref = r.dof[j] + 1,
+                                   .noise_dof = r.napertures[j] - 1,
+                                   .psf_flux = F,
+                                   .q = lp->completeness};
+                gl_limits_calibrate_point(&pt, r.fakes, r.nfakes, k, &bessel);
+                r.throughput[j] = pt.throughput;
+                r.signal[j] = pt.signal;
+                r.throughput_scatter[j] = pt.throughput_scatter;
+                r.fakes_used[j] = pt.fakes_used;
+                r.contrast[j] = pt.contrast;
+                r.completeness_of_contrast[j] = pt.completeness;
+                r.contrast_c50[j] = pt.contrast_c50;
+                r.contrast_cq[j] = pt.contrast_cq;
+            }
+        gl_limits_bessel_table_free(bessel);
     }
     gl_progress("limits", 1 + lp->fake_runs, 1 + lp->fake_runs);
     long usable = 0, low = 0, capped = 0, capped95 = 0;

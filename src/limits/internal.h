@@ -23,19 +23,26 @@ typedef struct limits_point {
     double contrast, completeness, contrast_c50, contrast_cq;
 } limits_point;
 
+typedef struct limits_bessel_table limits_bessel_table;
+
 /* Fills the results of pt from the fakes (plane `plane`): throughput by a
  * local linear fit of the fakes within 1.5 FWHM, the classical contrast, and
  * the contrasts at 50% and q completeness of the fake-averaged doubly
- * noncentral t model (calibrate.c). Results NaN where no value exists. */
-void gl_limits_calibrate_point(limits_point *pt, const gl_limits_fake *fakes, int nfakes,
-                               int plane);
+ * noncentral t model (calibrate.c). Results NaN where no value exists.
+ * bessel: NULL, or the calling thread's Bessel table kept from call to call
+ * (NULL at first; the caller frees it), used again where the point's order
+ * is the same (the planes of one separation) and replaced otherwise. */
+void gl_limits_calibrate_point(limits_point *pt, const gl_limits_fake *fakes, int nfakes, int plane,
+                               limits_bessel_table **bessel);
 
 /* log(exp(-x) I_o(x) / x^o) of one order o, tabulated piece by piece as
  * the quadrature asks for it (completeness.c); one per thread. NULL for an
  * order <= -1 or on allocation failure. */
-typedef struct limits_bessel_table limits_bessel_table;
 limits_bessel_table *gl_limits_bessel_table_new(double order);
 void gl_limits_bessel_table_free(limits_bessel_table *t);
+/* t where it has this order, else a new table of it (t freed); NULL on
+ * failure */
+limits_bessel_table *gl_limits_bessel_table_keep(limits_bessel_table *t, double order);
 
 /* gl_limits_completeness_lobes with the Bessel function from the table of
  * order nu/2 - 1 (evaluated directly when t is NULL or of another order). */
