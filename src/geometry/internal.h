@@ -27,7 +27,7 @@ struct gl_geom_work {
     fftwf_complex *specb;   /* GL_GEOM_BATCH spectra of pad/2+1 */
     fftwf_complex *phase_x; /* nx/2+1: phase ramp along x for a 2-D shift */
     fftwf_complex *phase_y; /* ny */
-    double *ramp;           /* 8 x (pad/2+1): shear phase tables (rotate.c) */
+    double *ramp;           /* 8 x (pad/2+1) + 4: shear phase tables (rotate.c) */
     fftwf_complex *group_x; /* GL_GEOM_STAMP_GROUP x (nx/2+1): x ramps of a group of copies */
     fftwf_complex *group_y; /* ny x GL_GEOM_STAMP_GROUP: their weighted y ramps (stamp.c) */
 };

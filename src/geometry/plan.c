@@ -146,7 +146,7 @@ gl_status gl_geom_work_new(const gl_geom_plan *p, gl_geom_work **out)
         w->specb = gl_malloc((size_t)GL_GEOM_BATCH * (pad / 2 + 1) * sizeof(fftwf_complex));
         w->phase_x = gl_malloc((size_t)(p->nx / 2 + 1) * sizeof(fftwf_complex));
         w->phase_y = gl_malloc((size_t)p->ny * sizeof(fftwf_complex));
-        w->ramp = gl_malloc(8 * (pad / 2 + 1) * sizeof(double));
+        w->ramp = gl_malloc((8 * (pad / 2 + 1) + 4) * sizeof(double));
         w->group_x = gl_malloc((size_t)GL_GEOM_STAMP_GROUP * (size_t)(p->nx / 2 + 1) *
                                sizeof(fftwf_complex));
         w->group_y = gl_malloc((size_t)GL_GEOM_STAMP_GROUP * (size_t)p->ny * sizeof(fftwf_complex));

@@ -76,6 +76,13 @@ static void shear_tables(long P, double s, long j0, double *ramp)
 {
     long m = P / 2 + 1, C = P / 2;
     double *er = ramp, *ei = er + m, *br = ei + m, *bi = br + m, *e8r = bi + m, *e8i = e8r + m;
+    /* the Nyquist factor of line j, cos(pi s (j - C)), as the real part of
+     * exp(i pi s (j - C)), by the same recurrence from line j0 */
+    double *nyq = ramp + 8 * m;
+    nyq[0] = cos(M_PI * s * (double)(j0 - C));
+    nyq[1] = sin(M_PI * s * (double)(j0 - C));
+    nyq[2] = cos(M_PI * s);
+    nyq[3] = sin(M_PI * s);
     double a1 = -2 * M_PI * s / (double)P, q[3][2];
     double ang[3] = {a1, GL_GEOM_BATCH * a1, a1 * (double)(j0 - C)};
     double *re[3] = {er, e8r, br}, *im[3] = {ei, e8i, bi};
@@ -93,14 +100,14 @@ static void shear_tables(long P, double s, long j0, double *ramp)
     }
 }
 
-/* Applies the phases to the GL_GEOM_BATCH spectra of w->specb for lines
- * j0 .. j0 + BATCH - 1 (d0: the shift of line j0, s: its step), then moves
- * the tables one batch on. An even length's Nyquist bin gets the real factor
- * cos(pi d) / P, which keeps the spectrum Hermitian (see shift.c). */
+/* Applies the phases to the GL_GEOM_BATCH spectra of w->specb for the next
+ * lines of the tables (shear_tables), then moves the tables one batch on.
+ * An even length's Nyquist bin gets the real factor cos(pi d) / P (d the
+ * line's shift), which keeps the spectrum Hermitian (see shift.c). */
 /* AVX-512 or AVX2 where the processor has it: the same IEEE operations (no
  * fused multiply-add in ISO C mode), four or two times the lanes. */
 __attribute__((target_clones("avx512f", "avx2", "default"))) static void
-shear_batch(long P, double d0, double s, double *ramp, fftwf_complex *spec)
+shear_batch(long P, double *ramp, fftwf_complex *spec)
 {
     long m = P / 2 + 1, kend = P % 2 == 0 ? m - 1 : m;
     double *er = ramp, *ei = er + m, *br = ei + m, *bi = br + m, *e8r = bi + m, *e8i = e8r + m;
@@ -118,9 +125,12 @@ shear_batch(long P, double d0, double s, double *ramp, fftwf_complex *spec)
             pr[k] = t;
         }
         if (P % 2 == 0) {
-            double c = cos(M_PI * (d0 + s * b)) / (double)P;
+            double *nyq = ramp + 8 * m, c = nyq[0] / (double)P;
             z[2 * (m - 1)] = (float)(z[2 * (m - 1)] * c);
             z[2 * (m - 1) + 1] = (float)(z[2 * (m - 1) + 1] * c);
+            double t = nyq[0] * nyq[2] - nyq[1] * nyq[3];
+            nyq[1] = nyq[0] * nyq[3] + nyq[1] * nyq[2];
+            nyq[0] = t;
         }
     }
     for (long k = 0; k < m; k++) {
@@ -145,12 +155,12 @@ static void row_batches(long lo, long hi, long P, long *j0, long *j1)
  * shear of an empty row is empty, so batches may run past the content). */
 static void shear_rows(const gl_geom_plan *p, gl_geom_work *w, double a, long j0, long j1)
 {
-    long P = p->pad, C = P / 2;
+    long P = p->pad;
     shear_tables(P, a, j0, w->ramp);
     for (; j0 <= j1; j0 += GL_GEOM_BATCH) {
         float *rows = w->padded + j0 * P;
         fftwf_execute_dft_r2c(p->rows_fwd, rows, w->specb);
-        shear_batch(P, a * (double)(j0 - C), a, w->ramp, w->specb);
+        shear_batch(P, w->ramp, w->specb);
         fftwf_execute_dft_c2r(p->rows_inv, w->specb, rows);
     }
 }
@@ -165,7 +175,7 @@ static void shear_cols(const gl_geom_plan *p, gl_geom_work *w, double b, long lo
                        long r1, long o0, long o1)
 {
     enum { B = GL_GEOM_BATCH };
-    long P = p->pad, C = P / 2, i0 = batch_start(lo);
+    long P = p->pad, i0 = batch_start(lo);
     float *t = w->lines;
     for (int q = 0; q < B; q++) {
         memset(t + (size_t)q * (size_t)P, 0, (size_t)r0 * sizeof *t);
@@ -179,7 +189,7 @@ static void shear_cols(const gl_geom_plan *p, gl_geom_work *w, double b, long lo
                 t[(size_t)q * (size_t)P + (size_t)y] = src[q];
         }
         fftwf_execute_dft_r2c(p->rows_fwd, t, w->specb);
-        shear_batch(P, b * (double)(i0 - C), b, w->ramp, w->specb);
+        shear_batch(P, w->ramp, w->specb);
         fftwf_execute_dft_c2r(p->rows_inv, w->specb, t);
         for (long y = o0; y <= o1; y++) {
             float *dst = w->padded + y * P + i0;
