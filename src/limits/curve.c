@@ -36,6 +36,7 @@
 #include "core/internal.h"
 #include "gloam/detect.h"
 #include "limits/internal.h"
+#include "subtract/memo.h"
 
 #include <gsl/gsl_errno.h>
 #include <math.h>
@@ -277,6 +278,7 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
     gl_aperture_plan *ap = NULL;
     gl_cube *work_cube = NULL;
     gl_companion *comps = NULL;
+    gl_subtract_memo *memo = NULL;
     int *order = NULL;
     double *work = NULL, *xs = NULL, *ys = NULL, *sums = NULL, *snr_work = NULL;
     gl_status st = GL_OK;
@@ -349,7 +351,13 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
 
     /* the subtraction as the user asked for it */
     gl_progress("limits", 0, 1 + lp->fake_runs);
-    if ((st = gl_subtract_run(cube, angles, refs, &sp1, &base)))
+    /* the runs with fakes derotate the same frames at the same angles, with
+     * the same NaN pixels: their derotation masks are kept from this run */
+    if (!(memo = gl_subtract_memo_new())) {
+        st = gl_error_nomem("derotation masks");
+        goto cleanup;
+    }
+    if ((st = gl_subtract_run_memo(cube, angles, refs, &sp1, memo, &base)))
         goto cleanup;
     int np = (int)base.image->nframe;
     r.nplanes = np;
@@ -497,12 +505,21 @@ gl_status gl_limits_compute(const gl_cube *cube, const double *angles, const gl_
                 if (r.fakes[j].batch == g)
                     comps[nc++] =
                         (gl_companion){r.fakes[j].sep_px, r.fakes[j].pa_deg, r.fakes[j].contrast};
-            memcpy(work_cube->data, cube->data, gl_cube_size(cube) * sizeof(float));
+            {
+                /* the copy in pieces over the threads (tens of MB) */
+                size_t total = gl_cube_size(cube), piece = (size_t)1 << 20;
+                long npieces = (long)((total + piece - 1) / piece);
+#pragma omp parallel for schedule(static)
+                for (long q = 0; q < npieces; q++) {
+                    size_t o = (size_t)q * piece, len = total - o < piece ? total - o : piece;
+                    memcpy(work_cube->data + o, cube->data + o, len * sizeof(float));
+                }
+            }
             if ((st = gl_inject_companions(work_cube, angles, sp->north_offset, psf, comps, nc,
                                            NULL)))
                 goto cleanup;
             gl_subtract_result_free(&run);
-            if ((st = gl_subtract_run(work_cube, angles, refs, &sp1, &run)))
+            if ((st = gl_subtract_run_memo(work_cube, angles, refs, &sp1, memo, &run)))
                 goto cleanup;
             for (int j = 0; j < r.nfakes; j++)
                 if (r.fakes[j].batch == g)
@@ -612,6 +629,7 @@ cleanup:
     gl_subtract_result_free(&run);
     gl_detect_aperture_plan_free(ap);
     gl_cube_free(work_cube);
+    gl_subtract_memo_free(memo);
     gl_free(comps);
     gl_free(order);
     gl_free(work);

@@ -72,16 +72,78 @@ fail:
     return st;
 }
 
-gl_status sub_sink_keep_masks(sub_sink *s)
+gl_subtract_memo *gl_subtract_memo_new(void)
+{
+    return gl_calloc(1, sizeof(gl_subtract_memo));
+}
+
+static void memo_arrays_free(gl_subtract_memo *m)
+{
+    gl_free(m->in);
+    gl_free(m->out);
+    gl_free(m->angle);
+    gl_free(m->known);
+    m->in = m->out = NULL;
+    m->angle = NULL;
+    m->known = NULL;
+}
+
+void gl_subtract_memo_free(gl_subtract_memo *m)
+{
+    if (!m)
+        return;
+    memo_arrays_free(m);
+    gl_free(m);
+}
+
+/* The memo's arrays for c's frames, made (and cleared) unless they are
+ * already those of frames of this size and count, derotated with the same
+ * interpolator. */
+static gl_status memo_fit(gl_subtract_memo *m, const sub_ctx *c, size_t bytes)
+{
+    if (m->in && m->nx == c->nx && m->ny == c->ny && m->nframe == c->nframe && m->bytes == bytes &&
+        m->interp == (int)c->p->interp)
+        return GL_OK;
+    memo_arrays_free(m);
+    m->interp = (int)c->p->interp;
+    m->nx = c->nx;
+    m->ny = c->ny;
+    m->nframe = c->nframe;
+    m->bytes = bytes;
+    m->in = gl_malloc(bytes * (size_t)c->nframe);
+    m->out = gl_malloc(bytes * (size_t)c->nframe);
+    m->angle = gl_malloc(sizeof(double) * (size_t)c->nframe);
+    m->known = gl_calloc((size_t)c->nframe, sizeof(int));
+    if (!m->in || !m->out || !m->angle || !m->known) {
+        memo_arrays_free(m);
+        return gl_error_nomem("derotation masks");
+    }
+    return GL_OK;
+}
+
+gl_status sub_sink_keep_masks(sub_sink *s, gl_subtract_memo *memo)
 {
     const sub_ctx *c = s->c;
     s->mask_bytes = ((size_t)c->npix + 7) / 8;
+    s->mask_scratch = gl_malloc(s->mask_bytes * (size_t)s->nth);
+    if (!s->mask_scratch)
+        return gl_error_nomem("derotation masks");
+    if (memo) {
+        gl_status st = memo_fit(memo, c, s->mask_bytes);
+        if (st)
+            return st;
+        s->mask_in = memo->in;
+        s->mask_out = memo->out;
+        s->mask_angle = memo->angle;
+        s->mask_known = memo->known;
+        s->masks_lent = 1;
+        return GL_OK;
+    }
     s->mask_in = gl_malloc(s->mask_bytes * (size_t)c->nframe);
     s->mask_out = gl_malloc(s->mask_bytes * (size_t)c->nframe);
-    s->mask_scratch = gl_malloc(s->mask_bytes * (size_t)s->nth);
     s->mask_angle = gl_malloc(sizeof(double) * (size_t)c->nframe);
     s->mask_known = gl_calloc((size_t)c->nframe, sizeof(int));
-    if (!s->mask_in || !s->mask_out || !s->mask_scratch || !s->mask_angle || !s->mask_known)
+    if (!s->mask_in || !s->mask_out || !s->mask_angle || !s->mask_known)
         return gl_error_nomem("derotation masks");
     return GL_OK;
 }
@@ -111,11 +173,13 @@ void sub_sink_free(sub_sink *s)
 {
     if (!s)
         return;
-    gl_free(s->mask_in);
-    gl_free(s->mask_out);
+    if (!s->masks_lent) {
+        gl_free(s->mask_in);
+        gl_free(s->mask_out);
+        gl_free(s->mask_angle);
+        gl_free(s->mask_known);
+    }
     gl_free(s->mask_scratch);
-    gl_free(s->mask_angle);
-    gl_free(s->mask_known);
     if (s->works)
         for (int t = 0; t < s->nth; t++)
             gl_geom_work_free(s->works[t]);

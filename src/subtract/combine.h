@@ -6,6 +6,7 @@
 #define GLOAM_SUBTRACT_COMBINE_H
 
 #include "subtract/internal.h"
+#include "subtract/memo.h"
 
 typedef struct sub_sink {
     const sub_ctx *c;
@@ -28,6 +29,7 @@ typedef struct sub_sink {
     double *mask_angle;
     int *mask_known;
     size_t mask_bytes; /* bytes of one frame's bits */
+    int masks_lent;    /* the per-frame masks belong to a gl_subtract_memo */
 } sub_sink;
 
 /* Builds the sink for ctx (geometry plan and per-thread work). */
@@ -36,8 +38,9 @@ gl_status sub_sink_new(const sub_ctx *c, gl_cube *image, gl_cube *resid, gl_cube
 void sub_sink_free(sub_sink *s);
 /* Keeps each frame's derotated NaN mask from one mode count to the next
  * (reused when the frame's angle and input NaN pixels are the same): a
- * quarter bit per pixel and frame. */
-gl_status sub_sink_keep_masks(sub_sink *s);
+ * quarter bit per pixel and frame; in memo when given (kept beyond the run,
+ * memo.h), else the sink's own. */
+gl_status sub_sink_keep_masks(sub_sink *s, gl_subtract_memo *memo);
 /* Inverse residual variance per frame of s->c and ring (0 where undefined)
  * into s->weights, from resid before derotation. */
 void sub_sink_weights(sub_sink *s, const float *resid);

@@ -244,6 +244,13 @@ gl_status sub_record_params(gl_header *h, const gl_subtract_params *p, const sub
 gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cube *refs,
                           const gl_subtract_params *p, gl_subtract_result *out)
 {
+    return gl_subtract_run_memo(cube, angles, refs, p, NULL, out);
+}
+
+gl_status gl_subtract_run_memo(const gl_cube *cube, const double *angles, const gl_cube *refs,
+                               const gl_subtract_params *p, gl_subtract_memo *memo,
+                               gl_subtract_result *out)
+{
     gl_status st = GL_OK;
     float *sci_owned = NULL, *ref_avg = NULL, *ref_sel = NULL, *work = NULL;
     unsigned char *usable = NULL;
@@ -483,9 +490,10 @@ gl_status gl_subtract_run(const gl_cube *cube, const double *angles, const gl_cu
     c.work = work;
     st = sub_sink_new(&c, res.image, res.residuals, res.raw_residuals, &sink);
     /* several mode counts: every frame is derotated once per count, with the
-     * same angle and (for most methods) the same NaN pixels */
-    if (!st && res.image->nframe > 1)
-        st = sub_sink_keep_masks(sink);
+     * same angle and (for most methods) the same NaN pixels; with a memo,
+     * also from one run to the next */
+    if (!st && (res.image->nframe > 1 || memo))
+        st = sub_sink_keep_masks(sink, memo);
     if (st)
         goto cleanup;
     c.sink = sub_sink_put;
