@@ -228,7 +228,10 @@ gl_status sub_sink_derotate(sub_sink *s, float *resid)
 {
     const sub_ctx *c = s->c;
     size_t plane = (size_t)c->npix;
-#pragma omp parallel for schedule(static)
+    /* frames handed out as threads come free (each frame is derotated by
+     * one thread whichever it is: the same result at any count): a thread
+     * held up by the system no longer leaves the other idle at the end */
+#pragma omp parallel for schedule(dynamic, 4)
     for (long i = 0; i < c->nframe; i++) {
         s->fstat[i] = GL_OK;
         if (!c->usable[i])
@@ -272,7 +275,7 @@ gl_status sub_sink_put(void *sink, int mode_index, float *resid)
         /* blocks of COMBINE_BLOCK pixels: each frame's run of the block is
          * read once (a cache line) into the block's per-pixel stacks */
         long nb = (c->npix + COMBINE_BLOCK - 1) / COMBINE_BLOCK;
-#pragma omp parallel for schedule(static)
+#pragma omp parallel for schedule(dynamic, 32)
         for (long b = 0; b < nb; b++) {
             float *buf =
                 s->scratch + (size_t)omp_get_thread_num() * COMBINE_BLOCK * (size_t)c->nframe;
