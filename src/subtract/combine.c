@@ -21,6 +21,7 @@
 #include "subtract/combine.h"
 
 #include <math.h>
+#include <stdint.h>
 #include <omp.h>
 #include <string.h>
 
@@ -93,7 +94,19 @@ void gl_subtract_memo_free(gl_subtract_memo *m)
     if (!m)
         return;
     memo_arrays_free(m);
+    for (int i = 0; i < GL_SUBTRACT_MEMO_BUFS; i++)
+        gl_free(m->buf[i]);
     gl_free(m);
+}
+
+float *gl_subtract_memo_buffer(gl_subtract_memo *m, int slot, size_t n)
+{
+    if (m->buf[slot] && m->buf_n[slot] >= n)
+        return m->buf[slot];
+    gl_free(m->buf[slot]);
+    m->buf[slot] = n <= SIZE_MAX / sizeof(float) ? gl_malloc(n * sizeof(float)) : NULL;
+    m->buf_n[slot] = m->buf[slot] ? n : 0;
+    return m->buf[slot];
 }
 
 /* The memo's arrays for c's frames, made (and cleared) unless they are

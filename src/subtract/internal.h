@@ -60,11 +60,12 @@ typedef struct sub_ctx {
     const double *angles;        /* nframe, degrees */
     const unsigned char *usable; /* nframe: 1 when the frame holds data */
     long nusable;
-    long nref;          /* selected reference frames (0: no RDI) */
-    const float *ref;   /* nref x npix */
-    double r_in, r_out; /* region radii, px */
-    float *work;        /* nframe x npix scratch handed to the sink */
-    sub_report *report; /* filled by the per-target KLIP methods */
+    long nref;                     /* selected reference frames (0: no RDI) */
+    const float *ref;              /* nref x npix */
+    double r_in, r_out;            /* region radii, px */
+    float *work;                   /* nframe x npix scratch handed to the sink */
+    struct gl_subtract_memo *memo; /* kept between runs (memo.h), or NULL */
+    sub_report *report;            /* filled by the per-target KLIP methods */
     sub_sink_fn sink;
     void *sink_data;
 } sub_ctx;

@@ -4,12 +4,17 @@
  * subtraction three times, on the cube and on copies with fakes, which add
  * no NaN). A frame's kept mask is used only when its angle and its input
  * NaN pixels are those it was made from (combine.c), so a memo can be given
- * to any run; one for other frames or another size is cleared first.
+ * to any run; one for other frames or another size is cleared first. It also
+ * keeps the runs' large scratch buffers.
  */
 #ifndef GLOAM_SUBTRACT_MEMO_H
 #define GLOAM_SUBTRACT_MEMO_H
 
 #include "gloam/subtract.h"
+
+#include <stddef.h>
+
+enum { GL_SUBTRACT_MEMO_WORK, GL_SUBTRACT_MEMO_MATRIX, GL_SUBTRACT_MEMO_BUFS };
 
 typedef struct gl_subtract_memo {
     long nx, ny, nframe;
@@ -18,7 +23,15 @@ typedef struct gl_subtract_memo {
     unsigned char *in, *out; /* per frame: input and derotated NaN bits */
     double *angle;           /* per frame: the angle they were made at */
     int *known;              /* per frame: set */
+    /* the runs' large scratch (residual frames, data matrix) kept between
+     * them: their pages are not faulted in and cleared again each run */
+    float *buf[GL_SUBTRACT_MEMO_BUFS];
+    size_t buf_n[GL_SUBTRACT_MEMO_BUFS];
 } gl_subtract_memo;
+
+/* A scratch buffer of at least n floats in slot `slot` of memo, kept for the
+ * next run (its content is not), or NULL when out of memory. */
+float *gl_subtract_memo_buffer(gl_subtract_memo *m, int slot, size_t n);
 
 /* An empty memo (sized at its first use); NULL when out of memory. */
 gl_subtract_memo *gl_subtract_memo_new(void);

@@ -18,6 +18,7 @@
  * residual buffer, whatever the number of counts.
  */
 #include "subtract/internal.h"
+#include "subtract/memo.h"
 
 #include <math.h>
 #include <omp.h>
@@ -43,7 +44,9 @@ static gl_status pca_run(const sub_ctx *c)
     if (st)
         goto cleanup;
     long npr = reg.npix;
-    M = gl_malloc(sizeof(float) * (size_t)nrow * (size_t)npr);
+    M = c->memo
+            ? gl_subtract_memo_buffer(c->memo, GL_SUBTRACT_MEMO_MATRIX, (size_t)nrow * (size_t)npr)
+            : gl_malloc(sizeof(float) * (size_t)nrow * (size_t)npr);
     flags = gl_calloc((size_t)nrow, 1);
     has_nan = gl_calloc((size_t)nrow, 1);
     if (!M || !flags || !has_nan) {
@@ -150,7 +153,8 @@ static gl_status pca_run(const sub_ctx *c)
 cleanup:
     sub_region_free(&reg);
     sub_basis_free(&basis);
-    gl_free(M);
+    if (!c->memo)
+        gl_free(M);
     gl_free(coef);
     gl_free(flags);
     gl_free(has_nan);

@@ -482,7 +482,13 @@ gl_status gl_subtract_run_memo(const gl_cube *cube, const double *angles, const 
         st = gl_cube_new(nx, ny, nplanes, nf, &res.raw_residuals);
     if (st)
         goto cleanup;
-    work = gl_malloc(sizeof(float) * np * (size_t)nf);
+    {
+        size_t nw = np * (size_t)nf;
+        if (memo)
+            c.memo = memo;
+        work = memo ? gl_subtract_memo_buffer(memo, GL_SUBTRACT_MEMO_WORK, nw)
+                    : gl_malloc(sizeof(float) * nw);
+    }
     if (!work) {
         st = gl_error_nomem("residual frames");
         goto cleanup;
@@ -572,7 +578,8 @@ cleanup:
     gl_free(sci_owned);
     gl_free(ref_avg);
     gl_free(ref_sel);
-    gl_free(work);
+    if (!memo)
+        gl_free(work);
     gl_free(usable);
     return st;
 }
