@@ -52,7 +52,7 @@ echo "== 6. contrast curve calibrated with fake companions, and the candidates' 
   --out "$out/klip5" --overwrite
 
 echo "contrast of the candidates ($out/klip5.companions.csv), against the planted values above:"
-cut -d, -f1,4,6,10,11 "$out/klip5.companions.csv" | sed 's/,/\t/g'
+cut -d, -f1,4,6,12,13 "$out/klip5.companions.csv" | sed 's/,/\t/g'
 
 echo
 echo "== 7. vetting the candidates: negative fake companion fit with errors, tests of speckle or planet"
