@@ -41,13 +41,15 @@ static const char *const basis_names[] = {"all", "all-but-target", "beyond-gap"}
  * libraries held fewer modes than asked, and frames left NaN for want of
  * references. Fills the counts of res; writes the text (empty when nothing
  * was capped) into text. */
-static void report_summary(const sub_report *r, gl_subtract_result *res, char *text, size_t size)
+static void report_summary(const sub_report *r, gl_subtract_result *res, char *text, size_t size,
+                           long *nlisted)
 {
     size_t len = 0;
     text[0] = '\0';
     res->rings_capped = 0;
     res->frames_without_refs = 0;
     res->fewest_modes = r->kasked;
+    *nlisted = 0;
     int listed = 0;
     for (long k = 0; k < r->nring; k++) {
         int capped = r->kmin[k] >= 0 && r->kmin[k] < r->kasked;
@@ -57,6 +59,7 @@ static void report_summary(const sub_report *r, gl_subtract_result *res, char *t
             res->fewest_modes = GL_SUB_MIN(res->fewest_modes, r->kmin[k]);
         if (!capped && !r->noref[k])
             continue;
+        ++*nlisted;
         if (listed++ >= 12) {
             if (listed == 14 && len < size)
                 len += (size_t)snprintf(text + len, size - len, "; ...");
@@ -530,7 +533,8 @@ gl_status gl_subtract_run_memo(const gl_cube *cube, const double *angles, const 
             goto cleanup;
         }
         char text[1024];
-        report_summary(&report, &res, text, sizeof text);
+        long nlisted = 0; /* rings with fewer modes than asked or frames without any */
+        report_summary(&report, &res, text, sizeof text, &nlisted);
         char none[96] = "";
         if (res.frames_without_refs)
             snprintf(none, sizeof none, "; %ld ring-frame pair%s had none (left NaN)",
@@ -539,8 +543,8 @@ gl_status gl_subtract_run_memo(const gl_cube *cube, const double *angles, const 
             gl_log(GL_LOG_WARN,
                    "%s: the libraries held fewer references than asked (%ld mode%s) in %ld "
                    "ring%s%s: %s",
-                   method->name, kmax, kmax == 1 ? "" : "s", res.rings_capped,
-                   res.rings_capped == 1 ? "" : "s", none, text);
+                   method->name, kmax, kmax == 1 ? "" : "s", nlisted, nlisted == 1 ? "" : "s", none,
+                   text);
     }
 
     /* the product header: the input's cards, the parameters, north-up WCS */

@@ -319,6 +319,10 @@ def test_klip_rings_small_libraries_match_numpy(tmp_path):
     assert r.returncode == 0, r.stderr
     warn = [ln for ln in r.stderr.splitlines() if "libraries" in ln]
     assert len(warn) == 1 and "ring 1 (0.0-4.0 px)" in warn[0] and "left NaN" in warn[0], r.stderr
+    # the count it gives is that of the rings it lists
+    import re
+    count = int(re.search(r"\) in (\d+) rings?", warn[0]).group(1))
+    assert count == len(re.findall(r"ring \d+ \(", warn[0])), warn[0]
     raw = fits.getdata(tmp_path / "raw.fits").astype(np.float64)
     want = annular_numpy(cube, angles, FWHM, 0, 20, 1, 0.75, 6)
     m = region_mask(n, 0, 20)
