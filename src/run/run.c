@@ -564,6 +564,37 @@ static void last_line(const char *path, char *out, size_t size)
     fclose(f);
 }
 
+/* The warnings a step wrote to the log from byte `from` on, passed on to
+ * the terminal as the run's own (the log keeps them all): at most
+ * RUN_WARN_SHOWN, then how many more the log holds. */
+#define RUN_WARN_SHOWN 8
+static void pass_warnings(const char *path, long from, const char *target, const char *step)
+{
+    FILE *f = fopen(path, "rb");
+    if (!f)
+        return;
+    if (from > 0 && fseek(f, from, SEEK_SET) != 0) {
+        fclose(f);
+        return;
+    }
+    char line[2048];
+    long n = 0;
+    while (fgets(line, sizeof line, f)) {
+        const char *w = strstr(line, ": warning: ");
+        if (!w)
+            continue;
+        size_t len = strlen(line);
+        while (len && (line[len - 1] == '\n' || line[len - 1] == '\r'))
+            line[--len] = '\0';
+        if (n++ < RUN_WARN_SHOWN)
+            gl_log(GL_LOG_WARN, "%s: %s: %s", target, step, w + strlen(": warning: "));
+    }
+    fclose(f);
+    if (n > RUN_WARN_SHOWN)
+        gl_log(GL_LOG_WARN, "%s: %s: %ld more warnings in %s", target, step, n - RUN_WARN_SHOWN,
+               path);
+}
+
 void run_join_args(const run_cmd *c, char *out, size_t size)
 {
     size_t pos = 0;
@@ -657,9 +688,12 @@ static gl_status run_step(gl_step s, run_cmd *c, const gl_run_params *rp, const 
     gl_status sst = run_snapshot_take(f->folder, &before);
     if (sst)
         return sst;
+    struct stat lst;
+    long log_from = stat(f->log, &lst) == 0 ? (long)lst.st_size : 0;
     double t0 = now_s();
     int rc = exec_step(c->argc + 1, args, c->stdout_path, f->log);
     out->seconds[s] = now_s() - t0;
+    pass_warnings(f->log, log_from, target, step_names[s]);
     if (rc != 0) {
         run_snapshot_free(before);
         out->state[s] = GL_STEP_FAILED;

@@ -402,7 +402,8 @@ def test_a_failed_step_is_reported_and_the_run_stops(sequence, tmp_path):
 
 
 def test_an_empty_frame_is_reported_and_the_run_goes_on(sequence, tmp_path):
-    """inspect reports an all-NaN frame (as empty) instead of failing the run."""
+    """inspect reports an all-NaN frame (as empty) instead of failing the run;
+    align's warning about it is shown on the terminal as well as logged."""
     import json
     import numpy as np
     from astropy.io import fits as afits
@@ -412,11 +413,15 @@ def test_an_empty_frame_is_reported_and_the_run_goes_on(sequence, tmp_path):
         data, hdr = h[0].data.copy(), h[0].header
     data[3] = np.nan
     afits.PrimaryHDU(data, hdr).writeto(d / "sim" / "cube.fits", overwrite=True)
-    plan = write_plan(d, steps=("inspect",))
+    plan = write_plan(d, steps=("inspect", "align"))
     r = gloam("run", plan, "--out", tmp_path / "run")
     assert r.returncode == 0, r.stderr
     rep = json.loads((tmp_path / "run" / "inspect.json").read_text())
     assert rep["empty_frames"] == [{"frame": 3, "channel": 0}]
+    # the steps' warnings reach the terminal, named by the step, not only the log
+    warn = [ln for ln in r.stderr.splitlines() if "warning:" in ln and "align:" in ln]
+    assert any("frame 3 rejected" in ln for ln in warn), r.stderr
+    assert "frame 3 rejected" in (tmp_path / "run" / "log.txt").read_text()
 
 
 def test_a_failed_step_leaves_no_partial_product(sequence, tmp_path):
