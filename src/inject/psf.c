@@ -248,6 +248,7 @@ gl_status gl_psf_model_new(const gl_cube *psf, const char *name, long nx, long n
         (st = gl_geom_work_new(plan, &work)))
         goto cleanup;
 
+    int nan_said = 0;
     for (long c = 0; c < nchan; c++) {
         /* collapse to one plane */
         if (per_channel == 1)
@@ -276,6 +277,22 @@ gl_status gl_psf_model_new(const gl_cube *psf, const char *name, long nx, long n
             goto cleanup;
         }
         double cx = (double)(ipk % pw), cy = (double)(ipk / pw);
+        /* a missing core (masked or saturated) leaves its brightest pixel on
+         * the edge of the hole: no profile can be read there */
+        long nan_near = 0;
+        for (long y = GL_MAX(0, (long)cy - 3); y <= GL_MIN(ph - 1, (long)cy + 3); y++)
+            for (long x = GL_MAX(0, (long)cx - 3); x <= GL_MIN(pw - 1, (long)cx + 3); x++)
+                nan_near +=
+                    isnan(plane[y * pw + x]) && (x - cx) * (x - cx) + (y - cy) * (y - cy) <= 9.0;
+        if (nan_near > 0) {
+            st = gl_error_set(GL_ERR_INPUT,
+                              "%s: %ld pixel%s within 3 px of the PSF's brightest pixel %s NaN%s: "
+                              "its flux, and every contrast, cannot be measured (a masked or "
+                              "saturated core?)",
+                              name, nan_near, nan_near == 1 ? "" : "s",
+                              nan_near == 1 ? "is" : "are", nchan > 1 ? " in a channel" : "");
+            goto cleanup;
+        }
         double fwhm = profile_fwhm(plane, pw, ph, cx, cy);
         light_centre(plane, pw, ph, &cx, &cy, isfinite(fwhm) ? GL_MAX(fwhm, 1.5) : 2.0);
         fwhm = profile_fwhm(plane, pw, ph, cx, cy);
@@ -301,6 +318,35 @@ gl_status gl_psf_model_new(const gl_cube *psf, const char *name, long nx, long n
                               name, 100 * ee, 3 * fwhm, nchan > 1 ? " in a channel" : "");
             goto cleanup;
         }
+        /* missing pixels: in the core the star's flux cannot be had; outside
+         * it they count as 0, which loses their light (said once) */
+        long nan_core = 0, nan_out = 0;
+        for (long y = 0; y < ph; y++)
+            for (long x = 0; x < pw; x++)
+                if (isnan(plane[y * pw + x])) {
+                    double dx = (double)x - cx, dy = (double)y - cy;
+                    if (dx * dx + dy * dy <= 9 * fwhm * fwhm)
+                        nan_core++;
+                    else
+                        nan_out++;
+                }
+        if (nan_core > 0) {
+            st = gl_error_set(GL_ERR_INPUT,
+                              "%s: %ld pixel%s within 3 FWHM (%.1f px) of the PSF's peak %s NaN%s: "
+                              "its flux, and every contrast, cannot be measured (a masked or "
+                              "saturated core?)",
+                              name, nan_core, nan_core == 1 ? "" : "s", 3 * fwhm,
+                              nan_core == 1 ? "is" : "are", nchan > 1 ? " in a channel" : "");
+            goto cleanup;
+        }
+        if (nan_out > 0 && !nan_said) {
+            gl_log(GL_LOG_WARN,
+                   "%s: %ld pixel%s of the PSF beyond 3 FWHM of its peak %s NaN%s and count%s "
+                   "as 0: whatever light they held is missing from the star's flux",
+                   name, nan_out, nan_out == 1 ? "" : "s", nan_out == 1 ? "is" : "are",
+                   nchan > 1 ? " (in a channel)" : "", nan_out == 1 ? "s" : "");
+            nan_said = 1;
+        }
         double level, level_err, r_from;
         if (outer_level(plane, pw, ph, cx, cy, fwhm, ring_work, &level, &level_err, &r_from) == 0) {
             double added = level * (double)npix_finite, bias = added / (flux - added);
@@ -309,10 +355,11 @@ gl_status gl_psf_model_new(const gl_cube *psf, const char *name, long nx, long n
                 gl_log(GL_LOG_WARN,
                        "%s: the PSF's outer part (from %.0f px of its centre%s) sits at %.2g of "
                        "its peak (a background left in?): the star's flux taken from the PSF "
-                       "is %.1f%% too %s, and contrasts as much too %s; subtract it from the "
-                       "PSF",
+                       "is %.1f%% too %s, and planted companions carry that level times their "
+                       "contrast (contrasts measured in apertures much less: docs/inject.md); "
+                       "subtract it from the PSF",
                        name, r_from, nchan > 1 ? ", in a channel" : "", level / plane[ipk],
-                       100 * fabs(bias), bias > 0 ? "high" : "low", bias > 0 ? "low" : "high");
+                       100 * fabs(bias), bias > 0 ? "high" : "low");
         }
         if (c == 0) {
             m->centre_x = cx;

@@ -167,6 +167,35 @@ def test_a_frame_that_is_not_an_off_axis_psf_is_refused(tmp_path):
             out.unlink()
 
 
+def test_nan_pixels_of_the_psf(tmp_path):
+    """NaN in the PSF's core (within 3 FWHM of its peak): its flux cannot be
+    measured, refused in one line naming the file; NaN beyond it count as 0,
+    said once, and the star's flux is the sum of the finite pixels (numpy)."""
+    make_inputs(tmp_path, 48, 48)
+    comp = ["--companion", "10:0:1e-3"]
+    img = 1000 * gaussian(41, 41, 20, 20, 1.7)
+    core = img.copy()
+    core[19:22, 19:22] = np.nan
+    fits.PrimaryHDU(core.astype(np.float32)).writeto(tmp_path / "core.fits")
+    msg = bad(tmp_path, *comp, psf=tmp_path / "core.fits")
+    assert "core.fits" in msg and "NaN" in msg and "cannot be measured" in msg, msg
+    ring = img.copy()  # a hole in the core's wing, inside 3 FWHM (12 px)
+    ring[20, 26:28] = np.nan
+    fits.PrimaryHDU(ring.astype(np.float32)).writeto(tmp_path / "ring.fits")
+    msg = bad(tmp_path, *comp, psf=tmp_path / "ring.fits")
+    assert "ring.fits" in msg and "2 pixels within 3 FWHM" in msg, msg
+    wing = img.astype(np.float32)
+    wing[0:10, 0:10] = np.nan
+    fits.PrimaryHDU(wing).writeto(tmp_path / "wing.fits")
+    r = run("inject", tmp_path / "cube.fits", "--angles", tmp_path / "angles.txt", "--psf",
+            tmp_path / "wing.fits", "--out", tmp_path / "w.fits", *comp)
+    assert r.returncode == 0, r.stderr
+    said = [ln for ln in r.stderr.splitlines() if "NaN" in ln and "wing.fits" in ln]
+    assert len(said) == 1 and "100 pixels" in said[0] and "warning" in said[0], r.stderr
+    t = np.genfromtxt(tmp_path / "w.planted.csv", delimiter=",", names=True)
+    assert float(t["flux"]) == pytest.approx(1e-3 * np.nansum(wing.astype(float)), rel=1e-5)
+
+
 def test_negative_contrast_removes_a_planted_companion(tmp_path):
     """The negative-fake-companion use (Lagrange et al. 2010; Marois et al.
     2010): planting -c at the same place takes a +c companion out again,
