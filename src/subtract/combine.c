@@ -21,8 +21,8 @@
 #include "subtract/combine.h"
 
 #include <math.h>
-#include <stdint.h>
 #include <omp.h>
+#include <stdint.h>
 #include <string.h>
 
 #define COMBINE_BLOCK 16

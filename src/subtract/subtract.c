@@ -485,13 +485,9 @@ gl_status gl_subtract_run_memo(const gl_cube *cube, const double *angles, const 
         st = gl_cube_new(nx, ny, nplanes, nf, &res.raw_residuals);
     if (st)
         goto cleanup;
-    {
-        size_t nw = np * (size_t)nf;
-        if (memo)
-            c.memo = memo;
-        work = memo ? gl_subtract_memo_buffer(memo, GL_SUBTRACT_MEMO_WORK, nw)
-                    : gl_malloc(sizeof(float) * nw);
-    }
+    c.memo = memo;
+    work = memo ? gl_subtract_memo_buffer(memo, GL_SUBTRACT_MEMO_WORK, np * (size_t)nf)
+                : gl_malloc(sizeof(float) * np * (size_t)nf);
     if (!work) {
         st = gl_error_nomem("residual frames");
         goto cleanup;
